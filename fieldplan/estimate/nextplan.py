@@ -1,0 +1,85 @@
+"""Observed variability of a finished round, for sizing the next one.
+
+The sample-size calculation needs a standard deviation (or coefficient of
+variation) and, for cluster designs, the intra-cluster correlation. Both are
+read off the last round's results here so the next plan is sized from data
+rather than from a guess.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike
+
+from fieldplan.errors import InputError
+from fieldplan.estimate.cluster import icc_anova
+
+__all__ = ["Variability", "observed_variability"]
+
+
+@dataclass(frozen=True)
+class Variability:
+    """Observed spread of a variable.
+
+    ``sd`` is the pooled within-group standard deviation when groups are given
+    (the spread a new sample inside one block faces), otherwise the overall
+    one. ``icc`` is NaN unless clusters with several units each were given.
+    """
+
+    mean: float
+    sd: float
+    cv: float
+    n: int
+    df: float
+    icc: float
+    mean_cluster_size: float
+
+
+def observed_variability(
+    values: ArrayLike,
+    *,
+    groups: ArrayLike | None = None,
+    clusters: ArrayLike | None = None,
+) -> Variability:
+    """Standard deviation, CV and intra-cluster correlation from results.
+
+    Parameters
+    ----------
+    values : array_like of float
+        One value per point (or per plant with ``clusters``); NaN ignored.
+    groups : array_like, optional, keyword-only
+        Block or stratum of each value; the SD is then pooled within groups
+        (``Σ (n_h − 1) s_h² / Σ (n_h − 1)``) so block differences do not
+        inflate it.
+    clusters : array_like, optional, keyword-only
+        Cluster (point) of each value, for the ANOVA intra-cluster correlation.
+    """
+    y = np.asarray(values, dtype=float)
+    ok = np.isfinite(y)
+    if ok.sum() < 2:
+        raise InputError("need at least 2 numeric values to measure variability")
+    g = np.zeros(y.shape, dtype=object) if groups is None else np.asarray(groups, dtype=object)
+    d = pd.DataFrame({"g": g[ok].astype(str), "y": y[ok]})
+    agg = d.groupby("g")["y"].agg(["count", "var"])
+    dfs = (agg["count"] - 1).clip(lower=0).to_numpy(dtype=float)
+    if dfs.sum() < 1:
+        raise InputError("every group has a single value: no within-group spread to measure")
+    pooled = float(np.sqrt(np.nansum(dfs * agg["var"].fillna(0.0).to_numpy()) / dfs.sum()))
+    mean = float(d["y"].mean())
+    icc, mbar = float("nan"), float("nan")
+    if clusters is not None:
+        c = np.asarray(clusters, dtype=object)[ok]
+        icc = icc_anova(y[ok], c)
+        mbar = float(ok.sum() / max(len(set(map(str, c))), 1))
+    return Variability(
+        mean=mean,
+        sd=pooled,
+        cv=pooled / abs(mean) if mean != 0 else float("nan"),
+        n=int(ok.sum()),
+        df=float(dfs.sum()),
+        icc=icc,
+        mean_cluster_size=mbar,
+    )
