@@ -1,0 +1,124 @@
+"""``fieldplan plan``: read blocks, run a design, write the plan folder."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from fieldplan.cli.options import Force, Quiet, Seed, echo_err, handle_errors, progress_callback
+
+__all__ = ["register", "plan"]
+
+
+def _parse_angle(text: str) -> float | str:
+    from fieldplan.errors import OptionError
+
+    if text == "rows":
+        return "rows"
+    try:
+        return float(text)
+    except ValueError:
+        raise OptionError(f"--angle takes degrees (e.g. 30) or 'rows'; got {text!r}") from None
+
+
+@handle_errors
+def plan(
+    blocks_file: Annotated[
+        Path, typer.Argument(help="Block boundaries: GeoJSON, GeoPackage, Shapefile or zipped Shapefile.")
+    ],
+    out: Annotated[Path, typer.Option("--out", "-o", help="Folder to write the plan into.")],
+    spacing: Annotated[float | None, typer.Option(help="Grid spacing in metres.")] = None,
+    per_ha: Annotated[
+        float | None,
+        typer.Option("--per-ha", help="Sampling density in points per hectare (instead of --spacing)."),
+    ] = None,
+    layout: Annotated[str, typer.Option(help="Grid layout: square or triangular.")] = "square",
+    start: Annotated[
+        str, typer.Option(help="Random start: 'field' (one for the whole farm) or 'block' (one per block).")
+    ] = "field",
+    angle: Annotated[
+        str,
+        typer.Option(
+            help="Grid bearing in degrees clockwise from north, or 'rows' to follow each block's row_bearing_deg."
+        ),
+    ] = "0",
+    edge_buffer: Annotated[
+        float,
+        typer.Option("--edge-buffer", help="Metres kept free of samples inside each block edge (headland)."),
+    ] = 0.0,
+    exclude: Annotated[
+        Path | None, typer.Option(help="Polygons to keep samples out of (wet spots, buildings, tracks).")
+    ] = None,
+    layer: Annotated[str | None, typer.Option(help="GeoPackage layer holding the blocks.")] = None,
+    id_field: Annotated[
+        str | None,
+        typer.Option("--id-field", help="Field with block ids (default: block, block_id, id or name)."),
+    ] = None,
+    repair: Annotated[
+        bool, typer.Option(help="Repair invalid (self-intersecting) polygons instead of stopping.")
+    ] = False,
+    max_points: Annotated[
+        int, typer.Option("--max-points", help="Refuse plans with more points than this.")
+    ] = 10_000_000,
+    seed: Seed = 0,
+    force: Force = False,
+    quiet: Quiet = False,
+) -> None:
+    """Plan sample points over block boundaries and write them to a folder.
+
+    Example: fieldplan plan blocks.geojson --spacing 40 --edge-buffer 8 --seed 7 --out plan-2027-soil
+    """
+    from fieldplan.plan import make_plan
+    from fieldplan.read import read_blocks, read_exclusions
+    from fieldplan.store import write_plan
+    from fieldplan.write.safe import staged_folder
+
+    # Fail on an occupied folder before doing any work.
+    if out.is_dir() and any(out.iterdir()) and not force:
+        with staged_folder(out, force=False):
+            pass
+    blocks = read_blocks(blocks_file, layer=layer, id_field=id_field, repair=repair)
+    exclusions = read_exclusions(exclude, crs=blocks.crs) if exclude is not None else None
+    with progress_callback("Planning blocks", quiet=quiet) as progress:
+        result = make_plan(
+            blocks,
+            spacing=spacing,
+            per_ha=per_ha,
+            layout=layout,
+            start=start,
+            angle=_parse_angle(angle),
+            edge_buffer=edge_buffer,
+            exclusions=exclusions,
+            seed=seed,
+            max_points=max_points,
+            command=["fieldplan", *sys.argv[1:]],
+            progress=progress,
+        )
+    write_plan(result, out, force=force)
+    if not quiet:
+        report(result, out)
+
+
+def report(result, out: Path) -> None:
+    """Print what was planned, notes and flags, and the cautions."""
+    from fieldplan.safety import cautions_text
+
+    for note in result.meta.get("notes", []):
+        echo_err(f"note: {note}")
+    flagged = result.blocks[result.blocks["flags"] != ""]
+    for row in flagged.itertuples(index=False):
+        echo_err(f"note: block {row.block}: {row.flags}")
+    typer.echo(
+        f"Planned {len(result.points)} points in {len(result.blocks)} blocks "
+        f"({result.params.get('design')}, seed {result.params.get('seed')}) -> {out}"
+    )
+    if (out / "map.html").exists():
+        typer.echo(f"Map: {(out / 'map.html').resolve()}")
+    typer.echo("Before going out:\n" + cautions_text())
+
+
+def register(app: typer.Typer) -> None:
+    app.command("plan")(plan)

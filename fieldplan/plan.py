@@ -1,0 +1,327 @@
+"""The Plan object and the orchestrator that runs a design over blocks.
+
+``make_plan`` takes validated blocks (see :mod:`fieldplan.read`) and returns a
+:class:`Plan`; writing it to a folder is :func:`fieldplan.store.write_plan`.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import shlex
+import sys
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+from pyproj import CRS
+
+from fieldplan import __version__
+from fieldplan.design.grid import cell_area, grid_points, spacing_for_density
+from fieldplan.errors import DesignError, InvalidBlocksError, OptionError
+from fieldplan.rng import stream
+
+__all__ = ["Plan", "make_plan", "sample_areas", "DESIGNS", "DEFAULT_MAX_POINTS"]
+
+DEFAULT_MAX_POINTS = 10_000_000
+START_MODES = ("field", "block")
+
+
+@dataclass
+class Plan:
+    """A sampling plan: blocks, points, exclusions and everything needed to reproduce it.
+
+    Attributes
+    ----------
+    blocks : geopandas.GeoDataFrame
+        One row per block in the local metric CRS, with ``block, stratum, variety,
+        row_spacing_m, plant_spacing_m, row_bearing_deg, area_ha, sampled_area_ha,
+        n_points, flags``.
+    points : geopandas.GeoDataFrame
+        One row per sample point with ``point_id, block, stratum, design`` and any
+        design-specific columns.
+    exclusions : geopandas.GeoDataFrame
+        Areas kept free of samples (may be empty).
+    crs : pyproj.CRS
+        The local metric CRS of all three frames.
+    params : dict
+        Plan parameters, JSON-serialisable.
+    meta : dict
+        Manifest: version, command, seed, input file and its SHA-256, CRS, time, counts.
+    layers : dict
+        Further layers later stages add (routes, cores, results...), by name.
+    """
+
+    blocks: gpd.GeoDataFrame
+    points: gpd.GeoDataFrame
+    exclusions: gpd.GeoDataFrame
+    crs: CRS
+    params: dict
+    meta: dict
+    layers: dict[str, gpd.GeoDataFrame | pd.DataFrame] = field(default_factory=dict)
+
+    def summary(self) -> pd.DataFrame:
+        """Per-block table: ``block, area_ha, sampled_area_ha, n_points, points_per_ha, flags``."""
+        b = self.blocks
+        out = pd.DataFrame(
+            {
+                "block": b["block"].to_numpy(),
+                "area_ha": b["area_ha"].round(4).to_numpy(),
+                "sampled_area_ha": b["sampled_area_ha"].round(4).to_numpy(),
+                "n_points": b["n_points"].astype(int).to_numpy(),
+            }
+        )
+        out["points_per_ha"] = (out["n_points"] / out["area_ha"]).round(4)
+        extra = [c for c in ("stratum", "n_target_exact", "n_allocated") if c in b.columns]
+        for column in extra:
+            out[column] = b[column].to_numpy()
+        out["flags"] = b["flags"].to_numpy()
+        return out
+
+    @property
+    def seed(self) -> int:
+        return int(self.params["seed"])
+
+
+def _utc_now() -> str:
+    # SOURCE_DATE_EPOCH makes the manifest reproducible too (reproducible-builds convention).
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    moment = datetime.fromtimestamp(int(epoch), UTC) if epoch else datetime.now(UTC)
+    return moment.replace(microsecond=0).isoformat().replace("+00:00", "Z")
+
+
+def sample_areas(
+    blocks: gpd.GeoDataFrame, *, edge_buffer: float = 0.0, exclusions: gpd.GeoDataFrame | None = None
+) -> np.ndarray:
+    """Each block minus its inward edge buffer (headland) and minus exclusions.
+
+    Returns an object array of (possibly empty) polygons aligned with ``blocks``.
+    """
+    if edge_buffer < 0:
+        raise OptionError(f"--edge-buffer must be zero or positive metres, got {edge_buffer}")
+    geoms = blocks.geometry.values
+    areas = shapely.buffer(geoms, -edge_buffer, join_style="mitre") if edge_buffer > 0 else geoms
+    if exclusions is not None and len(exclusions):
+        union = shapely.union_all(exclusions.geometry.values)
+        areas = shapely.difference(areas, union)
+    return np.asarray(areas, dtype=object)
+
+
+def _fallback_point(block_geom, area, exclusion_union, rng: np.random.Generator):
+    """One point for a block the grid missed: random inside the sampled area, else a safe spot."""
+    if area is not None and not shapely.is_empty(area) and shapely.area(area) > 0:
+        minx, miny, maxx, maxy = shapely.bounds(area)
+        shapely.prepare(area)
+        for _ in range(50):
+            xy = rng.uniform((minx, miny), (maxx, maxy), size=(256, 2))
+            hit = shapely.contains_xy(area, xy[:, 0], xy[:, 1])
+            if hit.any():
+                return xy[np.argmax(hit)], "too small for the grid: one random point"
+        rep = shapely.get_coordinates(shapely.point_on_surface(area))[0]
+        return rep, "too small for the grid: one point on its surface"
+    target = block_geom
+    if exclusion_union is not None:
+        rest = shapely.difference(block_geom, exclusion_union)
+        if not shapely.is_empty(rest):
+            target = rest
+    rep = shapely.get_coordinates(shapely.point_on_surface(target))[0]
+    return rep, "edge buffer leaves nothing: one point on the block's surface"
+
+
+def _grid_design(
+    blocks: gpd.GeoDataFrame,
+    areas: np.ndarray,
+    params: dict,
+    exclusion_union,
+    progress: Callable[[int, int], None] | None,
+) -> tuple[pd.DataFrame, list[list[str]]]:
+    seed = params["seed"]
+    layout = params["layout"]
+    spacing = params["spacing"]
+    minx, miny, _, _ = blocks.total_bounds
+    # A field-wide start needs one lattice: anchor it at a rounded corner of the whole farm.
+    origin = (math.floor(minx / spacing) * spacing, math.floor(miny / spacing) * spacing)
+    field_offset = tuple(stream(seed, "grid-start", "field").random(2))
+    frames = []
+    flags: list[list[str]] = []
+    total = 0
+    for i, row in enumerate(blocks.itertuples(index=False)):
+        block_flags: list[str] = []
+        if params["start"] == "field":
+            offset, block_origin = field_offset, origin
+        else:
+            offset = tuple(stream(seed, "grid-start", row.block).random(2))
+            bx, by, _, _ = shapely.bounds(row.geometry)
+            block_origin = (bx, by)
+        bearing = params["angle"]
+        if bearing == "rows":
+            bearing = row.row_bearing_deg
+            if not np.isfinite(bearing):
+                bearing = 0.0
+                block_flags.append("no row_bearing_deg: grid not rotated")
+        xy = grid_points(
+            areas[i],
+            spacing,
+            layout=layout,
+            bearing_deg=float(bearing),
+            origin=block_origin,
+            offset=offset,
+            max_points=params["max_points"],
+        )
+        if len(xy) == 0:
+            point, note = _fallback_point(
+                row.geometry, areas[i], exclusion_union, stream(seed, "fallback", row.block)
+            )
+            xy = np.asarray(point, dtype=float).reshape(1, 2)
+            block_flags.append(note)
+        total += len(xy)
+        if total > params["max_points"]:
+            raise DesignError(
+                f"the plan would hold more than {params['max_points']:,} points "
+                f"(already {total:,} after block {row.block!r}); use a wider --spacing or lower --per-ha"
+            )
+        frames.append(pd.DataFrame({"block": row.block, "x": xy[:, 0], "y": xy[:, 1]}))
+        flags.append(block_flags)
+        if progress is not None:
+            progress(i + 1, len(blocks))
+    return pd.concat(frames, ignore_index=True), flags
+
+
+DESIGNS: dict[str, Callable] = {"grid": _grid_design}
+
+
+def _point_ids(block_column: pd.Series) -> np.ndarray:
+    counts = block_column.groupby(block_column, sort=False).cumcount() + 1
+    width = max(3, len(str(int(counts.max())))) if len(counts) else 3
+    return (block_column.astype(str) + "-" + counts.astype(str).str.zfill(width)).to_numpy()
+
+
+def make_plan(
+    blocks: gpd.GeoDataFrame,
+    *,
+    design: str = "grid",
+    spacing: float | None = None,
+    per_ha: float | None = None,
+    layout: str = "square",
+    start: str = "field",
+    angle: float | str = 0.0,
+    edge_buffer: float = 0.0,
+    exclusions: gpd.GeoDataFrame | None = None,
+    seed: int = 0,
+    max_points: int = DEFAULT_MAX_POINTS,
+    command: list[str] | None = None,
+    progress: Callable[[int, int], None] | None = None,
+) -> Plan:
+    """Plan samples over blocks.
+
+    Parameters
+    ----------
+    blocks : geopandas.GeoDataFrame
+        Output of :func:`fieldplan.read.read_blocks` (metric CRS, ``block`` column).
+    design : str
+        Name of a design in :data:`DESIGNS`.
+    spacing, per_ha : float
+        Grid spacing in metres, or density in points per hectare; exactly one.
+    layout : {"square", "triangular"}
+    start : {"field", "block"}
+        One random start for the whole field, or one per block.
+    angle : float or "rows"
+        Grid bearing in degrees clockwise from north, or ``"rows"`` to follow each
+        block's ``row_bearing_deg``.
+    edge_buffer : float
+        Inward buffer in metres (headland) kept free of samples.
+    exclusions : geopandas.GeoDataFrame, optional
+        Polygons kept free of samples, in the blocks' CRS.
+    seed : int
+        Seed of every random choice; the same inputs and seed give the same plan.
+    max_points : int
+        Refuse plans with more points than this.
+    """
+    if design not in DESIGNS:
+        raise OptionError(f"design must be one of {', '.join(DESIGNS)}; got {design!r}")
+    if start not in START_MODES:
+        raise OptionError(f"--start must be one of {', '.join(START_MODES)}; got {start!r}")
+    if spacing is not None and per_ha is not None:
+        raise OptionError("give --spacing or --per-ha, not both")
+    if spacing is None and per_ha is None:
+        raise OptionError("give a grid --spacing in metres or a density --per-ha")
+    if spacing is None:
+        spacing = spacing_for_density(per_ha, layout)
+    if not spacing > 0:
+        raise OptionError(f"--spacing must be positive metres, got {spacing}")
+    if isinstance(angle, str) and angle != "rows":
+        raise OptionError(f"--angle takes degrees or 'rows', got {angle!r}")
+    if not isinstance(seed, int | np.integer) or seed < 0:
+        raise OptionError(f"--seed must be a non-negative integer, got {seed!r}")
+    if len(blocks) == 0:
+        raise InvalidBlocksError("no blocks to plan")
+
+    crs = CRS.from_user_input(blocks.crs)
+    if exclusions is None:
+        exclusions = gpd.GeoDataFrame({"name": []}, geometry=[], crs=crs)
+    total_area = float(shapely.area(blocks.geometry.values).sum())
+    expected = total_area / cell_area(spacing, layout)
+    if expected > max_points:
+        raise DesignError(
+            f"the grid would create about {expected:,.0f} points, more than the limit of "
+            f"{max_points:,}; use a wider --spacing or a lower --per-ha (or raise --max-points)"
+        )
+    params = {
+        "design": design,
+        "spacing_m": round(float(spacing), 6),
+        "per_ha": per_ha,
+        "layout": layout,
+        "start": start,
+        "angle": angle if isinstance(angle, str) else float(angle),
+        "edge_buffer_m": float(edge_buffer),
+        "seed": int(seed),
+        "max_points": int(max_points),
+    }
+    areas = sample_areas(blocks, edge_buffer=edge_buffer, exclusions=exclusions)
+    exclusion_union = shapely.union_all(exclusions.geometry.values) if len(exclusions) else None
+    run = {**params, "spacing": float(spacing)}
+    table, flags = DESIGNS[design](blocks, areas, run, exclusion_union, progress)
+
+    out_blocks = blocks.copy()
+    if "stratum" not in out_blocks.columns:
+        out_blocks["stratum"] = out_blocks["block"]
+    out_blocks["area_ha"] = shapely.area(blocks.geometry.values) / 10_000.0
+    out_blocks["sampled_area_ha"] = shapely.area(areas) / 10_000.0
+    counts = table.groupby("block").size()
+    out_blocks["n_points"] = out_blocks["block"].map(counts).fillna(0).astype(int)
+    buffer_flags = [
+        ["edge buffer wider than the block: sampled without it"]
+        if edge_buffer > 0 and shapely.is_empty(a) and not any("edge buffer" in f for f in fl)
+        else []
+        for a, fl in zip(areas, flags, strict=True)
+    ]
+    out_blocks["flags"] = ["; ".join(f + b) for f, b in zip(flags, buffer_flags, strict=True)]
+
+    strata = dict(zip(out_blocks["block"], out_blocks["stratum"], strict=True))
+    points = gpd.GeoDataFrame(
+        {
+            "point_id": _point_ids(table["block"]),
+            "block": table["block"].to_numpy(),
+            "stratum": table["block"].map(strata).to_numpy(),
+            "design": design,
+        },
+        geometry=shapely.points(table["x"].to_numpy(), table["y"].to_numpy()),
+        crs=crs,
+    )
+    meta = {
+        "fieldplan_version": __version__,
+        "command": shlex.join(command if command is not None else sys.argv),
+        "seed": int(seed),
+        "input_file": blocks.attrs.get("source"),
+        "input_sha256": blocks.attrs.get("sha256"),
+        "crs": crs.to_string(),
+        "crs_name": crs.name,
+        "created_utc": _utc_now(),
+        "counts": {"blocks": int(len(out_blocks)), "points": int(len(points))},
+        "notes": list(blocks.attrs.get("notes", [])),
+    }
+    return Plan(out_blocks, points, exclusions, crs, params, meta)

@@ -1,0 +1,77 @@
+"""The plan folder: write a Plan atomically, load it back from plan.gpkg."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from pathlib import Path
+
+from fieldplan.errors import PlanDirError
+from fieldplan.write.gpkg import GPKG_NAME, read_info, write_gpkg
+from fieldplan.write.safe import staged_folder
+from fieldplan.write.tables import (
+    write_manifest,
+    write_points_csv,
+    write_points_geojson,
+    write_readme,
+    write_summary_csv,
+)
+
+__all__ = ["WRITERS", "write_plan", "load_plan", "CORE_LAYERS"]
+
+CORE_LAYERS = ("blocks", "points", "exclusions", "plan_info")
+
+#: Every writer takes ``(plan, folder)`` and writes its file(s) into ``folder``.
+WRITERS: list[Callable] = [
+    write_points_geojson,
+    write_points_csv,
+    write_summary_csv,
+    write_manifest,
+    write_readme,
+    write_gpkg,
+]
+
+
+def write_plan(plan, out_dir: str | Path, *, force: bool = False) -> Path:
+    """Write every output of ``plan`` into ``out_dir``.
+
+    Files are written into a temporary folder beside ``out_dir`` that replaces it
+    only when complete, so an interrupted run never leaves half a plan. A
+    non-empty ``out_dir`` is refused unless ``force``.
+    """
+    out_dir = Path(out_dir)
+    with staged_folder(out_dir, force=force) as stage:
+        for writer in WRITERS:
+            writer(plan, stage)
+    return out_dir
+
+
+def load_plan(plan_dir: str | Path):
+    """Load a plan folder written by :func:`write_plan` (reads ``plan.gpkg``)."""
+    import geopandas as gpd
+    import pyogrio
+    from pyproj import CRS
+
+    from fieldplan.plan import Plan
+
+    plan_dir = Path(plan_dir)
+    path = plan_dir / GPKG_NAME
+    if not path.is_file():
+        raise PlanDirError(f"{plan_dir}: no {GPKG_NAME} here; give a folder made by 'fieldplan plan'")
+    try:
+        names = [row[0] for row in pyogrio.list_layers(path)]
+        info = read_info(path)
+        blocks = gpd.read_file(path, layer="blocks", engine="pyogrio")
+        points = gpd.read_file(path, layer="points", engine="pyogrio")
+        exclusions = gpd.read_file(path, layer="exclusions", engine="pyogrio")
+        layers = {}
+        for name in names:
+            if name in CORE_LAYERS:
+                continue
+            frame = pyogrio.read_dataframe(path, layer=name)
+            layers[name] = frame
+    except Exception as err:
+        raise PlanDirError(f"{path}: cannot read the plan ({err}); re-run 'fieldplan plan'") from None
+    params = info.pop("parameters", {})
+    crs = CRS.from_user_input(blocks.crs)
+    blocks["flags"] = blocks["flags"].fillna("") if "flags" in blocks else ""
+    return Plan(blocks, points, exclusions.set_crs(crs, allow_override=True), crs, params, info, layers)

@@ -1,0 +1,79 @@
+"""plan.gpkg: the plan's embedded store (OGC GeoPackage) that later stages read and extend.
+
+Layers ``blocks``, ``points`` and ``exclusions`` in the plan's metric CRS, a
+``plan_info`` table of key/value rows holding the manifest, and any further
+layers a later stage adds (``routes``, ``cores``, ``results``...).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from contextlib import contextmanager
+from datetime import UTC, datetime
+from pathlib import Path
+
+import geopandas as gpd
+import pandas as pd
+
+__all__ = ["GPKG_NAME", "write_gpkg", "write_layer", "read_info", "info_table"]
+
+GPKG_NAME = "plan.gpkg"
+
+
+@contextmanager
+def _fixed_clock():
+    # GDAL stamps gpkg_contents.last_change; pinning it keeps reruns comparable.
+    import pyogrio
+
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    if not epoch:
+        yield
+        return
+    stamp = datetime.fromtimestamp(int(epoch), UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": stamp})
+    try:
+        yield
+    finally:
+        pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": None})
+
+
+def info_table(plan) -> pd.DataFrame:
+    """The manifest as ``key, value`` rows (values JSON-encoded)."""
+    items = {**plan.meta, "parameters": plan.params}
+    return pd.DataFrame(
+        {"key": list(items), "value": [json.dumps(v, sort_keys=True, default=str) for v in items.values()]}
+    )
+
+
+def write_layer(path: Path, name: str, frame, *, geometry_type: str | None = None) -> None:
+    """Write one layer (spatial or plain table) into a GeoPackage, replacing it if present."""
+    import pyogrio
+
+    with _fixed_clock():
+        if isinstance(frame, gpd.GeoDataFrame):
+            kwargs = {"geometry_type": geometry_type} if geometry_type else {}
+            if len(frame) == 0 and not geometry_type:
+                kwargs["geometry_type"] = "Unknown"
+            pyogrio.write_dataframe(frame, path, layer=name, driver="GPKG", **kwargs)
+        else:
+            pyogrio.write_dataframe(pd.DataFrame(frame), path, layer=name, driver="GPKG")
+
+
+def write_gpkg(plan, folder: Path) -> None:
+    """Write ``plan.gpkg`` with the plan's layers and ``plan_info``."""
+    path = Path(folder) / GPKG_NAME
+    write_layer(path, "blocks", plan.blocks, geometry_type="MultiPolygon")
+    write_layer(path, "points", plan.points, geometry_type="Point")
+    write_layer(path, "exclusions", plan.exclusions, geometry_type="MultiPolygon")
+    write_layer(path, "plan_info", info_table(plan))
+    for name, frame in plan.layers.items():
+        write_layer(path, name, frame)
+
+
+def read_info(path: Path) -> dict:
+    """Read ``plan_info`` back into a dict."""
+    import pyogrio
+
+    table = pyogrio.read_dataframe(path, layer="plan_info", read_geometry=False)
+    return {k: json.loads(v) for k, v in zip(table["key"], table["value"], strict=True)}

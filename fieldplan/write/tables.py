@@ -1,0 +1,120 @@
+"""Plain outputs: points.geojson (RFC 7946), points.csv, summary.csv, manifest.json, README.txt."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import shapely
+
+from fieldplan.crs import WGS84
+from fieldplan.safety import cautions_text
+from fieldplan.write.safe import atomic_write_text, neutralise_frame
+
+__all__ = [
+    "points_lonlat",
+    "write_points_geojson",
+    "write_points_csv",
+    "write_summary_csv",
+    "write_manifest",
+    "write_readme",
+    "LONLAT_DECIMALS",
+]
+
+# 8 decimals of a degree is about 1 mm: finer than any GPS, coarse enough to be stable text.
+LONLAT_DECIMALS = 8
+
+
+def points_lonlat(points) -> np.ndarray:
+    """``(n, 2)`` WGS84 longitude/latitude of a GeoDataFrame's points, rounded for output."""
+    if len(points) == 0:
+        return np.empty((0, 2))
+    xy = shapely.get_coordinates(points.to_crs(WGS84).geometry.values)
+    return np.round(xy, LONLAT_DECIMALS)
+
+
+def _json_value(value):
+    if value is None:
+        return None
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, pd.Timestamp):
+        return value.isoformat()
+    return value
+
+
+def write_points_geojson(plan, folder: Path) -> None:
+    """``points.geojson``: a FeatureCollection in WGS84 with lon/lat order (RFC 7946 §3.1.1)."""
+    lonlat = points_lonlat(plan.points)
+    columns = [c for c in plan.points.columns if c != "geometry"]
+    records = plan.points[columns].to_dict(orient="records")
+    features = []
+    for (lon, lat), props in zip(lonlat, records, strict=True):
+        features.append(
+            {
+                "type": "Feature",
+                "properties": {k: _json_value(v) for k, v in props.items()},
+                "geometry": {"type": "Point", "coordinates": [float(lon), float(lat)]},
+            }
+        )
+    collection = {"type": "FeatureCollection", "features": features}
+    atomic_write_text(
+        folder / "points.geojson", json.dumps(collection, ensure_ascii=False, indent=None) + "\n"
+    )
+
+
+def write_points_csv(plan, folder: Path) -> None:
+    """``points.csv``: ids, lon/lat (WGS84) and x/y in the local metric CRS named in ``crs``."""
+    pts = plan.points
+    lonlat = points_lonlat(pts)
+    xy = np.round(shapely.get_coordinates(pts.geometry.values), 3) if len(pts) else np.empty((0, 2))
+    base = ["point_id", "block", "stratum", "design"]
+    table = pd.DataFrame({c: pts[c].to_numpy() for c in base})
+    table["lon"] = lonlat[:, 0]
+    table["lat"] = lonlat[:, 1]
+    table["x"] = xy[:, 0]
+    table["y"] = xy[:, 1]
+    table["crs"] = plan.crs.to_string()
+    for column in pts.columns:
+        if column not in base and column != "geometry":
+            table[column] = pts[column].to_numpy()
+    text = neutralise_frame(table).to_csv(index=False, lineterminator="\n")
+    atomic_write_text(folder / "points.csv", text)
+
+
+def write_summary_csv(plan, folder: Path) -> None:
+    """``summary.csv``: per block area, sampled area, points, density and flags."""
+    text = neutralise_frame(plan.summary()).to_csv(index=False, lineterminator="\n")
+    atomic_write_text(folder / "summary.csv", text)
+
+
+def write_manifest(plan, folder: Path) -> None:
+    """``manifest.json``: what is needed to reproduce and audit the plan."""
+    manifest = {**plan.meta, "parameters": plan.params}
+    atomic_write_text(
+        folder / "manifest.json", json.dumps(manifest, indent=2, sort_keys=True, default=str) + "\n"
+    )
+
+
+def write_readme(plan, folder: Path) -> None:
+    """``README.txt``: what each file is, how to reproduce, and the field cautions."""
+    lines = [
+        "fieldplan sampling plan",
+        "",
+        f"Blocks: {len(plan.blocks)}   Points: {len(plan.points)}   Design: {plan.params.get('design')}",
+        f"Seed: {plan.params.get('seed')}   CRS used for distances: {plan.meta.get('crs_name')}",
+        f"Reproduce with: {plan.meta.get('command')}",
+        "",
+        "Files: points.geojson / points.csv (sample points), summary.csv (per block),",
+        "manifest.json (parameters, input checksum), plan.gpkg (everything, for later steps).",
+        "",
+        "Before going into the field:",
+        cautions_text(),
+        "",
+    ]
+    atomic_write_text(folder / "README.txt", "\n".join(lines))
