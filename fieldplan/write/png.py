@@ -1,0 +1,324 @@
+"""plan.png (and plan.pdf): a printable A4 landscape page of the plan.
+
+Blocks with their id and variety, hatched exclusions, sample points by stratum
+(colour *and* marker shape), a north arrow turned to true north, a scale bar,
+a legend, the plan id, seed and date, and the field cautions. Drawn with
+matplotlib's Agg canvas on a private Figure (no pyplot state), in the plan's
+metric CRS so the scale bar is exact. Bytes are stable: the PNG carries no
+software tag and the PDF no creation date.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+import textwrap
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import shapely
+
+from fieldplan.write.html_map import plan_caption, stratum_styles
+from fieldplan.write.safe import atomic_write_bytes
+
+__all__ = [
+    "A4_LANDSCAPE_IN",
+    "MARKERS",
+    "nice_length",
+    "true_north_bearing",
+    "plan_figure",
+    "plan_image_bytes",
+    "write_png",
+    "write_pdf",
+    "png_writer",
+]
+
+A4_LANDSCAPE_IN = (297 / 25.4, 210 / 25.4)  # ISO 216 A4, 297 mm x 210 mm
+DPI = 150
+MARKERS = {
+    "circle": "o",
+    "square": "s",
+    "triangle": "^",
+    "diamond": "D",
+    "triangle-down": "v",
+    "hexagon": "h",
+}
+MAX_LEGEND_STRATA = 24
+
+
+def nice_length(span_m: float) -> float:
+    """Largest 1-2-5 x 10^k length not above ``span_m`` (at least 1 m)."""
+    if not span_m > 1:
+        return 1.0
+    power = 10 ** math.floor(math.log10(span_m))
+    for step in (5, 2, 1):
+        if step * power <= span_m:
+            return float(step * power)
+    return float(power)
+
+
+def true_north_bearing(crs, x: float, y: float) -> float:
+    """Direction of true north at ``(x, y)``, in degrees clockwise from the map's grid north.
+
+    Found by stepping 0.001 degree north in latitude and projecting back, so it
+    equals minus the meridian convergence of the projection at that spot.
+    """
+    from pyproj import Transformer
+
+    to_geo = Transformer.from_crs(crs, 4326, always_xy=True)
+    to_map = Transformer.from_crs(4326, crs, always_xy=True)
+    lon, lat = to_geo.transform(x, y)
+    step = -0.001 if lat > 89.0 else 0.001
+    x2, y2 = to_map.transform(lon, lat + step)
+    dx, dy = (x2 - x) * np.sign(step), (y2 - y) * np.sign(step)
+    return math.degrees(math.atan2(dx, dy))
+
+
+def _patches(geoms, **style):
+    from matplotlib.collections import PatchCollection
+    from matplotlib.patches import PathPatch
+    from matplotlib.path import Path as MplPath
+
+    patches = []
+    for geom in geoms:
+        if geom is None or shapely.is_empty(geom):
+            continue
+        for poly in getattr(geom, "geoms", [geom]):
+            if poly.geom_type != "Polygon" or poly.is_empty:
+                continue
+            rings = [np.asarray(poly.exterior.coords)] + [np.asarray(r.coords) for r in poly.interiors]
+            verts = np.concatenate(rings)
+            codes = np.concatenate(
+                [np.r_[MplPath.MOVETO, np.full(len(r) - 2, MplPath.LINETO), MplPath.CLOSEPOLY] for r in rings]
+            )
+            patches.append(PathPatch(MplPath(verts, codes)))
+    return PatchCollection(patches, match_original=False, **style)
+
+
+def _text(ax, x, y, s, **kw):
+    # parse_math=False: a '$' in a block or stratum name is text, not TeX.
+    return ax.text(x, y, s, parse_math=False, **kw)
+
+
+def plan_figure(plan: Any, *, title: str | None = None):
+    """Build the page as a :class:`matplotlib.figure.Figure` (Agg canvas attached)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+    from matplotlib.patheffects import withStroke
+    from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
+
+    from fieldplan.safety import CAUTIONS
+
+    caption = plan_caption(plan)
+    fig = Figure(figsize=A4_LANDSCAPE_IN, dpi=DPI)
+    FigureCanvasAgg(fig)
+    ax = fig.add_axes((0.03, 0.12, 0.70, 0.78))
+    ax.set_aspect("equal")
+    ax.set_xticks([])
+    ax.set_yticks([])
+    for spine in ax.spines.values():
+        spine.set_color("#888888")
+
+    blocks = plan.blocks
+    halo = [withStroke(linewidth=3, foreground="white")]
+    ax.add_collection(
+        _patches(blocks.geometry.values, facecolor="#fbfbf7", edgecolor="#333333", linewidth=1.2)
+    )
+    exclusions = getattr(plan, "exclusions", None)
+    if exclusions is not None and len(exclusions):
+        ax.add_collection(
+            _patches(
+                exclusions.to_crs(plan.crs).geometry.values,
+                facecolor="#d9d9d9",
+                edgecolor="#555555",
+                hatch="////",
+                linestyle="--",
+                linewidth=0.8,
+            )
+        )
+
+    points = plan.points
+    styles = stratum_styles(points["stratum"].astype(str)) if len(points) else {}
+    xy = shapely.get_coordinates(points.geometry.values) if len(points) else np.empty((0, 2))
+    strata = points["stratum"].astype(str).to_numpy() if len(points) else np.array([])
+    size = 28 if len(points) < 500 else (14 if len(points) < 5000 else 4)
+    handles = []
+    for i, (name, style) in enumerate(styles.items()):
+        mask = strata == name
+        marker = MARKERS[style["shape"]]
+        ax.scatter(
+            xy[mask, 0],
+            xy[mask, 1],
+            s=size,
+            marker=marker,
+            c=style["colour"],
+            edgecolors="#1a1a1a",
+            linewidths=0.5,
+            zorder=3,
+        )
+        if i < MAX_LEGEND_STRATA:
+            handles.append(
+                Line2D(
+                    [],
+                    [],
+                    linestyle="none",
+                    marker=marker,
+                    markersize=7,
+                    markerfacecolor=style["colour"],
+                    markeredgecolor="#1a1a1a",
+                    label=f"Stratum {name} ({int(mask.sum())})",
+                )
+            )
+    if len(styles) > MAX_LEGEND_STRATA:
+        handles.append(Patch(color="none", label=f"... and {len(styles) - MAX_LEGEND_STRATA} more strata"))
+
+    if len(blocks):
+        anchors = shapely.get_coordinates(shapely.point_on_surface(blocks.geometry.values))
+        varieties = blocks["variety"].tolist() if "variety" in blocks else [None] * len(blocks)
+        for (x, y), name, variety in zip(anchors, blocks["block"].tolist(), varieties, strict=True):
+            label = str(name)
+            if isinstance(variety, str) and variety:
+                label += "\n" + variety
+            _text(
+                ax,
+                x,
+                y,
+                label,
+                ha="center",
+                va="center",
+                fontsize=7,
+                fontweight="bold",
+                color="#222222",
+                path_effects=halo,
+                zorder=4,
+            )
+
+    # Frame: the blocks' extent (or the points') with a margin.
+    frame = blocks if len(blocks) else points
+    if len(frame):
+        minx, miny, maxx, maxy = (float(v) for v in frame.total_bounds)
+    else:
+        minx, miny, maxx, maxy = 0.0, 0.0, 100.0, 100.0
+    pad = 0.05 * max(maxx - minx, maxy - miny, 10.0)
+    ax.set_xlim(minx - pad, maxx + pad)
+    ax.set_ylim(miny - pad, maxy + pad)
+    ax.apply_aspect()
+    x0, x1 = ax.get_xlim()
+    y0, y1 = ax.get_ylim()
+
+    bar = nice_length((x1 - x0) / 5)
+    bar_label = f"{bar / 1000:g} km" if bar >= 1000 else f"{bar:g} m"
+    ax.add_artist(
+        AnchoredSizeBar(
+            ax.transData,
+            bar,
+            bar_label,
+            "lower left",
+            pad=0.6,
+            frameon=True,
+            size_vertical=(y1 - y0) / 300,
+            color="#111111",
+            fontproperties={"size": 8},
+        )
+    )
+
+    north = true_north_bearing(plan.crs, (x0 + x1) / 2, (y0 + y1) / 2)
+    cx, cy, length = 0.94, 0.88, 0.08
+    dx = length * math.sin(math.radians(north))
+    dy = length * math.cos(math.radians(north))
+    ax.annotate(
+        "",
+        xy=(cx + dx / 2, cy + dy / 2),
+        xytext=(cx - dx / 2, cy - dy / 2),
+        xycoords="axes fraction",
+        arrowprops={"arrowstyle": "-|>,head_width=0.4,head_length=0.8", "color": "#111111", "linewidth": 2},
+    )
+    _text(
+        ax,
+        cx + 0.7 * dx,
+        cy + 0.7 * dy,
+        "N",
+        transform=ax.transAxes,
+        ha="center",
+        va="center",
+        fontsize=11,
+        fontweight="bold",
+        path_effects=halo,
+    )
+
+    handles.append(Patch(facecolor="#fbfbf7", edgecolor="#333333", label="Block (id, variety)"))
+    if exclusions is not None and len(exclusions):
+        handles.append(
+            Patch(
+                facecolor="#d9d9d9",
+                edgecolor="#555555",
+                hatch="////",
+                linestyle="--",
+                label="Exclusion (not sampled)",
+            )
+        )
+    legend = fig.legend(
+        handles=handles,
+        loc="upper left",
+        bbox_to_anchor=(0.75, 0.90),
+        fontsize=7,
+        frameon=True,
+        title="Legend",
+        title_fontsize=8,
+    )
+    for text in legend.get_texts():
+        text.set_parse_math(False)
+
+    head = title or f"Sampling plan {caption['plan_id']}"
+    fig.text(0.03, 0.955, head, fontsize=13, fontweight="bold", parse_math=False)
+    sub = (
+        f"Seed {caption['seed']}   Date {caption['date'] or '-'}   Design {caption['design'] or '-'}"
+        f"   {len(points)} points in {len(blocks)} blocks   CRS {plan.crs.name}"
+    )
+    fig.text(0.03, 0.925, sub, fontsize=8, parse_math=False)
+    cautions = "Cautions: " + " ".join(str(c) for c in CAUTIONS)
+    fig.text(
+        0.03,
+        0.095,
+        "\n".join(textwrap.wrap(cautions, 190)),
+        fontsize=6.5,
+        va="top",
+        parse_math=False,
+        color="#333333",
+    )
+    return fig
+
+
+def plan_image_bytes(plan: Any, *, fmt: str = "png") -> bytes:
+    """Render the page as PNG or PDF bytes; identical plans give identical bytes."""
+    metadata = {"png": {"Software": None}, "pdf": {"CreationDate": None, "Producer": None}}
+    if fmt not in metadata:
+        from fieldplan.errors import OptionError
+
+        raise OptionError(f"printable page format must be 'png' or 'pdf', got {fmt!r}")
+    fig = plan_figure(plan)
+    buf = io.BytesIO()
+    fig.savefig(buf, format=fmt, dpi=DPI, metadata=metadata[fmt])
+    return buf.getvalue()
+
+
+def write_png(plan: Any, path: Path | str) -> Path:
+    """Write the printable page as PNG (atomically) and return its path."""
+    path = Path(path)
+    atomic_write_bytes(path, plan_image_bytes(plan, fmt="png"))
+    return path
+
+
+def write_pdf(plan: Any, path: Path | str) -> Path:
+    """Write the printable page as a one-page PDF (atomically) and return its path."""
+    path = Path(path)
+    atomic_write_bytes(path, plan_image_bytes(plan, fmt="pdf"))
+    return path
+
+
+def png_writer(plan: Any, folder: Path) -> None:
+    """Plan-folder writer (``fieldplan.store.WRITERS``): ``plan.png``."""
+    write_png(plan, Path(folder) / "plan.png")

@@ -1,0 +1,183 @@
+"""map.html: self-contained, offline, escaped, deterministic."""
+
+from __future__ import annotations
+
+import base64
+import hashlib
+import html
+import json
+import re
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pytest
+import shapely
+from pyproj import Transformer
+
+from fieldplan.plan import make_plan
+from fieldplan.read import read_blocks
+from fieldplan.safety import CAUTIONS
+from fieldplan.write.html_map import (
+    PALETTE,
+    SHAPES,
+    map_html,
+    stratum_styles,
+    write_map,
+)
+
+EVIL_BLOCK = '<img src=x onerror="window.__fp_pwned=1">'
+EVIL_VARIETY = "</script><script>window.__fp_pwned=2</script>"
+
+
+def _square(x0: float, y0: float, w: float, h: float) -> dict:
+    ring = [[x0, y0], [x0 + w, y0], [x0 + w, y0 + h], [x0, y0 + h], [x0, y0]]
+    return {"type": "Polygon", "coordinates": [ring]}
+
+
+@pytest.fixture(scope="module")
+def plan(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("estate")
+    names = [("A1", "Syrah"), (EVIL_BLOCK, EVIL_VARIETY), ("B&'\"2", "=cmd|' /C calc'!A0")]
+    features = [
+        {
+            "type": "Feature",
+            "properties": {"block": name, "variety": variety},
+            "geometry": _square(18.9 + i * 0.003, -33.86, 0.0025, 0.002),
+        }
+        for i, (name, variety) in enumerate(names)
+    ]
+    path = folder / "blocks.geojson"
+    path.write_text(json.dumps({"type": "FeatureCollection", "features": features}))
+    blocks = read_blocks(path)
+    exclusions = gpd.GeoDataFrame(
+        {"name": ["<b>wet</b> spot"]},
+        geometry=[shapely.buffer(shapely.centroid(blocks.geometry.values[1]), 20.0)],
+        crs=blocks.crs,
+    )
+    return make_plan(blocks, spacing=30.0, seed=3, exclusions=exclusions, command=["test"])
+
+
+def _data(page: str) -> dict:
+    match = re.search(r'<script type="application/json" id="fp-data">(.*?)</script>', page, re.S)
+    assert match is not None
+    return json.loads(match.group(1))
+
+
+def test_page_loads_nothing_from_the_network(plan):
+    page = map_html(plan)
+    # reference: HTML Living Standard, elements that fetch: script src, link href,
+    # img/iframe/source src, CSS url() and @import.
+    assert not re.search(r"<(script|img|iframe|source|embed|object)[^>]*\ssrc\s*=", page, re.I)
+    assert not re.search(r"<link\b", page, re.I)
+    assert "@import" not in page
+    for url in re.findall(r"url\(([^)]*)\)", page):
+        # reference: RFC 2397 data: URLs carry their content inline.
+        assert url.strip("'\"").startswith(("data:", "#")), url
+    # Leaflet itself is inlined from the xstatic package.
+    import xstatic.pkg.leaflet as xl
+
+    js = (Path(xl.BASE_DIR) / "leaflet.js").read_text(encoding="utf-8")
+    assert js.splitlines()[0] in page
+    assert "sourceMappingURL" not in page
+
+
+def test_point_coordinates_match_pyproj(plan):
+    data = _data(map_html(plan))
+    coords = np.array([f["geometry"]["coordinates"] for f in data["points"]["features"]])
+    ids = [f["properties"]["point_id"] for f in data["points"]["features"]]
+    assert ids == plan.points["point_id"].tolist()
+    xy = shapely.get_coordinates(plan.points.geometry.values)
+    # reference: pyproj.Transformer (PROJ) for UTM -> WGS84
+    lon, lat = Transformer.from_crs(plan.crs, 4326, always_xy=True).transform(xy[:, 0], xy[:, 1])
+    np.testing.assert_allclose(coords[:, 0], lon, atol=1e-7)
+    np.testing.assert_allclose(coords[:, 1], lat, atol=1e-7)
+    # Every point lies inside the fitted bounds.
+    (s, w), (n, e) = data["bounds"]
+    assert (coords[:, 0] >= w).all() and (coords[:, 0] <= e).all()
+    assert (coords[:, 1] >= s).all() and (coords[:, 1] <= n).all()
+
+
+def test_input_text_is_escaped_and_round_trips(plan):
+    page = map_html(plan)
+    # reference: HTML Living Standard 13.2.5.4 "script data state": '</script' and '<!--'
+    # inside a script element end or alter it; OWASP XSS Prevention Cheat Sheet, rule 3.1
+    # (JSON in HTML: escape <, >, & as \u003c, \u003e, \u0026).
+    for raw in (EVIL_BLOCK, EVIL_VARIETY, "<b>wet</b>", "B&'"):
+        assert raw not in page
+    body = page.split('id="fp-data">', 1)[1].split("</script>", 1)[0]
+    assert "<" not in body and ">" not in body and "&" not in body
+    data = _data(page)
+    names = {f["properties"]["block"] for f in data["blocks"]["features"]}
+    varieties = {f["properties"]["variety"] for f in data["blocks"]["features"]}
+    assert EVIL_BLOCK in names and EVIL_VARIETY in varieties
+    assert data["exclusions"]["features"][0]["properties"]["name"] == "<b>wet</b> spot"
+    # The page script writes data only through textContent.
+    app = page.rsplit("<script>", 1)[1]
+    assert "innerHTML" not in app and "insertAdjacentHTML" not in app and "eval(" not in app
+
+
+def test_content_security_policy_pins_the_two_scripts(plan):
+    page = map_html(plan)
+    csp = re.search(r'http-equiv="Content-Security-Policy" content="([^"]*)"', page).group(1)
+    csp = html.unescape(csp)
+    hashes = set(re.findall(r"'sha256-([A-Za-z0-9+/=]+)'", csp))
+    scripts = re.findall(r"<script>(.*?)</script>", page, re.S)
+    assert len(scripts) == 2
+    # reference: W3C Content Security Policy Level 3, section 8.4 (hash-source:
+    # base64 of the SHA-256 digest of the script element's text).
+    digests = {base64.b64encode(hashlib.sha256(s.encode()).digest()).decode() for s in scripts}
+    assert digests == hashes
+    assert "default-src 'none'" in csp
+
+
+def test_caption_cautions_and_strata(plan):
+    data = _data(map_html(plan))
+    assert data["caption"]["seed"] == "3"
+    assert data["caption"]["date"] == plan.meta["created_utc"][:10]
+    assert data["cautions"] == list(CAUTIONS)
+    strata = {s["name"] for s in data["strata"]}
+    assert strata == set(plan.points["stratum"].astype(str))
+    # The online base layer is listed for the layer control, never added by default.
+    assert data["osm"]["url"].startswith("https://")
+    assert "osm.addTo" not in map_html(plan)
+
+
+def test_palette_is_okabe_ito_and_styles_never_rely_on_colour_alone():
+    # reference: Okabe & Ito (2008), Color Universal Design, eight-colour set (from memory)
+    okabe_ito = {"#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7"}
+    assert set(PALETTE) == okabe_ito
+    styles = stratum_styles([f"s{i:02d}" for i in range(len(PALETTE) * len(SHAPES))])
+    pairs = {(s["colour"], s["shape"]) for s in styles.values()}
+    assert len(pairs) == len(styles)  # common practice, no source: shape + colour per class
+    # Neighbouring strata differ in shape as well as colour.
+    ordered = list(styles.values())
+    assert all(a["shape"] != b["shape"] for a, b in zip(ordered, ordered[1:], strict=False))
+
+
+def test_optional_layers_routes_spares_actual(plan):
+    points = plan.points
+    routes = gpd.GeoDataFrame(
+        {"crew": ["1", "<i>2</i>"]},
+        geometry=[
+            shapely.linestrings(shapely.get_coordinates(points.geometry.values[:5])),
+            shapely.linestrings(shapely.get_coordinates(points.geometry.values[5:9])),
+        ],
+        crs=plan.crs,
+    )
+    spares = points.iloc[:3].copy()
+    spares["point_id"] = ["S-1", "S-2", "S-3"]
+    actual = points.iloc[:2][["point_id", "geometry"]].copy()
+    page = map_html(plan, routes=routes, spares=spares, actual=actual)
+    data = _data(page)
+    assert [c["name"] for c in data["crews"]] == ["1", "<i>2</i>"]
+    assert len(data["routes"]["features"]) == 2
+    assert [f["properties"]["point_id"] for f in data["spares"]["features"]] == ["S-1", "S-2", "S-3"]
+    assert len(data["actual"]["features"]) == 2
+    assert "<i>2</i>" not in page
+
+
+def test_write_map_is_deterministic(plan, tmp_path):
+    a = write_map(plan, tmp_path / "a.html").read_bytes()
+    b = write_map(plan, tmp_path / "b.html").read_bytes()
+    assert a == b  # common practice, no source: reproducible outputs compare byte for byte
