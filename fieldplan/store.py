@@ -7,6 +7,10 @@ from pathlib import Path
 
 from fieldplan.errors import PlanDirError
 from fieldplan.write.gpkg import GPKG_NAME, read_info, write_gpkg
+from fieldplan.write.gpx import gpx_writer
+from fieldplan.write.html_map import map_writer
+from fieldplan.write.kml import kml_writer
+from fieldplan.write.png import png_writer
 from fieldplan.write.safe import staged_folder
 from fieldplan.write.tables import (
     write_manifest,
@@ -28,6 +32,10 @@ WRITERS: list[Callable] = [
     write_manifest,
     write_readme,
     write_gpkg,
+    map_writer,
+    gpx_writer,
+    kml_writer,
+    png_writer,
 ]
 
 
