@@ -1,0 +1,320 @@
+"""Soil cores for composite samples: where each core of a composite is taken.
+
+Two layouts:
+
+* **cell composites** (:func:`disc_cores`): ``n`` cores around a plan point,
+  within ``radius`` metres, in a sunflower (Vogel spiral) pattern: core ``k``
+  at radius ``R*sqrt((k + 1/2)/n)`` and angle ``k`` times the golden angle, turned
+  by a random rotation per composite. Each core then stands for an equal share
+  of the disc. Cores that fall outside the allowed area are re-drawn uniformly
+  in the disc; the few still outside after that are moved to the nearest spot
+  inside, so every composite keeps exactly ``n`` cores.
+* **zone composites** (:func:`zigzag_cores`): ``n`` cores evenly spaced along a
+  zig-zag traverse that runs the length of the zone's long axis (from its
+  minimum rotated rectangle), so the composite represents the whole zone.
+
+"Allowed area" is the block minus a buffer from its edges (headlands, roads,
+old fence lines along the boundary) and from excluded features (manure or
+lime heaps, tracks, buildings), see :func:`core_area`.
+
+All functions work in metres in a local metric CRS and are vectorised over
+composites with numpy and shapely 2.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import shapely
+
+from fieldplan.errors import DesignError, OptionError
+
+__all__ = [
+    "DEFAULT_CORES",
+    "CORES_RANGE",
+    "DEFAULT_DEPTH_CM",
+    "DEFAULT_BUFFER_M",
+    "DEFAULT_CORE_RADIUS_M",
+    "CELL_HA",
+    "core_area",
+    "usable_core_area",
+    "sunflower_offsets",
+    "disc_cores",
+    "long_axis",
+    "zigzag_cores",
+]
+
+# Trade defaults (common practice, no source; values from memory).
+#: Cores pooled into one composite sample; 15-20 is the usual advice.
+DEFAULT_CORES = 16
+CORES_RANGE = (15, 20)
+#: Routine fertility sampling depth in cm.
+DEFAULT_DEPTH_CM = (0, 15)
+#: Metres kept from field edges, roads, old fence lines, manure or lime heaps.
+DEFAULT_BUFFER_M = 30.0
+#: Grid cells of about 1 ha (2.5 acres): a 100 m grid spacing.
+CELL_HA = 1.0
+#: Radius in metres around a grid point within which a cell composite's cores lie.
+DEFAULT_CORE_RADIUS_M = 10.0
+
+GOLDEN_ANGLE = math.pi * (3.0 - math.sqrt(5.0))
+_REDRAWS = 32
+# Cores moved inside are put this far within the allowed area, so that rounding
+# of coordinates in output files cannot put them on or over its edge.
+_INSET_M = 0.25
+_QUAD_SEGS = 8
+
+
+def core_area(block, exclusions=None, *, buffer_m: float = DEFAULT_BUFFER_M):
+    """The block minus ``buffer_m`` from its edges and from every exclusion.
+
+    Parameters
+    ----------
+    block : shapely Polygon or MultiPolygon
+        In metres.
+    exclusions : array-like of shapely geometries, optional
+        Features to keep cores away from (heaps, tracks, buildings...).
+    buffer_m : float, keyword-only
+        Distance in metres.
+    """
+    if not buffer_m >= 0:
+        raise OptionError(f"--core-buffer must be zero or positive metres, got {buffer_m}")
+    # GEOS draws round buffer ends as chords inside the true arc; widening the
+    # distance by 1/cos(half the chord angle) keeps every spot at least buffer_m away.
+    reach = buffer_m / math.cos(math.pi / (4 * _QUAD_SEGS))
+    area = shapely.buffer(block, -reach, quad_segs=_QUAD_SEGS) if buffer_m > 0 else block
+    if exclusions is not None and len(exclusions):
+        near = shapely.buffer(np.asarray(exclusions, dtype=object), reach, quad_segs=_QUAD_SEGS)
+        area = shapely.difference(area, shapely.union_all(near))
+    return area
+
+
+def usable_core_area(block, exclusions=None, *, buffer_m: float = DEFAULT_BUFFER_M):
+    """:func:`core_area`, halving the buffer until something is left.
+
+    Small blocks cannot keep a full 30 m from every edge. Returns
+    ``(area, buffer_used)``; ``buffer_used < buffer_m`` should be reported.
+    """
+    tries = [buffer_m, buffer_m / 2, buffer_m / 4, buffer_m / 8, 0.0]
+    for buf in tries:
+        area = core_area(block, exclusions, buffer_m=buf)
+        if not shapely.is_empty(area) and shapely.area(area) > 1.0:
+            return area, buf
+    raise DesignError(
+        "the block has no room for soil cores once exclusions are removed; "
+        "check the block outline and the exclusion polygons"
+    )
+
+
+def sunflower_offsets(n: int, rotation) -> np.ndarray:
+    """Unit-disc offsets ``(m, n, 2)`` of ``n`` cores for each rotation (radians)."""
+    if n < 1:
+        raise OptionError(f"--cores must be at least 1, got {n}")
+    k = np.arange(n)
+    r = np.sqrt((k + 0.5) / n)
+    theta = k * GOLDEN_ANGLE + np.asarray(rotation, dtype=float).reshape(-1, 1)
+    return np.stack([r * np.cos(theta), r * np.sin(theta)], axis=-1)
+
+
+def _inset(area):
+    inner = shapely.buffer(area, -_INSET_M)
+    return area if shapely.is_empty(inner) else inner
+
+
+def _nearest_inside(xy: np.ndarray, area) -> np.ndarray:
+    """Move each point to the nearest spot of ``area`` (points already inside stay)."""
+    target = _inset(area)
+    lines = shapely.shortest_line(shapely.points(xy), target)
+    moved = shapely.get_coordinates(lines).reshape(-1, 2, 2)[:, 1, :]
+    still = ~shapely.contains_xy(area, moved[:, 0], moved[:, 1])
+    if still.any():
+        moved[still] = shapely.get_coordinates(shapely.point_on_surface(target))[0]
+    return moved
+
+
+def disc_cores(
+    centres: np.ndarray,
+    *,
+    n: int = DEFAULT_CORES,
+    radius: float = DEFAULT_CORE_RADIUS_M,
+    area,
+    rng: np.random.Generator,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Cores of cell composites around ``centres``, all inside ``area``.
+
+    Parameters
+    ----------
+    centres : ndarray, shape (m, 2)
+        Composite centres (plan points) in metres.
+    n : int, keyword-only
+        Cores per composite.
+    radius : float, keyword-only
+        Metres; cores lie within this distance of their (possibly moved) centre.
+    area : shapely geometry, keyword-only
+        Allowed area (see :func:`usable_core_area`).
+    rng : numpy.random.Generator, keyword-only
+
+    Returns
+    -------
+    xy : ndarray, shape (m, n, 2)
+    moved : ndarray of int, shape (m,)
+        Cores per composite that had to be moved to the nearest spot inside
+        (0 for almost all composites).
+    """
+    if not radius > 0:
+        raise OptionError(f"--core-radius must be positive metres, got {radius}")
+    centres = np.asarray(centres, dtype=float).reshape(-1, 2)
+    m = len(centres)
+    if m == 0:
+        return np.empty((0, n, 2)), np.zeros(0, dtype=int)
+    shapely.prepare(area)
+    # A centre inside the buffer strip would leave most of its disc outside:
+    # shift it to the nearest spot at least half a radius inside, where there is one.
+    outside = ~shapely.contains_xy(area, centres[:, 0], centres[:, 1])
+    if outside.any():
+        deep = shapely.buffer(area, -radius / 2)
+        centres = centres.copy()
+        centres[outside] = _nearest_inside(centres[outside], area if shapely.is_empty(deep) else deep)
+    rotation = rng.uniform(0.0, 2.0 * math.pi, size=m)
+    xy = centres[:, None, :] + radius * sunflower_offsets(n, rotation)
+    flat = xy.reshape(-1, 2)
+    bad = np.flatnonzero(~shapely.contains_xy(area, flat[:, 0], flat[:, 1]))
+    for _ in range(_REDRAWS):
+        if len(bad) == 0:
+            break
+        r = radius * np.sqrt(rng.random(len(bad)))
+        theta = rng.uniform(0.0, 2.0 * math.pi, size=len(bad))
+        owner = centres[bad // n]
+        flat[bad] = owner + np.column_stack([r * np.cos(theta), r * np.sin(theta)])
+        bad = bad[~shapely.contains_xy(area, flat[bad, 0], flat[bad, 1])]
+    moved = np.zeros(m, dtype=int)
+    if len(bad):
+        flat[bad] = _nearest_inside(flat[bad], area)
+        np.add.at(moved, bad // n, 1)
+    return flat.reshape(m, n, 2), moved
+
+
+def long_axis(geom) -> tuple[np.ndarray, np.ndarray, float, float]:
+    """Centre, unit direction, length and width of ``geom``'s minimum rotated rectangle."""
+    rect = shapely.oriented_envelope(geom)
+    coords = shapely.get_coordinates(rect)
+    if len(coords) < 5:
+        raise DesignError("the zone has no area: a zig-zag traverse needs a polygon")
+    e1, e2 = coords[1] - coords[0], coords[2] - coords[1]
+    l1, l2 = float(np.hypot(*e1)), float(np.hypot(*e2))
+    u, length, width = (e1 / l1, l1, l2) if l1 >= l2 else (e2 / l2, l2, l1)
+    # A fixed sign keeps the traverse independent of GEOS's vertex order.
+    if u[0] < 0 or (u[0] == 0 and u[1] < 0):
+        u = -u
+    return coords[:4].mean(axis=0), u, length, width
+
+
+def _longest_pieces(cuts) -> tuple[np.ndarray, np.ndarray]:
+    """For each cut geometry, the end points of its longest line piece (NaN if empty)."""
+    parts, owner = shapely.get_parts(cuts, return_index=True)
+    ends = np.full((len(cuts), 2, 2), np.nan)
+    # LineString pieces only: a cut that merely touches the area gives a point.
+    keep = (shapely.get_type_id(parts) == 1) & ~shapely.is_empty(parts)
+    parts, owner = parts[keep], owner[keep]
+    if len(parts) == 0:
+        return ends[:, 0], ends[:, 1]
+    length = shapely.length(parts)
+    order = np.lexsort((-length, owner))
+    first = order[np.r_[True, owner[order][1:] != owner[order][:-1]]]
+    a = shapely.get_coordinates(shapely.get_point(parts[first], 0))
+    b = shapely.get_coordinates(shapely.get_point(parts[first], -1))
+    ends[owner[first], 0] = a
+    ends[owner[first], 1] = b
+    return ends[:, 0], ends[:, 1]
+
+
+def zigzag_cores(
+    zone,
+    *,
+    n: int = DEFAULT_CORES,
+    rng: np.random.Generator,
+    area=None,
+    legs: int | None = None,
+) -> np.ndarray:
+    """Cores of a zone composite: ``n`` points along a zig-zag over the zone's long axis.
+
+    The traverse has ``legs`` straight legs (default about one per four cores)
+    between stations spread from 2 % to 98 % of the allowed area's extent along
+    the long axis. At each station
+    the vertex lies at 20 % or 80 % (alternating, with a little random jitter)
+    across the longest cross-section of the allowed area there. Cores are spaced
+    evenly along the part of the traverse inside the allowed area, from a
+    random start (systematic sampling along the line).
+
+    Parameters
+    ----------
+    zone : shapely Polygon or MultiPolygon
+        The zone (block) in metres; fixes the long axis.
+    n : int, keyword-only
+        Cores in the composite.
+    rng : numpy.random.Generator, keyword-only
+    area : shapely geometry, optional, keyword-only
+        Allowed area; defaults to ``zone``.
+    legs : int, optional, keyword-only
+
+    Returns
+    -------
+    ndarray, shape (n, 2)
+    """
+    if n < 1:
+        raise OptionError(f"--cores must be at least 1, got {n}")
+    area = zone if area is None else area
+    if shapely.is_empty(area) or shapely.area(area) <= 0:
+        raise DesignError("the zone has no allowed area left for cores")
+    shapely.prepare(area)
+    centre, u, length, width = long_axis(zone)
+    v = np.array([-u[1], u[0]])
+    legs = max(2, min(max(n - 1, 1), round(n / 4))) if legs is None else int(legs)
+    # Stations span the allowed area's own extent along the axis: buffers may
+    # cut the ends of the zone, and a station there would find nothing.
+    along = (shapely.get_coordinates(area) - centre) @ u
+    s = along.min() + (along.max() - along.min()) * np.linspace(0.02, 0.98, legs + 1)
+    half = width + length  # long enough to cross the zone whatever its shape
+    a = centre + s[:, None] * u - half * v
+    b = centre + s[:, None] * u + half * v
+    cuts = shapely.intersection(shapely.linestrings(np.stack([a, b], axis=1)), area)
+    lo, hi = _longest_pieces(cuts)
+    ok = ~np.isnan(lo[:, 0])
+    if ok.sum() < 2:
+        xy, _ = disc_cores(
+            shapely.get_coordinates(shapely.point_on_surface(area)),
+            n=n,
+            radius=max(math.sqrt(shapely.area(area) / math.pi), 1.0),
+            area=area,
+            rng=rng,
+        )
+        return xy[0]
+    lo, hi = lo[ok], hi[ok]
+    # Order the two ends of each cross-section by the side they lie on, so the
+    # zig-zag alternates between the same two sides of the zone.
+    swap = ((hi - lo) @ v) < 0
+    lo[swap], hi[swap] = hi[swap].copy(), lo[swap].copy()
+    first = int(rng.integers(2))
+    frac = np.where((np.arange(len(lo)) + first) % 2 == 0, 0.2, 0.8)
+    frac = frac + rng.uniform(-0.05, 0.05, size=len(frac))
+    vertices = lo + frac[:, None] * (hi - lo)
+    inside = shapely.intersection(shapely.linestrings(vertices), area)
+    pieces = shapely.get_parts(inside)
+    pieces = pieces[(shapely.get_type_id(pieces) == 1) & ~shapely.is_empty(pieces)]
+    if len(pieces) == 0:
+        return _nearest_inside(vertices[np.linspace(0, len(vertices) - 1, n).round().astype(int)], area)
+    # Walk the pieces in traverse order; GEOS does not promise it.
+    traverse = shapely.linestrings(vertices)
+    pieces = pieces[np.argsort(shapely.line_locate_point(traverse, shapely.get_point(pieces, 0)))]
+    lengths = shapely.length(pieces)
+    total = float(lengths.sum())
+    at = (rng.random() + np.arange(n)) * total / n
+    piece = np.searchsorted(np.cumsum(lengths), at, side="right").clip(0, len(pieces) - 1)
+    local = at - np.r_[0.0, np.cumsum(lengths)][piece]
+    xy = shapely.get_coordinates(shapely.line_interpolate_point(pieces[piece], local))
+    bad = ~shapely.contains_xy(area, xy[:, 0], xy[:, 1])
+    if bad.any():
+        # Points exactly on the edge of the allowed area (a piece's end point).
+        xy[bad] = _nearest_inside(xy[bad], area)
+    return xy

@@ -1,0 +1,125 @@
+"""Laboratory paperwork: the submission sheet and the results template.
+
+``lab_submission.csv`` lists one row per sample for the lab: sample id, block,
+depth, purpose, a blank collection date for the crew and the analyses asked
+for. ``results_template.csv`` has one row per sample with ``point_id`` and
+``sample_id`` and one blank column per analysis; filled in, it is read back
+unchanged by ``fieldplan results`` (:func:`fieldplan.results.read_results`).
+"""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import pandas as pd
+
+from fieldplan.errors import OptionError
+from fieldplan.write.safe import atomic_write_text, neutralise_csv_cell, neutralise_frame
+
+__all__ = [
+    "SUBMISSION_NAME",
+    "TEMPLATE_NAME",
+    "RESERVED_COLUMNS",
+    "parse_analyses",
+    "submission_table",
+    "results_template",
+    "write_lab_sheet",
+]
+
+SUBMISSION_NAME = "lab_submission.csv"
+TEMPLATE_NAME = "results_template.csv"
+#: Names a value column may not take: the results reader gives them other meanings.
+RESERVED_COLUMNS = ("point_id", "sample_id", "unit", "date", "units_measured", "row")
+
+
+def _key(name: str) -> str:
+    # The results reader compares column names in lower_snake_case.
+    return re.sub(r"[^0-9a-z]+", "_", name.strip().lower()).strip("_")
+
+
+def parse_analyses(text: str) -> list[str]:
+    """Split ``"pH,P,K"`` into analysis names, checking they make distinct columns.
+
+    Examples
+    --------
+    >>> parse_analyses(" pH, P ,K ")
+    ['pH', 'P', 'K']
+    """
+    names = [" ".join(part.split()) for part in str(text).split(",")]
+    names = [n for n in names if n]
+    if not names:
+        raise OptionError('--analyses needs at least one name, e.g. --analyses "pH,P,K"')
+    keys = [_key(n) for n in names]
+    for name, key in zip(names, keys, strict=True):
+        if not key:
+            raise OptionError(f"--analyses: {name!r} has no letters or digits; name the analysis")
+        if key in RESERVED_COLUMNS:
+            raise OptionError(
+                f"--analyses: {name!r} clashes with the column {key!r}; name the analysis otherwise"
+            )
+    seen: dict[str, str] = {}
+    for name, key in zip(names, keys, strict=True):
+        if key in seen:
+            raise OptionError(
+                f"--analyses: {seen[key]!r} and {name!r} would be the same column; list each once"
+            )
+        seen[key] = name
+    return names
+
+
+def _samples(points: pd.DataFrame) -> pd.DataFrame:
+    if "sample_id" not in points.columns:
+        raise OptionError("the plan has no sample ids; re-run 'fieldplan plan' with this version")
+    return points.drop_duplicates("sample_id", keep="first")
+
+
+def submission_table(points: pd.DataFrame, *, analyses: list[str]) -> pd.DataFrame:
+    """One row per sample: ``sample_id, block, depth_cm, purpose, collection_date, analyses``."""
+    first = _samples(points)
+    n = len(first)
+    depth = first["depth_cm"].fillna("").astype(str) if "depth_cm" in first else [""] * n
+    purpose = first["purpose"].fillna("").astype(str) if "purpose" in first else [""] * n
+    return pd.DataFrame(
+        {
+            "sample_id": first["sample_id"].astype(str).to_numpy(),
+            "block": first["block"].astype(str).to_numpy(),
+            "depth_cm": list(depth),
+            "purpose": list(purpose),
+            "collection_date": [""] * n,
+            "analyses": [";".join(analyses)] * n,
+        }
+    )
+
+
+def results_template(points: pd.DataFrame, *, analyses: list[str]) -> pd.DataFrame:
+    """One row per sample: ``point_id, sample_id`` and a blank column per analysis.
+
+    A composite that stands for several points (a zone composite) is listed
+    under the first of its points.
+    """
+    first = _samples(points)
+    table = pd.DataFrame(
+        {
+            "point_id": first["point_id"].astype(str).to_numpy(),
+            "sample_id": first["sample_id"].astype(str).to_numpy(),
+        }
+    )
+    for name in analyses:
+        table[name] = ""
+    return table
+
+
+def write_lab_sheet(plan, folder: str | Path, *, analyses: list[str]) -> list[Path]:
+    """Write ``lab_submission.csv`` and ``results_template.csv`` into ``folder``."""
+    folder = Path(folder)
+    out = []
+    for name, table in (
+        (SUBMISSION_NAME, submission_table(plan.points, analyses=analyses)),
+        (TEMPLATE_NAME, results_template(plan.points, analyses=analyses)),
+    ):
+        safe = neutralise_frame(table)
+        safe.columns = [neutralise_csv_cell(str(c)) for c in safe.columns]
+        atomic_write_text(folder / name, safe.to_csv(index=False, lineterminator="\n"))
+        out.append(folder / name)
+    return out

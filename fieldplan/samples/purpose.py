@@ -1,0 +1,245 @@
+"""The sampling purpose stage: sample ids, depth, soil cores, ripeness instructions.
+
+:func:`apply_purpose` runs after a design has placed the plan's points. It adds
+to every point record ``purpose``, ``depth_cm`` and ``sample_id`` (and for
+ripeness plans ``units`` and ``instructions`` from a crop profile), and for soil
+plans a ``cores`` layer: where each core of each composite sample is taken.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import replace
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+
+from fieldplan.errors import DesignError, OptionError
+from fieldplan.rng import stream
+from fieldplan.samples.cores import (
+    DEFAULT_BUFFER_M,
+    DEFAULT_CORE_RADIUS_M,
+    DEFAULT_CORES,
+    DEFAULT_DEPTH_CM,
+    disc_cores,
+    usable_core_area,
+    zigzag_cores,
+)
+from fieldplan.samples.ids import make_sample_ids, plan_code
+from fieldplan.samples.profiles import load_profile
+
+__all__ = ["PURPOSES", "COMPOSITES", "DEFAULT_PROFILE", "apply_purpose", "parse_depth"]
+
+PURPOSES = ("general", "soil", "ripeness")
+COMPOSITES = ("cell", "zone")
+DEFAULT_PROFILE = "wine-grapes"
+_DEPTH = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*-\s*(\d+(?:\.\d+)?)\s*$")
+_MAX_CORES = 200
+
+
+def parse_depth(text: str | None) -> str:
+    """Check a depth range in cm, e.g. ``"0-15"``; returns it normalised ('' for none)."""
+    if text is None or str(text).strip() == "":
+        return ""
+    match = _DEPTH.match(str(text))
+    if not match:
+        raise OptionError(f"--depth takes a range in cm such as 0-15 or 15-30; got {text!r}")
+    top, bottom = (float(g) for g in match.groups())
+    if not bottom > top:
+        raise OptionError(f"--depth {text!r}: the bottom must be deeper than the top")
+    return f"{top:g}-{bottom:g}"
+
+
+def _only_for_soil(purpose: str, **given) -> None:
+    named = [name for name, value in given.items() if value is not None]
+    if purpose != "soil" and named:
+        options = ", ".join("--" + n.replace("_", "-") for n in named)
+        raise OptionError(f"{options} only apply to --purpose soil (got --purpose {purpose})")
+
+
+def _exclusion_geoms(plan) -> np.ndarray:
+    ex = plan.exclusions
+    return np.asarray(ex.geometry.values, dtype=object) if ex is not None and len(ex) else np.empty(0, object)
+
+
+def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
+    """Cores layer and per-block notes for a soil plan."""
+    seed = plan.seed
+    exclusions = _exclusion_geoms(plan)
+    frames, notes = [], {}
+    for row in plan.blocks.itertuples(index=False):
+        block = str(row.block)
+        mask = (points["block"].astype(str) == block).to_numpy()
+        if not mask.any():
+            continue
+        try:
+            area, used = usable_core_area(row.geometry, exclusions, buffer_m=buffer_m)
+        except DesignError as err:
+            raise DesignError(f"block {block}: {err}") from None
+        block_notes = []
+        if used < buffer_m:
+            block_notes.append(f"cores: edge buffer cut to {used:g} m (block too small for {buffer_m:g} m)")
+        pts = points[mask]
+        if composite == "cell":
+            centres = shapely.get_coordinates(pts.geometry.values)
+            xy, moved = disc_cores(centres, n=n, radius=radius, area=area, rng=stream(seed, "cores", block))
+            if moved.any():
+                block_notes.append(f"cores: {int(moved.sum())} moved to the nearest allowed spot")
+            sample = np.repeat(pts["sample_id"].to_numpy(), n)
+            point = np.repeat(pts["point_id"].to_numpy(), n)
+            xy = xy.reshape(-1, 2)
+            core = np.tile(np.arange(1, n + 1), len(pts))
+        else:
+            xy = zigzag_cores(row.geometry, n=n, area=area, rng=stream(seed, "zone-cores", block))
+            sample = np.repeat(pts["sample_id"].iloc[0], n)
+            point = np.repeat("", n)
+            core = np.arange(1, n + 1)
+        frames.append(
+            pd.DataFrame(
+                {
+                    "sample_id": sample,
+                    "core": core,
+                    "block": block,
+                    "point_id": point,
+                    "composite": composite,
+                    "depth_cm": depth,
+                    "x": xy[:, 0],
+                    "y": xy[:, 1],
+                }
+            )
+        )
+        if block_notes:
+            notes[block] = block_notes
+    table = (
+        pd.concat(frames, ignore_index=True)
+        if frames
+        else pd.DataFrame(
+            columns=["sample_id", "core", "block", "point_id", "composite", "depth_cm", "x", "y"]
+        )
+    )
+    table["core_id"] = (
+        table["sample_id"].astype(str) + "/" + table["core"].astype(int).astype(str).str.zfill(2)
+    )
+    cores = gpd.GeoDataFrame(
+        table.drop(columns=["x", "y"])[
+            ["core_id", "sample_id", "core", "block", "point_id", "composite", "depth_cm"]
+        ],
+        geometry=shapely.points(table["x"].to_numpy(float), table["y"].to_numpy(float)),
+        crs=plan.crs,
+    )
+    return cores, notes
+
+
+def _with_notes(blocks: gpd.GeoDataFrame, notes: dict[str, list[str]]) -> gpd.GeoDataFrame:
+    if not notes:
+        return blocks
+    out = blocks.copy()
+    old = out["flags"].fillna("").astype(str) if "flags" in out else pd.Series("", index=out.index)
+    extra = out["block"].astype(str).map(lambda b: "; ".join(notes.get(b, [])))
+    out["flags"] = np.where((old != "") & (extra != ""), old + "; " + extra, np.where(old != "", old, extra))
+    return out
+
+
+def apply_purpose(
+    plan,
+    *,
+    purpose: str = "general",
+    cores: int | None = None,
+    core_radius: float | None = None,
+    composite: str | None = None,
+    depth: str | None = None,
+    crop_profile: str | None = None,
+    core_buffer: float | None = None,
+):
+    """Add sample ids and purpose columns (and soil cores) to a plan.
+
+    Parameters
+    ----------
+    plan : fieldplan.plan.Plan
+        A plan whose design has placed its points.
+    purpose : {"general", "soil", "ripeness"}, keyword-only
+    cores : int, optional, keyword-only
+        Cores per composite (soil; default 16, trade advice 15-20).
+    core_radius : float, optional, keyword-only
+        Metres around each point within which its cores lie (soil, cell composites; default 10).
+    composite : {"cell", "zone"}, optional, keyword-only
+        ``cell``: one composite per plan point, cores around it. ``zone``: one
+        composite per block, cores along a zig-zag over the block's long axis.
+    depth : str, optional, keyword-only
+        Depth range in cm (soil default ``0-15``).
+    crop_profile : str, optional, keyword-only
+        Shipped profile name or TOML file (ripeness; default ``wine-grapes``).
+    core_buffer : float, optional, keyword-only
+        Metres kept from block edges and exclusions (soil; default 30).
+
+    Returns
+    -------
+    Plan
+        A new plan; ``plan`` is not changed.
+    """
+    if purpose not in PURPOSES:
+        raise OptionError(f"--purpose must be one of {', '.join(PURPOSES)}; got {purpose!r}")
+    _only_for_soil(
+        purpose, cores=cores, core_radius=core_radius, composite=composite, core_buffer=core_buffer
+    )
+    if purpose != "ripeness" and crop_profile is not None:
+        raise OptionError(f"--crop-profile only applies to --purpose ripeness (got --purpose {purpose})")
+    if purpose == "soil":
+        n = DEFAULT_CORES if cores is None else int(cores)
+        if not 1 <= n <= _MAX_CORES:
+            raise OptionError(f"--cores must be between 1 and {_MAX_CORES}, got {cores}")
+        radius = DEFAULT_CORE_RADIUS_M if core_radius is None else float(core_radius)
+        buffer_m = DEFAULT_BUFFER_M if core_buffer is None else float(core_buffer)
+        composite = composite or "cell"
+        if composite not in COMPOSITES:
+            raise OptionError(f"--composite must be one of {', '.join(COMPOSITES)}; got {composite!r}")
+        depth_text = parse_depth(depth if depth is not None else "{:g}-{:g}".format(*DEFAULT_DEPTH_CM))
+    else:
+        depth_text = parse_depth(depth)
+
+    params = dict(plan.params)
+    params["purpose"] = purpose
+    if purpose == "soil":
+        params.update(
+            cores=n, core_radius_m=radius, composite=composite, core_buffer_m=buffer_m, depth_cm=depth_text
+        )
+    elif depth_text:
+        params["depth_cm"] = depth_text
+    profile = None
+    if purpose == "ripeness":
+        profile = load_profile(crop_profile or DEFAULT_PROFILE)
+        params["crop_profile"] = profile.name
+    code = plan_code(plan.meta.get("input_sha256"), {k: v for k, v in params.items() if k != "plan_id"})
+    params["plan_id"] = code
+
+    points = plan.points.copy()
+    points["purpose"] = purpose
+    points["depth_cm"] = depth_text
+    if purpose == "soil" and composite == "zone":
+        blocks = points["block"].astype(str)
+        order = pd.unique(blocks)
+        ids = dict(zip(order, make_sample_ids(len(order), code=code), strict=True))
+        points["sample_id"] = blocks.map(ids).to_numpy()
+    else:
+        points["sample_id"] = make_sample_ids(len(points), code=code)
+    if profile is not None:
+        points["units"] = profile.units_text
+        points["instructions"] = profile.instructions
+
+    layers = dict(plan.layers)
+    blocks = plan.blocks
+    if purpose == "soil":
+        layers["cores"], notes = _soil_cores(
+            plan, points, n=n, radius=radius, composite=composite, buffer_m=buffer_m, depth=depth_text
+        )
+        blocks = _with_notes(plan.blocks, notes)
+    else:
+        layers.pop("cores", None)
+    meta = dict(plan.meta)
+    if "counts" in meta:
+        meta["counts"] = {**meta["counts"], "samples": int(points["sample_id"].nunique())}
+        if "cores" in layers:
+            meta["counts"]["cores"] = int(len(layers["cores"]))
+    return replace(plan, blocks=blocks, points=points, params=params, meta=meta, layers=layers)

@@ -1,0 +1,217 @@
+"""Soil cores: every composite keeps N cores, all inside the block minus buffers; zone cores span the zone."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import geopandas as gpd
+import numpy as np
+import pytest
+import shapely
+
+from fieldplan.errors import OptionError
+from fieldplan.plan import make_plan
+from fieldplan.samples.cores import (
+    CELL_HA,
+    CORES_RANGE,
+    DEFAULT_BUFFER_M,
+    DEFAULT_CORES,
+    DEFAULT_DEPTH_CM,
+    disc_cores,
+    long_axis,
+    sunflower_offsets,
+    usable_core_area,
+    zigzag_cores,
+)
+from fieldplan.samples.outputs import write_cores_geojson
+from fieldplan.samples.purpose import apply_purpose, parse_depth
+from fieldplan.store import load_plan, write_plan
+from tests.geoms import E0, N0, UTM33N, blocks_frame, concave, multipart, square, with_hole
+
+# Features to keep away from: a manure heap and an old fence line crossing the square.
+HEAP = shapely.Point(E0 + 120, N0 + 150).buffer(6)
+FENCE = shapely.LineString([(E0 + 250, N0 - 10), (E0 + 260, N0 + 310)])
+EXCLUSIONS = np.array([HEAP, FENCE], dtype=object)
+TOL = 1e-6
+
+
+def _clearance(xy: np.ndarray, block, exclusions) -> tuple[np.ndarray, np.ndarray]:
+    """Distance of each point to the block's boundary and to the nearest exclusion."""
+    pts = shapely.points(xy)
+    to_edge = shapely.distance(pts, shapely.boundary(block))
+    to_excl = np.min([shapely.distance(pts, g) for g in exclusions], axis=0) if len(exclusions) else np.inf
+    return to_edge, to_excl
+
+
+def test_trade_defaults():
+    # common practice, no source (values from memory): 15-20 cores per composite,
+    # 0-15 cm for routine fertility, ~30 m from edges and heaps, ~1 ha (2.5 acre) cells.
+    assert CORES_RANGE == (15, 20) and 15 <= DEFAULT_CORES <= 20
+    assert DEFAULT_DEPTH_CM == (0, 15)
+    assert DEFAULT_BUFFER_M == 30.0
+    # reference: international acre = 4046.8564224 m² (NIST Handbook 44, appendix C).
+    assert CELL_HA * 10_000 / 4046.8564224 == pytest.approx(2.471, abs=1e-3)
+
+
+@pytest.mark.parametrize("n", [15, 16, 20])
+@pytest.mark.parametrize("seed", range(4))
+def test_cell_cores_keep_count_and_clearance(n, seed):
+    # Centres on a 100 m grid (about 1 ha cells), including spots inside the
+    # buffer strip and next to the heap, so re-drawing and moving are exercised.
+    block = square
+    area, used = usable_core_area(block, EXCLUSIONS, buffer_m=30)
+    assert used == 30
+    gx, gy = np.meshgrid(np.arange(E0 + 5, E0 + 400, 50), np.arange(N0 + 5, N0 + 300, 50))
+    centres = np.column_stack([gx.ravel(), gy.ravel()])
+    xy, moved = disc_cores(centres, n=n, radius=12, area=area, rng=np.random.default_rng(seed))
+    assert xy.shape == (len(centres), n, 2)
+    flat = xy.reshape(-1, 2)
+    to_edge, to_excl = _clearance(flat, block, EXCLUSIONS)
+    # reference: shapely (GEOS) distances; 30 m rule is common practice, no source.
+    assert shapely.contains_xy(block, flat[:, 0], flat[:, 1]).all()
+    assert (to_edge >= 30 - TOL).all()
+    assert (to_excl >= 30 - TOL).all()
+    assert moved.sum() < 0.05 * flat.shape[0]
+
+
+def test_cell_cores_stay_within_radius_of_an_inside_centre():
+    area, _ = usable_core_area(square, None, buffer_m=30)
+    centres = np.array([[E0 + 200, N0 + 150], [E0 + 100, N0 + 100]])
+    xy, moved = disc_cores(centres, n=16, radius=10, area=area, rng=np.random.default_rng(1))
+    dist = np.hypot(*(xy - centres[:, None, :]).transpose(2, 0, 1))
+    assert (dist <= 10 + TOL).all() and not moved.any()
+    # Distinct cores: a composite of 16 copies of one spot would be one core.
+    assert len(np.unique(np.round(xy.reshape(-1, 2), 6), axis=0)) == 32
+
+
+def test_sunflower_pattern_is_equal_area():
+    # reference: Vogel, "A better way to construct the sunflower head",
+    # Math. Biosci. 44 (1979) 179-189 (from memory): r_k = sqrt(k + 1/2) scaled,
+    # angle k * golden angle, so each point stands for an equal share of the disc.
+    n = 400
+    off = sunflower_offsets(n, [0.3])[0]
+    r = np.hypot(off[:, 0], off[:, 1])
+    assert r.max() <= 1.0
+    for share in (0.25, 0.5, 0.75):
+        inside = np.mean(r <= math.sqrt(share))
+        assert inside == pytest.approx(share, abs=1.5 / n)
+    # Golden-angle spacing: no two neighbours closer than about sqrt(area per point).
+    from scipy.spatial import cKDTree
+
+    d, _ = cKDTree(off).query(off, k=2)
+    assert d[:, 1].min() > 0.5 * math.sqrt(math.pi / n)
+
+
+@pytest.mark.parametrize(
+    "zone", [square, concave, with_hole, multipart], ids=["square", "concave", "hole", "multi"]
+)
+@pytest.mark.parametrize("seed", range(3))
+def test_zone_cores_span_the_long_axis(zone, seed):
+    n = 16
+    xy = zigzag_cores(zone, n=n, rng=np.random.default_rng(seed))
+    assert xy.shape == (n, 2)
+    assert shapely.contains_xy(zone, xy[:, 0], xy[:, 1]).all()
+    # The hull of the cores must reach across most of the zone along its long
+    # axis (minimum rotated rectangle): stated share 75 %.
+    # reference: shapely.oriented_envelope (GEOS minimum rotated rectangle).
+    hull = shapely.convex_hull(shapely.multipoints(xy))
+    centre, u, length, _ = long_axis(zone)
+    along = (shapely.get_coordinates(hull) - centre) @ u
+    assert (along.max() - along.min()) / length >= 0.75
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_zone_cores_with_buffers_span_the_allowed_area(seed):
+    area, used = usable_core_area(square, EXCLUSIONS, buffer_m=30)
+    xy = zigzag_cores(square, n=20, area=area, rng=np.random.default_rng(seed))
+    to_edge, to_excl = _clearance(xy, square, EXCLUSIONS)
+    assert len(xy) == 20
+    assert (to_edge >= 30 - TOL).all() and (to_excl >= 30 - TOL).all()
+    centre, u, _, _ = long_axis(square)
+    allowed = (shapely.get_coordinates(area) - centre) @ u
+    along = (xy - centre) @ u
+    assert (along.max() - along.min()) / (allowed.max() - allowed.min()) >= 0.75
+
+
+def test_small_block_cuts_the_buffer_and_says_so():
+    small = shapely.box(E0, N0, E0 + 50, N0 + 40)
+    area, used = usable_core_area(small, None, buffer_m=30)
+    assert used < 30 and shapely.area(area) > 0
+    xy, _ = disc_cores(
+        np.array([[E0 + 25, N0 + 20]]), n=15, radius=10, area=area, rng=np.random.default_rng(0)
+    )
+    to_edge, _ = _clearance(xy[0], small, [])
+    assert (to_edge >= used - TOL).all()
+
+
+def test_vectorised_speed():
+    import time
+
+    area, _ = usable_core_area(shapely.box(0, 0, 10_000, 10_000), None, buffer_m=30)
+    g = np.arange(0, 10_000, 100.0)
+    centres = np.column_stack([np.repeat(g, len(g)), np.tile(g, len(g))])
+    start = time.perf_counter()
+    xy, _ = disc_cores(centres, n=16, radius=10, area=area, rng=np.random.default_rng(0))
+    assert xy.shape == (10_000, 16, 2)
+    assert time.perf_counter() - start < 5.0
+
+
+def test_depth_and_option_checks():
+    assert parse_depth("0-15") == "0-15" and parse_depth(" 15 - 30 ") == "15-30"
+    for bad in ("15", "15-0", "a-b"):
+        with pytest.raises(OptionError, match="--depth"):
+            parse_depth(bad)
+    with pytest.raises(OptionError):
+        sunflower_offsets(0, [0.0])
+
+
+def _plan(seed=5):
+    blocks = blocks_frame({"A": square, "B": shapely.affinity.translate(concave, 600)})
+    excl = gpd.GeoDataFrame({"name": ["heap"]}, geometry=[HEAP], crs=UTM33N)
+    return make_plan(blocks, spacing=100, exclusions=excl, seed=seed)
+
+
+def test_apply_purpose_soil_cells_and_zones(tmp_path):
+    base = _plan()
+    plan = apply_purpose(base, purpose="soil", cores=18, core_radius=12)
+    cores = plan.layers["cores"]
+    counts = cores.groupby("sample_id").size()
+    assert (counts == 18).all() and set(counts.index) == set(plan.points["sample_id"])
+    assert (plan.points["depth_cm"] == "0-15").all() and (plan.points["purpose"] == "soil").all()
+    for block, geom in zip(plan.blocks["block"], plan.blocks.geometry, strict=True):
+        xy = shapely.get_coordinates(cores[cores["block"] == block].geometry.values)
+        to_edge, to_excl = _clearance(xy, geom, [HEAP])
+        assert (to_edge >= 30 - TOL).all() and (to_excl >= 30 - TOL).all()
+
+    zone = apply_purpose(base, purpose="soil", composite="zone", cores=15)
+    zc = zone.layers["cores"]
+    assert zc["sample_id"].nunique() == len(base.blocks)
+    assert (zc.groupby("sample_id").size() == 15).all()
+    # Every point of a block shares the block's composite id.
+    assert (zone.points.groupby("block")["sample_id"].nunique() == 1).all()
+
+    # Same inputs and seed, same cores; written cores.geojson is RFC 7946 lon/lat.
+    again = apply_purpose(_plan(), purpose="soil", cores=18, core_radius=12)
+    assert shapely.equals(again.layers["cores"].geometry.values, cores.geometry.values).all()
+    write_cores_geojson(plan, tmp_path)
+    data = json.loads((tmp_path / "cores.geojson").read_text())
+    assert len(data["features"]) == len(cores)
+    lon, lat = data["features"][0]["geometry"]["coordinates"]
+    assert 14.0 < lon < 16.0 and 47.0 < lat < 48.5  # UTM 33N, 500 km E, 5300 km N
+    assert data["features"][0]["properties"]["sample_id"] == cores["sample_id"].iloc[0]
+
+
+def test_cores_layer_survives_the_plan_folder(tmp_path):
+    plan = apply_purpose(_plan(), purpose="soil")
+    write_plan(plan, tmp_path / "p")
+    back = load_plan(tmp_path / "p")
+    assert "cores" in back.layers and len(back.layers["cores"]) == len(plan.layers["cores"])
+    assert list(back.points["sample_id"]) == list(plan.points["sample_id"])
+
+
+def test_soil_options_refused_for_other_purposes():
+    with pytest.raises(OptionError, match="only apply to --purpose soil"):
+        apply_purpose(_plan(), purpose="ripeness", cores=16)
+    with pytest.raises(OptionError, match="--purpose"):
+        apply_purpose(_plan(), purpose="tissue")

@@ -1,0 +1,113 @@
+"""Crop profiles: shipped profiles load and hold trade values; user files are validated."""
+
+from __future__ import annotations
+
+import tomllib
+
+import pytest
+import shapely
+
+from fieldplan.errors import InputError
+from fieldplan.plan import make_plan
+from fieldplan.samples.profiles import load_profile, parse_profile, shipped_profiles
+from fieldplan.samples.purpose import apply_purpose
+from tests.geoms import blocks_frame, square
+
+SHIPPED = ["pome-fruit", "stone-fruit", "table-grapes", "wine-grapes"]
+
+
+def test_shipped_profiles_load_and_say_where_their_numbers_come_from():
+    assert shipped_profiles() == SHIPPED
+    for name in SHIPPED:
+        profile = load_profile(name)
+        assert profile.name == name
+        assert "no published source" in profile.basis
+        assert profile.sides in ("both", "one")
+
+
+def test_wine_grape_profile_holds_trade_practice():
+    # common practice, no source (from memory): 100-200 berries per sample, both
+    # sides of the row, sun and shade, top/middle/bottom of bunches, skip end
+    # plants and border rows.
+    p = load_profile("wine-grapes")
+    assert p.per_sample == (100, 200) and p.unit == "berry"
+    assert p.sides == "both"
+    assert set(p.exposure) == {"sun", "shade"}
+    assert set(p.heights) == {"top", "middle", "bottom"}
+    assert p.skip_end_plants >= 1 and p.skip_border_rows >= 1
+    assert p.units_text == "100-200 berries"
+    assert "both sides of the row" in p.instructions
+
+
+def test_fruit_profiles_count_whole_fruit():
+    # common practice, no source (from memory): maturity tests of apples, pears and
+    # stone fruit use on the order of 10-20 fruit per sample.
+    for name in ("pome-fruit", "stone-fruit"):
+        p = load_profile(name)
+        assert p.unit == "fruit" and 5 <= p.per_sample[0] <= p.per_sample[1] <= 30
+
+
+def _data(name="wine-grapes"):
+    from importlib import resources
+
+    ref = resources.files("fieldplan") / "data" / "profiles" / f"{name}.toml"
+    return tomllib.loads(ref.read_text())
+
+
+def test_user_file_is_loaded(tmp_path):
+    data = _data()
+    text = (
+        "schema = 1\nname = 'my-pinot'\ntitle = 'Pinot'\nbasis = 'our winery'\nunit = 'berry'\n"
+        "per_sample = [150, 150]\nper_plant = [2, 3]\nskip_end_plants = 3\nskip_border_rows = 2\n"
+        "sides = 'one'\nexposure = ['shade']\nheights = ['middle']\nhandling = 'cool box'\n"
+        "steps = ['take berries']\n"
+    )
+    path = tmp_path / "pinot.toml"
+    path.write_text(text)
+    p = load_profile(path)
+    assert p.name == "my-pinot" and p.per_sample == (150, 150) and p.units_text == "150 berries"
+    assert set(data) == set(tomllib.loads(text))
+
+
+@pytest.mark.parametrize(
+    ("change", "message"),
+    [
+        ({"per_sample": [200, 100]}, "per_sample"),
+        ({"per_sample": [0, 10]}, "per_sample"),
+        ({"per_plant": "3"}, "per_plant"),
+        ({"sides": "left"}, "sides must be one of both, one"),
+        ({"skip_end_plants": -1}, "skip_end_plants"),
+        ({"steps": []}, "steps"),
+        ({"colour": "red"}, "unknown key"),
+        ({"schema": 2}, "schema"),
+        ({"unit": ""}, "unit"),
+    ],
+)
+def test_invalid_profiles_name_the_key(change, message):
+    data = {**_data(), **change}
+    with pytest.raises(InputError, match=message):
+        parse_profile(data, source="mine.toml")
+
+
+def test_missing_key_and_bad_files(tmp_path):
+    data = _data()
+    del data["per_sample"]
+    with pytest.raises(InputError, match=r"missing key\(s\) \['per_sample'\]"):
+        parse_profile(data, source="x.toml")
+    broken = tmp_path / "broken.toml"
+    broken.write_text("name = [")
+    with pytest.raises(InputError, match="broken.toml.*TOML"):
+        load_profile(broken)
+    with pytest.raises(InputError, match="neither a shipped profile"):
+        load_profile("kiwi-fruit")
+
+
+def test_ripeness_plan_carries_instructions():
+    plan = make_plan(
+        blocks_frame({"A": square, "B": shapely.affinity.translate(square, 500)}), spacing=80, seed=2
+    )
+    ripe = apply_purpose(plan, purpose="ripeness", crop_profile="table-grapes")
+    assert (ripe.points["units"] == "100-150 berries").all()
+    assert ripe.points["instructions"].str.contains("border row").all()
+    assert ripe.params["crop_profile"] == "table-grapes" and "cores" not in ripe.layers
+    assert ripe.points["sample_id"].is_unique and (ripe.points["depth_cm"] == "").all()
