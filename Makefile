@@ -21,7 +21,7 @@ demo: $(STAMP)
 	@if [ -f $(DEMO_OUT)/plan/map.html ]; then echo "Map: $$(cd $(DEMO_OUT)/plan && pwd)/map.html"; fi
 
 lint: $(STAMP)
-	$(BIN)/ruff check fieldplan tests benchmarks demo_plots
+	$(BIN)/ruff check .
 
 test: $(STAMP) lint
 	$(BIN)/python -m pytest -q -p no:cacheprovider
