@@ -1,0 +1,276 @@
+"""Spatially balanced sampling by the local pivotal method (LPM2).
+
+A fine square lattice of candidate locations (random offset) is laid over the
+polygon, each candidate with inclusion probability ``n / N``. The local pivotal
+method of Grafström, Lundström & Schelin (2012, *Biometrics* 68:514-520),
+variant LPM2, then repeatedly picks an undecided candidate ``i`` at random and
+its nearest undecided neighbour ``j`` and lets the pair "fight" over their
+probability mass: one of them moves to 0 or 1 and the other takes the rest, in a
+way that keeps every candidate's inclusion probability. Neighbours thus rarely
+both end up selected, which spreads the sample evenly over the polygon.
+
+Why LPM rather than GRTS (Stevens & Olsen 2004): both give spatially balanced
+samples with known inclusion probabilities, but LPM works directly on
+Euclidean nearest neighbours, needs no quadrant-recursive address or hierarchical
+randomisation, is short enough to read and check against the paper, and in the
+authors' comparisons gives samples at least as well spread as GRTS by the
+Voronoi balance measure that GRTS was designed around. GRTS's ordered reverse
+hierarchy (useful for adding points in order) is not needed here: spares come
+from a separate random draw.
+
+Nearest neighbours come from a :class:`scipy.spatial.cKDTree`: one vectorised
+query returns the ``k`` nearest candidates of every candidate; a step looks for
+the first still-undecided one in that short list, and the tree and lists are
+rebuilt over the undecided candidates only when a list runs dry and enough
+candidates have been decided. The loop runs once per decided candidate with
+constant work per step.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+from numpy.typing import ArrayLike
+from scipy.spatial import cKDTree
+from shapely.geometry.base import BaseGeometry
+
+from fieldplan.errors import DesignError
+
+__all__ = [
+    "BalancedSample",
+    "balanced_points",
+    "candidate_lattice",
+    "local_pivotal",
+    "voronoi_balance",
+]
+
+_K = 12
+_BRUTE = 256
+_EPS = 1e-12
+
+
+@dataclass(frozen=True)
+class BalancedSample:
+    """Result of :func:`balanced_points`.
+
+    Attributes
+    ----------
+    points : numpy.ndarray
+        ``(n, 2)`` selected coordinates, in candidate (lattice) order.
+    inclusion : numpy.ndarray
+        Inclusion probability of each selected point.
+    candidates : numpy.ndarray
+        ``(N, 2)`` coordinates of the candidate lattice.
+    selected : numpy.ndarray
+        Indices of the selected candidates in ``candidates``.
+    spacing : float
+        Candidate lattice spacing in metres.
+    """
+
+    points: np.ndarray
+    inclusion: np.ndarray
+    candidates: np.ndarray
+    selected: np.ndarray
+    spacing: float
+
+
+def candidate_lattice(polygon: BaseGeometry, *, spacing: float, rng: np.random.Generator) -> np.ndarray:
+    """Square lattice of points inside ``polygon`` with a uniformly random offset.
+
+    Returns an ``(N, 2)`` array ordered by row (y) then column (x).
+    """
+    if not spacing > 0:
+        raise DesignError(f"candidate spacing must be positive, got {spacing}")
+    xmin, ymin, xmax, ymax = polygon.bounds
+    ox, oy = rng.random(2) * spacing
+    xs = np.arange(xmin + ox, xmax, spacing)
+    ys = np.arange(ymin + oy, ymax, spacing)
+    gx, gy = np.meshgrid(xs, ys)
+    gx, gy = gx.ravel(), gy.ravel()
+    shapely.prepare(polygon)
+    inside = shapely.contains_xy(polygon, gx, gy)
+    return np.column_stack([gx[inside], gy[inside]])
+
+
+def local_pivotal(coords: ArrayLike, prob: ArrayLike, *, rng: np.random.Generator) -> np.ndarray:
+    """Select a sample by the local pivotal method, variant LPM2.
+
+    Parameters
+    ----------
+    coords : array_like
+        ``(N, d)`` coordinates of the candidates.
+    prob : array_like
+        ``(N,)`` inclusion probabilities in [0, 1]; their sum should be a whole
+        number ``n`` for a fixed sample size.
+    rng : numpy.random.Generator
+        Source of randomness.
+
+    Returns
+    -------
+    numpy.ndarray
+        Sorted indices of the selected candidates.
+    """
+    xy = np.asarray(coords, dtype=float)
+    p = np.asarray(prob, dtype=float).copy()
+    if xy.ndim != 2 or p.shape != (xy.shape[0],):
+        raise DesignError("coordinates must be (N, d) with one inclusion probability each")
+    if np.any(p < -_EPS) or np.any(p > 1 + _EPS):
+        raise DesignError("inclusion probabilities must lie between 0 and 1")
+    total = xy.shape[0]
+    # alive[pos[i]] == i for undecided i: O(1) removal by swapping with the last.
+    alive = np.flatnonzero((p > _EPS) & (p < 1 - _EPS))
+    count = alive.size
+    pos = np.full(total, -1, dtype=np.int64)
+    pos[alive] = np.arange(count)
+
+    def rebuild() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        members = alive[:count].copy()
+        k = min(_K + 1, count)
+        dist, idx = cKDTree(xy[members]).query(xy[members], k=k)
+        dist = dist.reshape(count, k)[:, 1:]
+        idx = members[idx.reshape(count, k)[:, 1:]]
+        row = np.full(total, -1, dtype=np.int64)
+        row[members] = np.arange(count)
+        return row, dist, idx
+
+    def remove(i: int) -> None:
+        nonlocal count
+        at = pos[i]
+        last = alive[count - 1]
+        alive[at] = last
+        pos[last] = at
+        pos[i] = -1
+        count -= 1
+
+    row, nn_dist, nn_idx = rebuild()
+    built_at = count
+    draws = rng.random((max(count, 1), 3))
+    step = 0
+    while count > 1:
+        u = draws[step % draws.shape[0]]
+        step += 1
+        if step % draws.shape[0] == 0:
+            draws = rng.random(draws.shape)
+        i = int(alive[int(u[0] * count)])
+        cand = nn_idx[row[i]]
+        live = pos[cand] >= 0
+        if not live.any():
+            if count < built_at * 0.9 and count > _BRUTE:
+                row, nn_dist, nn_idx = rebuild()
+                built_at = count
+            else:
+                # Few candidates decided since the last rebuild, or few left:
+                # a direct distance scan for this one unit is cheaper than a rebuild.
+                members = alive[:count]
+                d = np.sqrt(((xy[members] - xy[i]) ** 2).sum(axis=1))
+                d[pos[i]] = np.inf
+                best = d.min()
+                ties = members[d <= best * (1 + 1e-9)]
+                j = int(ties[int(u[1] * ties.size)])
+                _fight(p, i, j, u[2])
+                for unit in (i, j):
+                    if p[unit] <= _EPS or p[unit] >= 1 - _EPS:
+                        remove(unit)
+                continue
+            cand = nn_idx[row[i]]
+            live = pos[cand] >= 0
+        d = nn_dist[row[i]][live]
+        ties = cand[live][d <= d[0] * (1 + 1e-9)]
+        j = int(ties[int(u[1] * ties.size)])
+        _fight(p, i, j, u[2])
+        for unit in (i, j):
+            if p[unit] <= _EPS or p[unit] >= 1 - _EPS:
+                remove(unit)
+    if count == 1:
+        # Only float residue can leave one unit undecided when sum(p) is whole.
+        last = alive[0]
+        p[last] = 1.0 if rng.random() < p[last] else 0.0
+    return np.flatnonzero(p >= 1 - 1e-6)
+
+
+def _fight(p: np.ndarray, i: int, j: int, u: float) -> None:
+    """Update the pair (i, j) as in Grafström et al. (2012), section 2."""
+    pi, pj = p[i], p[j]
+    s = pi + pj
+    if s < 1:
+        if u < pj / s:
+            p[i], p[j] = 0.0, s
+        else:
+            p[i], p[j] = s, 0.0
+    else:
+        if u < (1 - pj) / (2 - s):
+            p[i], p[j] = 1.0, s - 1
+        else:
+            p[i], p[j] = s - 1, 1.0
+
+
+def balanced_points(
+    polygon: BaseGeometry,
+    n: int,
+    *,
+    rng: np.random.Generator,
+    candidates: int = 10_000,
+) -> BalancedSample:
+    """Spatially balanced sample of ``n`` points in a polygon (LPM2 on a lattice).
+
+    Parameters
+    ----------
+    polygon : shapely Polygon or MultiPolygon
+        Area to sample, metric CRS.
+    n : int
+        Sample size.
+    rng : numpy.random.Generator
+        Source of randomness (lattice offset and the pivotal steps).
+    candidates : int
+        Approximate number of lattice candidates (at least ``20 * n`` is used).
+
+    Returns
+    -------
+    BalancedSample
+    """
+    if n < 0 or int(n) != n:
+        raise DesignError(f"sample size must be a whole number >= 0, got {n}")
+    n = int(n)
+    if polygon is None or polygon.is_empty or polygon.area <= 0:
+        raise DesignError("cannot place balanced points in an empty polygon or one without area")
+    target = max(int(candidates), 20 * n, 1)
+    spacing = float(np.sqrt(polygon.area / target))
+    lattice = candidate_lattice(polygon, spacing=spacing, rng=rng)
+    # Thin or tiny polygons can catch fewer lattice points than planned.
+    for _ in range(8):
+        if lattice.shape[0] >= max(2 * n, 1):
+            break
+        spacing /= 2.0
+        lattice = candidate_lattice(polygon, spacing=spacing, rng=rng)
+    if lattice.shape[0] < n:
+        raise DesignError(
+            f"only {lattice.shape[0]} candidate locations fit the polygon for {n} points; "
+            "lower the number of points"
+        )
+    prob = np.full(lattice.shape[0], n / lattice.shape[0]) if lattice.shape[0] else np.empty(0)
+    chosen = local_pivotal(lattice, prob, rng=rng) if n else np.empty(0, dtype=np.int64)
+    return BalancedSample(
+        points=lattice[chosen],
+        inclusion=prob[chosen],
+        candidates=lattice,
+        selected=chosen,
+        spacing=spacing,
+    )
+
+
+def voronoi_balance(candidates: ArrayLike, prob: ArrayLike, selected: ArrayLike) -> float:
+    """Spatial balance of a sample: Stevens & Olsen (2004, JASA 99:262-278).
+
+    Each candidate is assigned to its nearest selected point (a discrete
+    Voronoi cell); ``v_i`` is the sum of the inclusion probabilities in cell
+    ``i``. The measure is the variance of ``v_i`` about 1, ``mean((v - 1)**2)``;
+    0 is perfect balance.
+    """
+    xy = np.asarray(candidates, dtype=float)
+    p = np.asarray(prob, dtype=float)
+    sel = np.asarray(selected, dtype=np.int64)
+    _, cell = cKDTree(xy[sel]).query(xy, k=1)
+    v = np.bincount(cell, weights=p, minlength=sel.size)
+    return float(np.mean((v - 1.0) ** 2))

@@ -1,0 +1,348 @@
+"""Random plants from a row model, drawn without listing the plants.
+
+Row model
+---------
+Rows run along ``row_bearing_deg`` (clockwise from north), ``row_spacing_m``
+apart. The first row lies half a row spacing inside the block's left-hand edge
+when facing along the bearing (for a bearing of 0, the western edge), and rows
+are numbered 1, 2, ... from that side; a row number counts every row line of
+the model, so a row that misses part of the block keeps its number. Each row
+line is clipped to the block; the pieces inside are *row segments*. A row
+starts at the end it would reach first when travelling along the bearing.
+
+Plants on a segment of length ``L`` sit ``plant_spacing_m`` apart:
+``c = floor(L / plant_spacing_m)`` plants centred on the segment, the first at
+``(L - c * plant_spacing_m) / 2 + plant_spacing_m / 2`` from its start. Plant
+numbers count along the row from its start, over all its segments, starting
+at 1.
+
+Mapped rows (:func:`rows_from_lines`) replace the model: each given line is a
+row, numbered in the order given, starting at its first vertex.
+
+Drawing
+-------
+``skip_row_ends`` excludes that many plants at each end of every segment (end
+effects at headlands and gaps); ``skip_border_rows`` excludes that many rows on
+each side of the block (the first and last rows that hold plants). Eligible
+plants are ranked segment by segment; ``n`` distinct ranks are drawn at random
+and mapped back to (segment, plant) with :func:`numpy.searchsorted` on the
+cumulative counts. Memory and time are O(rows + n), never O(plants).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+from numpy.typing import ArrayLike
+from shapely.geometry.base import BaseGeometry
+
+from fieldplan.errors import DesignError, OptionError
+
+__all__ = [
+    "PlantPicks",
+    "RowSegments",
+    "cluster_count",
+    "cluster_sizes",
+    "eligible_plants",
+    "pick_plants",
+    "row_segments",
+    "rows_from_lines",
+    "sample_ranks",
+]
+
+_LEN_TOL = 1e-9
+
+
+@dataclass(frozen=True)
+class RowSegments:
+    """Pieces of rows inside a block, ordered by row then along the row.
+
+    Attributes
+    ----------
+    row : numpy.ndarray
+        1-based row number of each segment.
+    geometry : numpy.ndarray
+        LineString of each segment, oriented from the row's start.
+    length : numpy.ndarray
+        Segment length in metres.
+    plants : numpy.ndarray
+        Plants on the segment.
+    first_plant : numpy.ndarray
+        Plant number (1-based along the row) of the segment's first plant.
+    offset : numpy.ndarray
+        Distance from the segment start to its first plant, metres.
+    plant_spacing : float
+        Distance between plants along a row, metres.
+    """
+
+    row: np.ndarray
+    geometry: np.ndarray
+    length: np.ndarray
+    plants: np.ndarray
+    first_plant: np.ndarray
+    offset: np.ndarray
+    plant_spacing: float
+
+    @property
+    def total_plants(self) -> int:
+        """Number of plants in the model."""
+        return int(self.plants.sum())
+
+
+@dataclass(frozen=True)
+class PlantPicks:
+    """Plants drawn by :func:`pick_plants`, in draw order.
+
+    Attributes
+    ----------
+    row, plant : numpy.ndarray
+        1-based row number and plant number along that row.
+    x, y : numpy.ndarray
+        Plant coordinates (the block's metric CRS).
+    segment : numpy.ndarray
+        Index of the row segment in the :class:`RowSegments`.
+    eligible : int
+        Number of plants that could have been drawn.
+    """
+
+    row: np.ndarray
+    plant: np.ndarray
+    x: np.ndarray
+    y: np.ndarray
+    segment: np.ndarray
+    eligible: int
+
+
+def _check_positive(value: float, name: str) -> float:
+    if not np.isfinite(value) or value <= 0:
+        raise OptionError(f"{name} must be a positive number of metres, got {value}")
+    return float(value)
+
+
+def _segments(
+    row_lines: np.ndarray, clip: BaseGeometry | None, plant_spacing: float
+) -> RowSegments:
+    """Clip row lines, orient and order the pieces, count plants."""
+    pieces = row_lines if clip is None else shapely.intersection(row_lines, clip)
+    pieces = shapely.line_merge(pieces)
+    parts, which = shapely.get_parts(pieces, return_index=True)
+    keep = (shapely.get_type_id(parts) == 1) & (shapely.length(parts) > _LEN_TOL)
+    parts, which = parts[keep], which[keep]
+    start = shapely.get_point(parts, 0)
+    end = shapely.get_point(parts, -1)
+    host = row_lines[which]
+    at_start = shapely.line_locate_point(host, start)
+    at_end = shapely.line_locate_point(host, end)
+    flip = at_end < at_start
+    parts = np.where(flip, shapely.reverse(parts), parts)
+    along = np.minimum(at_start, at_end)
+    order = np.lexsort((along, which))
+    parts, which = parts[order], which[order]
+    length = shapely.length(parts)
+    plants = np.floor(length / plant_spacing + 1e-9).astype(np.int64)
+    offset = (length - plants * plant_spacing) / 2.0 + plant_spacing / 2.0
+    # Plants of earlier segments of the same row, for numbering along the row.
+    before = np.cumsum(plants) - plants
+    if which.size:
+        _, first_of_row = np.unique(which, return_index=True)
+        row_base = np.repeat(before[first_of_row], np.diff(np.append(first_of_row, which.size)))
+    else:
+        row_base = np.zeros(0, dtype=np.int64)
+    return RowSegments(
+        row=which.astype(np.int64) + 1,
+        geometry=parts,
+        length=length,
+        plants=plants,
+        first_plant=before - row_base + 1,
+        offset=offset,
+        plant_spacing=plant_spacing,
+    )
+
+
+def row_segments(
+    polygon: BaseGeometry,
+    *,
+    row_spacing_m: float,
+    plant_spacing_m: float,
+    row_bearing_deg: float,
+) -> RowSegments:
+    """Row segments of the spacing model for a block.
+
+    Parameters
+    ----------
+    polygon : shapely Polygon or MultiPolygon
+        The block, in a metric CRS.
+    row_spacing_m, plant_spacing_m : float
+        Distance between rows and between plants along a row.
+    row_bearing_deg : float
+        Direction rows run, degrees clockwise from north.
+    """
+    rs = _check_positive(row_spacing_m, "row spacing")
+    ps = _check_positive(plant_spacing_m, "plant spacing")
+    if not np.isfinite(row_bearing_deg):
+        raise OptionError("row bearing is unknown; give the block a row bearing in degrees")
+    if polygon is None or polygon.is_empty:
+        raise DesignError("the block has no geometry to lay rows in")
+    theta = np.radians(float(row_bearing_deg))
+    u = np.array([np.sin(theta), np.cos(theta)])  # along the rows
+    v = np.array([np.cos(theta), -np.sin(theta)])  # across, to the right of u
+    xy = shapely.get_coordinates(polygon)
+    pu, pv = xy @ u, xy @ v
+    offsets = np.arange(pv.min() + rs / 2.0, pv.max(), rs)
+    lo, hi = pu.min() - 1.0, pu.max() + 1.0
+    ends = np.stack(
+        [offsets[:, None] * v + lo * u, offsets[:, None] * v + hi * u], axis=1
+    )  # (rows, 2, 2)
+    lines = shapely.linestrings(ends)
+    shapely.prepare(polygon)
+    return _segments(lines, polygon, ps)
+
+
+def rows_from_lines(
+    lines: ArrayLike,
+    *,
+    plant_spacing_m: float,
+    polygon: BaseGeometry | None = None,
+) -> RowSegments:
+    """Row segments from mapped row lines instead of the spacing model.
+
+    Parameters
+    ----------
+    lines : array_like of LineString
+        One line per row, in row order, each drawn from the row's start.
+    plant_spacing_m : float
+        Distance between plants along a row.
+    polygon : shapely geometry, optional
+        Block to clip the rows to.
+    """
+    ps = _check_positive(plant_spacing_m, "plant spacing")
+    arr = np.asarray(lines, dtype=object)
+    if arr.ndim != 1 or arr.size == 0:
+        raise DesignError("the rows file holds no row lines")
+    types = shapely.get_type_id(arr)
+    bad = np.flatnonzero(types != 1)
+    if bad.size:
+        raise DesignError(
+            f"row {int(bad[0]) + 1} in the rows file is not a LineString; give one line per row"
+        )
+    return _segments(arr, polygon, ps)
+
+
+def eligible_plants(
+    segments: RowSegments, *, skip_row_ends: int = 0, skip_border_rows: int = 0
+) -> np.ndarray:
+    """Plants per segment that may be drawn after the end and border exclusions."""
+    if skip_row_ends < 0 or skip_border_rows < 0:
+        raise OptionError("plants or rows to skip must be zero or more")
+    count = np.maximum(segments.plants - 2 * int(skip_row_ends), 0)
+    if skip_border_rows:
+        planted = np.unique(segments.row[segments.plants > 0])
+        k = int(skip_border_rows)
+        border = np.concatenate([planted[:k], planted[-k:]]) if planted.size else planted
+        count = np.where(np.isin(segments.row, border), 0, count)
+    return count
+
+
+def sample_ranks(total: int, n: int, *, rng: np.random.Generator) -> np.ndarray:
+    """Draw ``n`` distinct integers from ``range(total)`` uniformly, in draw order.
+
+    Uses O(n) memory: batches of draws with replacement, keeping the first
+    occurrence of each value (equivalent to sequential sampling without
+    replacement). When ``n`` is at least half of ``total`` a permutation is
+    cheaper and still O(n).
+    """
+    total, n = int(total), int(n)
+    if n < 0 or n > total:
+        raise DesignError(f"cannot draw {n} distinct plants from {total}")
+    if 2 * n >= total:
+        return rng.permutation(total)[:n]
+    out = np.empty(0, dtype=np.int64)
+    while out.size < n:
+        need = n - out.size
+        draw = rng.integers(0, total, size=need + need // 8 + 8, dtype=np.int64)
+        both = np.concatenate([out, draw])
+        _, first = np.unique(both, return_index=True)
+        out = both[np.sort(first)][:n]
+    return out
+
+
+def pick_plants(
+    segments: RowSegments,
+    n: int,
+    *,
+    rng: np.random.Generator,
+    skip_row_ends: int = 0,
+    skip_border_rows: int = 0,
+) -> PlantPicks:
+    """Draw ``n`` distinct plants uniformly from the eligible plants.
+
+    Parameters
+    ----------
+    segments : RowSegments
+        From :func:`row_segments` or :func:`rows_from_lines`.
+    n : int
+        Plants to draw.
+    rng : numpy.random.Generator
+        Source of randomness.
+    skip_row_ends : int
+        Plants excluded at each end of every row segment.
+    skip_border_rows : int
+        Rows excluded on each side of the block.
+
+    Returns
+    -------
+    PlantPicks
+        In draw order, so a prefix is itself a random sample.
+    """
+    eligible = eligible_plants(
+        segments, skip_row_ends=skip_row_ends, skip_border_rows=skip_border_rows
+    )
+    total = int(eligible.sum())
+    if n > total:
+        raise DesignError(
+            f"{n} plants requested but only {total} are eligible after skipping "
+            f"{skip_row_ends} plant(s) at row ends and {skip_border_rows} border row(s); "
+            "lower the number or the skips"
+        )
+    ranks = sample_ranks(total, n, rng=rng)
+    cum = np.cumsum(eligible)
+    seg = np.searchsorted(cum, ranks, side="right")
+    within = ranks - (cum[seg] - eligible[seg]) + int(skip_row_ends)
+    dist = segments.offset[seg] + within * segments.plant_spacing
+    pts = shapely.line_interpolate_point(segments.geometry[seg], dist)
+    xy = shapely.get_coordinates(pts).reshape(-1, 2)
+    return PlantPicks(
+        row=segments.row[seg],
+        plant=segments.first_plant[seg] + within,
+        x=xy[:, 0],
+        y=xy[:, 1],
+        segment=seg,
+        eligible=total,
+    )
+
+
+def cluster_count(target_units: int, units_per_cluster: int) -> int:
+    """Clusters needed to collect ``target_units``: ``ceil(target / size)``."""
+    t, m = int(target_units), int(units_per_cluster)
+    if t < 1 or m < 1 or t != target_units or m != units_per_cluster:
+        raise OptionError(
+            "target units and units per cluster must be whole numbers of 1 or more, "
+            f"got {target_units} and {units_per_cluster}"
+        )
+    return -(-t // m)
+
+
+def cluster_sizes(target_units: int, units_per_cluster: int) -> np.ndarray:
+    """Units to take in each cluster; the last takes the remainder so the total is exact.
+
+    Examples
+    --------
+    >>> cluster_sizes(10, 4).tolist()
+    [4, 4, 2]
+    """
+    k = cluster_count(target_units, units_per_cluster)
+    sizes = np.full(k, int(units_per_cluster), dtype=np.int64)
+    sizes[-1] = int(target_units) - (k - 1) * int(units_per_cluster)
+    return sizes

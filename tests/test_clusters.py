@@ -1,0 +1,162 @@
+"""Random plants from the row model, without listing plants."""
+
+from __future__ import annotations
+
+import tracemalloc
+
+import numpy as np
+import pytest
+import shapely
+from scipy import stats
+from shapely.geometry import LineString, Polygon, box
+
+from fieldplan.design.clusters import (
+    cluster_count,
+    cluster_sizes,
+    eligible_plants,
+    pick_plants,
+    row_segments,
+    rows_from_lines,
+    sample_ranks,
+)
+from fieldplan.errors import DesignError
+
+
+def _block() -> Polygon:
+    # A trapezoid with a hole: rows of different lengths, some split in two.
+    outer = [(0, 0), (60, 0), (60, 40), (0, 70)]
+    return Polygon(outer, holes=[[(20, 10), (35, 10), (35, 25), (20, 25)]])
+
+
+def _segments(**kw):
+    return row_segments(
+        _block(), row_spacing_m=3.0, plant_spacing_m=1.2, row_bearing_deg=kw.get("bearing", 0.0)
+    )
+
+
+def test_rectangle_counts_by_hand():
+    seg = row_segments(box(0, 0, 30, 100), row_spacing_m=2.5, plant_spacing_m=1.0, row_bearing_deg=0)
+    # common practice, no source: 30 m / 2.5 m = 12 rows (first half a spacing in from the
+    # edge), 100 m / 1 m = 100 plants per row
+    assert seg.row.tolist() == list(range(1, 13))
+    assert np.all(seg.plants == 100)
+    np.testing.assert_allclose(shapely.get_coordinates(seg.geometry[0])[:, 0], 1.25)
+    # Row 1 is on the left facing along the bearing (west for north), starting at the south.
+    assert shapely.get_coordinates(seg.geometry[0])[0].tolist() == [1.25, 0.0]
+
+
+def test_picks_are_uniform_over_plants_chi_square():
+    seg = _segments()
+    elig = eligible_plants(seg, skip_row_ends=1, skip_border_rows=1)
+    rows = np.unique(seg.row)
+    per_row = np.array([elig[seg.row == r].sum() for r in rows])
+    counts = np.zeros(rows.size)
+    for seed in range(300):
+        p = pick_plants(seg, 40, rng=np.random.default_rng(seed), skip_row_ends=1, skip_border_rows=1)
+        counts += np.bincount(np.searchsorted(rows, p.row), minlength=rows.size)
+    keep = per_row > 0
+    assert counts[~keep].sum() == 0
+    expected = counts.sum() * per_row[keep] / per_row[keep].sum()
+    # reference: scipy.stats.chisquare; uniform over plants means picks per row are
+    # proportional to the row's eligible plants
+    assert stats.chisquare(counts[keep], expected).pvalue > 0.001
+
+
+def test_no_duplicates_and_picks_on_rows_inside_block():
+    poly = _block()
+    seg = _segments(bearing=33.0)
+    k_end = 2
+    for n, seed in [(50, 1), (int(eligible_plants(seg, skip_row_ends=k_end).sum()) - 3, 2)]:
+        p = pick_plants(seg, n, rng=np.random.default_rng(seed), skip_row_ends=k_end)
+        pairs = set(zip(p.row.tolist(), p.plant.tolist(), strict=True))
+        assert len(pairs) == n  # no plant drawn twice
+        # reference: shapely (GEOS) point-in-polygon and point-line distance
+        assert shapely.contains_xy(poly, p.x, p.y).all()
+        pts = shapely.points(p.x, p.y)
+        lines = seg.geometry[p.segment]
+        assert np.all(shapely.distance(pts, lines) < 1e-6)
+        along = shapely.line_locate_point(lines, pts)
+        length = seg.length[p.segment]
+        edge = seg.offset[p.segment] + k_end * seg.plant_spacing
+        # the skipped end plants lie within `edge` of either segment end
+        assert np.all(along >= edge - 1e-6)
+        assert np.all(along <= length - edge + 1e-6)
+
+
+def test_border_rows_are_skipped():
+    seg = _segments()
+    planted = np.unique(seg.row[seg.plants > 0])
+    p = pick_plants(seg, 400, rng=np.random.default_rng(5), skip_border_rows=2)
+    assert not np.isin(p.row, np.r_[planted[:2], planted[-2:]]).any()
+    assert np.isin(p.row, planted[2:-2]).all()
+
+
+def test_plant_numbers_continue_across_a_split_row():
+    seg = _segments()
+    split = np.flatnonzero(np.bincount(seg.row) == 2)[0]
+    parts = np.flatnonzero(seg.row == split)
+    assert seg.first_plant[parts[0]] == 1
+    assert seg.first_plant[parts[1]] == seg.plants[parts[0]] + 1
+
+
+def test_cluster_count_and_sizes():
+    # common practice, no source: ceil(target / size) clusters, last takes the remainder
+    assert cluster_count(10, 4) == 3
+    assert cluster_sizes(10, 4).tolist() == [4, 4, 2]
+    assert cluster_sizes(12, 4).tolist() == [4, 4, 4]
+    for t in range(1, 60):
+        for m in range(1, 9):
+            s = cluster_sizes(t, m)
+            assert s.sum() == t and s.size == -(-t // m) and s.max() <= m and s.min() >= 1
+
+
+def test_five_million_plants_without_a_plant_sized_array():
+    block = box(0, 0, 1000, 1000)
+    tracemalloc.start()
+    try:
+        seg = row_segments(block, row_spacing_m=2.0, plant_spacing_m=0.1, row_bearing_deg=17)
+        p = pick_plants(seg, 30, rng=np.random.default_rng(8), skip_row_ends=3)
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert seg.total_plants > 4_900_000
+    assert p.row.size == 30
+    # reference: tracemalloc (Python standard library); one float per plant would be 8 bytes
+    assert peak < seg.total_plants * 8 / 20
+
+
+def test_sample_ranks_distinct_and_uniform():
+    r = sample_ranks(10**12, 1000, rng=np.random.default_rng(1))
+    assert np.unique(r).size == 1000 and r.min() >= 0 and r.max() < 10**12
+    draws = np.concatenate([sample_ranks(50, 10, rng=np.random.default_rng(s)) for s in range(500)])
+    # reference: scipy.stats.chisquare; every value equally likely
+    assert stats.chisquare(np.bincount(draws, minlength=50)).pvalue > 0.001
+    first = np.array([sample_ranks(1000, 5, rng=np.random.default_rng(s))[0] for s in range(2000)])
+    # reference: scipy.stats.kstest; the first draw is uniform on 0..999
+    assert stats.kstest((first + 0.5) / 1000, "uniform").pvalue > 0.001
+
+
+def test_mapped_rows_from_lines():
+    lines = np.array(
+        [
+            LineString([(0, 0), (0, 50)]),
+            LineString([(3, 0), (3, 20), (8, 40)]),
+        ],
+        dtype=object,
+    )
+    seg = rows_from_lines(lines, plant_spacing_m=2.0)
+    # common practice, no source: floor(length / spacing) plants per row
+    assert seg.plants.tolist() == [25, int(np.floor((20 + np.hypot(5, 20)) / 2.0))]
+    p = pick_plants(seg, 10, rng=np.random.default_rng(2))
+    pts = shapely.points(p.x, p.y)
+    assert np.all(shapely.distance(pts, lines[p.row - 1]) < 1e-6)
+    clipped = rows_from_lines(lines, plant_spacing_m=2.0, polygon=box(-1, 10, 10, 30))
+    assert clipped.plants[0] == 10
+    with pytest.raises(DesignError):
+        rows_from_lines(np.array([shapely.Point(0, 0)], dtype=object), plant_spacing_m=1.0)
+
+
+def test_too_many_plants_is_a_design_error():
+    seg = row_segments(box(0, 0, 10, 10), row_spacing_m=5, plant_spacing_m=5, row_bearing_deg=0)
+    with pytest.raises(DesignError, match="eligible"):
+        pick_plants(seg, 5, rng=np.random.default_rng(0))
