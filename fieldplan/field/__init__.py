@@ -1,0 +1,1 @@
+"""When the field disagrees with the plan: spares, substitutes, events, actual positions, certainty units."""

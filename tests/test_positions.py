@@ -1,0 +1,90 @@
+"""Actual sample positions against the plan: geodesic displacement, GPX waypoints."""
+
+from __future__ import annotations
+
+import math
+
+import gpxpy
+import gpxpy.gpx
+import numpy as np
+import pandas as pd
+import pytest
+
+from fieldplan.errors import InputError
+from fieldplan.field.positions import (
+    compare_positions,
+    default_max_offset,
+    displacement_m,
+    positions_from_table,
+    read_gpx_positions,
+)
+
+# reference: WGS84 defining parameters a = 6378137 m, 1/f = 298.257223563 (NIMA TR8350.2).
+A = 6378137.0
+F = 1 / 298.257223563
+E2 = F * (2 - F)
+
+
+def test_meridian_step_matches_radius_of_curvature():
+    # reference: meridian radius of curvature M = a(1-e²)/(1-e² sin²φ)^(3/2) (Snyder 1987, Map
+    # Projections: A Working Manual, USGS PP 1395; from memory); 0.001° of latitude at 45° is
+    # M(45.0005°)·Δφ to well below 1 mm.
+    phi = math.radians(45.0005)
+    m = A * (1 - E2) / (1 - E2 * math.sin(phi) ** 2) ** 1.5
+    expected = m * math.radians(0.001)
+    got = displacement_m([10.0], [45.0], [10.0], [45.001])[0]
+    assert abs(got - expected) < 0.01
+    assert abs(expected - 111.132) < 0.01  # from memory: ~111.13 m per 0.001° at 45°
+
+
+def test_equator_step_is_an_arc_of_radius_a():
+    # reference: the WGS84 equator is a circle of radius a, so 0.001° of longitude is a·Δλ.
+    got = displacement_m([0.0], [0.0], [0.001], [0.0])[0]
+    assert abs(got - A * math.radians(0.001)) < 0.01
+
+
+def test_default_offset_is_half_the_grid_spacing():
+    # reference: nearest lattice neighbours are one spacing apart on square and triangular grids,
+    # so half the spacing is the distance to the boundary of a point's Voronoi cell (geometry).
+    assert default_max_offset({"design": "grid", "spacing_m": 40.0}) == 20.0
+    assert default_max_offset({"design": "random"}) == 10.0
+
+
+def test_compare_flags_beyond_max_offset():
+    # reference: pyproj.Geod (Karney 2013) distances, compared with the hand formula above.
+    planned = pd.DataFrame({"point_id": ["P1", "P2"], "lon": [10.0, 10.0], "lat": [45.0, 45.0]})
+    actual = pd.DataFrame({"point_id": ["P1", "P2"], "lon": [10.0, 10.0], "lat": [45.00005, 45.0003]})
+    out = compare_positions(planned, actual, max_offset=10.0)
+    assert out["beyond_max_offset"].tolist() == [False, True]
+    assert out["offset_m"].iloc[1] == pytest.approx(33.34, abs=0.01)  # 0.3 × 111.13 m
+    with pytest.raises(InputError):
+        compare_positions(planned, actual.assign(point_id=["P1", "ZZ"]), max_offset=10.0)
+
+
+def test_gpx_waypoints_are_matched_by_name(tmp_path):
+    # reference: GPX 1.1 schema (topografix.com/GPX/1/1): <wpt lat lon><name>; parsed with gpxpy.
+    gpx = gpxpy.gpx.GPX()
+    gpx.waypoints.append(gpxpy.gpx.GPXWaypoint(latitude=-33.9, longitude=18.85, name="B01-001"))
+    gpx.waypoints.append(gpxpy.gpx.GPXWaypoint(latitude=-33.91, longitude=18.86, name="B01-002"))
+    path = tmp_path / "taken.gpx"
+    path.write_text(gpx.to_xml(), encoding="utf-8")
+    frame = read_gpx_positions(path)
+    assert frame["point_id"].tolist() == ["B01-001", "B01-002"]
+    np.testing.assert_allclose(frame["lon"], [18.85, 18.86])
+    np.testing.assert_allclose(frame["lat"], [-33.9, -33.91])
+    bad = tmp_path / "bad.gpx"
+    bad.write_text("<gpx><wpt lat='x'", encoding="utf-8")
+    with pytest.raises(InputError):
+        read_gpx_positions(bad)
+
+
+def test_results_table_lon_lat_columns():
+    # common practice, no source: longitude then latitude in decimal degrees (RFC 7946 order).
+    table = pd.DataFrame({"point_id": ["a", "b"], "value": [1, 2], "Lon": [18.8, None], "Lat": [-33.9, None]})
+    frame = positions_from_table(table)
+    assert frame["lon"].iloc[0] == 18.8 and np.isnan(frame["lon"].iloc[1])
+    assert positions_from_table(table[["point_id", "value"]]) is None
+    with pytest.raises(InputError):
+        positions_from_table(table.drop(columns="Lat"))
+    with pytest.raises(InputError):
+        positions_from_table(table.assign(Lat=[95.0, None]))
