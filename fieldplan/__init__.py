@@ -1,5 +1,32 @@
-"""fieldplan: defensible sampling plans for farm fields, vineyards and orchards."""
+"""fieldplan: defensible sampling plans for farm fields, vineyards and orchards.
+
+The public API is small::
+
+    from fieldplan import read_blocks, make_plan, write_plan, load_plan
+
+Names load lazily so that ``fieldplan --help`` stays fast.
+"""
+
+from __future__ import annotations
+
+import importlib
 
 __version__ = "0.1.0"
 
-__all__ = ["__version__"]
+_LAZY = {
+    "read_blocks": "fieldplan.read",
+    "read_exclusions": "fieldplan.read",
+    "make_plan": "fieldplan.plan",
+    "Plan": "fieldplan.plan",
+    "write_plan": "fieldplan.store",
+    "load_plan": "fieldplan.store",
+    "FieldplanError": "fieldplan.errors",
+}
+
+__all__ = ["__version__", *_LAZY]
+
+
+def __getattr__(name: str):
+    if name in _LAZY:
+        return getattr(importlib.import_module(_LAZY[name]), name)
+    raise AttributeError(f"module 'fieldplan' has no attribute {name!r}")
