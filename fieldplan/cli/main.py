@@ -36,6 +36,9 @@ from fieldplan.cli import demo_cmd, plan_cmd  # noqa: E402
 
 plan_cmd.register(app)
 demo_cmd.register(app)
+from fieldplan.cli import check_cmd  # noqa: E402
+
+check_cmd.register(app)
 
 
 def run() -> None:
