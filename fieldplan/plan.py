@@ -215,6 +215,7 @@ def make_plan(
     max_points: int = DEFAULT_MAX_POINTS,
     command: list[str] | None = None,
     progress: Callable[[int, int], None] | None = None,
+    samples: dict | None = None,
 ) -> Plan:
     """Plan samples over blocks.
 
@@ -240,6 +241,9 @@ def make_plan(
         Seed of every random choice; the same inputs and seed give the same plan.
     max_points : int
         Refuse plans with more points than this.
+    samples : dict, optional
+        Options of :func:`fieldplan.samples.purpose.apply_purpose` (purpose,
+        cores, core_radius, composite, depth, crop_profile, core_buffer).
     """
     if design not in DESIGNS:
         raise OptionError(f"design must be one of {', '.join(DESIGNS)}; got {design!r}")
@@ -324,4 +328,9 @@ def make_plan(
         "counts": {"blocks": int(len(out_blocks)), "points": int(len(points))},
         "notes": list(blocks.attrs.get("notes", [])),
     }
-    return Plan(out_blocks, points, exclusions, crs, params, meta)
+    plan = Plan(out_blocks, points, exclusions, crs, params, meta)
+    # Purpose stage: sample ids, depth, soil cores or ripeness instructions
+    # (``samples`` holds the keyword options of fieldplan.samples.purpose.apply_purpose).
+    from fieldplan.samples.purpose import apply_purpose
+
+    return apply_purpose(plan, **(samples or {}))

@@ -6,6 +6,7 @@ from collections.abc import Callable
 from pathlib import Path
 
 from fieldplan.errors import PlanDirError
+from fieldplan.samples.outputs import write_cores_geojson
 from fieldplan.write.gpkg import GPKG_NAME, read_info, write_gpkg
 from fieldplan.write.gpx import gpx_writer
 from fieldplan.write.html_map import map_writer
@@ -36,6 +37,7 @@ WRITERS: list[Callable] = [
     gpx_writer,
     kml_writer,
     png_writer,
+    write_cores_geojson,
 ]
 
 

@@ -36,6 +36,12 @@ from fieldplan.cli import demo_cmd, plan_cmd  # noqa: E402
 
 plan_cmd.register(app)
 demo_cmd.register(app)
+from fieldplan.cli import labels_cmd  # noqa: E402
+
+labels_cmd.register(app)
+from fieldplan.cli import lab_cmd  # noqa: E402
+
+lab_cmd.register(app)
 from fieldplan.cli import check_cmd  # noqa: E402
 
 check_cmd.register(app)

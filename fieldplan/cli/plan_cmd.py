@@ -63,6 +63,33 @@ def plan(
     max_points: Annotated[
         int, typer.Option("--max-points", help="Refuse plans with more points than this.")
     ] = 10_000_000,
+    purpose: Annotated[
+        str, typer.Option(help="What the samples are for: general, soil (composites of cores) or ripeness.")
+    ] = "general",
+    cores: Annotated[
+        int | None, typer.Option(help="Soil: cores per composite sample (default 16; 15-20 is usual).")
+    ] = None,
+    core_radius: Annotated[
+        float | None, typer.Option("--core-radius", help="Soil: metres around each point for its cores (default 10).")
+    ] = None,
+    composite: Annotated[
+        str | None,
+        typer.Option(help="Soil: 'cell' (one composite per point) or 'zone' (one per block, zig-zag cores)."),
+    ] = None,
+    core_buffer: Annotated[
+        float | None,
+        typer.Option("--core-buffer", help="Soil: metres kept from block edges and exclusions (default 30)."),
+    ] = None,
+    depth: Annotated[
+        str | None, typer.Option(help="Sampling depth in cm, e.g. 0-15 (soil default 0-15).")
+    ] = None,
+    crop_profile: Annotated[
+        str | None,
+        typer.Option(
+            "--crop-profile",
+            help="Ripeness: wine-grapes, table-grapes, pome-fruit, stone-fruit or a TOML file (default wine-grapes).",
+        ),
+    ] = None,
     seed: Seed = 0,
     force: Force = False,
     quiet: Quiet = False,
@@ -93,6 +120,15 @@ def plan(
             edge_buffer=edge_buffer,
             exclusions=exclusions,
             seed=seed,
+            samples={
+                "purpose": purpose,
+                "cores": cores,
+                "core_radius": core_radius,
+                "composite": composite,
+                "core_buffer": core_buffer,
+                "depth": depth,
+                "crop_profile": crop_profile,
+            },
             max_points=max_points,
             command=["fieldplan", *sys.argv[1:]],
             progress=progress,

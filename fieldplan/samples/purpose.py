@@ -37,6 +37,17 @@ COMPOSITES = ("cell", "zone")
 DEFAULT_PROFILE = "wine-grapes"
 _DEPTH = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*-\s*(\d+(?:\.\d+)?)\s*$")
 _MAX_CORES = 200
+_OWN_PARAMS = (
+    "purpose",
+    "cores",
+    "core_radius_m",
+    "composite",
+    "core_buffer_m",
+    "depth_cm",
+    "crop_profile",
+    "plan_id",
+)
+_OWN_COLUMNS = ("purpose", "depth_cm", "sample_id", "units", "instructions")
 
 
 def parse_depth(text: str | None) -> str:
@@ -199,7 +210,8 @@ def apply_purpose(
     else:
         depth_text = parse_depth(depth)
 
-    params = dict(plan.params)
+    # A plan may pass through here twice (library use): start from its design alone.
+    params = {k: v for k, v in plan.params.items() if k not in _OWN_PARAMS}
     params["purpose"] = purpose
     if purpose == "soil":
         params.update(
@@ -211,10 +223,10 @@ def apply_purpose(
     if purpose == "ripeness":
         profile = load_profile(crop_profile or DEFAULT_PROFILE)
         params["crop_profile"] = profile.name
-    code = plan_code(plan.meta.get("input_sha256"), {k: v for k, v in params.items() if k != "plan_id"})
+    code = plan_code(plan.meta.get("input_sha256"), params)
     params["plan_id"] = code
 
-    points = plan.points.copy()
+    points = plan.points.drop(columns=[c for c in _OWN_COLUMNS if c in plan.points.columns])
     points["purpose"] = purpose
     points["depth_cm"] = depth_text
     if purpose == "soil" and composite == "zone":

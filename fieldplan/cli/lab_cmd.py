@@ -1,0 +1,45 @@
+"""``fieldplan lab-sheet``: lab submission sheet and results template for a plan."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from fieldplan.cli.options import Quiet, handle_errors
+
+__all__ = ["register", "lab_sheet"]
+
+
+@handle_errors
+def lab_sheet(
+    plan_dir: Annotated[Path, typer.Argument(help="A plan folder made by 'fieldplan plan'.")],
+    analyses: Annotated[
+        str, typer.Option(help='Analyses to request, comma-separated, e.g. "pH,P,K" or "Brix,pH,TA".')
+    ],
+    quiet: Quiet = False,
+) -> None:
+    """Write lab_submission.csv and results_template.csv into the plan folder.
+
+    Fill in results_template.csv (one row per sample) and read it back with
+    'fieldplan results'.
+
+    Example: fieldplan lab-sheet plan-2027-soil --analyses "pH,P,K,organic_matter"
+    """
+    from fieldplan.safety import CAUTIONS
+    from fieldplan.samples.lab import parse_analyses, write_lab_sheet
+    from fieldplan.store import load_plan
+
+    names = parse_analyses(analyses)
+    plan = load_plan(plan_dir)
+    paths = write_lab_sheet(plan, plan_dir, analyses=names)
+    if not quiet:
+        samples = plan.points["sample_id"].nunique()
+        typer.echo(f"{samples} samples, analyses {', '.join(names)} -> " + ", ".join(str(p) for p in paths))
+        if plan.params.get("purpose") == "soil":
+            typer.echo("\n".join("Caution: " + c for c in CAUTIONS if "buried" in c))
+
+
+def register(app: typer.Typer) -> None:
+    app.command("lab-sheet")(lab_sheet)

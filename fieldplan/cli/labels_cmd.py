@@ -1,0 +1,74 @@
+"""``fieldplan labels``: sticker sheets (labels.pdf) for a plan's sample bags."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from fieldplan.cli.options import Quiet, handle_errors
+
+__all__ = ["register", "labels"]
+
+
+def _check_date(text: str | None) -> str | None:
+    from datetime import date
+
+    from fieldplan.errors import OptionError
+
+    if text is None:
+        return None
+    try:
+        return date.fromisoformat(text).isoformat()
+    except ValueError:
+        raise OptionError(f"--date takes YYYY-MM-DD, e.g. 2027-03-01; got {text!r}") from None
+
+
+@handle_errors
+def labels(
+    plan_dir: Annotated[Path, typer.Argument(help="A plan folder made by 'fieldplan plan'.")],
+    layout: Annotated[
+        str,
+        typer.Option(
+            help="Sheet: a4-3x8, letter-3x10, or COLSxROWS (columns x rows, e.g. 4x10 or letter-2x7)."
+        ),
+    ] = "a4-3x8",
+    date: Annotated[
+        str | None, typer.Option(help="Date printed on every label (YYYY-MM-DD); blank line if not given.")
+    ] = None,
+    skip: Annotated[int, typer.Option(min=0, help="Label positions already used on the first sheet.")] = 0,
+    preview: Annotated[
+        bool, typer.Option(help="Also write labels_preview.png (first sheet) to check before printing.")
+    ] = False,
+    quiet: Quiet = False,
+) -> None:
+    """Write labels.pdf into the plan folder: one label per sample with its id as text and QR code.
+
+    Example: fieldplan labels plan-2027-soil --layout letter-3x10 --date 2027-03-01
+    """
+    from fieldplan.samples.labels import label_records, labels_pdf, labels_png, parse_layout
+    from fieldplan.store import load_plan
+    from fieldplan.write.safe import atomic_write_bytes
+
+    sheet = parse_layout(layout)
+    when = _check_date(date)
+    plan = load_plan(plan_dir)
+    records = label_records(plan.points, plan_id=plan.params.get("plan_id", ""))
+    atomic_write_bytes(plan_dir / "labels.pdf", labels_pdf(records, sheet, date=when, skip=skip))
+    if preview:
+        import io
+
+        buffer = io.BytesIO()
+        labels_png(records, sheet, date=when, skip=skip).save(buffer, format="PNG")
+        atomic_write_bytes(plan_dir / "labels_preview.png", buffer.getvalue())
+    if not quiet:
+        sheets = -(-(skip + len(records)) // sheet.per_page)
+        typer.echo(
+            f"{len(records)} labels on {sheets} {sheet.name} sheet(s) -> {plan_dir / 'labels.pdf'}\n"
+            "Print at 100 % (no 'fit to page') so labels line up with the sheet."
+        )
+
+
+def register(app: typer.Typer) -> None:
+    app.command("labels")(labels)
