@@ -7,6 +7,8 @@ longitude/latitude (RFC 7946 axis order).
 
 from __future__ import annotations
 
+import math
+
 from pyproj import CRS
 from pyproj.aoi import AreaOfInterest
 from pyproj.database import query_utm_crs_info
@@ -29,6 +31,9 @@ def utm_crs_for(lon: float, lat: float) -> CRS:
     """
     if not (-180.0 <= lon <= 180.0 and -90.0 <= lat <= 90.0):
         raise ValueError(f"not a longitude/latitude pair: ({lon}, {lat})")
+    quick = _regular_zone(lon, lat)
+    if quick is not None:
+        return CRS.from_epsg(quick)
     infos = query_utm_crs_info(
         datum_name="WGS 84",
         area_of_interest=AreaOfInterest(lon, lat, lon, lat),
@@ -45,6 +50,24 @@ def utm_crs_for(lon: float, lat: float) -> CRS:
 
     best = min(infos, key=distance)
     return CRS.from_authority(best.auth_name, best.code)
+
+
+def _regular_zone(lon: float, lat: float) -> int | None:
+    """EPSG code of the UTM zone by arithmetic, or None where the database must decide.
+
+    The database query takes about half a second; away from zone edges, the
+    equator, the poles and the Norway/Svalbard exceptions (56-84 N, 0-42 E)
+    the zone is simply ``floor((lon + 180) / 6) + 1``.
+    """
+    if not (-80.0 < lat < 84.0) or lat == 0.0:
+        return None
+    if lat >= 56.0 and 0.0 <= lon < 42.0:
+        return None
+    position = (lon + 180.0) / 6.0
+    if abs(position - round(position)) < 1e-6:
+        return None
+    zone = int(math.floor(position)) % 60 + 1
+    return (32600 if lat > 0 else 32700) + zone
 
 
 def to_crs(user_input) -> CRS:

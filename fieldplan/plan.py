@@ -184,11 +184,21 @@ def _grid_design(
                 f"the plan would hold more than {params['max_points']:,} points "
                 f"(already {total:,} after block {row.block!r}); use a wider --spacing or lower --per-ha"
             )
-        frames.append(pd.DataFrame({"block": row.block, "x": xy[:, 0], "y": xy[:, 1]}))
+        # One DataFrame per block costs more than the grid itself; collect arrays instead.
+        frames.append((row.block, xy))
         flags.append(block_flags)
         if progress is not None:
             progress(i + 1, len(blocks))
-    return pd.concat(frames, ignore_index=True), flags
+    return _points_table(frames), flags
+
+
+def _points_table(frames: list[tuple[str, np.ndarray]]) -> pd.DataFrame:
+    """One ``block, x, y`` table from per-block coordinate arrays, in block order."""
+    names = np.array([name for name, _ in frames], dtype=object)
+    counts = [len(xy) for _, xy in frames]
+    xy = np.concatenate([xy for _, xy in frames]) if frames else np.empty((0, 2))
+    block = pd.Series(np.repeat(names, counts), dtype="str")
+    return pd.DataFrame({"block": block, "x": xy[:, 0], "y": xy[:, 1]})
 
 
 DESIGNS: dict[str, Callable] = {"grid": _grid_design}

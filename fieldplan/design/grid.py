@@ -68,9 +68,9 @@ def lattice_basis(spacing: float, layout: str = "square", bearing_deg: float = 0
     theta = math.radians(bearing_deg)
     e1 = np.array([math.sin(theta), math.cos(theta)])
     e2 = np.array([-e1[1], e1[0]])
-    if layout == "square":
-        return spacing * np.vstack([e1, e2])
-    return spacing * np.vstack([e1, 0.5 * e1 + (math.sqrt(3.0) / 2.0) * e2])
+    second = e2 if layout == "square" else 0.5 * e1 + (math.sqrt(3.0) / 2.0) * e2
+    # Plain array construction: this runs once per block, where vstack's overhead shows.
+    return spacing * np.array([e1, second])
 
 
 def expected_count(area_m2: float, spacing: float, layout: str = "square") -> float:
@@ -127,7 +127,9 @@ def grid_points(
     minx, miny, maxx, maxy = shapely.bounds(polygon)
     corners = np.array([[minx, miny], [minx, maxy], [maxx, miny], [maxx, maxy]]) - start
     # Lattice coordinates of the bounding box corners tell which indices can fall inside.
-    lattice = corners @ np.linalg.inv(basis)
+    (b00, b01), (b10, b11) = basis.tolist()
+    det = b00 * b11 - b01 * b10
+    lattice = corners @ (np.array([[b11, -b01], [-b10, b00]]) / det)
     lo = np.floor(lattice.min(axis=0)).astype(np.int64)
     hi = np.ceil(lattice.max(axis=0)).astype(np.int64)
     n_candidates = int(hi[0] - lo[0] + 1) * int(hi[1] - lo[1] + 1)
@@ -136,8 +138,12 @@ def grid_points(
             f"grid would test {n_candidates:,} lattice points in one block; "
             "use a wider spacing or a lower density"
         )
-    ii, jj = np.meshgrid(np.arange(lo[0], hi[0] + 1, dtype=float), np.arange(lo[1], hi[1] + 1, dtype=float))
-    xy = start + np.column_stack([ii.ravel(), jj.ravel()]) @ basis
+    # Same order as meshgrid(i, j).ravel(): the first index runs fastest.
+    ni, nj = int(hi[0] - lo[0] + 1), int(hi[1] - lo[1] + 1)
+    index = np.empty((ni * nj, 2))
+    index[:, 0] = np.tile(np.arange(lo[0], hi[0] + 1, dtype=float), nj)
+    index[:, 1] = np.repeat(np.arange(lo[1], hi[1] + 1, dtype=float), ni)
+    xy = start + index @ basis
     shapely.prepare(polygon)
     inside = shapely.contains_xy(polygon, xy[:, 0], xy[:, 1])
     return xy[inside]
