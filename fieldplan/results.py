@@ -34,7 +34,14 @@ __all__ = [
     "parse_results",
     "read_results",
     "format_problems",
+    "normalise_column",
+    "RESULTS_LAYER",
+    "long_results",
+    "stored_results",
+    "append_round",
 ]
+
+RESULTS_LAYER = "results"
 
 # Broad plausible ranges for common measurements; a value outside is almost
 # always a typo or a unit mix-up (e.g. pH typed into the Brix column).
@@ -87,6 +94,11 @@ _DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
 def _norm(name: str) -> str:
     n = re.sub(r"[^0-9a-z]+", "_", str(name).strip().lower()).strip("_")
     return {"point": "point_id", "pointid": "point_id", "units": "units_measured"}.get(n, n)
+
+
+def normalise_column(name: str) -> str:
+    """Column name as fieldplan stores it: lower_snake_case, ``point`` -> ``point_id``."""
+    return _norm(name)
 
 
 def plausible_range(column: str) -> tuple[float, float] | None:
@@ -197,13 +209,9 @@ def parse_results(
         cols = [_norm(c) for c in value_columns]
         absent = [c for c in cols if c not in raw.columns]
         if absent:
-            raise InputError(
-                f"{source}: value column(s) {absent} not found; columns are {list(raw.columns)}"
-            )
+            raise InputError(f"{source}: value column(s) {absent} not found; columns are {list(raw.columns)}")
     if not cols:
-        raise InputError(
-            f"{source}: no numeric value column found; columns are {list(raw.columns)}"
-        )
+        raise InputError(f"{source}: no numeric value column found; columns are {list(raw.columns)}")
     # Blank lines keep their place so row numbers match the file; they are not problems.
     cells = raw.astype("string").apply(lambda s: s.str.strip()).fillna("")
     keep = (cells != "").any(axis=1).to_numpy()
@@ -255,9 +263,7 @@ def parse_results(
         dates = pd.to_datetime(text.where(text != ""), errors="coerce", format="ISO8601")
         bad = keep & (text != "").to_numpy() & dates.isna().to_numpy()
         if bad.any():
-            found.append(
-                _problems(rows[bad], ids[bad], "date", "unreadable date", "use YYYY-MM-DD")
-            )
+            found.append(_problems(rows[bad], ids[bad], "date", "unreadable date", "use YYYY-MM-DD"))
         out["date"] = dates
     if "units_measured" in raw.columns:
         units = _to_number(raw["units_measured"])
@@ -351,9 +357,7 @@ def read_results(
             skip_blank_lines=False,
         )
     except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error) as exc:
-        raise InputError(
-            f"{p}: not a readable CSV table ({exc}); save it as CSV with a header row"
-        ) from exc
+        raise InputError(f"{p}: not a readable CSV table ({exc}); save it as CSV with a header row") from exc
     return parse_results(
         frame,
         point_ids=point_ids,
@@ -376,3 +380,95 @@ def format_problems(problems: pd.DataFrame, *, limit: int = 50) -> str:
     if len(problems) > limit:
         lines.append(f"... and {len(problems) - limit} more")
     return "\n".join(lines)
+
+
+def long_results(table: ResultsTable, *, round_no: int, imported_utc: str) -> pd.DataFrame:
+    """One row per point (and unit) and variable, ready to store as a round.
+
+    Columns: ``round, imported_utc, source, sha256, row, point_id, unit, date,
+    units_measured, variable, value``. Empty or rejected cells are not stored.
+    """
+    d = table.data
+    base = pd.DataFrame(
+        {
+            "row": d["row"].astype("int64"),
+            "point_id": d["point_id"].astype(str),
+            "unit": d["unit"].astype(str) if "unit" in d else "",
+            "date": d["date"].dt.strftime("%Y-%m-%d").fillna("") if "date" in d else "",
+            "units_measured": d["units_measured"] if "units_measured" in d else np.nan,
+        }
+    )
+    parts = [base.assign(variable=c, value=d[c].to_numpy(dtype=float)) for c in table.value_columns]
+    out = pd.concat(parts, ignore_index=True)
+    out = out[np.isfinite(out["value"].to_numpy(dtype=float))]
+    out.insert(0, "sha256", table.sha256)
+    out.insert(0, "source", Path(table.source).name)
+    out.insert(0, "imported_utc", imported_utc)
+    out.insert(0, "round", int(round_no))
+    return out.reset_index(drop=True)
+
+
+def stored_results(layers: Mapping[str, pd.DataFrame]) -> pd.DataFrame:
+    """The ``results`` layer of a loaded plan (``Plan.layers``), or an empty frame."""
+    frame = layers.get(RESULTS_LAYER)
+    if frame is None or len(frame) == 0:
+        return pd.DataFrame(
+            columns=[
+                "round", "imported_utc", "source", "sha256", "row", "point_id", "unit",
+                "date", "units_measured", "variable", "value",
+            ]
+        )  # fmt: skip
+    frame = pd.DataFrame(frame).drop(columns="geometry", errors="ignore")
+    frame["round"] = frame["round"].astype("int64")
+    frame["value"] = frame["value"].astype(float)
+    for c in ("unit", "date", "point_id", "source", "sha256"):
+        frame[c] = frame[c].fillna("").astype(str)
+    return frame
+
+
+def append_round(
+    plan_dir: str | Path,
+    table: ResultsTable,
+    *,
+    existing: pd.DataFrame,
+    imported_utc: str,
+    allow_duplicate: bool = False,
+) -> int:
+    """Store ``table`` as the next round in ``plan.gpkg`` (layer ``results``).
+
+    Earlier rounds are kept as they are; the GeoPackage is rewritten through a
+    copy beside it and swapped in, so an interrupted import leaves the old file.
+    Returns the new round number.
+
+    Raises
+    ------
+    InputError
+        If a file with the same SHA-256 was imported before and
+        ``allow_duplicate`` is false, or nothing numeric is left to store.
+    """
+    import os
+    import shutil
+
+    from fieldplan.write.gpkg import GPKG_NAME, write_layer
+
+    if table.sha256 and not allow_duplicate and (existing["sha256"] == table.sha256).any():
+        prev = existing.loc[existing["sha256"] == table.sha256, "round"].iloc[0]
+        raise InputError(
+            f"{table.source}: this exact file was already imported as round {int(prev)}; "
+            "use --allow-duplicate to import it again as a new round"
+        )
+    round_no = int(existing["round"].max()) + 1 if len(existing) else 1
+    new = long_results(table, round_no=round_no, imported_utc=imported_utc)
+    if new.empty:
+        raise InputError(f"{table.source}: no usable values to store; see the problems listed")
+    frame = pd.concat([existing, new], ignore_index=True) if len(existing) else new
+    path = Path(plan_dir) / GPKG_NAME
+    tmp = path.with_name(f".results-tmp-{path.name}")
+    shutil.copy2(path, tmp)
+    try:
+        write_layer(tmp, RESULTS_LAYER, frame)
+        os.replace(tmp, path)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+    return round_no

@@ -131,3 +131,16 @@ def test_stratified_interval_coverage_500_samples():
     # reference: nominal 95% coverage of a t interval (Cochran 1977, §5.4); 500 draws
     # give a binomial SD of about 1%, hence the 92–98% band.
     assert 0.92 <= hits / 500 <= 0.98
+
+
+def test_stratified_single_point_stratum_pooled_variance():
+    y = np.array([1.0, 2.0, 3.0, 10.0, 14.0, 9.0])
+    s = np.array(["a", "a", "a", "b", "b", "c"])
+    est = stratified_mean(y, s, sizes={"a": 2.0, "b": 1.0, "c": 1.0}, single="pooled")
+    # reference: Cochran (1977) eq. 5.7 with the pooled within-stratum variance
+    # sum (n_h - 1) s_h^2 / sum (n_h - 1) standing in for the one-point stratum (§5A.12
+    # discusses the problem; the pooled substitute is stated in the note)
+    sp2 = (2 * 1.0 + 1 * 8.0) / 3
+    var = 0.5**2 * 1.0 / 3 + 0.25**2 * 8.0 / 2 + 0.25**2 * sp2 / 1
+    assert est.se == pytest.approx(var**0.5, abs=1e-12)
+    assert "pooled" in est.note

@@ -96,9 +96,7 @@ def ratio_mean(
     r = float(y.sum() / m.sum())
     if n < 2:
         lo, hi = np.nan, np.nan
-        return ClusterEstimate(
-            r, np.nan, np.nan, lo, hi, n, int(m.sum()), c, note="no interval (1 cluster)"
-        )
+        return ClusterEstimate(r, np.nan, np.nan, lo, hi, n, int(m.sum()), c, note="no interval (1 cluster)")
     f = 0.0 if population_clusters is None else min(1.0, n / float(population_clusters))
     mbar = m.mean()
     resid = y - r * m
@@ -106,9 +104,7 @@ def ratio_mean(
     se = float(np.sqrt(v))
     df = float(n - 1)
     lo, hi = t_interval(r, se, df, confidence=c)
-    return ClusterEstimate(
-        r, se, df, float(lo), float(hi), n, int(m.sum()), c, mean_cluster_size=float(mbar)
-    )
+    return ClusterEstimate(r, se, df, float(lo), float(hi), n, int(m.sum()), c, mean_cluster_size=float(mbar))
 
 
 def icc_anova(values: ArrayLike, clusters: ArrayLike) -> float:

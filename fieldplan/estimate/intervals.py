@@ -21,9 +21,7 @@ def check_confidence(confidence: float) -> float:
     """Return ``confidence`` as a float after checking 0 < confidence < 1."""
     c = float(confidence)
     if not 0.0 < c < 1.0:
-        raise OptionError(
-            f"confidence must lie strictly between 0 and 1 (e.g. 0.95), got {confidence!r}"
-        )
+        raise OptionError(f"confidence must lie strictly between 0 and 1 (e.g. 0.95), got {confidence!r}")
     return c
 
 

@@ -130,9 +130,7 @@ def _with_note(p: TrendProjection, note: str) -> TrendProjection:
     )
 
 
-def project_blocks(
-    rounds: pd.DataFrame, target: float, *, confidence: float = 0.95
-) -> pd.DataFrame:
+def project_blocks(rounds: pd.DataFrame, target: float, *, confidence: float = 0.95) -> pd.DataFrame:
     """Project the target date for every block.
 
     Parameters

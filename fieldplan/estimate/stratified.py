@@ -36,9 +36,7 @@ def _clean(values: ArrayLike, groups: ArrayLike) -> pd.DataFrame:
     y = np.asarray(values, dtype=float)
     g = np.asarray(groups, dtype=object)
     if y.shape != g.shape or y.ndim != 1:
-        raise InputError(
-            f"values and groups must be 1-D and of equal length, got {y.shape} and {g.shape}"
-        )
+        raise InputError(f"values and groups must be 1-D and of equal length, got {y.shape} and {g.shape}")
     keep = np.isfinite(y)
     return pd.DataFrame({"group": g[keep].astype(str), "y": y[keep]})
 
@@ -141,6 +139,7 @@ def stratified_mean(
     *,
     sizes: Mapping[str, float],
     fpc: bool = False,
+    single: str = "nan",
     confidence: float = 0.95,
 ) -> StratifiedEstimate:
     """Stratified mean ``Σ W_h ȳ_h`` with its standard error and t interval.
@@ -156,6 +155,12 @@ def stratified_mean(
         count. Weights are ``W_h = N_h / Σ N_h`` over the sampled strata.
     fpc : bool, keyword-only
         ``True`` when ``sizes`` count sampling units, to apply ``1 − n_h/N_h``.
+    single : {"nan", "pooled"}, keyword-only
+        What to do with a stratum holding one point. ``"nan"`` (default) leaves
+        the overall standard error undefined. ``"pooled"`` gives that stratum
+        the pooled within-stratum variance of the others
+        (``Σ (n_h − 1) s_h² / Σ (n_h − 1)``), an assumption the ``note`` states;
+        its degrees of freedom in the Satterthwaite sum are the pooled ones.
     confidence : float, keyword-only
 
     Returns
@@ -189,13 +194,24 @@ def stratified_mean(
     a = w**2 * (1.0 - f) / n
     mean = float(np.sum(w * per["mean"].to_numpy()))
     one = per.loc[n < 2, "group"].tolist()
-    if one:
+    names = ", ".join(map(str, one))
+    dof = n - 1.0
+    if single not in ("nan", "pooled"):
+        raise InputError(f"single must be 'nan' or 'pooled', got {single!r}")
+    if one and single == "pooled" and np.sum(dof[n >= 2]) >= 1:
+        pooled_df = float(np.sum(dof[n >= 2]))
+        s2 = np.where(n >= 2, s2, np.nansum(np.where(n >= 2, dof * s2, 0.0)) / pooled_df)
+        dof = np.where(n >= 2, dof, pooled_df)
+        note = f"stratum {names} has 1 point: pooled within-stratum variance used for it"
+    elif one:
+        note = f"no interval: stratum {names} has 1 point"
+    else:
+        note = ""
+    if one and single == "nan" or not np.all(np.isfinite(s2)):
         se, df = float("nan"), float("nan")
-        note = f"no interval: stratum {', '.join(map(str, one))} has 1 point"
     else:
         se = float(np.sqrt(np.sum(a * s2)))
-        df = satterthwaite_df(a, s2, n)
-        note = ""
+        df = satterthwaite_df(a, s2, dof + 1.0)
     lo, hi = t_interval(mean, se, df, confidence=c)
     table = per.assign(size=size, weight=w)
     if fpc:

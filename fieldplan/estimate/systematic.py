@@ -66,9 +66,7 @@ def hilbert_order(x: ArrayLike, y: ArrayLike) -> np.ndarray:
     return np.argsort(hilbert_index(x, y), kind="stable")
 
 
-def successive_difference_se(
-    values: ArrayLike, x: ArrayLike, y: ArrayLike, *, fpc: float = 0.0
-) -> float:
+def successive_difference_se(values: ArrayLike, x: ArrayLike, y: ArrayLike, *, fpc: float = 0.0) -> float:
     """Successive-difference standard error of the mean (Wolter 2007, §8.2, ``v₂``).
 
     Parameters
@@ -137,9 +135,7 @@ def systematic_mean(
     mean = float(v.mean())
     if n < 2:
         nan = float("nan")
-        return SystematicEstimate(
-            mean, n, nan, nan, nan, nan, nan, nan, nan, c, note="no interval (1 point)"
-        )
+        return SystematicEstimate(mean, n, nan, nan, nan, nan, nan, nan, nan, c, note="no interval (1 point)")
     df = float(n - 1)
     se_srs = float(v.std(ddof=1) / np.sqrt(n))
     se_loc = successive_difference_se(v, xx, yy)

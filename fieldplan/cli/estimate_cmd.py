@@ -1,0 +1,135 @@
+"""``fieldplan estimate``: means with confidence intervals from stored results."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from fieldplan.cli.options import Quiet, handle_errors
+
+__all__ = ["register", "estimate", "format_estimates"]
+
+ESTIMATES_NAME = "estimates.csv"
+
+
+def _fmt(x, digits: int = 3) -> str:
+    import math
+
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "—"
+    if isinstance(x, float):
+        return f"{x:.{digits}f}"
+    return str(x)
+
+
+def format_estimates(table, *, confidence: float) -> str:
+    """Plain-text table of the estimates (what the command prints)."""
+    import pandas as pd
+
+    pct = f"{100 * confidence:g}%"
+    head = ["group", "n", "mean", "se", f"{pct} interval"]
+    has_local = "se_local" in table
+    has_p = "p_reached" in table
+    has_date = "target_date" in table
+    if has_local:
+        head += ["se local", f"{pct} local"]
+    if has_p:
+        head.append("P(≥ target)")
+    if has_date:
+        head.append("target date (range)")
+    head.append("note")
+    lines = []
+    for r in table.to_dict("records"):
+        cells = [str(r["group"]), str(r["n"]), _fmt(r["mean"]), _fmt(r["se"])]
+        cells.append("—" if pd.isna(r["lower"]) else f"{_fmt(r['lower'])} – {_fmt(r['upper'])}")
+        if has_local:
+            cells += [
+                _fmt(r["se_local"]),
+                "—" if pd.isna(r["lower_local"]) else f"{_fmt(r['lower_local'])} – {_fmt(r['upper_local'])}",
+            ]
+        if has_p:
+            cells.append("—" if pd.isna(r["p_reached"]) else f"{r['p_reached']:.2f}")
+        if has_date:
+            if pd.isna(r.get("target_date")):
+                note = r.get("trend_note")
+                cells.append(note if isinstance(note, str) and note else "—")
+            else:
+                cells.append(
+                    f"{r['target_date']:%Y-%m-%d} ({r['date_lower']:%m-%d} – {r['date_upper']:%m-%d})"
+                )
+        cells.append(str(r.get("note") or ""))
+        lines.append(cells)
+    widths = [max(len(h), *(len(c[i]) for c in lines)) for i, h in enumerate(head)]
+    out = ["  ".join(h.ljust(w) for h, w in zip(head, widths, strict=True)).rstrip()]
+    out += ["  ".join(c.ljust(w) for c, w in zip(cells, widths, strict=True)).rstrip() for cells in lines]
+    return "\n".join(out)
+
+
+@handle_errors
+def estimate(
+    plan_dir: Annotated[Path, typer.Argument(help="Plan folder with imported results.")],
+    value: Annotated[str, typer.Option("--value", help="Variable to estimate, e.g. brix.")],
+    by: Annotated[str, typer.Option("--by", help="Group by block, stratum, variety or farm.")] = "block",
+    confidence: Annotated[float, typer.Option("--confidence", help="Two-sided confidence level.")] = 0.95,
+    target: Annotated[
+        float | None,
+        typer.Option("--target", help="Target value: adds P(mean ≥ target) and a projected date."),
+    ] = None,
+    local_variance: Annotated[
+        bool,
+        typer.Option(
+            "--local-variance",
+            help="Also report the local-difference variance (grids, balanced samples).",
+        ),
+    ] = False,
+    quiet: Quiet = False,
+) -> None:
+    """Estimate means with confidence intervals for the latest results round.
+
+    Writes estimates.csv in the plan folder and prints the table.
+    """
+    from fieldplan.estimate.table import estimate_table
+    from fieldplan.results import normalise_column, stored_results
+    from fieldplan.store import load_plan
+    from fieldplan.write.safe import atomic_write_text, neutralise_frame
+
+    plan = load_plan(plan_dir)
+    design = str(plan.params.get("design", "grid"))
+    results = stored_results(plan.layers)
+    table = estimate_table(
+        plan.points,
+        plan.blocks,
+        results,
+        value=normalise_column(value),
+        design=design,
+        by=by,
+        confidence=confidence,
+        target=target,
+        local_variance=local_variance,
+    )
+    out = table.copy()
+    out.insert(0, "variable", normalise_column(value))
+    out.insert(1, "confidence", confidence)
+    for c in ("date", "target_date", "date_lower", "date_upper"):
+        if c in out:
+            out[c] = out[c].map(lambda t: "" if t is None or t != t else f"{t:%Y-%m-%d}")
+    csv = neutralise_frame(out).to_csv(index=False, float_format="%.6g", lineterminator="\n")
+    atomic_write_text(Path(plan_dir) / ESTIMATES_NAME, csv)
+    if not quiet:
+        rnd = int(table["round"].iloc[0])
+        typer.echo(
+            f"{normalise_column(value)}, round {rnd}, design {design}: {table['estimator'].iloc[-1]} ({'by ' + by})"
+        )
+        typer.echo(format_estimates(table, confidence=confidence))
+        if design in ("grid", "balanced") and not local_variance:
+            typer.echo(
+                "note: grid/balanced points are treated as a simple random sample, which is "
+                "conservative on patchy fields; --local-variance adds the local-difference estimate"
+            )
+        typer.echo(f"-> {Path(plan_dir) / ESTIMATES_NAME}")
+
+
+def register(app: typer.Typer) -> None:
+    app.command("estimate")(estimate)

@@ -1,0 +1,223 @@
+"""The estimates table for a plan: picks the estimator matching the plan's design.
+
+Pure function of the plan's points and blocks and the stored results rows
+(:func:`fieldplan.results.stored_results`); no file I/O.
+
+* grid, random and balanced designs: within a block the points are treated as
+  a simple random sample (stated in the ``estimator`` column; for grids and
+  balanced samples this is conservative on spatially correlated fields, see
+  docs/validity.md). A group of several blocks (stratum, variety, farm, and
+  the ``all`` row) is a stratified estimate with blocks as strata weighted by
+  their sampled area (Cochran 1977, ch. 5).
+* clusters: the ratio estimator over clusters, ``Σ y_i / Σ m_i``, with its
+  linearised variance; with one row per plant also the intra-cluster
+  correlation and design effect.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from fieldplan.errors import InputError, OptionError
+from fieldplan.estimate.cluster import cluster_mean_from_units, ratio_mean
+from fieldplan.estimate.intervals import check_confidence, t_interval
+from fieldplan.estimate.readiness import prob_reached, project_blocks
+from fieldplan.estimate.stratified import ONE_POINT_NOTE, stratified_mean
+from fieldplan.estimate.systematic import successive_difference_se, systematic_mean
+
+__all__ = ["GROUPINGS", "estimate_table", "point_values"]
+
+GROUPINGS = ("block", "stratum", "variety", "farm")
+ALL = "all"
+
+
+def point_values(
+    points: pd.DataFrame, blocks: pd.DataFrame, results: pd.DataFrame, *, value: str
+) -> pd.DataFrame:
+    """One row per point (or plant) and round with its value and grouping columns.
+
+    Returns columns ``round, date, point_id, unit, value, units_measured, x, y,
+    block, stratum, variety, farm, area, plan_units``.
+    """
+    r = results[results["variable"] == value]
+    if r.empty:
+        have = sorted(results["variable"].unique()) if len(results) else []
+        raise InputError(
+            f"no stored results for {value!r}; stored variables: {have or 'none'} "
+            "(import a file with 'fieldplan results PLAN_DIR FILE')"
+        )
+    pts = pd.DataFrame(
+        {
+            "point_id": points["point_id"].astype(str).to_numpy(),
+            "block": points["block"].astype(str).to_numpy(),
+            "x": points.geometry.x.to_numpy(),
+            "y": points.geometry.y.to_numpy(),
+            "plan_units": points["units"].to_numpy(dtype=float) if "units" in points else np.nan,
+        }
+    )
+    b = pd.DataFrame(blocks.drop(columns="geometry", errors="ignore")).copy()
+    b["block"] = b["block"].astype(str)
+    area = b["sampled_area_ha"] if "sampled_area_ha" in b else b.get("area_ha")
+    meta = pd.DataFrame(
+        {
+            "block": b["block"],
+            "stratum": b["stratum"].astype(str) if "stratum" in b else b["block"],
+            "variety": b["variety"].fillna("(none)").astype(str) if "variety" in b else "(none)",
+            "farm": b["farm"].fillna("(none)").astype(str) if "farm" in b else "(none)",
+            "area": pd.to_numeric(area, errors="coerce") if area is not None else 1.0,
+        }
+    )
+    out = r[["round", "date", "point_id", "unit", "value", "units_measured"]].merge(
+        pts, on="point_id", how="inner"
+    )
+    return out.merge(meta, on="block", how="left")
+
+
+def _srs_like(sub: pd.DataFrame, *, confidence: float, local: bool) -> dict:
+    """Stratified-by-block estimate (a single block reduces to SRS)."""
+    blocks = sub.groupby("block")["area"].first()
+    sizes = {k: (v if np.isfinite(v) and v > 0 else 1.0) for k, v in blocks.items()}
+    if len(sizes) == 1:
+        e = systematic_mean(sub["value"], sub["x"], sub["y"], confidence=confidence)
+        row = {
+            "estimator": "mean, points as simple random sample",
+            "n": e.n,
+            "mean": e.mean,
+            "se": e.se_srs,
+            "df": e.df,
+            "lower": e.lower_srs,
+            "upper": e.upper_srs,
+            "note": e.note,
+        }
+        if local:
+            row.update(se_local=e.se_local, lower_local=e.lower_local, upper_local=e.upper_local)
+        return row
+    e = stratified_mean(sub["value"], sub["block"], sizes=sizes, single="pooled", confidence=confidence)
+    row = {
+        "estimator": "stratified by block, area weights",
+        "n": e.n,
+        "mean": e.mean,
+        "se": e.se,
+        "df": e.df,
+        "lower": e.lower,
+        "upper": e.upper,
+        "note": e.note,
+    }
+    if local:
+        # Local differences within each block, combined with the same weights; a
+        # one-point block borrows the pooled within-block variance, as above.
+        w = e.strata.set_index("group")["weight"]
+        tab = e.strata.set_index("group")
+        ok = tab["n"] >= 2
+        pooled = float(((tab["n"] - 1) * tab["sd"] ** 2)[ok].sum() / (tab["n"] - 1)[ok].sum())
+        v = 0.0
+        for k, g in sub.groupby("block"):
+            se_k = successive_difference_se(g["value"], g["x"], g["y"])
+            v += w[k] ** 2 * (se_k**2 if np.isfinite(se_k) else pooled / len(g))
+        se_l = float(np.sqrt(v))
+        lo, hi = t_interval(e.mean, se_l, e.df, confidence=confidence)
+        row.update(se_local=se_l, lower_local=float(lo), upper_local=float(hi))
+    return row
+
+
+def _clusters(sub: pd.DataFrame, *, confidence: float) -> dict:
+    per_plant = (sub["unit"].astype(str) != "").any() and sub.duplicated("point_id").any()
+    if per_plant:
+        e = cluster_mean_from_units(sub["value"], sub["point_id"], confidence=confidence)
+    else:
+        m = sub["units_measured"].astype(float)
+        m = m.where(np.isfinite(m), sub["plan_units"].astype(float)).fillna(1.0)
+        e = ratio_mean(sub["value"].to_numpy() * m.to_numpy(), m.to_numpy(), confidence=confidence)
+    return {
+        "estimator": "ratio over clusters, linearised variance",
+        "n": e.n_clusters,
+        "units": e.n_units,
+        "mean": e.mean,
+        "se": e.se,
+        "df": e.df,
+        "lower": e.lower,
+        "upper": e.upper,
+        "icc": e.icc,
+        "deff": e.deff,
+        "note": e.note,
+    }
+
+
+def _one(sub: pd.DataFrame, *, design: str, confidence: float, local: bool) -> dict:
+    if design == "clusters":
+        return _clusters(sub, confidence=confidence)
+    return _srs_like(sub, confidence=confidence, local=local)
+
+
+def estimate_table(
+    points: pd.DataFrame,
+    blocks: pd.DataFrame,
+    results: pd.DataFrame,
+    *,
+    value: str,
+    design: str = "grid",
+    by: str = "block",
+    confidence: float = 0.95,
+    target: float | None = None,
+    local_variance: bool = False,
+) -> pd.DataFrame:
+    """Estimates for the latest round, one row per group plus an ``all`` row.
+
+    Parameters
+    ----------
+    points, blocks : DataFrame
+        The plan's points (with geometry) and blocks.
+    results : DataFrame
+        Stored results rows (all rounds).
+    value : str
+        Variable to estimate.
+    design : str, keyword-only
+        The plan's design (``plan.params["design"]``).
+    by : {"block", "stratum", "variety", "farm"}, keyword-only
+    confidence : float, keyword-only
+    target : float, optional, keyword-only
+        Adds ``p_reached`` and, with two or more dated rounds, the projected
+        date the group mean reaches it.
+    local_variance : bool, keyword-only
+        Adds the successive-difference standard error and interval.
+    """
+    c = check_confidence(confidence)
+    if by not in GROUPINGS:
+        raise OptionError(f"--by must be one of {', '.join(GROUPINGS)}; got {by!r}")
+    d = point_values(points, blocks, results, value=value)
+    if by == "farm" and "farm" not in blocks:
+        raise OptionError("--by farm needs a 'farm' column in the blocks; use block or stratum")
+    latest = int(d["round"].max())
+    rows = []
+    # One estimate per (round, group): a handful of groups, not a loop over points.
+    for rnd, dr in d.groupby("round", sort=True):
+        date = _round_date(dr)
+        groups = [(g, s) for g, s in dr.groupby(by, sort=True)] + [(ALL, dr)]
+        for g, sub in groups:
+            row = _one(sub, design=design, confidence=c, local=local_variance)
+            if row["n"] == 1 and not row["note"]:
+                row["note"] = ONE_POINT_NOTE
+            rows.append({"group": g, "round": int(rnd), "date": date, **row})
+    allrounds = pd.DataFrame(rows)
+    out = allrounds[allrounds["round"] == latest].reset_index(drop=True)
+    if target is not None:
+        out["p_reached"] = prob_reached(out["mean"], out["se"], out["df"], float(target))
+        dated = allrounds.dropna(subset=["date"])
+        if dated["round"].nunique() >= 2:
+            proj = project_blocks(dated, float(target), confidence=c)
+            proj = proj.rename(columns={"note": "trend_note"})
+            out = out.merge(
+                proj[["group", "rounds", "target_date", "date_lower", "date_upper", "trend_note"]],
+                on="group",
+                how="left",
+            )
+    out.insert(1, "by", by)
+    return out
+
+
+def _round_date(dr: pd.DataFrame) -> pd.Timestamp | None:
+    dates = pd.to_datetime(dr["date"].replace("", np.nan), errors="coerce").dropna()
+    if dates.empty:
+        return None
+    return dates.sort_values().iloc[len(dates) // 2]
