@@ -36,6 +36,12 @@ from fieldplan.cli import demo_cmd, plan_cmd  # noqa: E402
 
 plan_cmd.register(app)
 demo_cmd.register(app)
+from fieldplan.cli import results_cmd  # noqa: E402
+
+results_cmd.register(app)
+from fieldplan.cli import estimate_cmd  # noqa: E402
+
+estimate_cmd.register(app)
 from fieldplan.cli import labels_cmd  # noqa: E402
 
 labels_cmd.register(app)
