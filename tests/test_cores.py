@@ -215,3 +215,26 @@ def test_soil_options_refused_for_other_purposes():
         apply_purpose(_plan(), purpose="ripeness", cores=16)
     with pytest.raises(OptionError, match="--purpose"):
         apply_purpose(_plan(), purpose="tissue")
+
+
+def test_cli_soil_plan_writes_cores(tmp_path):
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import app
+    from fieldplan.demo import demo_blocks_path, demo_exclusions_path
+
+    runner = CliRunner()
+    args = ["plan", str(demo_blocks_path()), "--exclude", str(demo_exclusions_path()), "--spacing", "100"]
+    soil = [*args, "--purpose", "soil", "--composite", "zone", "--cores", "20", "--depth", "0-20"]
+    result = runner.invoke(app, [*soil, "--seed", "1", "--out", str(tmp_path / "z"), "-q"])
+    assert result.exit_code == 0, result.output
+    data = json.loads((tmp_path / "z" / "cores.geojson").read_text())
+    props = [f["properties"] for f in data["features"]]
+    blocks = {p["block"] for p in props}
+    assert len(props) == 20 * len(blocks) and {p["depth_cm"] for p in props} == {"0-20"}
+    result = runner.invoke(
+        app, [*args, "--purpose", "soil", "--composite", "ring", "--out", str(tmp_path / "r")]
+    )
+    assert result.exit_code == 2 and "--composite must be one of cell, zone" in result.output
+    result = runner.invoke(app, [*args, "--purpose", "ripeness", "--out", str(tmp_path / "g"), "-q"])
+    assert result.exit_code == 0 and not (tmp_path / "g" / "cores.geojson").exists()

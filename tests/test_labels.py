@@ -209,3 +209,38 @@ def test_zone_composites_list_each_sample_once(tmp_path):
 def test_bad_analyses_are_refused(text, message):
     with pytest.raises(OptionError, match=message):
         parse_analyses(text)
+
+
+def test_cli_plan_labels_and_lab_sheet(tmp_path):
+    import zxingcpp
+    from PIL import Image
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import app
+    from fieldplan.demo import demo_blocks_path
+
+    runner = CliRunner()
+    out = tmp_path / "soil"
+    args = ["plan", str(demo_blocks_path()), "--spacing", "150", "--purpose", "soil", "--seed", "3"]
+    result = runner.invoke(app, [*args, "--cores", "15", "--out", str(out), "-q"])
+    assert result.exit_code == 0, result.output
+    result = runner.invoke(
+        app, ["labels", str(out), "--layout", "letter-3x10", "--date", "2027-03-01", "--preview"]
+    )
+    assert result.exit_code == 0, result.output
+    assert (out / "labels.pdf").read_bytes().startswith(b"%PDF-")
+    points = pd.read_csv(out / "points.csv", dtype=str)
+    decoded = {r.text for r in zxingcpp.read_barcodes(Image.open(out / "labels_preview.png"))}
+    assert decoded == set(points["sample_id"][:30])
+    result = runner.invoke(app, ["lab-sheet", str(out), "--analyses", "pH,P,K"])
+    assert result.exit_code == 0, result.output
+    assert "buried services" in result.output
+    sub = pd.read_csv(out / SUBMISSION_NAME, dtype=str)
+    assert list(sub["sample_id"]) == list(points["sample_id"])
+
+    bad = runner.invoke(app, ["labels", str(out), "--date", "1 March"])
+    assert bad.exit_code == 2 and "YYYY-MM-DD" in bad.output
+    bad = runner.invoke(app, ["lab-sheet", str(out), "--analyses", "pH,ph"])
+    assert bad.exit_code == 2 and "same column" in bad.output
+    bad = runner.invoke(app, ["labels", str(tmp_path / "nowhere")])
+    assert bad.exit_code == 2
