@@ -38,12 +38,9 @@ def _square(x0: float, y0: float, w: float, h: float) -> dict:
     return {"type": "Polygon", "coordinates": [ring]}
 
 
-def _open(html_path: Path, user_dir: Path, *, size=(1280, 800)):
-    """Open ``html_path`` in a fresh Chromium; return (playwright, context, page, log)."""
-    from playwright.sync_api import sync_playwright
-
+def _open(pw, html_path: Path, user_dir: Path, *, size=(1280, 800)):
+    """Open ``html_path`` in a fresh Chromium profile; return (context, page, log)."""
     log = {"requests": [], "errors": []}
-    pw = sync_playwright().start()
     context = pw.chromium.launch_persistent_context(
         str(user_dir),
         executable_path=str(CHROMIUM),
@@ -67,7 +64,7 @@ def _open(html_path: Path, user_dir: Path, *, size=(1280, 800)):
     page.goto(html_path.resolve().as_uri())
     page.wait_for_function("window.fieldplanMap !== undefined")
     page.wait_for_timeout(300)
-    return pw, context, page, log
+    return context, page, log
 
 
 @pytest.fixture(scope="module")
@@ -107,16 +104,25 @@ def map_file(tmp_path_factory):
     spares = plan.points.iloc[:4].copy()
     spares["point_id"] = [f"S-{i}" for i in range(4)]
     out = write_map(plan, folder / "map.html", routes=routes, spares=spares)
+    write_map(plan, folder / "map_canvas.html", routes=routes, spares=spares, markers="canvas")
     return out, plan
 
 
 @pytest.fixture(scope="module")
-def opened(map_file, tmp_path_factory):
+def playwright_driver(map_file):
+    from playwright.sync_api import sync_playwright
+
+    with sync_playwright() as pw:
+        yield pw
+
+
+@pytest.fixture(scope="module")
+def opened(map_file, playwright_driver, tmp_path_factory):
     path, plan = map_file
-    pw, context, page, log = _open(path, tmp_path_factory.mktemp("chromium-profile"))
+    profile = tmp_path_factory.mktemp("chromium-profile")
+    context, page, log = _open(playwright_driver, path, profile)
     yield page, log, plan
     context.close()
-    pw.stop()
 
 
 def test_map_opens_offline_without_errors(opened):
@@ -125,6 +131,7 @@ def test_map_opens_offline_without_errors(opened):
     assert log["requests"] == []
     assert log["errors"] == []
     assert page.locator(".fp-point").count() == len(plan.points)
+    assert page.evaluate("fieldplanLayers.points.getLayers().length") == len(plan.points)
     assert page.locator(".fp-spare").count() == 0  # spare points are off by default
     assert page.locator(".leaflet-tile").count() == 0  # base layer off by default
     assert page.locator(".leaflet-control-scale-line").count() == 1
@@ -170,23 +177,53 @@ def test_base_layer_loads_only_when_switched_on(opened):
     assert log["requests"] and all(u.startswith("https://tile.openstreetmap.org/") for u in log["requests"])
 
 
+def test_canvas_markers_for_large_plans(map_file, playwright_driver, tmp_path):
+    path, plan = map_file
+    context, page, log = _open(playwright_driver, path.with_name("map_canvas.html"), tmp_path / "profile")
+    try:
+        assert log["requests"] == [] and log["errors"] == []
+        assert page.locator(".fp-point").count() == 0  # drawn on a canvas, not as elements
+        assert page.evaluate("fieldplanLayers.points.getLayers().length") == len(plan.points)
+        # Click the drawn marker nearest the map centre: the canvas hit test opens its popup.
+        target = page.evaluate(
+            """() => {
+              const map = fieldplanMap, c = map.getSize().divideBy(2);
+              let best = null, bestD = Infinity;
+              fieldplanLayers.points.eachLayer((m) => {
+                const p = map.latLngToContainerPoint(m.getLatLng()), d = p.distanceTo(c);
+                if (d < bestD) { bestD = d; best = { x: p.x, y: p.y, id: m.options.label }; }
+              });
+              return best;
+            }"""
+        )
+        box = page.locator("#map").bounding_box()
+        page.mouse.click(box["x"] + target["x"], box["y"] + target["y"])
+        page.wait_for_selector(".leaflet-popup-content")
+        assert target["id"] in page.locator(".leaflet-popup-content").inner_text()
+        assert page.evaluate("window.__fp_pwned") is None
+    finally:
+        context.close()
+
+
 def save_demo_screenshot(out: Path) -> Path:
     """Render the demo estate's map and save a screenshot (docs/demo_map.png)."""
     import tempfile
+
+    from playwright.sync_api import sync_playwright
 
     from fieldplan.demo import make_demo_plan
     from fieldplan.write.html_map import write_map
 
     with tempfile.TemporaryDirectory() as tmp:
         html = write_map(make_demo_plan(), Path(tmp) / "map.html")
-        pw, context, page, log = _open(html, Path(tmp) / "profile", size=(1280, 860))
-        try:
-            if log["requests"] or log["errors"]:
-                raise RuntimeError(f"demo map not clean: {log}")
-            page.screenshot(path=str(out))
-        finally:
-            context.close()
-            pw.stop()
+        with sync_playwright() as pw:
+            context, page, log = _open(pw, html, Path(tmp) / "profile", size=(1280, 860))
+            try:
+                if log["requests"] or log["errors"]:
+                    raise RuntimeError(f"demo map not clean: {log}")
+                page.screenshot(path=str(out))
+            finally:
+                context.close()
     return out
 
 

@@ -84,8 +84,8 @@ def test_page_loads_nothing_from_the_network(plan):
 
 def test_point_coordinates_match_pyproj(plan):
     data = _data(map_html(plan))
-    coords = np.array([f["geometry"]["coordinates"] for f in data["points"]["features"]])
-    ids = [f["properties"]["point_id"] for f in data["points"]["features"]]
+    coords = np.c_[data["points"]["lon"], data["points"]["lat"]]
+    ids = data["points"]["props"]["point_id"]
     assert ids == plan.points["point_id"].tolist()
     xy = shapely.get_coordinates(plan.points.geometry.values)
     # reference: pyproj.Transformer (PROJ) for UTM -> WGS84
@@ -172,9 +172,18 @@ def test_optional_layers_routes_spares_actual(plan):
     data = _data(page)
     assert [c["name"] for c in data["crews"]] == ["1", "<i>2</i>"]
     assert len(data["routes"]["features"]) == 2
-    assert [f["properties"]["point_id"] for f in data["spares"]["features"]] == ["S-1", "S-2", "S-3"]
-    assert len(data["actual"]["features"]) == 2
+    assert data["spares"]["props"]["point_id"] == ["S-1", "S-2", "S-3"]
+    assert data["actual"]["n"] == 2
     assert "<i>2</i>" not in page
+
+
+def test_marker_mode_switches_to_canvas_for_large_plans(plan):
+    from fieldplan.errors import OptionError
+
+    assert _data(map_html(plan))["marker_mode"] == "dom"
+    assert _data(map_html(plan, markers="canvas"))["marker_mode"] == "canvas"
+    with pytest.raises(OptionError, match="markers must be one of"):
+        map_html(plan, markers="webgl")
 
 
 def test_write_map_is_deterministic(plan, tmp_path):

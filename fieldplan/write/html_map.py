@@ -33,6 +33,7 @@ import shapely
 __all__ = [
     "PALETTE",
     "ROUTE_COLOURS",
+    "DOM_MARKER_LIMIT",
     "SHAPES",
     "plan_caption",
     "optional_layer",
@@ -65,6 +66,9 @@ ROUTE_DASHES: tuple[str | None, ...] = (None, "10 6", "2 6", "14 4 2 4")
 OSM_TILES = "https://tile.openstreetmap.org/{z}/{x}/{y}.png"
 OSM_ATTRIBUTION = "\u00a9 OpenStreetMap contributors"
 COORD_DECIMALS = 7  # about 1 cm; GPX/KML carry more
+#: Above this many points the map draws them on a canvas instead of one element each.
+DOM_MARKER_LIMIT = 1500
+MARKER_MODES = ("auto", "dom", "canvas")
 POPUP_FIELDS = ("point_id", "block", "stratum", "design", "row", "plant", "units", "status")
 
 
@@ -183,6 +187,31 @@ def _features(gdf, columns: tuple[str, ...] | list[str], *, decimals: int = COOR
     return {"type": "FeatureCollection", "features": features}
 
 
+def _point_columns(gdf, columns, *, decimals: int = COORD_DECIMALS) -> dict:
+    """Point layer as columns (``lon``, ``lat``, ``props``): compact, built without a per-point loop."""
+    if gdf is None or len(gdf) == 0:
+        return {"n": 0, "lon": [], "lat": [], "props": {}}
+    wgs = gdf.to_crs(4326) if gdf.crs is not None else gdf
+    lonlat = np.round(shapely.get_coordinates(wgs.geometry.values), decimals)
+    props = {}
+    for column in columns:
+        if column not in wgs.columns:
+            continue
+        values = wgs[column]
+        if values.dtype.kind == "f":
+            props[column] = [None if not math.isfinite(v) else _json_value(v) for v in values.tolist()]
+        elif values.dtype.kind in "iub":
+            props[column] = values.tolist()
+        else:
+            props[column] = [_json_value(v) for v in values.astype(object).tolist()]
+    return {
+        "n": int(len(lonlat)),
+        "lon": lonlat[:, 0].tolist(),
+        "lat": lonlat[:, 1].tolist(),
+        "props": props,
+    }
+
+
 def _label_points(blocks) -> dict:
     """One label anchor per block, inside the block (point on surface), in WGS84."""
     if blocks is None or len(blocks) == 0:
@@ -220,12 +249,11 @@ def _split_points(points, spares):
     return points, spares
 
 
-def map_data(plan: Any, *, routes=None, spares=None, actual=None) -> dict:
+def map_data(plan: Any, *, routes=None, spares=None, actual=None, markers: str = "auto") -> dict:
     """The JSON document the map page renders (exposed for tests and other front ends)."""
-    try:
-        from fieldplan.safety import CAUTIONS
-    except ImportError:  # the cautions module arrives with the plan backbone
-        CAUTIONS = ()
+    from fieldplan.safety import plan_cautions
+
+    CAUTIONS = plan_cautions(plan)  # the plan's own list (--cautions) or the defaults
 
     routes = routes if routes is not None else optional_layer(plan, "routes")
     spares = spares if spares is not None else optional_layer(plan, "spares")
@@ -235,6 +263,8 @@ def map_data(plan: Any, *, routes=None, spares=None, actual=None) -> dict:
     if spares is not None and len(spares) and "stratum" in spares.columns:
         strata += list(spares["stratum"].astype(str))
     styles = stratum_styles(strata)
+    n_markers = len(points) + (0 if spares is None else len(spares))
+    mode = markers if markers != "auto" else ("dom" if n_markers <= DOM_MARKER_LIMIT else "canvas")
     point_cols = list(POPUP_FIELDS) + [c for c in ("instructions",) if c in points.columns]
     blocks_wgs = plan.blocks.to_crs(4326) if len(plan.blocks) else plan.blocks
     if len(blocks_wgs):
@@ -252,9 +282,10 @@ def map_data(plan: Any, *, routes=None, spares=None, actual=None) -> dict:
         "blocks": _features(plan.blocks, ["block", "stratum", "variety", "area_ha", "n_points"]),
         "block_labels": _label_points(plan.blocks),
         "exclusions": _features(getattr(plan, "exclusions", None), ["name"]),
-        "points": _features(points, point_cols),
-        "spares": _features(spares, point_cols),
-        "actual": _features(actual, ["point_id", "block", "recorded_utc", "error_m"]),
+        "points": _point_columns(points, point_cols),
+        "spares": _point_columns(spares, point_cols),
+        "actual": _point_columns(actual, ["point_id", "block", "recorded_utc", "error_m"]),
+        "marker_mode": mode,
         "routes": route_fc,
         "strata": [{"name": k, **v} for k, v in styles.items()],
         "crews": [
@@ -283,10 +314,14 @@ def _csp(scripts: list[str]) -> str:
     )
 
 
-def map_html(plan: Any, *, routes=None, spares=None, actual=None) -> str:
+def map_html(plan: Any, *, routes=None, spares=None, actual=None, markers: str = "auto") -> str:
     """Return the complete map page as text (see :func:`write_map`)."""
+    if markers not in MARKER_MODES:
+        from fieldplan.errors import OptionError
+
+        raise OptionError(f"markers must be one of {', '.join(MARKER_MODES)}; got {markers!r}")
     js, css = _leaflet_assets()
-    data = map_data(plan, routes=routes, spares=spares, actual=actual)
+    data = map_data(plan, routes=routes, spares=spares, actual=actual, markers=markers)
     caption = data["caption"]
     title = html.escape(f"fieldplan map {caption['plan_id']}", quote=True)
     leaflet_script = "\n" + js + "\n"
@@ -304,7 +339,9 @@ def map_html(plan: Any, *, routes=None, spares=None, actual=None) -> str:
     return head + leaflet_script + tail_a + app_script + tail_b
 
 
-def write_map(plan: Any, path: Path | str, *, routes=None, spares=None, actual=None) -> Path:
+def write_map(
+    plan: Any, path: Path | str, *, routes=None, spares=None, actual=None, markers: str = "auto"
+) -> Path:
     """Write the offline map of ``plan`` to ``path`` (atomically) and return the path.
 
     Parameters
@@ -323,6 +360,11 @@ def write_map(plan: Any, path: Path | str, *, routes=None, spares=None, actual=N
         Points whose ``status`` is ``"spare"`` are shown here too.
     actual : GeoDataFrame, optional
         Recorded positions (``point_id`` column), drawn as small crosses.
+    markers : {"auto", "dom", "canvas"}
+        ``"dom"`` draws each point as an element (hover titles, keyboard focus);
+        ``"canvas"`` draws them on one canvas, which stays fast for tens of
+        thousands of points. ``"auto"`` uses elements up to
+        :data:`DOM_MARKER_LIMIT` points.
 
     Notes
     -----
@@ -331,7 +373,7 @@ def write_map(plan: Any, path: Path | str, *, routes=None, spares=None, actual=N
     from fieldplan.write.safe import atomic_write_text
 
     path = Path(path)
-    atomic_write_text(path, map_html(plan, routes=routes, spares=spares, actual=actual))
+    atomic_write_text(path, map_html(plan, routes=routes, spares=spares, actual=actual, markers=markers))
     return path
 
 
@@ -405,26 +447,32 @@ _APP_JS = r"""
     return node;
   }
 
+  // Marker outlines as polygons in a unit box (-1..1, y down); the circle is drawn as an arc.
+  var SHAPE_POINTS = {
+    "square": [[-0.72, -0.72], [0.72, -0.72], [0.72, 0.72], [-0.72, 0.72]],
+    "triangle": [[0, -0.88], [0.85, 0.78], [-0.85, 0.78]],
+    "diamond": [[0, -0.92], [0.92, 0], [0, 0.92], [-0.92, 0]],
+    "triangle-down": [[-0.85, -0.78], [0.85, -0.78], [0, 0.88]],
+    "hexagon": [[-0.45, -0.8], [0.45, -0.8], [0.9, 0], [0.45, 0.8], [-0.45, 0.8], [-0.9, 0]],
+    "cross": [[-0.28, -0.9], [0.28, -0.9], [0.28, -0.28], [0.9, -0.28], [0.9, 0.28], [0.28, 0.28],
+      [0.28, 0.9], [-0.28, 0.9], [-0.28, 0.28], [-0.9, 0.28], [-0.9, -0.28], [-0.28, -0.28]],
+    "x": [[-0.75, -0.5], [-0.5, -0.75], [0, -0.25], [0.5, -0.75], [0.75, -0.5], [0.25, 0],
+      [0.75, 0.5], [0.5, 0.75], [0, 0.25], [-0.5, 0.75], [-0.75, 0.5], [-0.25, 0]]
+  };
+
   function shapeSvg(shape, fill, size, stroke) {
     var svg = document.createElementNS(SVGNS, "svg");
     svg.setAttribute("width", size); svg.setAttribute("height", size);
     svg.setAttribute("viewBox", "0 0 16 16");
     var s;
-    if (shape === "circle") {
+    if (shape === "circle" || !SHAPE_POINTS[shape]) {
       s = document.createElementNS(SVGNS, "circle");
       s.setAttribute("cx", "8"); s.setAttribute("cy", "8"); s.setAttribute("r", "6");
     } else {
-      var d = {
-        "square": "M2.5 2.5H13.5V13.5H2.5Z",
-        "triangle": "M8 1.5L14.5 14H1.5Z",
-        "diamond": "M8 1L15 8L8 15L1 8Z",
-        "triangle-down": "M1.5 2H14.5L8 14.5Z",
-        "hexagon": "M4.5 2H11.5L15 8L11.5 14H4.5L1 8Z",
-        "cross": "M6 1H10V6H15V10H10V15H6V10H1V6H6Z",
-        "x": "M2 4L4 2L8 6L12 2L14 4L10 8L14 12L12 14L8 10L4 14L2 12L6 8Z"
-      }[shape];
       s = document.createElementNS(SVGNS, "path");
-      s.setAttribute("d", d);
+      s.setAttribute("d", "M" + SHAPE_POINTS[shape].map(function (p) {
+        return (8 + 7 * p[0]).toFixed(2) + " " + (8 + 7 * p[1]).toFixed(2);
+      }).join("L") + "Z");
     }
     s.setAttribute("fill", fill);
     s.setAttribute("stroke", stroke || "#1a1a1a");
@@ -455,16 +503,70 @@ _APP_JS = r"""
   var styleOf = {};
   data.strata.forEach(function (s) { styleOf[s.name] = s; });
 
-  function pointMarker(feature, latlng, cls, shape, colour, size) {
-    var box = el("div");
-    box.appendChild(shapeSvg(shape, colour, size));
-    box.appendChild(el("span", feature.properties.point_id, "fp-label"));
-    var icon = L.divIcon({ html: box, className: cls, iconSize: [size, size],
-      iconAnchor: [size / 2, size / 2], popupAnchor: [0, -size / 2] });
-    var title = String(feature.properties.point_id || "");
-    var m = L.marker(latlng, { icon: icon, title: title, keyboard: true, alt: title });
-    m.bindPopup(function () { return popupFor(feature.properties); });
+  function propsAt(layer, i) {
+    var out = {};
+    Object.keys(layer.props).forEach(function (k) { out[k] = layer.props[k][i]; });
+    return out;
+  }
+
+  // Canvas marker: the stratum's shape drawn on a shared canvas; point ids drawn with
+  // fillText (plain text by construction) when zoomed in far enough.
+  var ShapeMarker = L.CircleMarker.extend({
+    _updatePath: function () {
+      var r = this._renderer;
+      if (!r._ctx) { r._updateCircle(this); return; }
+      if (!r._drawing || this._empty()) { return; }
+      var p = this._point, ctx = r._ctx, rad = this._radius, pts = SHAPE_POINTS[this.options.shape];
+      ctx.beginPath();
+      if (!pts) {
+        ctx.arc(p.x, p.y, rad, 0, Math.PI * 2, false);
+      } else {
+        pts.forEach(function (q, j) {
+          var x = p.x + q[0] * rad, y = p.y + q[1] * rad;
+          if (j === 0) { ctx.moveTo(x, y); } else { ctx.lineTo(x, y); }
+        });
+        ctx.closePath();
+      }
+      r._fillStroke(ctx, this);
+      if (this.options.label && this._map && this._map.getZoom() >= LABEL_ZOOM) {
+        ctx.globalAlpha = 1;
+        ctx.font = "bold 11px sans-serif";
+        ctx.lineWidth = 3; ctx.strokeStyle = "#ffffff"; ctx.fillStyle = "#111111";
+        ctx.strokeText(this.options.label, p.x + rad + 3, p.y + 4);
+        ctx.fillText(this.options.label, p.x + rad + 3, p.y + 4);
+      }
+    }
+  });
+  var LABEL_ZOOM = 18;
+  var canvasPane = map.createPane("fp-points");
+  canvasPane.style.zIndex = 450;
+  var canvasRenderer = L.canvas({ pane: "fp-points", padding: 0.3 });
+
+  function pointMarker(props, latlng, cls, shape, colour, size) {
+    var title = String(props.point_id === null || props.point_id === undefined ? "" : props.point_id);
+    var m;
+    if (data.marker_mode === "canvas") {
+      m = new ShapeMarker(latlng, { renderer: canvasRenderer, radius: size / 2 - 1, shape: shape,
+        fillColor: colour, fillOpacity: 1, color: "#1a1a1a", weight: 1.2, label: title,
+        className: cls });
+    } else {
+      var box = el("div");
+      box.appendChild(shapeSvg(shape, colour, size));
+      box.appendChild(el("span", title, "fp-label"));
+      var icon = L.divIcon({ html: box, className: cls, iconSize: [size, size],
+        iconAnchor: [size / 2, size / 2], popupAnchor: [0, -size / 2] });
+      m = L.marker(latlng, { icon: icon, title: title, keyboard: true, alt: title });
+    }
+    m.bindPopup(function () { return popupFor(props); });
     return m;
+  }
+
+  function pointLayer(layer, make) {
+    var markers = [];
+    for (var i = 0; i < layer.n; i++) {
+      markers.push(make(propsAt(layer, i), L.latLng(layer.lat[i], layer.lon[i])));
+    }
+    return L.featureGroup(markers);
   }
 
   var overlays = [];
@@ -530,22 +632,24 @@ _APP_JS = r"""
   });
 
   // Sample points, spare points, recorded positions.
-  var points = L.geoJSON(data.points, { pointToLayer: function (f, latlng) {
-      var st = styleOf[String(f.properties.stratum)] || { colour: "#bbbbbb", shape: "circle" };
-      return pointMarker(f, latlng, "fp-point", st.shape, st.colour, 16);
-    } }).addTo(map);
+  var layers = { blocks: blocks, exclusions: exclusions };
+  var points = pointLayer(data.points, function (props, latlng) {
+    var st = styleOf[String(props.stratum)] || { colour: "#bbbbbb", shape: "circle" };
+    return pointMarker(props, latlng, "fp-point", st.shape, st.colour, 16);
+  }).addTo(map);
+  layers.points = points;
   overlays.push(["Sample points", points]);
-  if (data.spares.features.length) {
-    var spares = L.geoJSON(data.spares, { pointToLayer: function (f, latlng) {
-        return pointMarker(f, latlng, "fp-spare", "cross", "#ffffff", 14);
-      } });
-    overlays.push(["Spare points", spares]);
+  if (data.spares.n) {
+    layers.spares = pointLayer(data.spares, function (props, latlng) {
+      return pointMarker(props, latlng, "fp-spare", "cross", "#ffffff", 14);
+    });
+    overlays.push(["Spare points", layers.spares]);
   }
-  if (data.actual.features.length) {
-    var actual = L.geoJSON(data.actual, { pointToLayer: function (f, latlng) {
-        return pointMarker(f, latlng, "fp-actual", "x", "#111111", 12);
-      } }).addTo(map);
-    overlays.push(["Recorded positions", actual]);
+  if (data.actual.n) {
+    layers.actual = pointLayer(data.actual, function (props, latlng) {
+      return pointMarker(props, latlng, "fp-actual", "x", "#111111", 12);
+    }).addTo(map);
+    overlays.push(["Recorded positions", layers.actual]);
   }
 
   // Online base layer: listed but off, so nothing is fetched unless asked for.
@@ -568,7 +672,7 @@ _APP_JS = r"""
     var c = data.caption;
     box.appendChild(el("h2", "Sampling plan " + c.plan_id));
     box.appendChild(el("div", "Seed " + c.seed + (c.date ? " \u00b7 " + c.date : "") + (c.design ? " \u00b7 " + c.design : "")));
-    box.appendChild(el("div", data.points.features.length + " sample points in " + data.blocks.features.length + " blocks"));
+    box.appendChild(el("div", data.points.n + " sample points in " + data.blocks.features.length + " blocks"));
     var det = el("details"); det.appendChild(el("summary", "Cautions"));
     var ul = el("ul");
     data.cautions.forEach(function (t) { ul.appendChild(el("li", t)); });
@@ -596,8 +700,8 @@ _APP_JS = r"""
       ex.firstChild.setAttribute("stroke-dasharray", "3 2"); ex.firstChild.setAttribute("stroke", "#555555");
       row(ex, "Exclusion (hatched on map)");
     }
-    if (data.spares.features.length) { row(shapeSvg("cross", "#ffffff", 14), "Spare point (off by default)"); }
-    if (data.actual.features.length) { row(shapeSvg("x", "#111111", 12), "Recorded position"); }
+    if (data.spares.n) { row(shapeSvg("cross", "#ffffff", 14), "Spare point (off by default)"); }
+    if (data.actual.n) { row(shapeSvg("x", "#111111", 12), "Recorded position"); }
     data.crews.forEach(function (crew) {
       var svg = document.createElementNS(SVGNS, "svg"); svg.setAttribute("width", "24"); svg.setAttribute("height", "10");
       var ln = document.createElementNS(SVGNS, "line"); ln.setAttribute("x1", "0"); ln.setAttribute("y1", "5");
@@ -612,12 +716,13 @@ _APP_JS = r"""
   new Legend().addTo(map);
 
   function syncLabels() {
-    var on = map.getZoom() >= 18;
+    var on = map.getZoom() >= LABEL_ZOOM;
     var box = map.getContainer();
     if (on) { L.DomUtil.addClass(box, "fp-show-labels"); } else { L.DomUtil.removeClass(box, "fp-show-labels"); }
   }
   map.on("zoomend", syncLabels);
   syncLabels();
+  window.fieldplanLayers = layers;
   window.fieldplanMap = map;
 })();
 """
