@@ -11,7 +11,7 @@ import os
 import shlex
 import sys
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 
 import geopandas as gpd
@@ -24,6 +24,7 @@ from fieldplan import __version__
 from fieldplan.design.grid import cell_area, grid_points, spacing_for_density
 from fieldplan.errors import DesignError, InvalidBlocksError, OptionError
 from fieldplan.rng import stream
+from fieldplan.stratified import STRATIFIED_DESIGNS, check_design_options, strata_labels
 
 __all__ = ["Plan", "make_plan", "sample_areas", "DESIGNS", "DEFAULT_MAX_POINTS"]
 
@@ -201,7 +202,7 @@ def _points_table(frames: list[tuple[str, np.ndarray]]) -> pd.DataFrame:
     return pd.DataFrame({"block": block, "x": xy[:, 0], "y": xy[:, 1]})
 
 
-DESIGNS: dict[str, Callable] = {"grid": _grid_design}
+DESIGNS: dict[str, Callable] = {"grid": _grid_design, **STRATIFIED_DESIGNS}
 
 
 def _point_ids(block_column: pd.Series) -> np.ndarray:
@@ -225,6 +226,7 @@ def make_plan(
     max_points: int = DEFAULT_MAX_POINTS,
     command: list[str] | None = None,
     progress: Callable[[int, int], None] | None = None,
+    design_options: dict | None = None,
     samples: dict | None = None,
 ) -> Plan:
     """Plan samples over blocks.
@@ -251,6 +253,12 @@ def make_plan(
         Seed of every random choice; the same inputs and seed give the same plan.
     max_points : int
         Refuse plans with more points than this.
+    design_options : dict, optional
+        ``strata_by`` (a block field; default each block is a stratum) for every
+        design, and for ``random``, ``balanced`` and ``clusters`` the options of
+        :func:`fieldplan.stratified.check_design_options` (``per_block``, ``n``,
+        ``allocation``, ``target_units``, ``rows`` (a GeoDataFrame of row lines),
+        ...). ``per_ha`` above also sets their density.
     samples : dict, optional
         Options of :func:`fieldplan.samples.purpose.apply_purpose` (purpose,
         cores, core_radius, composite, depth, crop_profile, core_buffer).
@@ -259,14 +267,25 @@ def make_plan(
         raise OptionError(f"design must be one of {', '.join(DESIGNS)}; got {design!r}")
     if start not in START_MODES:
         raise OptionError(f"--start must be one of {', '.join(START_MODES)}; got {start!r}")
-    if spacing is not None and per_ha is not None:
-        raise OptionError("give --spacing or --per-ha, not both")
-    if spacing is None and per_ha is None:
-        raise OptionError("give a grid --spacing in metres or a density --per-ha")
-    if spacing is None:
-        spacing = spacing_for_density(per_ha, layout)
-    if not spacing > 0:
-        raise OptionError(f"--spacing must be positive metres, got {spacing}")
+    design_options = {k: v for k, v in (design_options or {}).items() if v is not None}
+    strata_by = design_options.pop("strata_by", None)
+    rows_frame = design_options.pop("rows", None)
+    if design == "grid":
+        if design_options or rows_frame is not None:
+            given = ", ".join("--" + k.replace("_", "-") for k in design_options)
+            raise OptionError(f"--design grid does not take {given or '--rows'}; use --spacing or --per-ha")
+        if spacing is not None and per_ha is not None:
+            raise OptionError("give --spacing or --per-ha, not both")
+        if spacing is None and per_ha is None:
+            raise OptionError("give a grid --spacing in metres or a density --per-ha")
+        if spacing is None:
+            spacing = spacing_for_density(per_ha, layout)
+        if not spacing > 0:
+            raise OptionError(f"--spacing must be positive metres, got {spacing}")
+    else:
+        if spacing is not None:
+            raise OptionError(f"--spacing applies to --design grid only, not --design {design}")
+        design_options = check_design_options(design, {**design_options, "per_ha": per_ha})
     if isinstance(angle, str) and angle != "rows":
         raise OptionError(f"--angle takes degrees or 'rows', got {angle!r}")
     if not isinstance(seed, int | np.integer) or seed < 0:
@@ -278,7 +297,7 @@ def make_plan(
     if exclusions is None:
         exclusions = gpd.GeoDataFrame({"name": []}, geometry=[], crs=crs)
     total_area = float(shapely.area(blocks.geometry.values).sum())
-    expected = total_area / cell_area(spacing, layout)
+    expected = total_area / cell_area(spacing, layout) if design == "grid" else 0.0
     if expected > max_points:
         raise DesignError(
             f"the grid would create about {expected:,.0f} points, more than the limit of "
@@ -286,7 +305,7 @@ def make_plan(
         )
     params = {
         "design": design,
-        "spacing_m": round(float(spacing), 6),
+        "spacing_m": round(float(spacing), 6) if spacing is not None else None,
         "per_ha": per_ha,
         "layout": layout,
         "start": start,
@@ -295,9 +314,16 @@ def make_plan(
         "seed": int(seed),
         "max_points": int(max_points),
     }
+    if strata_by is not None:
+        params["strata_by"] = strata_by
+    if design != "grid":
+        params["design_options"] = {k: v for k, v in design_options.items() if k != "rows"}
     areas = sample_areas(blocks, edge_buffer=edge_buffer, exclusions=exclusions)
     exclusion_union = shapely.union_all(exclusions.geometry.values) if len(exclusions) else None
-    run = {**params, "spacing": float(spacing)}
+    run = {**params, "spacing": float(spacing) if spacing is not None else None, "rows_frame": rows_frame}
+    if strata_by is not None or "stratum" not in blocks.columns:
+        blocks = blocks.copy()
+        blocks["stratum"] = strata_labels(blocks, strata_by)
     table, flags = DESIGNS[design](blocks, areas, run, exclusion_union, progress)
 
     out_blocks = blocks.copy()
@@ -307,6 +333,13 @@ def make_plan(
     out_blocks["sampled_area_ha"] = shapely.area(areas) / 10_000.0
     counts = table.groupby("block").size()
     out_blocks["n_points"] = out_blocks["block"].map(counts).fillna(0).astype(int)
+    allocation = table.attrs.get("strata")
+    if allocation is not None:
+        # A stratum spanning several blocks repeats its allocation on each of them.
+        by = allocation.set_index("stratum")
+        key = out_blocks["stratum"].astype(str)
+        out_blocks["n_target_exact"] = key.map(by["n_target_exact"]).to_numpy()
+        out_blocks["n_allocated"] = key.map(by["n_allocated"]).astype(int).to_numpy()
     buffer_flags = [
         ["edge buffer wider than the block: sampled without it"]
         if edge_buffer > 0 and shapely.is_empty(a) and not any("edge buffer" in f for f in fl)
@@ -322,6 +355,7 @@ def make_plan(
             "block": table["block"].to_numpy(),
             "stratum": table["block"].map(strata).to_numpy(),
             "design": design,
+            **{c: table[c].to_numpy() for c in table.columns if c not in ("block", "x", "y")},
         },
         geometry=shapely.points(table["x"].to_numpy(), table["y"].to_numpy()),
         crs=crs,
@@ -343,4 +377,28 @@ def make_plan(
     # (``samples`` holds the keyword options of fieldplan.samples.purpose.apply_purpose).
     from fieldplan.samples.purpose import apply_purpose
 
-    return apply_purpose(plan, **(samples or {}))
+    return _keep_design_columns(plan, apply_purpose(plan, **(samples or {})))
+
+
+def _keep_design_columns(designed: Plan, purposed: Plan) -> Plan:
+    """Carry the design's per-point ``units`` and ``instructions`` through the purpose stage.
+
+    The clusters design says how many units to take at each picked plant and
+    where; a crop profile's instructions (what a unit is, how to pick) follow
+    the design's, and the design's count per point wins over the profile's
+    per-sample text, which its instructions repeat.
+    """
+    points = purposed.points
+    changed = False
+    for column in ("units", "instructions"):
+        if column not in designed.points.columns:
+            continue
+        mine = designed.points[column].to_numpy()
+        if column in points.columns and column == "instructions":
+            theirs = points[column].astype(str).to_numpy(dtype=object)
+            mine = np.array([f"{a}; {b}" for a, b in zip(mine, theirs, strict=True)], dtype=object)
+        if not changed:
+            points = points.copy()
+            changed = True
+        points[column] = mine
+    return replace(purposed, points=points) if changed else purposed

@@ -36,6 +36,9 @@ from fieldplan.cli import demo_cmd, plan_cmd  # noqa: E402
 
 plan_cmd.register(app)
 demo_cmd.register(app)
+from fieldplan.cli import size_cmd  # noqa: E402
+
+size_cmd.register(app)
 from fieldplan.cli import results_cmd  # noqa: E402
 
 results_cmd.register(app)

@@ -90,6 +90,55 @@ def plan(
             help="Ripeness: wine-grapes, table-grapes, pome-fruit, stone-fruit or a TOML file (default wine-grapes).",
         ),
     ] = None,
+    design: Annotated[
+        str, typer.Option(help="Design: grid, random, balanced (spatially balanced) or clusters (plants from rows).")
+    ] = "grid",
+    strata_by: Annotated[
+        str | None,
+        typer.Option("--strata-by", help="Block field whose values are strata (default: each block is a stratum)."),
+    ] = None,
+    per_block: Annotated[
+        int | None, typer.Option("--per-block", help="random/balanced/clusters: points per block.")
+    ] = None,
+    n_total: Annotated[
+        int | None, typer.Option("--n", help="random/balanced/clusters: total points, allocated over strata.")
+    ] = None,
+    allocation: Annotated[
+        str | None,
+        typer.Option(help="With --n: proportional (to area or --size-field), equal, neyman or optimal."),
+    ] = None,
+    size_field: Annotated[
+        str | None, typer.Option("--size-field", help="With --n: block field used as stratum size instead of area.")
+    ] = None,
+    sd_field: Annotated[
+        str | None, typer.Option("--sd-field", help="neyman/optimal: block field with the expected standard deviation.")
+    ] = None,
+    cost_field: Annotated[
+        str | None, typer.Option("--cost-field", help="optimal: block field with the cost of one sample.")
+    ] = None,
+    min_per_stratum: Annotated[
+        int | None, typer.Option("--min-per-stratum", help="Fewest points in any stratum (default 1).")
+    ] = None,
+    target_units: Annotated[
+        int | None,
+        typer.Option("--target-units", help="clusters: units to collect per stratum (with --units-per-cluster)."),
+    ] = None,
+    units_per_cluster: Annotated[
+        int | None, typer.Option("--units-per-cluster", help="clusters: units taken at each picked plant.")
+    ] = None,
+    skip_row_ends: Annotated[
+        int | None, typer.Option("--skip-row-ends", help="clusters: plants left out at each end of every row.")
+    ] = None,
+    skip_border_rows: Annotated[
+        int | None, typer.Option("--skip-border-rows", help="clusters: rows left out on each side of a block.")
+    ] = None,
+    rows: Annotated[
+        Path | None, typer.Option("--rows", help="clusters: mapped row lines (instead of the spacing model).")
+    ] = None,
+    instructions: Annotated[
+        str | None,
+        typer.Option(help="clusters: field instructions with {row}, {plant}, {units}, {block} placeholders."),
+    ] = None,
     seed: Seed = 0,
     force: Force = False,
     quiet: Quiet = False,
@@ -101,6 +150,7 @@ def plan(
     from fieldplan.plan import make_plan
     from fieldplan.read import read_blocks, read_exclusions
     from fieldplan.store import write_plan
+    from fieldplan.stratified import read_rows
     from fieldplan.write.safe import staged_folder
 
     # Fail on an occupied folder before doing any work.
@@ -120,6 +170,24 @@ def plan(
             edge_buffer=edge_buffer,
             exclusions=exclusions,
             seed=seed,
+            design=design,
+            design_options={
+                "strata_by": strata_by,
+                "per_block": per_block,
+                "n": n_total,
+                "allocation": allocation,
+                "size_field": size_field,
+                "sd_field": sd_field,
+                "cost_field": cost_field,
+                "min_per_stratum": min_per_stratum,
+                "target_units": target_units,
+                "units_per_cluster": units_per_cluster,
+                "skip_row_ends": skip_row_ends,
+                "skip_border_rows": skip_border_rows,
+                "rows": read_rows(rows, crs=blocks.crs) if rows is not None else None,
+                "rows_file": str(rows) if rows is not None else None,
+                "instructions": instructions,
+            },
             samples={
                 "purpose": purpose,
                 "cores": cores,

@@ -45,6 +45,7 @@ __all__ = [
     "RowSegments",
     "cluster_count",
     "cluster_sizes",
+    "concat_segments",
     "eligible_plants",
     "pick_plants",
     "row_segments",
@@ -73,8 +74,9 @@ class RowSegments:
         Plant number (1-based along the row) of the segment's first plant.
     offset : numpy.ndarray
         Distance from the segment start to its first plant, metres.
-    plant_spacing : float
-        Distance between plants along a row, metres.
+    plant_spacing : float or numpy.ndarray
+        Distance between plants along a row, metres (one value, or one per
+        segment after :func:`concat_segments`).
     """
 
     row: np.ndarray
@@ -83,7 +85,7 @@ class RowSegments:
     plants: np.ndarray
     first_plant: np.ndarray
     offset: np.ndarray
-    plant_spacing: float
+    plant_spacing: float | np.ndarray
 
     @property
     def total_plants(self) -> int:
@@ -121,9 +123,7 @@ def _check_positive(value: float, name: str) -> float:
     return float(value)
 
 
-def _segments(
-    row_lines: np.ndarray, clip: BaseGeometry | None, plant_spacing: float
-) -> RowSegments:
+def _segments(row_lines: np.ndarray, clip: BaseGeometry | None, plant_spacing: float) -> RowSegments:
     """Clip row lines, orient and order the pieces, count plants."""
     pieces = row_lines if clip is None else shapely.intersection(row_lines, clip)
     pieces = shapely.line_merge(pieces)
@@ -167,17 +167,21 @@ def row_segments(
     row_spacing_m: float,
     plant_spacing_m: float,
     row_bearing_deg: float,
+    clip: BaseGeometry | None = None,
 ) -> RowSegments:
     """Row segments of the spacing model for a block.
 
     Parameters
     ----------
     polygon : shapely Polygon or MultiPolygon
-        The block, in a metric CRS.
+        The block, in a metric CRS; rows are laid out and numbered over it.
     row_spacing_m, plant_spacing_m : float
         Distance between rows and between plants along a row.
     row_bearing_deg : float
         Direction rows run, degrees clockwise from north.
+    clip : shapely geometry, optional
+        Part of the block to keep plants in (e.g. the block minus a headland
+        and exclusions); row and plant numbers stay those of the whole block.
     """
     rs = _check_positive(row_spacing_m, "row spacing")
     ps = _check_positive(plant_spacing_m, "plant spacing")
@@ -192,12 +196,75 @@ def row_segments(
     pu, pv = xy @ u, xy @ v
     offsets = np.arange(pv.min() + rs / 2.0, pv.max(), rs)
     lo, hi = pu.min() - 1.0, pu.max() + 1.0
-    ends = np.stack(
-        [offsets[:, None] * v + lo * u, offsets[:, None] * v + hi * u], axis=1
-    )  # (rows, 2, 2)
+    ends = np.stack([offsets[:, None] * v + lo * u, offsets[:, None] * v + hi * u], axis=1)  # (rows, 2, 2)
     lines = shapely.linestrings(ends)
-    shapely.prepare(polygon)
-    return _segments(lines, polygon, ps)
+    if clip is None:
+        return _segments(lines, polygon, ps)
+    # Number plants over the whole block, then keep those inside ``clip``.
+    full = _segments(lines, polygon, ps)
+    return _clip_segments(full, clip)
+
+
+def _clip_segments(full: RowSegments, clip: BaseGeometry) -> RowSegments:
+    """Keep the parts of ``full``'s segments inside ``clip``, numbered as in ``full``.
+
+    Plants keep the positions and numbers of the unclipped model; a clipped
+    piece holds the plants of its parent segment that fall inside it.
+    """
+    ps = float(full.plant_spacing)
+    pieces = shapely.line_merge(shapely.intersection(full.geometry, clip))
+    parts, parent = shapely.get_parts(pieces, return_index=True)
+    keep = (shapely.get_type_id(parts) == 1) & (shapely.length(parts) > _LEN_TOL)
+    parts, parent = parts[keep], parent[keep]
+    host = full.geometry[parent]
+    a = shapely.line_locate_point(host, shapely.get_point(parts, 0))
+    b = shapely.line_locate_point(host, shapely.get_point(parts, -1))
+    flip = b < a
+    parts = np.where(flip, shapely.reverse(parts), parts)
+    lo, hi = np.minimum(a, b), np.maximum(a, b)
+    off = full.offset[parent]
+    # Plant k of the parent sits at off + k * ps; keep those with lo <= position <= hi.
+    k0 = np.maximum(np.ceil((lo - off) / ps - 1e-9), 0).astype(np.int64)
+    k1 = np.minimum(np.floor((hi - off) / ps + 1e-9), full.plants[parent] - 1).astype(np.int64)
+    plants = np.maximum(k1 - k0 + 1, 0)
+    order = np.lexsort((lo, parent))
+    return RowSegments(
+        row=full.row[parent][order],
+        geometry=parts[order],
+        length=shapely.length(parts)[order],
+        plants=plants[order],
+        first_plant=(full.first_plant[parent] + k0)[order],
+        offset=(off + k0 * ps - lo)[order],
+        plant_spacing=ps,
+    )
+
+
+def concat_segments(parts: list[RowSegments]) -> tuple[RowSegments, np.ndarray]:
+    """Join the row segments of several blocks into one frame to draw from.
+
+    Returns the joined segments (per-segment plant spacing) and, for each
+    segment, the index of the part it came from.
+    """
+    if not parts:
+        raise DesignError("no row segments to draw from")
+    sizes = [p.row.size for p in parts]
+
+    def cat(name: str) -> np.ndarray:
+        return np.concatenate([np.asarray(getattr(p, name)) for p in parts])
+
+    spacing = np.concatenate(
+        [np.broadcast_to(np.asarray(p.plant_spacing, dtype=float), p.row.shape) for p in parts]
+    )
+    joined = RowSegments(
+        row=cat("row"),
+        geometry=np.concatenate([p.geometry for p in parts]),
+        length=cat("length"),
+        plants=cat("plants"),
+        first_plant=cat("first_plant"),
+        offset=cat("offset"),
+        plant_spacing=spacing,
+    )
+    return joined, np.repeat(np.arange(len(parts)), sizes)
 
 
 def rows_from_lines(
@@ -238,6 +305,8 @@ def eligible_plants(
         raise OptionError("plants or rows to skip must be zero or more")
     count = np.maximum(segments.plants - 2 * int(skip_row_ends), 0)
     if skip_border_rows:
+        # Rows are numbered per block; after concat_segments, border rows are taken
+        # over the joined numbering, so skip border rows block by block before joining.
         planted = np.unique(segments.row[segments.plants > 0])
         k = int(skip_border_rows)
         border = np.concatenate([planted[:k], planted[-k:]]) if planted.size else planted
@@ -275,6 +344,7 @@ def pick_plants(
     rng: np.random.Generator,
     skip_row_ends: int = 0,
     skip_border_rows: int = 0,
+    eligible: np.ndarray | None = None,
 ) -> PlantPicks:
     """Draw ``n`` distinct plants uniformly from the eligible plants.
 
@@ -290,15 +360,18 @@ def pick_plants(
         Plants excluded at each end of every row segment.
     skip_border_rows : int
         Rows excluded on each side of the block.
+    eligible : numpy.ndarray, optional
+        Eligible plants per segment, precomputed with :func:`eligible_plants`
+        (block by block, before :func:`concat_segments`); overrides
+        ``skip_border_rows``. ``skip_row_ends`` must match the value used.
 
     Returns
     -------
     PlantPicks
         In draw order, so a prefix is itself a random sample.
     """
-    eligible = eligible_plants(
-        segments, skip_row_ends=skip_row_ends, skip_border_rows=skip_border_rows
-    )
+    if eligible is None:
+        eligible = eligible_plants(segments, skip_row_ends=skip_row_ends, skip_border_rows=skip_border_rows)
     total = int(eligible.sum())
     if n > total:
         raise DesignError(
@@ -310,7 +383,9 @@ def pick_plants(
     cum = np.cumsum(eligible)
     seg = np.searchsorted(cum, ranks, side="right")
     within = ranks - (cum[seg] - eligible[seg]) + int(skip_row_ends)
-    dist = segments.offset[seg] + within * segments.plant_spacing
+    spacing = np.asarray(segments.plant_spacing, dtype=float)
+    step = spacing if spacing.ndim == 0 else spacing[seg]
+    dist = segments.offset[seg] + within * step
     pts = shapely.line_interpolate_point(segments.geometry[seg], dist)
     xy = shapely.get_coordinates(pts).reshape(-1, 2)
     return PlantPicks(

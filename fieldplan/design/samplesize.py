@@ -227,13 +227,9 @@ def sample_size(
     symbol = "t" if distribution == "t" else "z"
     lines = []
     if mode == "relative":
-        lines.append(
-            f"n0 = ({symbol} * CV / e)^2 = ({q:.4f} * {spread:g} / {margin:g})^2 = {n0:.3f}"
-        )
+        lines.append(f"n0 = ({symbol} * CV / e)^2 = ({q:.4f} * {spread:g} / {margin:g})^2 = {n0:.3f}")
     else:
-        lines.append(
-            f"n0 = ({symbol} * S / d)^2 = ({q:.4f} * {spread:g} / {margin:g})^2 = {n0:.3f}"
-        )
+        lines.append(f"n0 = ({symbol} * S / d)^2 = ({q:.4f} * {spread:g} / {margin:g})^2 = {n0:.3f}")
     if population is not None:
         form = "n0 / (1 + n0 / N)" if fpc == "mean" else "n0 / (1 + (n0 - 1) / N)"
         lines.append(f"n = {form} = {n_fpc:.3f} with N = {population}")
@@ -248,9 +244,7 @@ def sample_size(
         deff = design_effect(units_per_cluster, icc)
         clusters = _ceil(n * deff / units_per_cluster)
         units_total = clusters * int(units_per_cluster)
-        lines.append(
-            f"deff = 1 + (m - 1) * rho = 1 + ({units_per_cluster} - 1) * {icc:g} = {deff:.4f}"
-        )
+        lines.append(f"deff = 1 + (m - 1) * rho = 1 + ({units_per_cluster} - 1) * {icc:g} = {deff:.4f}")
         lines.append(
             f"clusters = ceil(n * deff / m) = ceil({n} * {deff:.4f} / {units_per_cluster})"
             f" = {clusters} ({units_total} units)"
