@@ -193,6 +193,12 @@ def coverage(
         raise OptionError(f"--max-gap must be positive metres, got {max_gap_m}")
     points = plan.points if points is None else points
     points = points.to_crs(plan.crs) if points.crs is not None else points
+    if "status" in points.columns:
+        # Spares are visited only when a planned point cannot be; they do not cover a block.
+        spare = points["status"].astype(str).str.lower().eq("spare").to_numpy()
+        if spare.any():
+            points = points[~spare]
+            source = f"{source}; {int(spare.sum())} spare point(s) left out"
     blocks = plan.blocks
     names = blocks["block"].astype(str).to_numpy()
     geoms = np.asarray(blocks.geometry.values, dtype=object)

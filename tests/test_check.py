@@ -164,3 +164,15 @@ def test_max_gap_rule(plan_dir):
     assert "> --max-gap 5 m" in result.output
     bad = CliRunner().invoke(app, ["check", str(plan_dir), "--max-gap", "-1"])
     assert bad.exit_code == 2
+
+
+def test_spare_points_do_not_count_as_coverage(plan):
+    points = plan.points.copy()
+    points["status"] = "selected"
+    first = plan.blocks["block"].iloc[0]
+    points.loc[points["block"] == first, "status"] = "spare"
+    report = coverage(plan, points=points, source="checked plan.gpkg")
+    row = report.table.set_index("block").loc[first]
+    # common practice, no source: spares stand in only for planned points found inaccessible
+    assert row["n_points"] == 0 and "not sampled" in row["notes"]
+    assert "spare point(s) left out" in report.source

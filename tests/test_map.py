@@ -17,7 +17,7 @@ from pyproj import Transformer
 
 from fieldplan.plan import make_plan
 from fieldplan.read import read_blocks
-from fieldplan.safety import CAUTIONS
+from fieldplan.safety import CAUTIONS, plan_cautions
 from fieldplan.write.html_map import (
     PALETTE,
     SHAPES,
@@ -135,7 +135,7 @@ def test_caption_cautions_and_strata(plan):
     data = _data(map_html(plan))
     assert data["caption"]["seed"] == "3"
     assert data["caption"]["date"] == plan.meta["created_utc"][:10]
-    assert data["cautions"] == list(CAUTIONS)
+    assert data["cautions"] == list(CAUTIONS) == plan_cautions(plan)
     strata = {s["name"] for s in data["strata"]}
     assert strata == set(plan.points["stratum"].astype(str))
     # The online base layer is listed for the layer control, never added by default.
@@ -171,6 +171,10 @@ def test_optional_layers_routes_spares_actual(plan):
     page = map_html(plan, routes=routes, spares=spares, actual=actual)
     data = _data(page)
     assert [c["name"] for c in data["crews"]] == ["1", "<i>2</i>"]
+    numbered = routes.iloc[[0, 0, 0]].copy()
+    numbered["crew"] = [10, 9, 1]
+    crews = _data(map_html(plan, routes=numbered))["crews"]
+    assert [c["name"] for c in crews] == ["1", "9", "10"]  # common practice, no source
     assert len(data["routes"]["features"]) == 2
     assert data["spares"]["props"]["point_id"] == ["S-1", "S-2", "S-3"]
     assert data["actual"]["n"] == 2

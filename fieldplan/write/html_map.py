@@ -23,6 +23,7 @@ import hashlib
 import html
 import json
 import math
+import re
 from functools import lru_cache
 from pathlib import Path
 from typing import Any
@@ -221,6 +222,11 @@ def _label_points(blocks) -> dict:
     return _features(anchors, ["block", "variety"])
 
 
+def _natural_key(text: str) -> tuple:
+    # Crew "10" after crew "9", not after crew "1".
+    return tuple((0, int(t), "") if t.isdigit() else (1, 0, t) for t in re.split(r"(\d+)", text))
+
+
 def _jsonify_for_script(data: dict) -> str:
     text = json.dumps(data, ensure_ascii=False, sort_keys=True, separators=(",", ":"), allow_nan=False)
     # Inside <script>, '</script' or '<!--' in data would end or alter the element.
@@ -253,8 +259,6 @@ def map_data(plan: Any, *, routes=None, spares=None, actual=None, markers: str =
     """The JSON document the map page renders (exposed for tests and other front ends)."""
     from fieldplan.safety import plan_cautions
 
-    CAUTIONS = plan_cautions(plan)  # the plan's own list (--cautions) or the defaults
-
     routes = routes if routes is not None else optional_layer(plan, "routes")
     spares = spares if spares is not None else optional_layer(plan, "spares")
     actual = actual if actual is not None else optional_layer(plan, "actual")
@@ -273,11 +277,11 @@ def map_data(plan: Any, *, routes=None, spares=None, actual=None, markers: str =
         w, s, e, n = (float(v) for v in points.to_crs(4326).total_bounds)
     else:
         w, s, e, n = -0.001, -0.001, 0.001, 0.001
-    route_fc = _features(routes, ["crew", "order", "length_m"])
-    crews = sorted({str(f["properties"].get("crew", "")) for f in route_fc["features"]})
+    route_fc = _features(routes, ["crew", "points", "length_m", "hours"])
+    crews = sorted({str(f["properties"].get("crew", "")) for f in route_fc["features"]}, key=_natural_key)
     return {
         "caption": plan_caption(plan),
-        "cautions": [str(c) for c in CAUTIONS],
+        "cautions": plan_cautions(plan),  # the plan's own list (--cautions) or the defaults
         "bounds": [[s, w], [n, e]],
         "blocks": _features(plan.blocks, ["block", "stratum", "variety", "area_ha", "n_points"]),
         "block_labels": _label_points(plan.blocks),
@@ -626,7 +630,13 @@ _APP_JS = r"""
       return String(f.properties.crew) === crew.name; }) };
     var layer = L.geoJSON(fc, { renderer: renderer, style: function () {
       return { color: crew.colour, weight: 3, opacity: 0.9, dashArray: crew.dash }; },
-      onEachFeature: function (f, l) { l.bindTooltip(el("span", "Crew " + crew.name), { sticky: true }); } });
+      onEachFeature: function (f, l) {
+        var p = f.properties, parts = ["Crew " + crew.name];
+        if (p.points !== undefined && p.points !== null) { parts.push(p.points + " points"); }
+        if (p.length_m !== undefined && p.length_m !== null) { parts.push((p.length_m / 1000).toFixed(2) + " km"); }
+        if (p.hours !== undefined && p.hours !== null) { parts.push("about " + Number(p.hours).toFixed(1) + " h"); }
+        l.bindTooltip(el("span", parts.join(" \u00b7 ")), { sticky: true });
+      } });
     layer.addTo(map);
     overlays.push(["Route: crew " + crew.name, layer]);
   });

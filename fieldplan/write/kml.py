@@ -83,14 +83,15 @@ def _style(
 
 def kml_bytes(plan: Any) -> bytes:
     """The KML 2.2 document for ``plan``."""
-    from fieldplan.safety import cautions_text
+    from fieldplan.safety import cautions_text, plan_cautions
 
     caption = plan_caption(plan)
     root = ET.Element("kml", {"xmlns": KML_NS})
     doc = ET.SubElement(root, "Document")
     ET.SubElement(doc, "name").text = xml_text(f"Sampling plan {caption['plan_id']}")
     ET.SubElement(doc, "description").text = xml_text(
-        f"Seed {caption['seed']}; {caption['date']}; {len(plan.points)} points.\n" + cautions_text()
+        f"Seed {caption['seed']}; {caption['date']}; {len(plan.points)} points.\n"
+        + cautions_text(plan_cautions(plan))
     )
     points = plan.points
     styles = stratum_styles(points["stratum"].astype(str)) if len(points) else {}

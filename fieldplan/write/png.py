@@ -110,7 +110,7 @@ def plan_figure(plan: Any, *, title: str | None = None):
     from matplotlib.patheffects import withStroke
     from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
-    from fieldplan.safety import CAUTIONS
+    from fieldplan.safety import plan_cautions
 
     caption = plan_caption(plan)
     fig = Figure(figsize=A4_LANDSCAPE_IN, dpi=DPI)
@@ -279,7 +279,7 @@ def plan_figure(plan: Any, *, title: str | None = None):
         f"   {len(points)} points in {len(blocks)} blocks   CRS {plan.crs.name}"
     )
     fig.text(0.03, 0.925, sub, fontsize=8, parse_math=False)
-    cautions = "Cautions: " + " ".join(str(c) for c in CAUTIONS)
+    cautions = "Cautions: " + " ".join(str(c) for c in plan_cautions(plan))
     fig.text(
         0.03,
         0.095,
