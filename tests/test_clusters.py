@@ -160,3 +160,24 @@ def test_too_many_plants_is_a_design_error():
     seg = row_segments(box(0, 0, 10, 10), row_spacing_m=5, plant_spacing_m=5, row_bearing_deg=0)
     with pytest.raises(DesignError, match="eligible"):
         pick_plants(seg, 5, rng=np.random.default_rng(0))
+
+
+def test_clipped_model_keeps_numbers_and_positions_of_the_whole_block():
+    block = _block()
+    headland = shapely.buffer(block, -4.0, join_style="mitre")
+    full = row_segments(block, row_spacing_m=3.0, plant_spacing_m=1.2, row_bearing_deg=20.0)
+    part = row_segments(block, row_spacing_m=3.0, plant_spacing_m=1.2, row_bearing_deg=20.0, clip=headland)
+    p = pick_plants(part, part.total_plants, rng=np.random.default_rng(0))
+    # Locate the same (row, plant) in the unclipped model and compare positions.
+    seg_of_row = {r: np.flatnonzero(full.row == r) for r in np.unique(full.row)}
+    for r, k, x, y in zip(p.row, p.plant, p.x, p.y, strict=True):
+        segs = seg_of_row[int(r)]
+        s = segs[np.searchsorted(full.first_plant[segs], k, side="right") - 1]
+        pt = shapely.line_interpolate_point(
+            full.geometry[s], full.offset[s] + (k - full.first_plant[s]) * 1.2
+        )
+        assert abs(pt.x - x) < 1e-6 and abs(pt.y - y) < 1e-6
+    # reference: shapely (GEOS) point-in-polygon: exactly the model's plants inside the clip are kept
+    every = pick_plants(full, full.total_plants, rng=np.random.default_rng(0))
+    inside = shapely.contains_xy(headland, every.x, every.y)
+    assert part.total_plants == int(inside.sum())

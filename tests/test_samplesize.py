@@ -103,9 +103,9 @@ def test_design_effect_kish_formula():
 
 
 def test_design_effect_matches_simulation_and_anova_icc():
-    # Neither statsmodels nor samplics is in the environment, so the Kish design effect is
-    # checked against a direct simulation of the one-way random-effects model, with rho
-    # estimated by the ANOVA estimator (MSB - MSW) / (MSB + (m - 1) MSW)
+    # Beyond the formula (checked against samplics below), the Kish design effect is checked
+    # against a direct simulation of the one-way random-effects model, with rho estimated by
+    # the ANOVA estimator (MSB - MSW) / (MSB + (m - 1) MSW)
     # (reference: Kish 1965, section 5.4; Donner 1986, Int. Stat. Rev. 54:67-82, from memory).
     rng = np.random.default_rng(5)
     rho, m, k, reps = 0.15, 8, 12, 40_000
@@ -144,3 +144,31 @@ def test_result_is_json_ready():
 def test_bad_inputs_raise_option_error(kwargs):
     with pytest.raises(OptionError):
         sample_size(**kwargs)
+
+
+samplics_sampling = pytest.importorskip("samplics.sampling")
+
+
+@pytest.mark.filterwarnings("ignore::FutureWarning")
+@pytest.mark.parametrize(
+    ("sd", "d", "N", "conf"), [(3.0, 0.5, 500, 0.95), (12.0, 2.0, 80, 0.9), (1.0, 0.1, 10_000, 0.99)]
+)
+def test_matches_samplics_mean_wald(sd, d, N, conf):
+    from samplics.utils.types import PopParam, SizeMethod
+
+    ref = samplics_sampling.SampleSize(param=PopParam.mean, method=SizeMethod.wald)
+    ref.calculate(half_ci=d, sigma=sd, pop_size=N, alpha=1 - conf)
+    mine = sample_size(sd=sd, margin=d, population=N, confidence=conf, distribution="z", fpc="proportion")
+    # reference: samplics SampleSize (mean, Wald): n = N z^2 s^2 / ((N - 1) d^2 + z^2 s^2),
+    # which is n0 / (1 + (n0 - 1)/N)
+    assert mine.n == ref.samp_size
+
+
+@pytest.mark.filterwarnings("ignore::FutureWarning")
+@pytest.mark.parametrize(("m", "rho"), [(5, 0.1), (10, 0.05), (2, 0.5), (30, 0.02)])
+def test_kish_deff_matches_samplics(m, rho):
+    from samplics.utils.types import PopParam, SizeMethod
+
+    ref = samplics_sampling.SampleSize(param=PopParam.mean, method=SizeMethod.wald)
+    # reference: samplics SampleSize.deff, Kish's 1 + (m - 1) rho
+    assert design_effect(m, rho) == pytest.approx(ref.deff(m, rho))
