@@ -244,3 +244,21 @@ def test_cli_plan_labels_and_lab_sheet(tmp_path):
     assert bad.exit_code == 2 and "same column" in bad.output
     bad = runner.invoke(app, ["labels", str(tmp_path / "nowhere")])
     assert bad.exit_code == 2
+
+
+def test_text_outside_the_pdf_base_fonts_prints_as_question_marks():
+    # reference: PDF base-14 fonts use WinAnsiEncoding (ISO 32000-1, annex D), i.e. Windows-1252.
+    points = pd.DataFrame(
+        {
+            "sample_id": make_sample_ids(2, code="TQ7H"),
+            "block": ["Château Süd", "葡萄园"],
+            "purpose": "general",
+        }
+    )
+    records = label_records(points, plan_id="TQ7H")
+    pdf = labels_pdf(records, LAYOUTS["a4-3x8"])
+    assert pdf.startswith(b"%PDF-")
+    from fieldplan.samples.labels import label_shapes
+
+    texts = [t[4] for t in label_shapes(records, LAYOUTS["a4-3x8"])[0]["texts"]]
+    assert "Block Château Süd" in texts and "Block ???" in texts

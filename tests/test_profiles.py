@@ -107,7 +107,24 @@ def test_ripeness_plan_carries_instructions():
         blocks_frame({"A": square, "B": shapely.affinity.translate(square, 500)}), spacing=80, seed=2
     )
     ripe = apply_purpose(plan, purpose="ripeness", crop_profile="table-grapes")
-    assert (ripe.points["units"] == "100-150 berries").all()
+    assert (ripe.points["per_sample"] == "100-150 berries").all()
     assert ripe.points["instructions"].str.contains("border row").all()
     assert ripe.params["crop_profile"] == "table-grapes" and "cores" not in ripe.layers
     assert ripe.points["sample_id"].is_unique and (ripe.points["depth_cm"] == "").all()
+
+
+def test_cluster_design_keeps_its_units_and_instructions():
+    from fieldplan.demo import demo_blocks_path
+    from fieldplan.read import read_blocks
+
+    blocks = read_blocks(demo_blocks_path())
+    vines = blocks[blocks["block"].isin(["V01", "V02"])].reset_index(drop=True)
+    options = {"per_block": 3, "units_per_cluster": 5}
+    plan = make_plan(
+        vines, design="clusters", design_options=options, seed=1, samples={"purpose": "ripeness"}
+    )
+    assert (plan.points["units"] == 5).all()
+    text = plan.points["instructions"]
+    assert text.str.startswith("Start at row").all()
+    assert text.str.endswith(load_profile("wine-grapes").instructions).all()
+    assert (plan.points["per_sample"] == "100-200 berries").all()

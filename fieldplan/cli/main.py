@@ -54,6 +54,12 @@ lab_cmd.register(app)
 from fieldplan.cli import check_cmd  # noqa: E402
 
 check_cmd.register(app)
+from fieldplan.cli import crews_cmd  # noqa: E402
+
+crews_cmd.register(app)
+from fieldplan.cli import schedule_cmd  # noqa: E402
+
+schedule_cmd.register(app)
 
 
 def run() -> None:

@@ -157,6 +157,18 @@ def plan(
     if out.is_dir() and any(out.iterdir()) and not force:
         with staged_folder(out, force=False):
             pass
+    from fieldplan.samples.purpose import resolve_purpose
+
+    samples = {
+        "purpose": purpose,
+        "cores": cores,
+        "core_radius": core_radius,
+        "composite": composite,
+        "core_buffer": core_buffer,
+        "depth": depth,
+        "crop_profile": crop_profile,
+    }
+    resolve_purpose(**samples)  # a bad purpose option fails before any work
     blocks = read_blocks(blocks_file, layer=layer, id_field=id_field, repair=repair)
     exclusions = read_exclusions(exclude, crs=blocks.crs) if exclude is not None else None
     with progress_callback("Planning blocks", quiet=quiet) as progress:
@@ -188,15 +200,7 @@ def plan(
                 "rows_file": str(rows) if rows is not None else None,
                 "instructions": instructions,
             },
-            samples={
-                "purpose": purpose,
-                "cores": cores,
-                "core_radius": core_radius,
-                "composite": composite,
-                "core_buffer": core_buffer,
-                "depth": depth,
-                "crop_profile": crop_profile,
-            },
+            samples=samples,
             max_points=max_points,
             command=["fieldplan", *sys.argv[1:]],
             progress=progress,

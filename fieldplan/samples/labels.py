@@ -16,6 +16,7 @@ from __future__ import annotations
 import io
 import math
 import re
+import unicodedata
 from dataclasses import dataclass
 
 import numpy as np
@@ -163,10 +164,20 @@ def label_records(points: pd.DataFrame, *, plan_id: str) -> pd.DataFrame:
     )
 
 
+def _printable(text: str) -> str:
+    """Text the PDF base fonts can show (Windows-1252); other characters become '?'."""
+    try:
+        text.encode("cp1252")
+        return text
+    except UnicodeEncodeError:
+        folded = unicodedata.normalize("NFKC", text)
+        return folded.encode("cp1252", errors="replace").decode("cp1252")
+
+
 def _fit(text: str, font: str, size: float, width_mm: float) -> str:
     from reportlab.pdfbase.pdfmetrics import stringWidth
 
-    text = " ".join(str(text).split())
+    text = _printable(" ".join(str(text).split()))
     limit = width_mm * PT_PER_MM
     if stringWidth(text, font, size) <= limit:
         return text

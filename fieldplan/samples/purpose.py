@@ -2,7 +2,7 @@
 
 :func:`apply_purpose` runs after a design has placed the plan's points. It adds
 to every point record ``purpose``, ``depth_cm`` and ``sample_id`` (and for
-ripeness plans ``units`` and ``instructions`` from a crop profile), and for soil
+ripeness plans ``per_sample`` and ``instructions`` from a crop profile), and for soil
 plans a ``cores`` layer: where each core of each composite sample is taken.
 """
 
@@ -30,7 +30,7 @@ from fieldplan.samples.cores import (
 from fieldplan.samples.ids import make_sample_ids, plan_code
 from fieldplan.samples.profiles import load_profile
 
-__all__ = ["PURPOSES", "COMPOSITES", "DEFAULT_PROFILE", "apply_purpose", "parse_depth"]
+__all__ = ["PURPOSES", "COMPOSITES", "DEFAULT_PROFILE", "apply_purpose", "resolve_purpose", "parse_depth"]
 
 PURPOSES = ("general", "soil", "ripeness")
 COMPOSITES = ("cell", "zone")
@@ -47,7 +47,9 @@ _OWN_PARAMS = (
     "crop_profile",
     "plan_id",
 )
-_OWN_COLUMNS = ("purpose", "depth_cm", "sample_id", "units", "instructions")
+# A design's own ``units`` column (clusters) is left alone. ``instructions`` is
+# this stage's: make_plan puts a design's instructions back in front of it.
+_OWN_COLUMNS = ("purpose", "depth_cm", "sample_id", "per_sample", "instructions")
 
 
 def parse_depth(text: str | None) -> str:
@@ -153,6 +155,54 @@ def _with_notes(blocks: gpd.GeoDataFrame, notes: dict[str, list[str]]) -> gpd.Ge
     return out
 
 
+def resolve_purpose(
+    *,
+    purpose: str = "general",
+    cores: int | None = None,
+    core_radius: float | None = None,
+    composite: str | None = None,
+    depth: str | None = None,
+    crop_profile: str | None = None,
+    core_buffer: float | None = None,
+) -> dict:
+    """Check the purpose options and fill in defaults, without touching a plan.
+
+    Call it before a long design run so a bad option fails at once. Returns
+    ``purpose, cores, core_radius_m, composite, core_buffer_m, depth_cm, profile``
+    (soil-only values are None for other purposes; ``profile`` is a
+    :class:`~fieldplan.samples.profiles.CropProfile` for ripeness plans).
+    """
+    if purpose not in PURPOSES:
+        raise OptionError(f"--purpose must be one of {', '.join(PURPOSES)}; got {purpose!r}")
+    _only_for_soil(
+        purpose, cores=cores, core_radius=core_radius, composite=composite, core_buffer=core_buffer
+    )
+    if purpose != "ripeness" and crop_profile is not None:
+        raise OptionError(f"--crop-profile only applies to --purpose ripeness (got --purpose {purpose})")
+    out = {"purpose": purpose, "cores": None, "core_radius_m": None, "composite": None}
+    out.update(core_buffer_m=None, profile=None)
+    if purpose == "soil":
+        n = DEFAULT_CORES if cores is None else int(cores)
+        if not 1 <= n <= _MAX_CORES:
+            raise OptionError(f"--cores must be between 1 and {_MAX_CORES}, got {cores}")
+        radius = DEFAULT_CORE_RADIUS_M if core_radius is None else float(core_radius)
+        if not radius > 0:
+            raise OptionError(f"--core-radius must be positive metres, got {core_radius}")
+        buffer_m = DEFAULT_BUFFER_M if core_buffer is None else float(core_buffer)
+        if not buffer_m >= 0:
+            raise OptionError(f"--core-buffer must be zero or positive metres, got {core_buffer}")
+        composite = composite or "cell"
+        if composite not in COMPOSITES:
+            raise OptionError(f"--composite must be one of {', '.join(COMPOSITES)}; got {composite!r}")
+        out.update(cores=n, core_radius_m=radius, composite=composite, core_buffer_m=buffer_m)
+        out["depth_cm"] = parse_depth(depth if depth is not None else "{:g}-{:g}".format(*DEFAULT_DEPTH_CM))
+    else:
+        out["depth_cm"] = parse_depth(depth)
+    if purpose == "ripeness":
+        out["profile"] = load_profile(crop_profile or DEFAULT_PROFILE)
+    return out
+
+
 def apply_purpose(
     plan,
     *,
@@ -190,25 +240,17 @@ def apply_purpose(
     Plan
         A new plan; ``plan`` is not changed.
     """
-    if purpose not in PURPOSES:
-        raise OptionError(f"--purpose must be one of {', '.join(PURPOSES)}; got {purpose!r}")
-    _only_for_soil(
-        purpose, cores=cores, core_radius=core_radius, composite=composite, core_buffer=core_buffer
+    opts = resolve_purpose(
+        purpose=purpose,
+        cores=cores,
+        core_radius=core_radius,
+        composite=composite,
+        depth=depth,
+        crop_profile=crop_profile,
+        core_buffer=core_buffer,
     )
-    if purpose != "ripeness" and crop_profile is not None:
-        raise OptionError(f"--crop-profile only applies to --purpose ripeness (got --purpose {purpose})")
-    if purpose == "soil":
-        n = DEFAULT_CORES if cores is None else int(cores)
-        if not 1 <= n <= _MAX_CORES:
-            raise OptionError(f"--cores must be between 1 and {_MAX_CORES}, got {cores}")
-        radius = DEFAULT_CORE_RADIUS_M if core_radius is None else float(core_radius)
-        buffer_m = DEFAULT_BUFFER_M if core_buffer is None else float(core_buffer)
-        composite = composite or "cell"
-        if composite not in COMPOSITES:
-            raise OptionError(f"--composite must be one of {', '.join(COMPOSITES)}; got {composite!r}")
-        depth_text = parse_depth(depth if depth is not None else "{:g}-{:g}".format(*DEFAULT_DEPTH_CM))
-    else:
-        depth_text = parse_depth(depth)
+    n, radius, buffer_m = opts["cores"], opts["core_radius_m"], opts["core_buffer_m"]
+    composite, depth_text, profile = opts["composite"], opts["depth_cm"], opts["profile"]
 
     # A plan may pass through here twice (library use): start from its design alone.
     params = {k: v for k, v in plan.params.items() if k not in _OWN_PARAMS}
@@ -219,9 +261,7 @@ def apply_purpose(
         )
     elif depth_text:
         params["depth_cm"] = depth_text
-    profile = None
-    if purpose == "ripeness":
-        profile = load_profile(crop_profile or DEFAULT_PROFILE)
+    if profile is not None:
         params["crop_profile"] = profile.name
     code = plan_code(plan.meta.get("input_sha256"), params)
     params["plan_id"] = code
@@ -237,7 +277,7 @@ def apply_purpose(
     else:
         points["sample_id"] = make_sample_ids(len(points), code=code)
     if profile is not None:
-        points["units"] = profile.units_text
+        points["per_sample"] = profile.units_text
         points["instructions"] = profile.instructions
 
     layers = dict(plan.layers)

@@ -1,0 +1,78 @@
+"""``fieldplan crews``: split a plan's points among crews and route each crew."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from fieldplan.cli.options import Force, Quiet, echo_err, handle_errors, parse_lonlat
+
+__all__ = ["register", "crews"]
+
+
+@handle_errors
+def crews(
+    plan_dir: Annotated[Path, typer.Argument(help="Plan folder made by 'fieldplan plan'.")],
+    n_crews: Annotated[int, typer.Option("--crews", min=1, help="Number of crews.")],
+    start: Annotated[
+        str | None,
+        typer.Option("--start", help="Drop-off point LON,LAT where every crew begins."),
+    ] = None,
+    walk_speed: Annotated[float, typer.Option("--walk-speed", min=0.1, help="Walking speed, km/h.")] = 4.0,
+    minutes_per_point: Annotated[
+        float, typer.Option("--minutes-per-point", min=0.0, help="Minutes spent at each point.")
+    ] = 5.0,
+    max_hours: Annotated[
+        float | None,
+        typer.Option("--max-hours", min=0.1, help="Longest day of a crew; what does not fit is listed."),
+    ] = None,
+    return_to_start: Annotated[
+        bool, typer.Option("--return", help="Crews walk back to the drop-off (needs --start).")
+    ] = False,
+    across_factor: Annotated[
+        float,
+        typer.Option(
+            "--across-rows", min=1.0, help="How much slower crossing rows is than walking along them."
+        ),
+    ] = 1.5,
+    force: Force = False,
+    quiet: Quiet = False,
+) -> None:
+    """Assign points to crews, balanced by estimated time, and route each crew.
+
+    Each point gets a crew and a visit order. Writes crews.csv, crew_NN.gpx,
+    crew_sheets.html and a routes layer in plan.gpkg, and refreshes points.csv,
+    points.geojson, points.gpx and map.html.
+    """
+    from fieldplan.route.folder import plan_crews, refuse_existing, write_crews
+    from fieldplan.store import load_plan
+
+    lonlat = parse_lonlat(start) if start is not None else None
+    plan = load_plan(plan_dir)
+    refuse_existing(plan, plan_dir, force=force)
+    run = plan_crews(
+        plan,
+        n_crews=n_crews,
+        start_lonlat=lonlat,
+        walk_kmh=walk_speed,
+        minutes_per_point=minutes_per_point,
+        max_hours=max_hours,
+        return_to_start=return_to_start,
+        across_factor=across_factor,
+    )
+    write_crews(plan_dir, run)
+    if run.unfitted_ids:
+        shown = ", ".join(run.unfitted_ids[:10]) + (" ..." if len(run.unfitted_ids) > 10 else "")
+        echo_err(
+            f"{len(run.unfitted_ids)} point(s) do not fit in {max_hours:g} h per crew: {shown} "
+            f"(listed in {Path(plan_dir) / 'crews_unfitted.csv'}); add crews or hours"
+        )
+    if not quiet:
+        typer.echo(run.table.to_string(index=False))
+        typer.echo(f"Crews written to {Path(plan_dir)} (crews.csv, crew_NN.gpx, crew_sheets.html)")
+
+
+def register(app: typer.Typer) -> None:
+    app.command("crews")(crews)

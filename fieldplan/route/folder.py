@@ -1,0 +1,287 @@
+"""Crews on a plan folder: assign, route and write the crew outputs.
+
+Unlike the rest of :mod:`fieldplan.route`, this module reads and writes files.
+Every file it changes in an existing plan folder is replaced atomically (a
+complete new file swapped in), so an interrupted run leaves the old one.
+
+Outputs: ``plan.gpkg`` (``points`` gain ``crew`` and ``visit_order``; a new
+``routes`` layer, one LineString per crew), ``crews.csv``, ``crew_NN.gpx`` per
+crew, ``crew_sheets.html``, ``crews_unfitted.csv`` when ``max_hours`` leaves
+points out, and refreshed ``points.csv``, ``points.geojson``, ``points.gpx``
+and ``map.html``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+import shutil
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import shapely
+
+from fieldplan.errors import OutputExistsError
+from fieldplan.route.crews import DEFAULT_MINUTES_PER_POINT, DEFAULT_WALK_KMH, CrewPlan, assign_crews
+from fieldplan.route.metric import DEFAULT_ACROSS_FACTOR
+
+__all__ = ["CrewRun", "plan_crews", "write_crews"]
+
+_SHEET_COLUMNS = ("point_id", "block", "stratum", "row", "plant", "instructions", "lon", "lat")
+
+
+@dataclass(frozen=True)
+class CrewRun:
+    """A plan with crews assigned, ready to be written."""
+
+    plan: object
+    result: CrewPlan
+    table: pd.DataFrame
+    routes: object  # GeoDataFrame
+    unfitted_ids: list[str]
+    start_xy: np.ndarray | None
+
+
+def plan_crews(
+    plan,
+    *,
+    n_crews: int,
+    start_lonlat: tuple[float, float] | None = None,
+    walk_kmh: float = DEFAULT_WALK_KMH,
+    minutes_per_point: float = DEFAULT_MINUTES_PER_POINT,
+    max_hours: float | None = None,
+    return_to_start: bool = False,
+    across_factor: float = DEFAULT_ACROSS_FACTOR,
+    kicks: int | None = None,
+) -> CrewRun:
+    """Assign the plan's points to crews (no file is written).
+
+    Points whose ``status`` is ``"spare"`` are left out (crew 0). Row bearings
+    come from the blocks table (``row_bearing_deg``). The search is seeded from
+    the plan's seed, so the same plan gives the same crews.
+    """
+    import geopandas as gpd
+    from pyproj import Transformer
+
+    from fieldplan.rng import stream
+
+    points = plan.points.copy()
+    active = np.ones(len(points), dtype=bool)
+    if "status" in points.columns:
+        active = points["status"].astype(str).str.lower().ne("spare").to_numpy()
+    xy = shapely.get_coordinates(points.geometry.values)
+    blocks = plan.blocks
+    bearing_by_block = (
+        dict(
+            zip(
+                blocks["block"].astype(str),
+                pd.to_numeric(blocks.get("row_bearing_deg", np.nan), errors="coerce"),
+                strict=True,
+            )
+        )
+        if "row_bearing_deg" in blocks.columns
+        else {}
+    )
+    block_names = points["block"].astype(str).to_numpy()
+    codes, _ = pd.factorize(block_names, sort=True)
+    bearing = np.array([bearing_by_block.get(b, np.nan) for b in block_names], dtype=float)
+
+    start_xy = None
+    if start_lonlat is not None:
+        to_local = Transformer.from_crs("EPSG:4326", plan.crs, always_xy=True)
+        start_xy = np.array(to_local.transform(*start_lonlat), dtype=float)
+
+    idx = np.flatnonzero(active)
+    seed = int(plan.params.get("seed", 0))
+    result = assign_crews(
+        xy[idx],
+        n_crews=n_crews,
+        rng=stream(seed, "crews"),
+        start=start_xy,
+        group=codes[idx],
+        row_bearing_deg=bearing[idx],
+        across_factor=across_factor,
+        walk_kmh=walk_kmh,
+        minutes_per_point=minutes_per_point,
+        max_hours=max_hours,
+        return_to_start=return_to_start,
+        kicks=kicks,
+    )
+    crew = np.zeros(len(points), dtype=np.int64)
+    visit = np.zeros(len(points), dtype=np.int64)
+    crew[idx], visit[idx] = result.crew, result.visit_order
+    points["crew"] = crew
+    points["visit_order"] = visit
+
+    lines, rows = [], []
+    for k, route in enumerate(result.routes, start=1):
+        path = xy[idx[route]]
+        if start_xy is not None:
+            path = np.vstack([start_xy, path] + ([start_xy] if return_to_start else []))
+        lines.append(shapely.linestrings(path) if len(path) >= 2 else None)
+        rows.append(
+            {
+                "crew": k,
+                "points": len(route),
+                "km": round(float(result.walk_m[k - 1]) / 1000.0, 3),
+                "hours": round(float(result.hours[k - 1]), 2),
+            }
+        )
+    table = pd.DataFrame(rows, columns=["crew", "points", "km", "hours"])
+    routes = gpd.GeoDataFrame(
+        {
+            "crew": table["crew"].to_numpy(),
+            "points": table["points"].to_numpy(),
+            "length_m": (table["km"] * 1000).round(1).to_numpy(),
+            "hours": table["hours"].to_numpy(),
+        },
+        geometry=gpd.GeoSeries(lines, crs=plan.crs),
+        crs=plan.crs,
+    )
+    unfitted = points["point_id"].astype(str).to_numpy()[idx[result.unfitted]].tolist()
+    layers = {**getattr(plan, "layers", {}), "routes": routes}
+    new_plan = dataclasses.replace(plan, points=points, layers=layers)
+    return CrewRun(new_plan, result, table, routes, unfitted, start_xy)
+
+
+def _swap_gpkg(plan_dir: Path, points, routes) -> None:
+    """Rewrite the points and routes layers through a copy swapped in atomically."""
+    from fieldplan.write.gpkg import GPKG_NAME, write_layer
+
+    path = plan_dir / GPKG_NAME
+    tmp = path.with_name(f".crews-tmp-{path.name}")
+    shutil.copy2(path, tmp)
+    try:
+        write_layer(tmp, "points", points, geometry_type="Point")
+        write_layer(tmp, "routes", routes, geometry_type="LineString")
+        os.replace(tmp, path)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+
+
+def _sheet_rows(points, order: np.ndarray) -> list[dict]:
+    from fieldplan.write.tables import points_lonlat
+
+    sub = points.iloc[order]
+    lonlat = points_lonlat(sub) if len(sub) else np.empty((0, 2))
+    frame = pd.DataFrame(sub.drop(columns="geometry"))
+    if "instructions" not in frame.columns:
+        extras = [c for c in ("purpose", "depth_cm", "units") if c in frame.columns]
+        frame["instructions"] = (
+            [
+                "; ".join(
+                    f"{c.replace('_', ' ')} {v}"
+                    for c, v in zip(extras, vals, strict=True)
+                    if v is not None and v == v and str(v) != ""
+                )
+                for vals in frame[extras].itertuples(index=False, name=None)
+            ]
+            if extras
+            else ""
+        )
+    # Six decimals of a degree is about 0.1 m: enough to walk to, short enough to read.
+    frame["lon"] = [f"{v:.6f}" for v in lonlat[:, 0]]
+    frame["lat"] = [f"{v:.6f}" for v in lonlat[:, 1]]
+    return frame.to_dict("records")
+
+
+def _cautions(plan) -> list[str]:
+    """The plan's own cautions when it records them, else the defaults."""
+    from fieldplan import safety
+
+    pick = getattr(safety, "plan_cautions", None)
+    return list(pick(plan)) if pick else list(safety.CAUTIONS)
+
+
+def write_crews(plan_dir: str | Path, run: CrewRun, *, title: str | None = None) -> list[Path]:
+    """Write every crew output into ``plan_dir`` (each file atomically); return the paths."""
+    from fieldplan.route.sheets import CrewSheet, crew_sheets_html
+    from fieldplan.write.gpx import gpx_bytes
+    from fieldplan.write.html_map import plan_caption, write_map
+    from fieldplan.write.safe import atomic_write_bytes, atomic_write_text, neutralise_frame
+    from fieldplan.write.tables import write_points_csv, write_points_geojson
+
+    plan_dir = Path(plan_dir)
+    plan, points, routes = run.plan, run.plan.points, run.routes
+    written: list[Path] = []
+    _swap_gpkg(plan_dir, points, routes)
+    written.append(plan_dir / "plan.gpkg")
+
+    csv = neutralise_frame(run.table).to_csv(index=False, lineterminator="\n")
+    atomic_write_text(plan_dir / "crews.csv", csv)
+    written.append(plan_dir / "crews.csv")
+    unfitted_path = plan_dir / "crews_unfitted.csv"
+    if run.unfitted_ids:
+        gone = points[points["point_id"].astype(str).isin(run.unfitted_ids)][["point_id", "block"]]
+        atomic_write_text(
+            unfitted_path, neutralise_frame(gone.astype(str)).to_csv(index=False, lineterminator="\n")
+        )
+        written.append(unfitted_path)
+    elif unfitted_path.exists():
+        unfitted_path.unlink()  # stale from an earlier run with fewer hours
+
+    for old in sorted(plan_dir.glob("crew_[0-9]*.gpx")):
+        if int(old.stem.split("_")[1]) > len(run.table):
+            old.unlink()
+    xy = shapely.get_coordinates(points.geometry.values)
+    caption = title or str(plan_caption(plan).get("plan_id", "fieldplan"))
+    sheets = []
+    crew_col = points["crew"].to_numpy()
+    visit_col = points["visit_order"].to_numpy()
+    for k in run.table["crew"].tolist():
+        members = np.flatnonzero(crew_col == k)
+        members = members[np.argsort(visit_col[members], kind="stable")]
+        crew_points = points.iloc[members]
+        crew_route = routes[routes["crew"] == k]
+        sub = dataclasses.replace(plan, points=crew_points, layers={})
+        path = plan_dir / f"crew_{k:02d}.gpx"
+        atomic_write_bytes(path, gpx_bytes(sub, routes=crew_route))
+        written.append(path)
+        geom = crew_route.geometry.iloc[0] if len(crew_route) else None
+        row = run.table[run.table["crew"] == k].iloc[0]
+        start_note = "; starts at the drop-off" if run.start_xy is not None else ""
+        sheets.append(
+            CrewSheet(
+                crew=int(k),
+                route_xy=shapely.get_coordinates(geom) if geom is not None else np.zeros((0, 2)),
+                points_xy=xy[members],
+                rows=_sheet_rows(points, members),
+                summary=(
+                    f"{int(row['points'])} points, {row['km']:.2f} km walking, "
+                    f"about {row['hours']:.1f} h{start_note}"
+                ),
+                start_xy=run.start_xy,
+            )
+        )
+    columns = [
+        c
+        for c in _SHEET_COLUMNS
+        if any(c in r and r[c] is not None and str(r[c]) != "" for s in sheets for r in s.rows)
+    ]
+    blocks = list(zip(plan.blocks["block"].astype(str), plan.blocks.geometry.values, strict=True))
+    page = crew_sheets_html(sheets, title=caption, columns=columns, cautions=_cautions(plan), blocks=blocks)
+    atomic_write_text(plan_dir / "crew_sheets.html", page)
+    written.append(plan_dir / "crew_sheets.html")
+
+    write_points_csv(plan, plan_dir)
+    write_points_geojson(plan, plan_dir)
+    atomic_write_bytes(plan_dir / "points.gpx", gpx_bytes(plan, routes=routes))
+    write_map(plan, plan_dir / "map.html", routes=routes)
+    written += [plan_dir / n for n in ("points.csv", "points.geojson", "points.gpx", "map.html")]
+    return written
+
+
+def has_crews(plan) -> bool:
+    """Whether a plan already carries crew assignments."""
+    return "crew" in plan.points.columns or "routes" in getattr(plan, "layers", {})
+
+
+def refuse_existing(plan, plan_dir: Path, *, force: bool) -> None:
+    """Raise unless ``force`` when the plan has crews already."""
+    if has_crews(plan) and not force:
+        raise OutputExistsError(
+            f"{plan_dir}: the plan already has crews and routes; add --force to replace them"
+        )

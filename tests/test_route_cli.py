@@ -1,0 +1,161 @@
+"""``fieldplan crews`` and ``fieldplan schedule`` on a small plan of the demo estate."""
+
+from __future__ import annotations
+
+import shutil
+from datetime import date
+from pathlib import Path
+
+import gpxpy
+import icalendar
+import numpy as np
+import pytest
+from typer.testing import CliRunner
+
+from fieldplan.cli.main import app
+from fieldplan.demo import demo_blocks_path
+from fieldplan.route.sheets import CrewSheet, crew_sheets_html
+from fieldplan.safety import CAUTIONS
+from fieldplan.store import load_plan
+
+runner = CliRunner()
+START = "18.8905,-33.8620"  # inside the demo estate's bounding box
+
+
+@pytest.fixture(scope="module")
+def small_plan(tmp_path_factory) -> Path:
+    out = tmp_path_factory.mktemp("routes") / "plan"
+    args = ["plan", str(demo_blocks_path()), "--spacing", "80", "--seed", "3", "--out", str(out)]
+    result = runner.invoke(app, args)
+    assert result.exit_code == 0, result.output
+    return out
+
+
+@pytest.fixture
+def plan_dir(small_plan, tmp_path) -> Path:
+    copy = tmp_path / "plan"
+    shutil.copytree(small_plan, copy)
+    return copy
+
+
+def test_crews_writes_everything(plan_dir):
+    result = runner.invoke(app, ["crews", str(plan_dir), "--crews", "3", "--start", START, "--return"])
+    assert result.exit_code == 0, result.output
+    plan = load_plan(plan_dir)
+    pts = plan.points
+    # every point assigned exactly once, visit orders 1..n within each crew
+    assert set(pts["crew"].unique()) == {1, 2, 3}
+    for _, group in pts.groupby("crew"):
+        assert sorted(group["visit_order"]) == list(range(1, len(group) + 1))
+    routes = plan.layers["routes"]
+    assert sorted(routes["crew"]) == [1, 2, 3]
+    assert set(routes.geometry.geom_type) == {"LineString"}
+    table = (plan_dir / "crews.csv").read_text().splitlines()
+    assert table[0] == "crew,points,km,hours" and len(table) == 4
+    assert sum(int(line.split(",")[1]) for line in table[1:]) == len(pts)
+    # longest crew within 15 % of the mean (common practice, no source)
+    hours = np.array([float(line.split(",")[3]) for line in table[1:]])
+    assert hours.max() <= 1.15 * hours.mean()
+    for k in (1, 2, 3):
+        text = (plan_dir / f"crew_{k:02d}.gpx").read_text(encoding="utf-8")
+        gpx = gpxpy.parse(text)  # reference: gpxpy (PyPI) GPX parser
+        # reference: GPX 1.1 schema, version attribute and wpt/rte elements
+        assert gpx.version == "1.1"
+        mine = pts[pts["crew"] == k].sort_values("visit_order")
+        assert [w.name for w in gpx.waypoints] == mine["point_id"].tolist()
+        assert len(gpx.routes) == 1
+        # route: drop-off, every point, back to the drop-off
+        assert len(gpx.routes[0].points) == len(mine) + 2
+        lon, lat = (float(v) for v in START.split(","))
+        first = gpx.routes[0].points[0]
+        assert first.longitude == pytest.approx(lon, abs=1e-6)
+        assert first.latitude == pytest.approx(lat, abs=1e-6)
+    sheets = (plan_dir / "crew_sheets.html").read_text(encoding="utf-8")
+    assert sheets.count('<section class="crew"') == 3
+    assert "page-break-after: always" in sheets and sheets.count("<svg") == 3
+    assert all(sheets.count(c.replace("'", "&#x27;")) == 3 for c in CAUTIONS)
+    assert "<script" not in sheets
+    assert not list(plan_dir.glob(".*tmp*"))
+    # map.html refreshed with the routes drawn (one toggle per crew)
+    from fieldplan.write.html_map import map_data
+
+    assert len(map_data(plan)["routes"]["features"]) == 3
+
+
+def test_crews_refuses_rerun_without_force_and_is_deterministic(plan_dir, tmp_path):
+    other = tmp_path / "again"
+    shutil.copytree(plan_dir, other)
+    args = ["crews", str(plan_dir), "--crews", "2"]
+    assert runner.invoke(app, args).exit_code == 0
+    again = runner.invoke(app, args)
+    assert again.exit_code == 2 and "--force" in again.output
+    assert runner.invoke(app, [*args, "--force"]).exit_code == 0
+    assert runner.invoke(app, ["crews", str(other), "--crews", "2"]).exit_code == 0
+    for name in ("crews.csv", "crew_01.gpx", "crew_02.gpx", "crew_sheets.html", "points.csv"):
+        assert (plan_dir / name).read_bytes() == (other / name).read_bytes(), name
+
+
+def test_crews_max_hours_and_option_errors(plan_dir):
+    result = runner.invoke(
+        app, ["crews", str(plan_dir), "--crews", "2", "--max-hours", "1", "--minutes-per-point", "10"]
+    )
+    assert result.exit_code == 0, result.output
+    assert "do not fit" in result.output
+    left = (plan_dir / "crews_unfitted.csv").read_text().splitlines()
+    pts = load_plan(plan_dir).points
+    assert left[0] == "point_id,block"
+    assert len(left) - 1 == int((pts["crew"] == 0).sum()) > 0
+    bad = runner.invoke(app, ["crews", str(plan_dir), "--crews", "2", "--return", "--force"])
+    assert bad.exit_code == 2 and "--start" in bad.output and "Traceback" not in bad.output
+
+
+def test_schedule_ics(plan_dir, tmp_path):
+    blocks = tmp_path / "blocks.csv"
+    blocks.write_text("block,probability,due\nV01,0.9,\nF01,,2026-03-20\n", encoding="utf-8")
+    args = [
+        "schedule",
+        str(plan_dir),
+        "--crews",
+        "2",
+        "--hours-per-day",
+        "6",
+        "--days",
+        "mon-fri",
+        "--start",
+        "2026-03-02",
+        "--until",
+        "2026-04-30",
+        "--every",
+        "14d",
+        "--blocks",
+        str(blocks),
+    ]
+    result = runner.invoke(app, args)
+    assert result.exit_code == 0, result.output
+    cal = icalendar.Calendar.from_ical((plan_dir / "schedule.ics").read_bytes())
+    events = list(cal.walk("VEVENT"))
+    assert events
+    for ev in events:
+        start, end = ev.decoded("dtstart"), ev.decoded("dtend")
+        assert start.weekday() < 5  # Mon-Fri only
+        assert (end - start).total_seconds() <= 6 * 3600  # no crew-day over its hours
+        assert date(2026, 3, 2) <= start.date() <= date(2026, 4, 30)
+    assert runner.invoke(app, args).exit_code == 2  # refuses to replace without --force
+    assert runner.invoke(app, [*args, "--force"]).exit_code == 0
+    rows = (plan_dir / "schedule.csv").read_text().splitlines()
+    assert rows[0] == "date,crew,block,round,hours,start,end"
+
+
+def test_crew_sheet_escapes_input_text():
+    evil = '<img src=x onerror="alert(1)">'
+    sheet = CrewSheet(
+        crew=1,
+        route_xy=np.zeros((0, 2)),
+        points_xy=np.zeros((1, 2)),
+        rows=[{"point_id": evil, "block": "&"}],
+        summary=evil,
+    )
+    page = crew_sheets_html(
+        [sheet], title=evil, columns=["point_id", "block"], cautions=[evil], blocks=[(evil, None)]
+    )
+    assert "<img" not in page and "&lt;img src=x" in page and "&amp;" in page
