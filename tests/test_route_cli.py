@@ -159,3 +159,15 @@ def test_crew_sheet_escapes_input_text():
         [sheet], title=evil, columns=["point_id", "block"], cautions=[evil], blocks=[(evil, None)]
     )
     assert "<img" not in page and "&lt;img src=x" in page and "&amp;" in page
+
+
+def test_spares_and_inaccessible_points_get_no_crew(plan_dir):
+    from fieldplan.route.folder import plan_crews
+
+    plan = load_plan(plan_dir)
+    plan.points["status"] = "selected"
+    plan.points.loc[plan.points.index[:2], "status"] = ["spare", "inaccessible"]
+    run = plan_crews(plan, n_crews=2, kicks=0)
+    crew = run.plan.points["crew"].to_numpy()
+    assert crew[:2].tolist() == [0, 0] and np.all(crew[2:] > 0)
+    assert run.table["points"].sum() == len(crew) - 2

@@ -29,6 +29,8 @@ from fieldplan.route.metric import DEFAULT_ACROSS_FACTOR
 
 __all__ = ["CrewRun", "plan_crews", "write_crews"]
 
+# Point statuses nobody walks to: unused spares and points marked inaccessible.
+_NOT_VISITED = ("spare", "inaccessible")
 _SHEET_COLUMNS = ("point_id", "block", "stratum", "row", "plant", "instructions", "lon", "lat")
 
 
@@ -58,7 +60,7 @@ def plan_crews(
 ) -> CrewRun:
     """Assign the plan's points to crews (no file is written).
 
-    Points whose ``status`` is ``"spare"`` are left out (crew 0). Row bearings
+    Points whose ``status`` is ``"spare"`` or ``"inaccessible"`` are left out (crew 0). Row bearings
     come from the blocks table (``row_bearing_deg``). The search is seeded from
     the plan's seed, so the same plan gives the same crews.
     """
@@ -70,7 +72,8 @@ def plan_crews(
     points = plan.points.copy()
     active = np.ones(len(points), dtype=bool)
     if "status" in points.columns:
-        active = points["status"].astype(str).str.lower().ne("spare").to_numpy()
+        status = points["status"].fillna("").astype(str).str.lower()
+        active = ~status.isin(_NOT_VISITED).to_numpy()
     xy = shapely.get_coordinates(points.geometry.values)
     blocks = plan.blocks
     bearing_by_block = (
