@@ -15,13 +15,25 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pandas as pd
 import shapely
 
 from fieldplan.write.html_map import optional_layer, plan_caption
 from fieldplan.write.safe import atomic_write_bytes
 from fieldplan.write.tables import LONLAT_DECIMALS, points_lonlat
 
-__all__ = ["GPX_NS", "xml_text", "point_description", "gpx_bytes", "write_gpx", "gpx_writer"]
+__all__ = [
+    "GPX_NS",
+    "xml_text",
+    "xml_escape",
+    "text_column",
+    "point_description",
+    "waypoints_xml",
+    "routes_xml",
+    "gpx_bytes",
+    "write_gpx",
+    "gpx_writer",
+]
 
 GPX_NS = "http://www.topografix.com/GPX/1/1"
 _GPX_XSD = "http://www.topografix.com/GPX/1/1/gpx.xsd"
@@ -43,9 +55,24 @@ def xml_text(value: Any) -> str:
     return _NOT_XML_CHAR.sub("", str(value))
 
 
+def text_column(values) -> pd.Series:
+    """:func:`xml_text` over a column, as a Series of str (not yet escaped)."""
+    return pd.Series(values, dtype=object).reset_index(drop=True).map(xml_text).astype(object)
+
+
+def xml_escape(texts: pd.Series) -> pd.Series:
+    """Escape ``& < > "`` for element text and double-quoted attributes (XML 1.0 section 2.4)."""
+    return (
+        texts.str.replace("&", "&amp;", regex=False)
+        .str.replace("<", "&lt;", regex=False)
+        .str.replace(">", "&gt;", regex=False)
+        .str.replace('"', "&quot;", regex=False)
+    )
+
+
 def point_description(points) -> list[str]:
     """One line per point: block, stratum, row/plant, units, instructions (when present)."""
-    parts: list[list[str]] = [[] for _ in range(len(points))]
+    result = pd.Series([""] * len(points), dtype=object)
     labels = (
         ("block", "Block "),
         ("stratum", "stratum "),
@@ -57,15 +84,71 @@ def point_description(points) -> list[str]:
     for column, label in labels:
         if column not in points.columns:
             continue
-        for i, value in enumerate(points[column].tolist()):
-            text = xml_text(value)
-            if text:
-                parts[i].append(label + text)
-    return ["; ".join(p) for p in parts]
+        text = text_column(points[column])
+        part = (label + text).where(text != "", "")
+        joined = (result + "; " + part).where(part != "", result)
+        result = part.where(result == "", joined)
+    return result.tolist()
 
 
-def _coord(value: float) -> str:
-    return f"{value:.{LONLAT_DECIMALS}f}"
+def _element(tag: str, texts: pd.Series, indent: str) -> pd.Series:
+    """``<tag>text</tag>`` lines, empty where the text is empty."""
+    return (indent + f"<{tag}>" + xml_escape(texts) + f"</{tag}>\n").where(texts != "", "")
+
+
+def _placeholder(root: ET.Element, parent: ET.Element) -> tuple[str, ET.Element]:
+    # Per-point elements are built as columns of text (fast for many points) and put in
+    # at this empty element; input text is escaped, so it cannot spell the marker.
+    return "<fieldplan-points />", ET.SubElement(parent, "fieldplan-points")
+
+
+def waypoints_xml(points) -> str:
+    """All ``wpt`` elements of ``points`` as indented GPX 1.1 text."""
+    if len(points) == 0:
+        return ""
+    lonlat = points_lonlat(points)
+    names = text_column(points["point_id"])
+    descs = pd.Series(point_description(points), dtype=object)
+    strata = (
+        text_column(points["stratum"])
+        if "stratum" in points.columns
+        else pd.Series([""] * len(points), dtype=object)
+    )
+    # GPX 1.1 schema order inside wpt: ... name, cmt, desc, src, link, sym, type ...
+    rows = (
+        " <wpt "
+        + _lat_lon_attrs(lonlat)
+        + ">\n"
+        + _element("name", names, "  ")
+        + _element("desc", descs, "  ")
+        + "  <sym>Flag</sym>\n"
+        + _element("type", strata, "  ")
+        + " </wpt>\n"
+    )
+    return "".join(rows.tolist())
+
+
+def _lat_lon_attrs(coords: np.ndarray) -> pd.Series:
+    lat = pd.Series(np.char.mod(f"%.{LONLAT_DECIMALS}f", coords[:, 1]), dtype=object)
+    lon = pd.Series(np.char.mod(f"%.{LONLAT_DECIMALS}f", coords[:, 0]), dtype=object)
+    return 'lat="' + lat + '" lon="' + lon + '"'
+
+
+def routes_xml(routes) -> str:
+    """One ``rte`` per route line (``crew`` column names it), as indented GPX 1.1 text."""
+    if routes is None or len(routes) == 0:
+        return ""
+    wgs = routes.to_crs(4326)
+    crews = wgs["crew"].tolist() if "crew" in wgs.columns else list(range(1, len(wgs) + 1))
+    parts = []
+    for crew, geom in zip(crews, wgs.geometry.values, strict=True):  # one per crew
+        if geom is None or shapely.is_empty(geom):
+            continue
+        coords = np.round(shapely.get_coordinates(geom), LONLAT_DECIMALS)
+        name = xml_escape(pd.Series([f"Crew {xml_text(crew)}"], dtype=object)).iloc[0]
+        points = "".join(("  <rtept " + _lat_lon_attrs(coords) + " />\n").tolist())
+        parts.append(f" <rte>\n  <name>{name}</name>\n{points} </rte>\n")
+    return "".join(parts)
 
 
 def gpx_bytes(plan: Any, *, routes=None) -> bytes:
@@ -88,37 +171,14 @@ def gpx_bytes(plan: Any, *, routes=None) -> bytes:
     ET.SubElement(metadata, "desc").text = xml_text(
         f"seed {caption['seed']}; {caption['date']}; {len(plan.points)} points"
     )
-
-    points = plan.points
-    lonlat = points_lonlat(points)
-    ids = points["point_id"].tolist()
-    descs = point_description(points)
-    strata = points["stratum"].tolist() if "stratum" in points.columns else [None] * len(points)
-    # GPX 1.1 schema order inside wpt: ... name, cmt, desc, src, link, sym, type ...
-    for (lon, lat), pid, desc, stratum in zip(lonlat, ids, descs, strata, strict=True):
-        wpt = ET.SubElement(root, "wpt", {"lat": _coord(lat), "lon": _coord(lon)})
-        ET.SubElement(wpt, "name").text = xml_text(pid)
-        if desc:
-            ET.SubElement(wpt, "desc").text = desc
-        ET.SubElement(wpt, "sym").text = "Flag"
-        if xml_text(stratum):
-            ET.SubElement(wpt, "type").text = xml_text(stratum)
-
-    routes = routes if routes is not None else optional_layer(plan, "routes")
-    if routes is not None and len(routes):
-        wgs = routes.to_crs(4326)
-        crews = wgs["crew"].tolist() if "crew" in wgs.columns else list(range(1, len(wgs) + 1))
-        for crew, geom in zip(crews, wgs.geometry.values, strict=True):
-            if geom is None or shapely.is_empty(geom):
-                continue
-            rte = ET.SubElement(root, "rte")
-            ET.SubElement(rte, "name").text = xml_text(f"Crew {xml_text(crew)}")
-            coords = np.round(shapely.get_coordinates(geom), LONLAT_DECIMALS)
-            for lon, lat in coords:
-                ET.SubElement(rte, "rtept", {"lat": _coord(lat), "lon": _coord(lon)})
-
+    marker, _ = _placeholder(root, root)
     ET.indent(root, space=" ")
-    return ET.tostring(root, encoding="utf-8", xml_declaration=True) + b"\n"
+    text = ET.tostring(root, encoding="unicode")
+    routes = routes if routes is not None else optional_layer(plan, "routes")
+    # GPX 1.1 schema order: metadata, wpt*, rte*, trk*.
+    body = waypoints_xml(plan.points) + routes_xml(routes)
+    text = text.replace(" " + marker + "\n", body, 1)
+    return ('<?xml version="1.0" encoding="UTF-8"?>\n' + text + "\n").encode("utf-8")
 
 
 def write_gpx(plan: Any, path: Path | str, *, routes=None) -> Path:

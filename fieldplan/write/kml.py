@@ -12,14 +12,15 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pandas as pd
 import shapely
 
-from fieldplan.write.gpx import point_description, xml_text
+from fieldplan.write.gpx import point_description, text_column, xml_escape, xml_text
 from fieldplan.write.html_map import plan_caption, stratum_styles
 from fieldplan.write.safe import atomic_write_bytes
 from fieldplan.write.tables import LONLAT_DECIMALS, points_lonlat
 
-__all__ = ["KML_NS", "kml_colour", "kml_bytes", "write_kml", "kml_writer"]
+__all__ = ["KML_NS", "kml_colour", "kml_bytes", "placemarks_xml", "write_kml", "kml_writer"]
 
 KML_NS = "http://www.opengis.net/kml/2.2"
 _DATA_COLUMNS = ("block", "stratum", "design", "row", "plant", "units", "status")
@@ -123,29 +124,57 @@ def kml_bytes(plan: Any) -> bytes:
 
     pts_folder = ET.SubElement(doc, "Folder")
     ET.SubElement(pts_folder, "name").text = "Sample points"
-    lonlat = points_lonlat(points)
-    descs = point_description(points)
-    columns = [c for c in _DATA_COLUMNS if c in points.columns]
-    records = points[columns].to_dict("records") if len(points) else []
-    ids = points["point_id"].tolist()
-    # KML 2.2 schema order in a Placemark: name, description, styleUrl, ExtendedData, geometry.
-    for (lon, lat), pid, desc, rec in zip(lonlat, ids, descs, records, strict=True):
-        mark = ET.SubElement(pts_folder, "Placemark")
-        ET.SubElement(mark, "name").text = xml_text(pid)
-        if desc:
-            ET.SubElement(mark, "description").text = desc
-        ET.SubElement(mark, "styleUrl").text = "#" + style_ids[str(rec.get("stratum"))]
-        extended = ET.SubElement(mark, "ExtendedData")
-        for key, value in rec.items():
-            text = xml_text(value)
-            if text:
-                ET.SubElement(ET.SubElement(extended, "Data", {"name": key}), "value").text = text
-        ET.SubElement(
-            ET.SubElement(mark, "Point"), "coordinates"
-        ).text = f"{lon:.{LONLAT_DECIMALS}f},{lat:.{LONLAT_DECIMALS}f}"
-
+    marker = "<fieldplan-points />"
+    ET.SubElement(pts_folder, "fieldplan-points")
     ET.indent(root, space=" ")
-    return ET.tostring(root, encoding="utf-8", xml_declaration=True) + b"\n"
+    text = ET.tostring(root, encoding="unicode")
+    text = text.replace("   " + marker + "\n", placemarks_xml(points, style_ids), 1)
+    return ('<?xml version="1.0" encoding="UTF-8"?>\n' + text + "\n").encode("utf-8")
+
+
+def placemarks_xml(points, style_ids: dict[str, str]) -> str:
+    """One point Placemark per row of ``points`` as indented KML text (built column-wise)."""
+    if len(points) == 0:
+        return ""
+    lonlat = points_lonlat(points)
+    coords = pd.Series(
+        np.char.add(
+            np.char.add(np.char.mod(f"%.{LONLAT_DECIMALS}f", lonlat[:, 0]), ","),
+            np.char.mod(f"%.{LONLAT_DECIMALS}f", lonlat[:, 1]),
+        ),
+        dtype=object,
+    )
+    names = text_column(points["point_id"])
+    descs = pd.Series(point_description(points), dtype=object)
+    styles = points["stratum"].astype(str).reset_index(drop=True).map(style_ids)
+    extended = pd.Series([""] * len(points), dtype=object)
+    for column in (c for c in _DATA_COLUMNS if c in points.columns):
+        texts = text_column(points[column])
+        data = (
+            '     <Data name="'
+            + column
+            + '">\n      <value>'
+            + xml_escape(texts)
+            + "</value>\n     </Data>\n"
+        )
+        extended = extended + data.where(texts != "", "")
+    # KML 2.2 schema order in a Placemark: name, description, styleUrl, ExtendedData, geometry.
+    rows = (
+        "   <Placemark>\n"
+        + ("    <name>" + xml_escape(names) + "</name>\n").where(names != "", "")
+        + ("    <description>" + xml_escape(descs) + "</description>\n").where(descs != "", "")
+        + "    <styleUrl>#"
+        + styles
+        + "</styleUrl>\n"
+        + "    <ExtendedData>\n"
+        + extended
+        + "    </ExtendedData>\n"
+        + "    <Point>\n     <coordinates>"
+        + coords
+        + "</coordinates>\n    </Point>\n"
+        + "   </Placemark>\n"
+    )
+    return "".join(rows.tolist())
 
 
 def write_kml(plan: Any, path: Path | str) -> Path:
