@@ -145,7 +145,7 @@ def check_design_options(design: str, options: dict) -> dict:
         raise OptionError("--target-units needs --units-per-cluster (units taken at each picked plant)")
     for key in ("per_block", "n", "target_units", "units_per_cluster"):
         value = opts[key]
-        if value is not None and (int(value) != value or value < (0 if key == "n" else 1)):
+        if value is not None and (int(value) != value or value < 1):
             raise OptionError(f"--{key.replace('_', '-')} must be a whole number of 1 or more, got {value}")
     if opts["per_ha"] is not None and not opts["per_ha"] > 0:
         raise OptionError(f"--per-ha must be positive, got {opts['per_ha']}")

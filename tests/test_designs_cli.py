@@ -160,3 +160,42 @@ def test_size_command():
     assert data["clusters"] == math.ceil(data["n"] * 1.4 / 5)
     bad = runner.invoke(app, ["size", "--cv", "25"])
     assert bad.exit_code == 2
+
+
+def test_neyman_and_optimal_allocation_from_block_fields(blocks):
+    b = blocks.copy()
+    rng = np.random.default_rng(3)
+    b["brix_sd"] = rng.uniform(0.5, 2.0, len(b))
+    b["cost"] = rng.uniform(1.0, 4.0, len(b))
+    area = shapely.area(b.geometry.values) / 10_000.0
+    opts = {"n": 50, "sd_field": "brix_sd", "min_per_stratum": 0}
+    ney = make_plan(b, design="random", design_options={**opts, "allocation": "neyman"}, seed=1)
+    w = area * b["brix_sd"].to_numpy()
+    # reference: Cochran (1977) section 5.5, Neyman allocation n_h = n N_h S_h / sum N_h S_h
+    np.testing.assert_allclose(ney.blocks["n_target_exact"], 50 * w / w.sum(), atol=1e-4)
+    opt = make_plan(
+        b, design="random", design_options={**opts, "allocation": "optimal", "cost_field": "cost"}, seed=1
+    )
+    w = area * b["brix_sd"].to_numpy() / np.sqrt(b["cost"].to_numpy())
+    # reference: Cochran (1977) section 5.5, n_h proportional to N_h S_h / sqrt(c_h)
+    np.testing.assert_allclose(opt.blocks["n_target_exact"], 50 * w / w.sum(), atol=1e-4)
+    assert len(opt.points) == 50 == int(opt.blocks["n_allocated"].sum())
+
+
+def test_custom_instructions_template(blocks):
+    plan = make_plan(
+        blocks,
+        design="clusters",
+        design_options={
+            "per_block": 2,
+            "units_per_cluster": 3,
+            "instructions": "{block} r{row} p{plant}: {units}",
+        },
+        seed=2,
+    )
+    first = plan.points.iloc[0]
+    assert first["instructions"] == f"{first['block']} r{first['row']} p{first['plant']}: 3"
+    from fieldplan.errors import OptionError
+
+    with pytest.raises(OptionError, match="placeholder"):
+        make_plan(blocks, design="clusters", design_options={"per_block": 2, "instructions": "{tree}"})

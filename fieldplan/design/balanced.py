@@ -10,20 +10,23 @@ way that keeps every candidate's inclusion probability. Neighbours thus rarely
 both end up selected, which spreads the sample evenly over the polygon.
 
 Why LPM rather than GRTS (Stevens & Olsen 2004): both give spatially balanced
-samples with known inclusion probabilities, but LPM works directly on
-Euclidean nearest neighbours, needs no quadrant-recursive address or hierarchical
-randomisation, is short enough to read and check against the paper, and in the
-authors' comparisons gives samples at least as well spread as GRTS by the
-Voronoi balance measure that GRTS was designed around. GRTS's ordered reverse
-hierarchy (useful for adding points in order) is not needed here: spares come
-from a separate random draw.
+samples with known inclusion probabilities. LPM works directly on Euclidean
+nearest neighbours of the candidates, so it needs no quadrant-recursive
+addressing, hierarchical randomisation or reverse ordering; the whole method is
+a short loop that can be read against the paper line by line, and its fixed
+sample size and inclusion probabilities are easy to test. Grafström et al.
+report LPM samples at least as evenly spread as GRTS by the Voronoi balance
+measure that GRTS was designed around (recalled from the paper's simulations;
+the test suite checks only LPM against simple random sampling). What is given up
+is GRTS's ordered list, whose prefixes are themselves balanced samples (handy
+for adding points one at a time).
 
 Nearest neighbours come from a :class:`scipy.spatial.cKDTree`: one vectorised
 query returns the ``k`` nearest candidates of every candidate; a step looks for
 the first still-undecided one in that short list, and the tree and lists are
 rebuilt over the undecided candidates only when a list runs dry and enough
-candidates have been decided. The loop runs once per decided candidate with
-constant work per step.
+candidates have been decided. The loop runs once per decided candidate; with
+the rebuilds the total work is O(N log N).
 """
 
 from __future__ import annotations
