@@ -51,6 +51,9 @@ labels_cmd.register(app)
 from fieldplan.cli import lab_cmd  # noqa: E402
 
 lab_cmd.register(app)
+from fieldplan.cli import mark_cmd  # noqa: E402
+
+mark_cmd.register(app)
 from fieldplan.cli import check_cmd  # noqa: E402
 
 check_cmd.register(app)
