@@ -17,7 +17,7 @@ from numpy.typing import ArrayLike
 from fieldplan.errors import InputError
 from fieldplan.estimate.cluster import icc_anova
 
-__all__ = ["Variability", "observed_variability"]
+__all__ = ["Variability", "observed_variability", "plan_variability"]
 
 
 @dataclass(frozen=True)
@@ -83,3 +83,26 @@ def observed_variability(
         icc=icc,
         mean_cluster_size=mbar,
     )
+
+
+def plan_variability(
+    points: pd.DataFrame, blocks: pd.DataFrame, results: pd.DataFrame, *, value: str
+) -> tuple[Variability, int]:
+    """Variability of ``value`` in a plan's latest results round.
+
+    The SD is pooled within blocks; the ICC is estimated when the round has one
+    row per plant (a ``unit`` column) for cluster points. Returns the
+    :class:`Variability` and the round number used.
+    """
+    from fieldplan.estimate.table import point_values
+
+    d = point_values(points, blocks, results, value=value)
+    latest = int(d["round"].max())
+    d = d[d["round"] == latest]
+    per_plant = (d["unit"].astype(str) != "").any() and d.duplicated("point_id").any()
+    v = observed_variability(
+        d["value"].to_numpy(dtype=float),
+        groups=d["block"].to_numpy(),
+        clusters=d["point_id"].to_numpy() if per_plant else None,
+    )
+    return v, latest
