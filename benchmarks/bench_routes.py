@@ -23,7 +23,7 @@ import numpy as np
 
 from fieldplan.route import Metric, assign_crews, euc2d_length, read_tsplib, route_cost, solve_route
 
-__all__ = ["main"]
+__all__ = ["main", "measure", "study"]
 
 ROOT = Path(__file__).resolve().parents[1]
 OPTIMA = {"berlin52": 7542, "st70": 675, "pr76": 108159}  # TSPLIB, from memory
@@ -36,13 +36,8 @@ def _timed(fn):
     return out, time.perf_counter() - wall, time.process_time() - cpu
 
 
-def main(argv: list[str] | None = None) -> dict:
-    """Run the benchmark, write the JSON and return its content."""
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--out", type=Path, default=ROOT / "benchmarks" / "bench_routes.json")
-    ap.add_argument("--points", type=int, default=5000)
-    args = ap.parse_args(argv)
-
+def measure(*, points: int = 5000) -> dict:
+    """All figures of the benchmark as a JSON-ready dict."""
     result: dict = {"tsplib": [], "large": {}, "cpus": os.cpu_count()}
     for name, optimum in OPTIMA.items():
         xy = read_tsplib(ROOT / "tests" / "data" / "tsplib" / f"{name}.tsp")
@@ -60,7 +55,7 @@ def main(argv: list[str] | None = None) -> dict:
             }
         )
 
-    n = args.points
+    n = points
     xy = np.random.default_rng(2026).uniform(0, 1000, size=(n, 2))
     metric = Metric(xy)
     bhh = BHH * np.sqrt(n * 1000.0 * 1000.0)
@@ -84,6 +79,53 @@ def main(argv: list[str] | None = None) -> dict:
         "hours": [round(float(h), 2) for h in crews.hours],
         "max_over_mean": round(float(crews.hours.max() / crews.hours.mean()), 4),
     }
+    return result
+
+
+def study(*, smoke: bool = False, seed: int = 0) -> list:
+    """The figures as ``benchmarks.timing.Result`` records for the benchmark runner.
+
+    TSPLIB ratios pass at <= 1.05; the 5,000-point times are informational
+    (seconds / 60, so below 1 is "under a minute").
+    """
+    from benchmarks.timing import Result
+
+    figures = measure(points=500 if smoke else 5000)
+    out = [
+        Result(
+            "routes",
+            f"TSPLIB {t['instance']}: length / optimum",
+            t["ratio"],
+            1.05,
+            "lower",
+            unit="",
+            details=t,
+        )
+        for t in figures["tsplib"]
+    ]
+    for label, fig in figures["large"].items():
+        out.append(
+            Result(
+                "routes",
+                f"{fig['n']} points, {label}: seconds / 60",
+                fig["seconds"] / 60.0,
+                1.0,
+                "lower",
+                unit="",
+                details=fig,
+                informational=True,
+            )
+        )
+    return out
+
+
+def main(argv: list[str] | None = None) -> dict:
+    """Run the benchmark, write the JSON and return its content."""
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--out", type=Path, default=ROOT / "benchmarks" / "bench_routes.json")
+    ap.add_argument("--points", type=int, default=5000)
+    args = ap.parse_args(argv)
+    result = measure(points=args.points)
     args.out.write_text(json.dumps(result, indent=2, sort_keys=True) + "\n", encoding="utf-8")
     print(json.dumps(result, indent=2, sort_keys=True))
     return result
