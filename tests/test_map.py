@@ -181,6 +181,22 @@ def test_optional_layers_routes_spares_actual(plan):
     assert "<i>2</i>" not in page
 
 
+def test_recorded_positions_from_a_lon_lat_table_and_plan_code(plan):
+    import dataclasses
+
+    import pandas as pd
+
+    table = pd.DataFrame(
+        {"point_id": ["P-1", "P-2"], "actual_lon": [18.9012345, None], "actual_lat": [-33.8591, None]}
+    )
+    data = _data(map_html(plan, actual=table))
+    # Rows without a position are left out; coordinates pass through unchanged.
+    assert data["actual"]["props"]["point_id"] == ["P-1"]
+    assert data["actual"]["lon"] == [18.9012345] and data["actual"]["lat"] == [-33.8591]
+    coded = dataclasses.replace(plan, params={**plan.params, "plan_id": "K7Q2"})
+    assert _data(map_html(coded))["caption"]["plan_id"] == "K7Q2"
+
+
 def test_marker_mode_switches_to_canvas_for_large_plans(plan):
     from fieldplan.errors import OptionError
 

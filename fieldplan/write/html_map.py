@@ -76,14 +76,15 @@ POPUP_FIELDS = ("point_id", "block", "stratum", "design", "row", "plant", "units
 def plan_caption(plan: Any) -> dict[str, str]:
     """Plan id, seed and date shown on the map and the printed page.
 
-    The id is ``meta["plan_id"]`` when the manifest has one; otherwise the first
+    The id is ``meta["plan_id"]`` or ``params["plan_id"]`` when the plan has one
+    (the same code as on sample labels); otherwise the first
     ten hex digits of the SHA-256 of the plan parameters and input digest, so it
     is stable for the same input and seed. The date is the day part of
     ``meta["created_utc"]`` (which honours ``SOURCE_DATE_EPOCH``).
     """
     meta = dict(getattr(plan, "meta", None) or {})
     params = dict(getattr(plan, "params", None) or {})
-    plan_id = meta.get("plan_id")
+    plan_id = meta.get("plan_id") or params.get("plan_id")
     if not plan_id:
         basis = json.dumps(
             {"params": params, "input": meta.get("input_sha256")},
@@ -213,6 +214,24 @@ def _point_columns(gdf, columns, *, decimals: int = COORD_DECIMALS) -> dict:
     }
 
 
+def _as_points(frame):
+    """Recorded positions as WGS84 points: a GeoDataFrame as is, or a table with
+    ``lon``/``lat`` (or ``actual_lon``/``actual_lat``, as position comparisons give)."""
+    if frame is None or hasattr(frame, "geometry") or len(frame) == 0:
+        return frame
+    import geopandas as gpd
+
+    for lon, lat in (("actual_lon", "actual_lat"), ("lon", "lat")):
+        if lon in frame.columns and lat in frame.columns:
+            rows = frame[frame[lon].notna() & frame[lat].notna()]
+            return gpd.GeoDataFrame(
+                rows.drop(columns=[lon, lat]),
+                geometry=gpd.points_from_xy(rows[lon].astype(float), rows[lat].astype(float)),
+                crs=4326,
+            )
+    return None
+
+
 def _label_points(blocks) -> dict:
     """One label anchor per block, inside the block (point on surface), in WGS84."""
     if blocks is None or len(blocks) == 0:
@@ -262,6 +281,7 @@ def map_data(plan: Any, *, routes=None, spares=None, actual=None, markers: str =
     routes = routes if routes is not None else optional_layer(plan, "routes")
     spares = spares if spares is not None else optional_layer(plan, "spares")
     actual = actual if actual is not None else optional_layer(plan, "actual")
+    actual = _as_points(actual)
     points, spares = _split_points(plan.points, spares)
     strata = list(points["stratum"].astype(str)) if len(points) else []
     if spares is not None and len(spares) and "stratum" in spares.columns:
@@ -288,7 +308,7 @@ def map_data(plan: Any, *, routes=None, spares=None, actual=None, markers: str =
         "exclusions": _features(getattr(plan, "exclusions", None), ["name"]),
         "points": _point_columns(points, point_cols),
         "spares": _point_columns(spares, point_cols),
-        "actual": _point_columns(actual, ["point_id", "block", "recorded_utc", "error_m"]),
+        "actual": _point_columns(actual, ["point_id", "block", "recorded_utc", "offset_m"]),
         "marker_mode": mode,
         "routes": route_fc,
         "strata": [{"name": k, **v} for k, v in styles.items()],
@@ -491,7 +511,7 @@ _APP_JS = r"""
     var names = [["point_id", "Point"], ["block", "Block"], ["stratum", "Stratum"],
       ["design", "Design"], ["row", "Row"], ["plant", "Plant"], ["units", "Units"],
       ["status", "Status"], ["instructions", "Instructions"],
-      ["recorded_utc", "Recorded"], ["error_m", "Offset (m)"]];
+      ["recorded_utc", "Recorded"], ["offset_m", "Offset (m)"]];
     names.forEach(function (pair) {
       var v = props[pair[0]];
       if (v === undefined || v === null || v === "") { return; }
