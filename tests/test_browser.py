@@ -168,6 +168,18 @@ def test_popup_shows_point_details(opened):
     assert log["errors"] == []
 
 
+def test_spares_toggle_and_hatched_exclusions(opened):
+    page, log, _ = opened
+    page.get_by_label("Spare points").check()
+    assert page.locator(".fp-spare").count() == 4
+    page.get_by_label("Spare points").uncheck()
+    assert page.locator(".fp-spare").count() == 0
+    # reference: SVG 1.1 section 14.3 pattern fill via url(#id) on the exclusion path
+    assert page.locator("pattern#fp-hatch").count() == 1
+    assert page.locator('path[fill="url(#fp-hatch)"]').count() == 1
+    assert log["errors"] == []
+
+
 def test_base_layer_loads_only_when_switched_on(opened):
     page, log, _ = opened
     # Switching the online layer on is what makes the first request: proves the
