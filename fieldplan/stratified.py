@@ -293,19 +293,23 @@ def _stratified(
     if exclusion_union is not None:
         fallback = shapely.difference(fallback, exclusion_union)
     use = np.where(empty, fallback, areas)
-    for i in np.flatnonzero(empty):
+    gone = shapely.is_empty(use) | (shapely.area(use) <= 0)
+    for i in np.flatnonzero(empty & ~gone):
         flags[i].append("edge buffer leaves nothing: sampled the block without it")
+    for i in np.flatnonzero(gone):
+        flags[i].append("exclusions cover the block: not sampled")
     area_ha = shapely.area(use) / 10_000.0
     stratum_ha = np.array([area_ha[m].sum() for m in members])
 
     segments: list = [None] * len(strata)
     owners: list = [None] * len(strata)
     eligible: list = [None] * len(strata)
-    capacity = np.full(len(strata), np.inf)
+    # Strata with no area left (or, for clusters, no plants) take no points.
+    capacity = np.where(stratum_ha > 0, np.inf, 0.0)
     if design == "clusters":
         for h, m in enumerate(members):
             parts, owner_idx, elig = [], [], []
-            for i in m:
+            for i in m[~gone[m]]:
                 seg, notes = _row_model(blocks, i, use[i], opts, params.get("rows_frame"))
                 flags[i].extend(notes)
                 if seg is None or seg.row.size == 0:
@@ -328,6 +332,8 @@ def _stratified(
 
     active = capacity > 0
     if not active.any():
+        if design != "clusters":
+            raise DesignError("no block has area left to sample after the edge buffer and exclusions")
         raise DesignError(
             "no block has a row layout (row_spacing_m, plant_spacing_m, row_bearing_deg) "
             "or mapped rows (--rows); clusters need plants to draw from"
@@ -363,6 +369,7 @@ def _stratified(
                 units = np.full(n_h, units_per, dtype=np.int64)
             extra = {"row": picks.row, "plant": picks.plant, "units": units}
         else:
+            m = m[~gone[m]]
             poly = shapely.union_all(use[m]) if m.size > 1 else use[m[0]]
             if design == "random":
                 xy = random_points(poly, n_h, rng=rng)

@@ -199,3 +199,17 @@ def test_custom_instructions_template(blocks):
 
     with pytest.raises(OptionError, match="placeholder"):
         make_plan(blocks, design="clusters", design_options={"per_block": 2, "instructions": "{tree}"})
+
+
+@pytest.mark.parametrize("design", ["random", "balanced", "clusters"])
+def test_exclusions_are_kept_free_and_covered_blocks_flagged(blocks, design):
+    ex = gpd.GeoDataFrame(
+        {"name": ["all of V09", "middle of V01"]},
+        geometry=[blocks.geometry.iloc[13].buffer(1.0), blocks.geometry.iloc[5].buffer(-20.0)],
+        crs=blocks.crs,
+    )
+    plan = make_plan(blocks, design=design, design_options={"per_block": 3}, exclusions=ex, seed=1)
+    # reference: shapely (GEOS) intersects; no point may fall in an exclusion
+    assert not shapely.intersects(plan.points.geometry.values, shapely.union_all(ex.geometry.values)).any()
+    v09 = plan.summary().set_index("block").loc["V09"]
+    assert v09["n_points"] == 0 and "exclusions cover the block" in v09["flags"]
