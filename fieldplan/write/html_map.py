@@ -70,7 +70,19 @@ COORD_DECIMALS = 7  # about 1 cm; GPX/KML carry more
 #: Above this many points the map draws them on a canvas instead of one element each.
 DOM_MARKER_LIMIT = 1500
 MARKER_MODES = ("auto", "dom", "canvas")
-POPUP_FIELDS = ("point_id", "block", "stratum", "design", "row", "plant", "units", "status")
+POPUP_FIELDS = (
+    "point_id",
+    "block",
+    "stratum",
+    "design",
+    "row",
+    "plant",
+    "units",
+    "depth_cm",
+    "status",
+    "crew",
+    "visit_order",
+)
 
 
 def plan_caption(plan: Any) -> dict[str, str]:
@@ -510,7 +522,8 @@ _APP_JS = r"""
     var table = el("table");
     var names = [["point_id", "Point"], ["block", "Block"], ["stratum", "Stratum"],
       ["design", "Design"], ["row", "Row"], ["plant", "Plant"], ["units", "Units"],
-      ["status", "Status"], ["instructions", "Instructions"],
+      ["depth_cm", "Depth (cm)"], ["status", "Status"], ["crew", "Crew"], ["visit_order", "Visit no."],
+      ["instructions", "Instructions"],
       ["recorded_utc", "Recorded"], ["offset_m", "Offset (m)"]];
     names.forEach(function (pair) {
       var v = props[pair[0]];
