@@ -172,7 +172,15 @@ def test_lab_sheet_round_trip_through_the_results_reader(tmp_path):
     analyses = parse_analyses("pH, P, K")
     write_lab_sheet(plan, tmp_path, analyses=analyses)
     sub = pd.read_csv(tmp_path / SUBMISSION_NAME, dtype=str, keep_default_na=False)
-    assert list(sub.columns) == ["sample_id", "block", "depth_cm", "purpose", "collection_date", "analyses"]
+    assert list(sub.columns) == [
+        "sample_id",
+        "block",
+        "depth_cm",
+        "purpose",
+        "round",
+        "collection_date",
+        "analyses",
+    ]
     assert len(sub) == plan.points["sample_id"].nunique()
     assert set(sub["sample_id"]) == set(plan.points["sample_id"])
     assert (sub["collection_date"] == "").all() and (sub["analyses"] == "pH;P;K").all()
@@ -262,3 +270,29 @@ def test_text_outside_the_pdf_base_fonts_prints_as_question_marks():
 
     texts = [t[4] for t in label_shapes(records, LAYOUTS["a4-3x8"])[0]["texts"]]
     assert "Block Château Süd" in texts and "Block ???" in texts
+
+
+def test_later_rounds_get_new_valid_ids_on_labels_and_sheets(tmp_path):
+    import zxingcpp
+
+    from fieldplan.samples.ids import is_valid
+
+    plan = _plan()
+    first = label_records(plan.points, plan_id="X", round_no=1)
+    second = label_records(plan.points, plan_id="X", round_no=2)
+    assert list(first["sample_id"]) == list(plan.points["sample_id"])
+    assert not set(first["sample_id"]) & set(second["sample_id"])
+    assert all(is_valid(i) for i in second["sample_id"])
+    # Serials stay, so round 2 of a point is easy to match by eye.
+    assert [i[5:-1] for i in first["sample_id"]] == [i[5:-1] for i in second["sample_id"]]
+    # reference: zxing-cpp decoder.
+    found = zxingcpp.read_barcodes(labels_png(second, LAYOUTS["a4-3x8"], dpi=200))
+    assert {r.text for r in found} == set(second["sample_id"][:24])
+
+    write_lab_sheet(plan, tmp_path, analyses=["Brix"], round_no=2)
+    sub = pd.read_csv(tmp_path / "lab_submission_r2.csv", dtype=str)
+    assert list(sub["sample_id"]) == list(second["sample_id"]) and set(sub["round"]) == {"2"}
+    template = pd.read_csv(tmp_path / "results_template_r2.csv", dtype=str)
+    assert list(template.columns) == ["point_id", "sample_id", "Brix"]
+    with pytest.raises(OptionError, match="--round"):
+        label_records(plan.points, plan_id="X", round_no=0)

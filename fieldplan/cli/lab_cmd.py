@@ -18,9 +18,15 @@ def lab_sheet(
     analyses: Annotated[
         str, typer.Option(help='Analyses to request, comma-separated, e.g. "pH,P,K" or "Brix,pH,TA".')
     ],
+    round_no: Annotated[
+        int,
+        typer.Option("--round", min=1, help="Sampling round: rounds after the first get their own ids."),
+    ] = 1,
     quiet: Quiet = False,
 ) -> None:
     """Write lab_submission.csv and results_template.csv into the plan folder.
+
+    Round 2 and later (--round) write lab_submission_r2.csv etc. with that round's ids.
 
     Fill in results_template.csv (one row per sample) and read it back with
     'fieldplan results'.
@@ -33,7 +39,7 @@ def lab_sheet(
 
     names = parse_analyses(analyses)
     plan = load_plan(plan_dir)
-    paths = write_lab_sheet(plan, plan_dir, analyses=names)
+    paths = write_lab_sheet(plan, plan_dir, analyses=names, round_no=round_no)
     if not quiet:
         samples = plan.points["sample_id"].nunique()
         typer.echo(f"{samples} samples, analyses {', '.join(names)} -> " + ", ".join(str(p) for p in paths))

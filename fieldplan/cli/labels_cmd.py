@@ -38,12 +38,18 @@ def labels(
         str | None, typer.Option(help="Date printed on every label (YYYY-MM-DD); blank line if not given.")
     ] = None,
     skip: Annotated[int, typer.Option(min=0, help="Label positions already used on the first sheet.")] = 0,
+    round_no: Annotated[
+        int,
+        typer.Option("--round", min=1, help="Sampling round: rounds after the first get their own ids."),
+    ] = 1,
     preview: Annotated[
         bool, typer.Option(help="Also write labels_preview.png (first sheet) to check before printing.")
     ] = False,
     quiet: Quiet = False,
 ) -> None:
     """Write labels.pdf into the plan folder: one label per sample with its id as text and QR code.
+
+    Round 2 and later (--round) write labels_r2.pdf etc. with that round's ids.
 
     Example: fieldplan labels plan-2027-soil --layout letter-3x10 --date 2027-03-01
     """
@@ -54,18 +60,20 @@ def labels(
     sheet = parse_layout(layout)
     when = _check_date(date)
     plan = load_plan(plan_dir)
-    records = label_records(plan.points, plan_id=plan.params.get("plan_id", ""))
-    atomic_write_bytes(plan_dir / "labels.pdf", labels_pdf(records, sheet, date=when, skip=skip))
+    records = label_records(plan.points, plan_id=plan.params.get("plan_id", ""), round_no=round_no)
+    suffix = "" if round_no == 1 else f"_r{round_no}"
+    pdf_path = plan_dir / f"labels{suffix}.pdf"
+    atomic_write_bytes(pdf_path, labels_pdf(records, sheet, date=when, skip=skip))
     if preview:
         import io
 
         buffer = io.BytesIO()
         labels_png(records, sheet, date=when, skip=skip).save(buffer, format="PNG")
-        atomic_write_bytes(plan_dir / "labels_preview.png", buffer.getvalue())
+        atomic_write_bytes(plan_dir / f"labels{suffix}_preview.png", buffer.getvalue())
     if not quiet:
         sheets = -(-(skip + len(records)) // sheet.per_page)
         typer.echo(
-            f"{len(records)} labels on {sheets} {sheet.name} sheet(s) -> {plan_dir / 'labels.pdf'}\n"
+            f"{len(records)} labels on {sheets} {sheet.name} sheet(s) -> {pdf_path}\n"
             "Print at 100 % (no 'fit to page') so labels line up with the sheet."
         )
 

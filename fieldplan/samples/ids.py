@@ -42,6 +42,7 @@ __all__ = [
     "normalise_id",
     "plan_code",
     "make_sample_ids",
+    "round_sample_ids",
 ]
 
 #: 31 characters (prime): digits 2-9 and A-Z without I, L, O.
@@ -145,14 +146,56 @@ def make_sample_ids(n: int, *, code: str, serial_length: int | None = None) -> n
     serial = np.arange(n, dtype=np.int64)
     digits = (serial[:, None] // p ** np.arange(serial_length - 1, -1, -1)) % p
     payload = np.hstack([np.broadcast_to(code_values, (n, len(code_values))), digits])
-    k = payload.shape[1]
+    return _encode(payload, len(code_values))
+
+
+def _encode(payload: np.ndarray, head: int) -> np.ndarray:
+    """Ids ``HEAD-TAIL`` + check character from an ``(n, k)`` array of character values."""
+    p = len(ALPHABET)
+    n, k = payload.shape
+    if n == 0:
+        return np.array([], dtype=object)
     # Horner's rule unrolled: payload char i carries weight radix**(k - i).
     weights = np.array([pow(RADIX, k - i, p) for i in range(k)], dtype=np.int64)
     checks = (1 - payload @ weights) % p
-    if n == 0:
-        return np.array([], dtype=object)
     chars = np.array(list(ALPHABET), dtype="<U1")[np.hstack([payload, checks[:, None]])]
     # Viewing a row of one-character cells as one fixed-width string joins it without a loop.
-    head = np.ascontiguousarray(chars[:, : len(code_values)]).view(f"<U{len(code_values)}")
-    tail = np.ascontiguousarray(chars[:, len(code_values) :]).view(f"<U{serial_length + 1}")
-    return np.char.add(np.char.add(head.ravel(), "-"), tail.ravel()).astype(object)
+    first = np.ascontiguousarray(chars[:, :head]).view(f"<U{head}")
+    rest = np.ascontiguousarray(chars[:, head:]).view(f"<U{k + 1 - head}")
+    return np.char.add(np.char.add(first.ravel(), "-"), rest.ravel()).astype(object)
+
+
+def round_sample_ids(sample_ids, round_no: int) -> np.ndarray:
+    """The ids of a later sampling round of the same points.
+
+    Round 1 keeps the plan's ids. Round ``r`` swaps each id's plan code for one
+    derived from it and ``r`` (see :func:`plan_code`) and keeps the serial, so
+    weekly ripeness samples of one plan never share an id at the lab.
+
+    Examples
+    --------
+    >>> round_sample_ids(["RZUT-222U"], 1)[0]
+    'RZUT-222U'
+    >>> is_valid(round_sample_ids(["RZUT-222U"], 2)[0])
+    True
+    """
+    ids = np.asarray(sample_ids, dtype=object)
+    if not isinstance(round_no, int | np.integer) or round_no < 1:
+        raise OptionError(f"--round must be a whole number from 1 up, got {round_no!r}")
+    if round_no == 1 or len(ids) == 0:
+        return ids.copy()
+    parts = np.char.partition(ids.astype(str), "-")
+    codes, tails = parts[:, 0], parts[:, 2]
+    if (parts[:, 1] != "-").any() or len(set(np.char.str_len(tails).tolist())) != 1:
+        raise OptionError("sample ids are not all of the form CODE-SERIAL; re-run 'fieldplan plan'")
+    index = np.full(128, -1, dtype=np.int64)
+    index[[ord(ch) for ch in ALPHABET]] = np.arange(len(ALPHABET))
+    unique, inverse = np.unique(codes, return_inverse=True)
+    heads = np.array([_values(plan_code(c, int(round_no)), ALPHABET) for c in unique.tolist()])
+    width = len(tails[0])
+    # Code points of each fixed-width tail; its last character is the old check.
+    points = np.frombuffer(tails.astype(f"<U{width}").tobytes(), dtype=np.uint32).reshape(-1, width)
+    serial = np.where(points[:, :-1] < 128, index[np.minimum(points[:, :-1], 127)], -1)
+    if (serial < 0).any():
+        raise OptionError("sample ids hold characters outside the id alphabet; re-run 'fieldplan plan'")
+    return _encode(np.hstack([heads[inverse], serial]), heads.shape[1])

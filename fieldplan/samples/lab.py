@@ -15,6 +15,7 @@ from pathlib import Path
 import pandas as pd
 
 from fieldplan.errors import OptionError
+from fieldplan.samples.ids import round_sample_ids
 from fieldplan.write.safe import atomic_write_text, neutralise_csv_cell, neutralise_frame
 
 __all__ = [
@@ -74,35 +75,37 @@ def _samples(points: pd.DataFrame) -> pd.DataFrame:
     return points.drop_duplicates("sample_id", keep="first")
 
 
-def submission_table(points: pd.DataFrame, *, analyses: list[str]) -> pd.DataFrame:
-    """One row per sample: ``sample_id, block, depth_cm, purpose, collection_date, analyses``."""
+def submission_table(points: pd.DataFrame, *, analyses: list[str], round_no: int = 1) -> pd.DataFrame:
+    """One row per sample: ``sample_id, block, depth_cm, purpose, round, collection_date, analyses``."""
     first = _samples(points)
     n = len(first)
     depth = first["depth_cm"].fillna("").astype(str) if "depth_cm" in first else [""] * n
     purpose = first["purpose"].fillna("").astype(str) if "purpose" in first else [""] * n
     return pd.DataFrame(
         {
-            "sample_id": first["sample_id"].astype(str).to_numpy(),
+            "sample_id": round_sample_ids(first["sample_id"].astype(str).to_numpy(), round_no),
             "block": first["block"].astype(str).to_numpy(),
             "depth_cm": list(depth),
             "purpose": list(purpose),
+            "round": int(round_no),
             "collection_date": [""] * n,
             "analyses": [";".join(analyses)] * n,
         }
     )
 
 
-def results_template(points: pd.DataFrame, *, analyses: list[str]) -> pd.DataFrame:
+def results_template(points: pd.DataFrame, *, analyses: list[str], round_no: int = 1) -> pd.DataFrame:
     """One row per sample: ``point_id, sample_id`` and a blank column per analysis.
 
     A composite that stands for several points (a zone composite) is listed
-    under the first of its points.
+    under the first of its points. The round is not a column: the results
+    reader would take a column of numbers for a measurement.
     """
     first = _samples(points)
     table = pd.DataFrame(
         {
             "point_id": first["point_id"].astype(str).to_numpy(),
-            "sample_id": first["sample_id"].astype(str).to_numpy(),
+            "sample_id": round_sample_ids(first["sample_id"].astype(str).to_numpy(), round_no),
         }
     )
     for name in analyses:
@@ -110,14 +113,20 @@ def results_template(points: pd.DataFrame, *, analyses: list[str]) -> pd.DataFra
     return table
 
 
-def write_lab_sheet(plan, folder: str | Path, *, analyses: list[str]) -> list[Path]:
-    """Write ``lab_submission.csv`` and ``results_template.csv`` into ``folder``."""
+def write_lab_sheet(plan, folder: str | Path, *, analyses: list[str], round_no: int = 1) -> list[Path]:
+    """Write ``lab_submission.csv`` and ``results_template.csv`` into ``folder``.
+
+    Rounds after the first are written as ``lab_submission_r2.csv`` etc., so
+    earlier sheets are kept.
+    """
     folder = Path(folder)
+    suffix = "" if round_no == 1 else f"_r{int(round_no)}"
     out = []
     for name, table in (
-        (SUBMISSION_NAME, submission_table(plan.points, analyses=analyses)),
-        (TEMPLATE_NAME, results_template(plan.points, analyses=analyses)),
+        (SUBMISSION_NAME, submission_table(plan.points, analyses=analyses, round_no=round_no)),
+        (TEMPLATE_NAME, results_template(plan.points, analyses=analyses, round_no=round_no)),
     ):
+        name = name.replace(".csv", f"{suffix}.csv")
         safe = neutralise_frame(table)
         safe.columns = [neutralise_csv_cell(str(c)) for c in safe.columns]
         atomic_write_text(folder / name, safe.to_csv(index=False, lineterminator="\n"))

@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 
 from fieldplan.errors import OptionError
+from fieldplan.samples.ids import round_sample_ids
 
 __all__ = [
     "MM_PER_IN",
@@ -143,10 +144,11 @@ def label_boxes(layout: SheetLayout) -> np.ndarray:
     return np.column_stack([x, y, np.full_like(x, layout.label_w), np.full_like(x, layout.label_h)])
 
 
-def label_records(points: pd.DataFrame, *, plan_id: str) -> pd.DataFrame:
-    """One row per sample: ``sample_id, block, detail, plan_id``, in plan order.
+def label_records(points: pd.DataFrame, *, plan_id: str, round_no: int = 1) -> pd.DataFrame:
+    """One row per sample: ``sample_id, block, detail, plan_id, round``, in plan order.
 
     ``detail`` says what the sample is: "soil 0-15 cm", "ripeness", ...
+    Rounds after the first get their own ids (:func:`~fieldplan.samples.ids.round_sample_ids`).
     """
     if "sample_id" not in points.columns:
         raise OptionError("the plan has no sample ids; re-run 'fieldplan plan' with this version")
@@ -156,10 +158,11 @@ def label_records(points: pd.DataFrame, *, plan_id: str) -> pd.DataFrame:
     detail = np.where(depth != "", purpose + " " + depth + " cm", purpose)
     return pd.DataFrame(
         {
-            "sample_id": first["sample_id"].astype(str).to_numpy(),
+            "sample_id": round_sample_ids(first["sample_id"].astype(str).to_numpy(), round_no),
             "block": first["block"].astype(str).to_numpy(),
             "detail": np.asarray(detail, dtype=object),
             "plan_id": str(plan_id),
+            "round": int(round_no),
         }
     )
 
@@ -230,6 +233,7 @@ def label_shapes(
         {"rects": [], "texts": []} for _ in range(max(1, math.ceil((skip + len(records)) / layout.per_page)))
     ]
     date_text = f"Date {date}" if date else "Date ____________"
+    rounds = "round" in records.columns and (records["round"] > 1).any()
     for slot, rec in zip(slots, records.itertuples(index=False), strict=True):
         page = pages[slot // layout.per_page]
         x, y, w, h = boxes[slot % layout.per_page]
@@ -258,7 +262,7 @@ def label_shapes(
             ("Helvetica", small, f"Block {rec.block}", 1.0),
             ("Helvetica", small, rec.detail, 1.0),
             ("Helvetica", small, date_text, 1.0),
-            ("Helvetica", small, f"Plan {rec.plan_id}", 1.0),
+            ("Helvetica", small, f"Plan {rec.plan_id}" + (f", round {rec.round}" if rounds else ""), 1.0),
         ]
         for font, size, text, scale in lines:
             top -= line * scale
