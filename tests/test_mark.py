@@ -16,7 +16,7 @@ from fieldplan.errors import OptionError
 from fieldplan.field.events import read_events
 from fieldplan.field.mark import mark_points, substitution_summary
 from fieldplan.field.spares import split_draw
-from fieldplan.field.substitutes import cell_substitutes
+from fieldplan.field.substitutes import substitutes_layer
 from fieldplan.plan import make_plan
 from fieldplan.store import load_plan, write_plan
 from tests.geoms import E0, N0, blocks_frame
@@ -43,14 +43,9 @@ def _plan(spares: int = 3, substitutes: bool = False):
         pts["status"] = status
         pts["spare_rank"] = rank
     if substitutes:
-        import geopandas as gpd
-
-        xy = shapely.get_coordinates(pts.geometry.values)
-        sub = cell_substitutes(xy, pts["point_id"], blocks.geometry.union_all(), seed=5, spacing=50.0)
-        plan.layers["substitutes"] = gpd.GeoDataFrame(
-            {"point_id": pts["point_id"], "substitute_id": pts["point_id"] + "-S"},
-            geometry=shapely.points(sub),
-            crs=plan.crs,
+        n = len(pts)
+        plan.layers["substitutes"] = substitutes_layer(
+            pts, [blocks.geometry.union_all()] * n, [0.0] * n, seed=5, spacing=50.0
         )
         plan.params["substitute"] = "within-cell"
     return plan

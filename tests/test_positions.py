@@ -88,3 +88,21 @@ def test_results_table_lon_lat_columns():
         positions_from_table(table.drop(columns="Lat"))
     with pytest.raises(InputError):
         positions_from_table(table.assign(Lat=[95.0, None]))
+
+
+def test_position_report_uses_plan_points_and_default_limit():
+    # reference: pyproj.Geod distances (Karney 2013); default limit half the grid spacing (above).
+    import geopandas as gpd
+    import shapely
+
+    from fieldplan.field.positions import position_report
+
+    pts = gpd.GeoDataFrame({"point_id": ["P1"]}, geometry=[shapely.Point(10.0, 45.0)], crs=4326)
+
+    class _Plan:
+        points = pts
+        params = {"design": "grid", "spacing_m": 40.0}
+
+    out = position_report(_Plan(), pd.DataFrame({"point_id": ["P1"], "lon": [10.0], "lat": [45.0002]}))
+    assert out["offset_m"].iloc[0] == pytest.approx(22.23, abs=0.01)  # 0.2 × 111.13 m
+    assert bool(out["beyond_max_offset"].iloc[0])

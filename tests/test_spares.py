@@ -91,3 +91,15 @@ def test_balanced_order_is_reproducible():
     a = balanced_order(xy, rng=np.random.default_rng(9))
     b = balanced_order(xy, rng=np.random.default_rng(9))
     assert np.array_equal(a, b)
+
+
+def test_order_draw_keeps_random_order_and_reorders_balanced_draws():
+    # reference: prefix of an i.i.d. uniform draw is a uniform draw (definition); balanced draws
+    # use reverse hierarchical order (Stevens & Olsen 2004).
+    from fieldplan.field.spares import order_draw
+
+    xy = np.random.default_rng(1).random((20, 2))
+    order, status, rank = order_draw("random", xy, 15, rng=np.random.default_rng(2))
+    assert order.tolist() == list(range(20)) and rank.tolist()[-5:] == [1, 2, 3, 4, 5]
+    order, status, _ = order_draw("balanced", xy, 15, rng=np.random.default_rng(2))
+    assert sorted(order.tolist()) == list(range(20)) and (status == "selected").sum() == 15

@@ -39,6 +39,7 @@ from fieldplan.field.events import (
     read_events,
 )
 from fieldplan.field.spares import SELECTED, SPARE
+from fieldplan.field.substitutes import SUFFIX
 
 __all__ = [
     "PLANNED_LAYER",
@@ -57,8 +58,7 @@ PLANNED_LAYER = "points_planned"
 SUBSTITUTES_LAYER = "substitutes"
 REPLACEMENT = "replacement"
 SUBSTITUTE = "substitute"
-#: Id of a point's within-cell substitute: the point id with this suffix.
-SUBSTITUTE_SUFFIX = "-S"
+SUBSTITUTE_SUFFIX = SUFFIX
 _OWN_LAYERS = (EVENTS_LAYER, PLANNED_LAYER)
 
 

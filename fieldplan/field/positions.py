@@ -34,6 +34,7 @@ __all__ = [
     "read_gpx_positions",
     "positions_from_table",
     "compare_positions",
+    "position_report",
 ]
 
 DEFAULT_OFFSET_M = 10.0
@@ -163,3 +164,18 @@ def compare_positions(
             "beyond_max_offset": offset > max_offset,
         }
     )
+
+
+def position_report(plan, actual: pd.DataFrame, *, max_offset: float | None = None) -> pd.DataFrame:
+    """Displacement of recorded positions from a plan's points (see :func:`compare_positions`).
+
+    ``max_offset`` defaults to :func:`default_max_offset` of the plan's parameters.
+    """
+    from fieldplan.write.tables import points_lonlat
+
+    lonlat = points_lonlat(plan.points)
+    planned = pd.DataFrame(
+        {"point_id": plan.points["point_id"].astype(str).to_numpy(), "lon": lonlat[:, 0], "lat": lonlat[:, 1]}
+    )
+    limit = default_max_offset(plan.params) if max_offset is None else float(max_offset)
+    return compare_positions(planned, actual, max_offset=limit)

@@ -34,7 +34,16 @@ __all__ = [
     "quadtree_addresses",
     "reverse_hierarchical_order",
     "balanced_order",
+    "SPARE_DESIGNS",
+    "order_draw",
 ]
+
+#: Designs whose draw can carry spares, and the ordering each uses.
+SPARE_DESIGNS = {
+    "random": "draw order (independent uniform draws)",
+    "clusters": "draw order (plants picked one after another at random)",
+    "balanced": "reverse hierarchical order (Stevens & Olsen 2004)",
+}
 
 SELECTED = "selected"
 SPARE = "spare"
@@ -160,3 +169,33 @@ def balanced_order(xy: np.ndarray, *, rng: np.random.Generator) -> np.ndarray:
     """Reverse hierarchical order of a spatially balanced draw (indices into ``xy``)."""
     addresses, _ = quadtree_addresses(xy, rng=rng)
     return reverse_hierarchical_order(addresses, rng=rng)
+
+
+def order_draw(design: str, xy: np.ndarray, n: int, *, rng: np.random.Generator):
+    """Put a draw of ``n + K`` points in use order and label it.
+
+    Parameters
+    ----------
+    design : str
+        One of :data:`SPARE_DESIGNS`.
+    xy : numpy.ndarray
+        ``(n + K, 2)`` points as the design returned them.
+    n : int
+        Points to select; the rest are spares.
+    rng : numpy.random.Generator
+        Used by the balanced ordering only (after the draw, so the draw itself is
+        the design's own).
+
+    Returns
+    -------
+    order : numpy.ndarray
+        Indices into ``xy`` in use order.
+    status, spare_rank : numpy.ndarray
+        As :func:`split_draw`, aligned with ``order``.
+    """
+    if design not in SPARE_DESIGNS:
+        raise ValueError(f"spares are available for {', '.join(SPARE_DESIGNS)}; not for {design!r}")
+    xy = np.asarray(xy, dtype=float).reshape(-1, 2)
+    order = balanced_order(xy, rng=rng) if design == "balanced" else np.arange(len(xy))
+    status, rank = split_draw(len(xy), n)
+    return order, status, rank

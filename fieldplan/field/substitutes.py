@@ -23,7 +23,10 @@ from numpy.typing import ArrayLike
 from fieldplan.design.grid import lattice_basis
 from fieldplan.rng import stream
 
-__all__ = ["cell_substitutes", "cell_coordinates", "SUBSTITUTE_RULES"]
+__all__ = ["cell_substitutes", "cell_coordinates", "substitutes_layer", "SUBSTITUTE_RULES", "SUFFIX"]
+
+#: A substitute's id: its point's id with this suffix.
+SUFFIX = "-S"
 
 SUBSTITUTE_RULES = ("none", "within-cell")
 _BATCH = 64
@@ -96,3 +99,54 @@ def cell_substitutes(
         out[pending[hit]] = cand[hit, first[hit]]
         pending = pending[~hit]
     return out
+
+
+def substitutes_layer(
+    points,
+    areas: ArrayLike,
+    bearings: ArrayLike,
+    *,
+    seed: int,
+    spacing: float,
+    layout: str = "square",
+):
+    """The ``substitutes`` layer of a grid plan: one row per point.
+
+    Parameters
+    ----------
+    points : geopandas.GeoDataFrame
+        The plan's points (``point_id, block, stratum``).
+    areas, bearings : array_like
+        Sampled area and grid bearing of each point's block, aligned with ``points``.
+
+    Returns
+    -------
+    geopandas.GeoDataFrame
+        ``point_id, substitute_id, block, stratum, geometry``; the geometry is empty
+        where no substitute could be placed.
+    """
+    import geopandas as gpd
+
+    xy = shapely.get_coordinates(points.geometry.values)
+    sub = cell_substitutes(
+        xy,
+        points["point_id"].to_numpy(),
+        areas,
+        seed=seed,
+        spacing=spacing,
+        layout=layout,
+        bearing_deg=bearings,
+    )
+    ok = np.isfinite(sub[:, 0])
+    geoms = np.full(len(sub), shapely.from_wkt("POINT EMPTY"), dtype=object)
+    geoms[ok] = shapely.points(sub[ok])
+    return gpd.GeoDataFrame(
+        {
+            "point_id": points["point_id"].to_numpy(),
+            "substitute_id": (points["point_id"].astype(str) + SUFFIX).to_numpy(),
+            "block": points["block"].to_numpy(),
+            "stratum": points["stratum"].to_numpy(),
+        },
+        geometry=geoms,
+        crs=points.crs,
+    )
