@@ -171,3 +171,18 @@ def test_spares_and_inaccessible_points_get_no_crew(plan_dir):
     crew = run.plan.points["crew"].to_numpy()
     assert crew[:2].tolist() == [0, 0] and np.all(crew[2:] > 0)
     assert run.table["points"].sum() == len(crew) - 2
+
+
+@pytest.mark.parametrize(
+    ("args", "needle"),
+    [
+        (["crews", "{dir}", "--crews", "2", "--start", "200,1"], "longitude"),
+        (["schedule", "{dir}", "--start", "2026-13-01"], "YYYY-MM-DD"),
+        (["schedule", "{dir}", "--start", "2026-03-02", "--every", "7x"], "7d"),
+        (["schedule", "{dir}", "--start", "2026-03-02", "--days", "someday"], "mon-fri"),
+    ],
+)
+def test_bad_options_one_line_exit_2(plan_dir, args, needle):
+    result = runner.invoke(app, [a.replace("{dir}", str(plan_dir)) for a in args])
+    assert result.exit_code == 2 and needle in result.output
+    assert "Traceback" not in result.output

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from fieldplan.errors import OptionError
 from fieldplan.route import assign_crews, split_tour
@@ -102,3 +104,32 @@ def test_deterministic_and_errors():
         assign_crews(xy, n_crews=2, rng=np.random.default_rng(0), return_to_start=True)
     with pytest.raises(OptionError, match="--crews"):
         assign_crews(xy, n_crews=0, rng=np.random.default_rng(0))
+
+
+@settings(max_examples=15, deadline=None)
+@given(
+    n=st.integers(1, 40),
+    k=st.integers(1, 6),
+    seed=st.integers(0, 2**32 - 1),
+    ret=st.booleans(),
+)
+def test_every_point_once_random_inputs(n, k, seed, ret):
+    rng = np.random.default_rng(seed)
+    xy = rng.uniform(0, 200, size=(n, 2))
+    cp = assign_crews(
+        xy,
+        n_crews=k,
+        rng=rng,
+        start=(100.0, -20.0),
+        return_to_start=ret,
+        group=rng.integers(0, 3, n),
+        row_bearing_deg=rng.uniform(0, 180, n),
+        kicks=0,
+    )
+    joined = np.sort(np.concatenate(cp.routes))
+    # each point in exactly one route, and its crew/visit order match that route
+    assert np.array_equal(joined, np.arange(n))
+    for c, route in enumerate(cp.routes, start=1):
+        assert np.all(cp.crew[route] == c)
+        assert np.array_equal(cp.visit_order[route], np.arange(1, len(route) + 1))
+    assert np.all(cp.hours >= 0) and len(cp.hours) == k
