@@ -238,3 +238,14 @@ def test_cli_soil_plan_writes_cores(tmp_path):
     assert result.exit_code == 2 and "--composite must be one of cell, zone" in result.output
     result = runner.invoke(app, [*args, "--purpose", "ripeness", "--out", str(tmp_path / "g"), "-q"])
     assert result.exit_code == 0 and not (tmp_path / "g" / "cores.geojson").exists()
+
+
+def test_block_cores_do_not_depend_on_block_order():
+    # Each block draws from its own stream (fieldplan.rng.stream(seed, "cores", block)).
+    a, b = square, shapely.affinity.translate(concave, 600)
+    one = apply_purpose(make_plan(blocks_frame({"A": a, "B": b}), spacing=100, seed=9), purpose="soil")
+    two = apply_purpose(make_plan(blocks_frame({"B": b, "A": a}), spacing=100, seed=9), purpose="soil")
+    for block in ("A", "B"):
+        c1 = one.layers["cores"][one.layers["cores"]["block"] == block]
+        c2 = two.layers["cores"][two.layers["cores"]["block"] == block]
+        assert shapely.equals(c1.geometry.values, c2.geometry.values).all()
