@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import shutil
 from pathlib import Path
 
@@ -93,3 +94,19 @@ def test_estimate_unknown_variable_is_one_line_error(plan_dir):
     assert res.exit_code == 2 and "stored variables" in res.stderr
     bad = runner.invoke(app, ["estimate", str(plan_dir), "--value", "brix", "--by", "row"])
     assert bad.exit_code == 2 and "--by must be one of" in bad.stderr
+
+
+def test_size_from_plan_uses_observed_sd(plan_dir):
+    assert runner.invoke(app, ["results", str(plan_dir), str(ROUND2)]).exit_code == 0
+    res = runner.invoke(
+        app, ["size", "--from", str(plan_dir), "--value", "brix", "--margin-abs", "0.3", "--json"]
+    )
+    assert res.exit_code == 0, res.output
+    raw = pd.read_csv(ROUND2)
+    raw["block"] = raw["point_id"].str[:3]
+    g = raw.groupby("block")["brix"]
+    # reference: pooled within-block variance sum (n_h - 1) s_h^2 / sum (n_h - 1)
+    # (Cochran 1977, §5.9), computed here from the file itself
+    pooled = np.sqrt(((g.count() - 1) * g.var().fillna(0)).sum() / (g.count() - 1).sum())
+    out = json.loads(res.stdout)
+    assert out["sd"] == pytest.approx(pooled, rel=1e-6)

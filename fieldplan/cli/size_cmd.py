@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from pathlib import Path
 from typing import Annotated
 
 import typer
@@ -52,6 +53,11 @@ def size(
         bool, typer.Option("--normal", help="Use the normal quantile z instead of Student's t.")
     ] = False,
     as_json: Annotated[bool, typer.Option("--json", help="Print the result as JSON.")] = False,
+    from_plan: Annotated[
+        Path | None,
+        typer.Option("--from", help="Plan folder with results: take SD/CV and ICC from its last round."),
+    ] = None,
+    value: Annotated[str | None, typer.Option("--value", help="Variable to size for (with --from).")] = None,
 ) -> None:
     """Sample size for estimating a mean (Cochran), with clusters (Kish design effect).
 
@@ -60,6 +66,14 @@ def size(
     from fieldplan.design.samplesize import sample_size
     from fieldplan.errors import OptionError
 
+    if from_plan is not None:
+        from fieldplan.estimate.nextplan import describe_for_sizing
+
+        cv, sd, icc, used = describe_for_sizing(
+            from_plan, value=value, cv=cv, sd=sd, icc=icc, relative=margin is not None
+        )
+        if not as_json:
+            typer.echo(used)
     relative = cv is not None or margin is not None
     absolute = sd is not None or margin_abs is not None
     if relative == absolute:

@@ -17,7 +17,7 @@ from numpy.typing import ArrayLike
 from fieldplan.errors import InputError
 from fieldplan.estimate.cluster import icc_anova
 
-__all__ = ["Variability", "observed_variability", "plan_variability"]
+__all__ = ["Variability", "describe_for_sizing", "observed_variability", "plan_variability"]
 
 
 @dataclass(frozen=True)
@@ -106,3 +106,42 @@ def plan_variability(
         clusters=d["point_id"].to_numpy() if per_plant else None,
     )
     return v, latest
+
+
+def describe_for_sizing(
+    plan_dir,
+    *,
+    value: str | None,
+    cv: float | None,
+    sd: float | None,
+    icc: float | None,
+    relative: bool,
+) -> tuple[float | None, float | None, float | None, str]:
+    """Fill the sample-size inputs the user left out from a plan's results.
+
+    Reads the plan folder (``plan.gpkg``); values given explicitly win.
+    ``relative`` says the margin is in percent of the mean, so a CV (percent)
+    is filled, otherwise an SD. Returns ``(cv, sd, icc, summary line)``.
+    """
+    from fieldplan.errors import OptionError
+    from fieldplan.results import normalise_column, stored_results
+    from fieldplan.store import load_plan
+
+    if not value:
+        raise OptionError("--from needs --value naming the variable to size for, e.g. --value brix")
+    plan = load_plan(plan_dir)
+    v, rnd = plan_variability(
+        plan.points, plan.blocks, stored_results(plan.layers), value=normalise_column(value)
+    )
+    if relative and cv is None:
+        cv = 100.0 * v.cv
+    if not relative and sd is None:
+        sd = v.sd
+    if icc is None and np.isfinite(v.icc):
+        icc = max(0.0, v.icc)
+    icc_text = f", ICC {v.icc:.3f}" if np.isfinite(v.icc) else ""
+    summary = (
+        f"From {plan_dir} round {rnd} ({v.n} values of {normalise_column(value)}): "
+        f"mean {v.mean:.4g}, SD within blocks {v.sd:.4g}, CV {100 * v.cv:.1f} %{icc_text}"
+    )
+    return cv, sd, icc, summary
