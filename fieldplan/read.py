@@ -29,6 +29,8 @@ __all__ = [
     "read_exclusions",
     "file_sha256",
     "read_frame",
+    "check_row_attributes",
+    "ROW_LIMITS",
 ]
 
 ID_CANDIDATES = ("block", "block_id", "id", "name")
@@ -37,6 +39,23 @@ _POLYGONAL = {"Polygon", "MultiPolygon"}
 _SUFFIXES = {".geojson", ".json", ".gpkg", ".shp", ".zip"}
 # A feature this far from the others is more likely a digitising slip than a real block.
 _FAR_KM = 1000.0
+# Plausible row-model values in metres: vineyards, orchards and row crops, common practice, no source.
+# Bearings may be given as -180..180 or 0..360; anything beyond one turn is a typing slip.
+ROW_LIMITS: dict[str, tuple[float, float]] = {
+    "row_spacing_m": (0.5, 12.0),
+    "plant_spacing_m": (0.2, 15.0),
+    "row_bearing_deg": (-360.0, 360.0),
+}
+# Leading bytes of files that users rename by mistake (file-format magic numbers).
+_MAGIC = {
+    b"\x89PNG": "a PNG image",
+    b"\xff\xd8\xff": "a JPEG image",
+    b"GIF8": "a GIF image",
+    b"%PDF": "a PDF document",
+    b"PK\x03\x04": "a zip archive (use the .zip extension)",
+    b"SQLite format 3": "an SQLite/GeoPackage file (use the .gpkg extension)",
+    b"\xd0\xcf\x11\xe0": "an old Microsoft Office file",
+}
 
 
 def file_sha256(path: Path) -> str:
@@ -66,7 +85,9 @@ def _check_file(path: Path) -> None:
             "GeoPackage (.gpkg), Shapefile (.shp) or a zipped Shapefile (.zip)"
         )
     if suffix in (".geojson", ".json"):
-        text = path.read_bytes().decode("utf-8", errors="replace")
+        raw = path.read_bytes()
+        _sniff_geojson(path, raw)
+        text = raw.decode("utf-8-sig", errors="replace")
         try:
             data = json.loads(text)
         except json.JSONDecodeError as err:
@@ -92,6 +113,27 @@ def _check_file(path: Path) -> None:
             raise InputError(f"{path}: not a readable zip archive; zip the Shapefile again") from None
         if not any(n.lower().endswith(".shp") for n in names):
             raise InputError(f"{path}: the zip holds no .shp file; zip the Shapefile's files together")
+
+
+def _sniff_geojson(path: Path, raw: bytes) -> None:
+    """Name the real content of a file that is not JSON text, instead of a bare syntax error."""
+    for magic, kind in _MAGIC.items():
+        if raw.startswith(magic):
+            raise InputError(
+                f"{path}: not GeoJSON, the file is {kind}; export the block boundaries as GeoJSON"
+            )
+    head = raw[:4096]
+    if b"\x00" in head:
+        raise InputError(f"{path}: not GeoJSON, the file is binary; export the block boundaries as GeoJSON")
+    text = head.decode("utf-8-sig", errors="replace").lstrip()
+    if not text or text[0] in "{[":
+        return
+    first = text.splitlines()[0]
+    if first.count(",") >= 1 or "\t" in first or first.count(";") >= 1:
+        raise InputError(
+            f"{path}: not GeoJSON, line 1 looks like a table (CSV): {first[:40]!r}; "
+            "export the block boundaries from your GIS as GeoJSON"
+        )
 
 
 def read_frame(path: Path, *, layer: str | None = None) -> gpd.GeoDataFrame:
@@ -208,8 +250,12 @@ def _check_far_features(frame_wgs: gpd.GeoDataFrame, path: Path, id_field: str) 
 
 def _check_geometries(
     frame: gpd.GeoDataFrame, path: Path, id_field: str, repair: bool
-) -> tuple[gpd.GeoDataFrame, list[str]]:
-    notes: list[str] = []
+) -> tuple[gpd.GeoDataFrame, dict[int, object]]:
+    """Refuse empty, non-polygonal, flat and (unless ``repair``) invalid features.
+
+    Returns the frame (repaired where asked) and the repaired features' original geometries.
+    """
+    repaired: dict[int, object] = {}
     geoms = frame.geometry.values
     missing = np.flatnonzero(shapely.is_missing(geoms) | shapely.is_empty(geoms))
     if len(missing) == len(frame):
@@ -232,6 +278,12 @@ def _check_geometries(
             f"{path}: {_feature_label(frame, i, id_field)} is a {kinds.iloc[i]}, not a polygon; "
             "redraw it as a polygon or remove it"
         )
+    flat = np.flatnonzero(_zero_area(geoms))
+    if len(flat):
+        raise InvalidBlocksError(
+            f"{path}: {_feature_label(frame, int(flat[0]), id_field)} has zero area (its corners lie on "
+            "one line or on one spot); redraw it as a polygon or remove it"
+        )
     invalid = np.flatnonzero(~shapely.is_valid(geoms))
     if len(invalid):
         if not repair:
@@ -244,15 +296,42 @@ def _check_geometries(
         fixed = shapely.make_valid(geoms[invalid])
         # make_valid can return collections with stray lines; only the polygonal part is a block.
         fixed = np.array([_polygonal_part(g) for g in fixed], dtype=object)
-        for i, new in zip(invalid, fixed, strict=True):
-            notes.append(
-                f"{path}: repaired {_feature_label(frame, int(i), id_field)} "
-                f"(area {shapely.area(geoms[i]):.6g} -> {shapely.area(new):.6g} in file units)"
-            )
+        repaired = {int(i): geoms[i] for i in invalid}
         geoms = geoms.copy()
         geoms[invalid] = fixed
         frame = frame.set_geometry(gpd.GeoSeries(geoms, crs=frame.crs, index=frame.index))
-    return frame, notes
+    return frame, repaired
+
+
+def _zero_area(geoms: np.ndarray) -> np.ndarray:
+    """True where a polygon encloses nothing, even after repair (collinear or repeated corners)."""
+    fixed = shapely.make_valid(geoms)
+    area = np.array([shapely.area(_polygonal_part(g)) for g in fixed], dtype=float)
+    minx, miny, maxx, maxy = shapely.bounds(geoms).T
+    scale = np.maximum(maxx - minx, maxy - miny) ** 2
+    return area <= 1e-12 * np.where(scale > 0, scale, 1.0)
+
+
+def _area_text(m2: float) -> str:
+    return f"{m2 / 10_000:.4f} ha ({m2:,.0f} m²)"
+
+
+def _repair_notes(
+    repaired: dict[int, object], frame: gpd.GeoDataFrame, path: Path, id_field: str, local, file_crs
+) -> list[str]:
+    """Notes on repaired features with their area as drawn and after repair, in metric units."""
+    if not repaired:
+        return []
+    index = np.array(sorted(repaired), dtype=int)
+    drawn = gpd.GeoSeries([repaired[i] for i in index], crs=file_crs).to_crs(local.crs)
+    before = shapely.area(drawn.values)
+    after = shapely.area(local.geometry.values[index])
+    return [
+        f"{path}: repaired {_feature_label(frame, int(i), id_field)} with shapely.make_valid "
+        f"(it crossed itself): area as drawn {_area_text(b)} -> after repair {_area_text(a)}, "
+        f"change {a - b:+,.0f} m²; check the outline"
+        for i, b, a in zip(index, before, after, strict=True)
+    ]
 
 
 def _polygonal_part(geom):
@@ -347,9 +426,9 @@ def read_blocks(
     if len(frame) == 0:
         raise InvalidBlocksError(f"{path}: holds no features; export the block boundaries again")
     id_name = _pick_id_field(frame, path, id_field)
-    frame, notes = _check_geometries(frame, path, id_name, repair)
-    frame, crs_notes = _resolve_crs(frame, path, id_name)
-    notes.extend(crs_notes)
+    frame, repaired = _check_geometries(frame, path, id_name, repair)
+    file_crs = frame.crs if frame.crs is not None else WGS84
+    frame, notes = _resolve_crs(frame, path, id_name)
     ids = _check_ids(frame, path, id_name)
 
     wgs = frame if CRS.from_user_input(frame.crs).is_geographic else frame.to_crs(WGS84)
@@ -358,6 +437,7 @@ def read_blocks(
         minx, miny, maxx, maxy = wgs.total_bounds
         crs = utm_crs_for((minx + maxx) / 2.0, (miny + maxy) / 2.0)
     local = frame.to_crs(crs)
+    notes.extend(_repair_notes(repaired, frame, path, id_name, local, file_crs))
 
     area = shapely.area(local.geometry.values)
     tiny = np.flatnonzero(area <= 1e-6)
@@ -382,8 +462,88 @@ def read_blocks(
         if column != "geometry" and column not in used and column.lower() not in set(out.columns):
             out[column] = frame[column].to_numpy()
     out = out.sort_values("block", kind="stable").reset_index(drop=True)
+    notes.extend(check_row_attributes(out, path, needed=False, fields=tuple(ROW_LIMITS)))
     out.attrs.update(source=str(path), sha256=file_sha256(path), notes=notes, id_field=id_name)
     return out
+
+
+def check_row_attributes(
+    blocks: pd.DataFrame,
+    path: str | Path | None = None,
+    *,
+    needed: bool,
+    fields: tuple[str, ...] = ("row_spacing_m", "plant_spacing_m"),
+) -> list[str]:
+    """Check the row-model attributes of blocks (spacings in metres, bearing in degrees).
+
+    Plausible ranges are in :data:`ROW_LIMITS`. When a design needs the row model
+    (``needed=True``), a missing, zero, negative or implausible value raises;
+    otherwise the problems come back as notes for the user, one per field.
+
+    Parameters
+    ----------
+    blocks : pandas.DataFrame
+        Blocks with a ``block`` column and the ``fields`` columns (as from :func:`read_blocks`).
+    path : str or Path, optional
+        File the blocks came from, for the message; default ``blocks.attrs["source"]``.
+    needed : bool
+        Whether the plan cannot be made without these values.
+    fields : tuple of str
+        Which of :data:`ROW_LIMITS` to check.
+
+    Returns
+    -------
+    list of str
+        Notes (empty when every value is plausible).
+
+    Raises
+    ------
+    InvalidBlocksError
+        If ``needed`` and a block lacks a plausible value.
+    """
+    source = path if path is not None else blocks.attrs.get("source", "blocks")
+    notes: list[str] = []
+    names = blocks["block"].astype(str).to_numpy()
+    for name in fields:
+        low, high = ROW_LIMITS[name]
+        unit = "degrees" if name.endswith("_deg") else "m"
+        values = (
+            pd.to_numeric(blocks[name], errors="coerce").to_numpy(dtype=float)
+            if name in blocks.columns
+            else np.full(len(blocks), np.nan)
+        )
+        missing = ~np.isfinite(values)
+        positive_only = unit == "m"
+        not_positive = ~missing & (values <= 0) if positive_only else np.zeros(len(values), bool)
+        outside = ~missing & ~not_positive & ((values < low) | (values > high))
+        if needed:
+            for kind, mask in (("missing", missing), ("not positive", not_positive), ("outside", outside)):
+                hits = np.flatnonzero(mask)
+                if len(hits):
+                    i = int(hits[0])
+                    more = f" (and {len(hits) - 1} more)" if len(hits) > 1 else ""
+                    raise InvalidBlocksError(
+                        f"{source}: block {names[i]!r}{more} "
+                        + _row_problem(kind, name, values[i], low, high, unit)
+                    )
+            continue
+        bad = np.flatnonzero(not_positive | outside)
+        if len(bad):
+            listed = ", ".join(f"{names[i]}={values[i]:g}" for i in bad[:3])
+            more = ", ..." if len(bad) > 3 else ""
+            notes.append(
+                f"{source}: {name} outside {low:g}-{high:g} {unit} in {len(bad)} block(s) ({listed}{more}); "
+                "designs that use rows will refuse them"
+            )
+    return notes
+
+
+def _row_problem(kind: str, name: str, value: float, low: float, high: float, unit: str) -> str:
+    if kind == "missing":
+        return f"has no {name}; add it ({unit}) to every block this design samples"
+    if kind == "not positive":
+        return f"has {name}={value:g}, which is not positive; fix the value in the file"
+    return f"has {name}={value:g}, outside the usual {low:g}-{high:g} {unit}; fix the value in the file"
 
 
 def _text_column(frame: gpd.GeoDataFrame, name: str) -> np.ndarray:

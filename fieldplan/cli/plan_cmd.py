@@ -90,6 +90,10 @@ def plan(
             help="Ripeness: wine-grapes, table-grapes, pome-fruit, stone-fruit or a TOML file (default wine-grapes).",
         ),
     ] = None,
+    cautions: Annotated[
+        Path | None,
+        typer.Option(help="Text file of field cautions, one per line, to carry instead of the defaults."),
+    ] = None,
     design: Annotated[
         str, typer.Option(help="Design: grid, random, balanced (spatially balanced) or clusters (plants from rows).")
     ] = "grid",
@@ -157,6 +161,10 @@ def plan(
     if out.is_dir() and any(out.iterdir()) and not force:
         with staged_folder(out, force=False):
             pass
+    from fieldplan.safety import load_cautions, set_cautions
+
+    if cautions is not None:
+        load_cautions(cautions)  # a bad cautions file fails before any work
     from fieldplan.samples.purpose import resolve_purpose
 
     samples = {
@@ -205,6 +213,7 @@ def plan(
             command=["fieldplan", *sys.argv[1:]],
             progress=progress,
         )
+    set_cautions(result, cautions)
     write_plan(result, out, force=force)
     if not quiet:
         report(result, out)
@@ -212,7 +221,7 @@ def plan(
 
 def report(result, out: Path) -> None:
     """Print what was planned, notes and flags, and the cautions."""
-    from fieldplan.safety import cautions_text
+    from fieldplan.safety import cautions_text, plan_cautions
 
     for note in result.meta.get("notes", []):
         echo_err(f"note: {note}")
@@ -225,7 +234,7 @@ def report(result, out: Path) -> None:
     )
     if (out / "map.html").exists():
         typer.echo(f"Map: {(out / 'map.html').resolve()}")
-    typer.echo("Before going out:\n" + cautions_text())
+    typer.echo("Before going out:\n" + cautions_text(plan_cautions(result)))
 
 
 def register(app: typer.Typer) -> None:

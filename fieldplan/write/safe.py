@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import ctypes
 import os
 import re
 import shutil
+import sys
 import tempfile
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -19,6 +22,7 @@ __all__ = [
     "atomic_write_text",
     "safe_filename",
     "staged_folder",
+    "clean_stale_stages",
 ]
 
 # Spreadsheet programs evaluate cells starting with these as formulas (OWASP "CSV Injection").
@@ -72,13 +76,15 @@ def atomic_write_text(path: Path, text: str) -> None:
     atomic_write_bytes(path, text.encode("utf-8"))
 
 
+# Windows device names, also with superscript digits (Microsoft "Naming Files, Paths, and Namespaces").
 _RESERVED = {
     "con",
     "prn",
     "aux",
     "nul",
-    *(f"com{i}" for i in range(1, 10)),
-    *(f"lpt{i}" for i in range(1, 10)),
+    "conin$",
+    "conout$",
+    *(f"{dev}{d}" for dev in ("com", "lpt") for d in "0123456789\u00b9\u00b2\u00b3"),
 }
 
 
@@ -101,7 +107,86 @@ def safe_filename(name: str, *, default: str = "unnamed") -> str:
         text = default
     if text.split(".")[0].lower() in _RESERVED:
         text = "_" + text
-    return text[:120]
+    # Windows drops trailing dots and spaces, which could turn "x." into "x" or ".." into "".
+    return text[:120].rstrip(". ") or default
+
+
+_STAGE = re.compile(r"^\.(?P<name>.+)\.(?P<pid>\d+)\.[^.]+\.(?P<kind>partial|old)$")
+# A live owner older than this is a reused process id, not a run still writing.
+_MAX_RUN_S = 30 * 86400.0
+
+
+def _pid_alive(pid: int) -> bool:
+    if pid == os.getpid():
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except (PermissionError, OSError):
+        return True
+    return True
+
+
+def clean_stale_stages(out_dir: Path) -> list[Path]:
+    """Remove staging folders of ``out_dir`` left behind by killed runs; return what was removed.
+
+    A staging folder is ``.NAME.PID.RANDOM.partial`` (or ``.old``) beside
+    ``out_dir``; it is stale when process PID no longer runs. If ``out_dir``
+    itself is missing but a complete old plan was set aside by a run killed in
+    the middle of the swap, that plan is put back first.
+    """
+    out_dir = Path(out_dir)
+    parent = out_dir.parent
+    if not parent.is_dir():
+        return []
+    removed: list[Path] = []
+    now = time.time()
+    for entry in sorted(parent.iterdir()):
+        match = _STAGE.match(entry.name)
+        if match is None or match["name"] != out_dir.name or not entry.is_dir():
+            continue
+        if _pid_alive(int(match["pid"])) and now - entry.stat().st_mtime < _MAX_RUN_S:
+            continue
+        kept = entry / "plan"
+        if match["kind"] == "old" and kept.is_dir() and not out_dir.exists():
+            os.replace(kept, out_dir)
+        shutil.rmtree(entry, ignore_errors=True)
+        removed.append(entry)
+    return removed
+
+
+def _exchange(a: Path, b: Path) -> bool:
+    """Swap two paths in one step (Linux ``renameat2(RENAME_EXCHANGE)``); False if unsupported."""
+    if not sys.platform.startswith("linux"):
+        return False
+    try:
+        libc = ctypes.CDLL(None, use_errno=True)
+        renameat2 = libc.renameat2
+    except (OSError, AttributeError):
+        return False
+    renameat2.argtypes = [ctypes.c_int, ctypes.c_char_p, ctypes.c_int, ctypes.c_char_p, ctypes.c_uint]
+    renameat2.restype = ctypes.c_int
+    at_fdcwd, rename_exchange = -100, 2
+    if renameat2(at_fdcwd, os.fsencode(a), at_fdcwd, os.fsencode(b), rename_exchange) == 0:
+        return True
+    err = ctypes.get_errno()
+    if err in (22, 38, 95):  # EINVAL, ENOSYS, EOPNOTSUPP: file system or kernel cannot exchange
+        return False
+    raise OSError(err, os.strerror(err), str(a))
+
+
+def _fsync_dir(path: Path) -> None:
+    try:
+        fd = os.open(path, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
 
 
 @contextmanager
@@ -109,11 +194,14 @@ def staged_folder(out_dir: Path, *, force: bool = False) -> Iterator[Path]:
     """Yield a temporary folder beside ``out_dir``; on success swap it into place.
 
     A failure (or a kill) before the swap leaves ``out_dir`` as it was. With
-    ``force`` an existing plan is replaced: it is first renamed aside and only
-    deleted after the new folder is in place, so at every moment a complete
-    plan exists under one of the two names.
+    ``force`` an existing plan is replaced in one atomic exchange where the
+    system offers it (Linux ``renameat2``); elsewhere the old plan is first
+    renamed aside and only deleted after the new folder is in place, and a run
+    killed between the two renames has the old plan put back by the next run.
+    Staging folders of killed runs are removed on the next write.
     """
     out_dir = Path(out_dir)
+    clean_stale_stages(out_dir)
     if out_dir.exists() and not out_dir.is_dir():
         raise OutputExistsError(f"{out_dir}: exists and is not a folder; choose another --out")
     if out_dir.is_dir() and any(out_dir.iterdir()) and not force:
@@ -121,16 +209,29 @@ def staged_folder(out_dir: Path, *, force: bool = False) -> Iterator[Path]:
             f"{out_dir}: folder is not empty; choose another --out or pass --force to replace it"
         )
     out_dir.parent.mkdir(parents=True, exist_ok=True)
-    stage = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".partial", dir=out_dir.parent))
+    prefix = f".{out_dir.name}.{os.getpid()}."
+    stage = Path(tempfile.mkdtemp(prefix=prefix, suffix=".partial", dir=out_dir.parent))
     try:
         yield stage
     except BaseException:
         shutil.rmtree(stage, ignore_errors=True)
         raise
+    os.chmod(stage, 0o777 & ~_umask())
+    if out_dir.exists() and _exchange(stage, out_dir):
+        _fsync_dir(out_dir.parent)
+        shutil.rmtree(stage, ignore_errors=True)
+        return
     old = None
     if out_dir.exists():
-        old = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".old", dir=out_dir.parent))
+        old = Path(tempfile.mkdtemp(prefix=prefix, suffix=".old", dir=out_dir.parent))
         os.replace(out_dir, old / "plan")
     os.replace(stage, out_dir)
+    _fsync_dir(out_dir.parent)
     if old is not None:
         shutil.rmtree(old, ignore_errors=True)
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask

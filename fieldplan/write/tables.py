@@ -12,7 +12,7 @@ import pandas as pd
 import shapely
 
 from fieldplan.crs import WGS84
-from fieldplan.safety import cautions_text
+from fieldplan.safety import cautions_text, plan_cautions
 from fieldplan.write.safe import atomic_write_text, neutralise_frame
 
 __all__ = [
@@ -170,7 +170,7 @@ def write_readme(plan, folder: Path) -> None:
         "manifest.json (parameters, input checksum), plan.gpkg (everything, for later steps).",
         "",
         "Before going into the field:",
-        cautions_text(),
+        cautions_text(plan_cautions(plan)),
         "",
     ]
     atomic_write_text(folder / "README.txt", "\n".join(lines))
