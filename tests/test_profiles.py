@@ -128,3 +128,16 @@ def test_cluster_design_keeps_its_units_and_instructions():
     assert text.str.startswith("Start at row").all()
     assert text.str.endswith(load_profile("wine-grapes").instructions).all()
     assert (plan.points["per_sample"] == "100-200 berries").all()
+
+
+def test_ripeness_notes_points_in_border_rows_and_row_ends():
+    # common practice, no source: border rows and row-end plants are not sampled.
+    blocks = blocks_frame({"A": square}, row_spacing_m=[2.5], plant_spacing_m=[1.2])
+    plan = make_plan(blocks, spacing=7, seed=3, samples={"purpose": "ripeness"})
+    strip = max(1 * 2.5, 2 * 1.2)  # wine-grapes: 1 border row, 2 end plants
+    # reference: shapely (GEOS) point-to-boundary distance.
+    near = int((shapely.distance(plan.points.geometry.values, square.exterior) < strip).sum())
+    assert near > 0
+    assert f"ripeness: {near} point(s) within 2.5 m of the edge" in plan.blocks["flags"].iloc[0]
+    buffered = make_plan(blocks, spacing=7, seed=3, edge_buffer=2.5, samples={"purpose": "ripeness"})
+    assert "ripeness" not in buffered.blocks["flags"].iloc[0]

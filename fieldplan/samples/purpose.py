@@ -145,6 +145,37 @@ def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
     return cores, notes
 
 
+def _edge_notes(plan, points, profile) -> dict[str, list[str]]:
+    """Blocks with points closer to the edge than the rows and plants the profile skips.
+
+    The strip is ``skip_border_rows`` row spacings or ``skip_end_plants`` plant
+    spacings, whichever is wider (row direction is not needed for this check).
+    """
+    blocks = plan.blocks
+    rows = blocks.get("row_spacing_m", pd.Series(np.nan, index=blocks.index)).astype(float)
+    plants = blocks.get("plant_spacing_m", pd.Series(np.nan, index=blocks.index)).astype(float)
+    strip = np.fmax(profile.skip_border_rows * rows.to_numpy(), profile.skip_end_plants * plants.to_numpy())
+    known = np.isfinite(strip) & (strip > 0)
+    if not known.any() or len(points) == 0:
+        return {}
+    names = blocks["block"].astype(str).to_numpy()
+    owner = pd.Index(names).get_indexer(points["block"].astype(str))
+    ok = owner >= 0
+    near = np.zeros(len(points), dtype=bool)
+    edges = shapely.boundary(blocks.geometry.values)
+    dist = shapely.distance(points.geometry.values[ok], edges[owner[ok]])
+    near[ok] = known[owner[ok]] & (dist < strip[owner[ok]])
+    counts = np.bincount(owner[near], minlength=len(blocks))
+    return {
+        names[i]: [
+            f"ripeness: {counts[i]} point(s) within {strip[i]:.1f} m of the edge (border rows or row "
+            f"ends the crop profile skips); re-plan with --edge-buffer {strip[i]:g} or sample one "
+            "row or plant further in"
+        ]
+        for i in np.flatnonzero(counts)
+    }
+
+
 def _with_notes(blocks: gpd.GeoDataFrame, notes: dict[str, list[str]]) -> gpd.GeoDataFrame:
     if not notes:
         return blocks
@@ -289,6 +320,9 @@ def apply_purpose(
         blocks = _with_notes(plan.blocks, notes)
     else:
         layers.pop("cores", None)
+    if profile is not None and plan.params.get("design") != "clusters":
+        # The clusters design skips border rows and row ends itself (its own options).
+        blocks = _with_notes(blocks, _edge_notes(plan, points, profile))
     meta = dict(plan.meta)
     if "counts" in meta:
         meta["counts"] = {**meta["counts"], "samples": int(points["sample_id"].nunique())}
