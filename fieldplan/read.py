@@ -473,6 +473,7 @@ def check_row_attributes(
     *,
     needed: bool,
     fields: tuple[str, ...] = ("row_spacing_m", "plant_spacing_m"),
+    allow_missing: bool = False,
 ) -> list[str]:
     """Check the row-model attributes of blocks (spacings in metres, bearing in degrees).
 
@@ -490,6 +491,9 @@ def check_row_attributes(
         Whether the plan cannot be made without these values.
     fields : tuple of str
         Which of :data:`ROW_LIMITS` to check.
+    allow_missing : bool
+        With ``needed``, let blocks without a value pass (a design that leaves
+        them out with a flag) while a value given but implausible still raises.
 
     Returns
     -------
@@ -513,11 +517,12 @@ def check_row_attributes(
             else np.full(len(blocks), np.nan)
         )
         missing = ~np.isfinite(values)
+        absent = np.zeros(len(values), bool) if allow_missing else missing
         positive_only = unit == "m"
         not_positive = ~missing & (values <= 0) if positive_only else np.zeros(len(values), bool)
         outside = ~missing & ~not_positive & ((values < low) | (values > high))
         if needed:
-            for kind, mask in (("missing", missing), ("not positive", not_positive), ("outside", outside)):
+            for kind, mask in (("missing", absent), ("not positive", not_positive), ("outside", outside)):
                 hits = np.flatnonzero(mask)
                 if len(hits):
                     i = int(hits[0])

@@ -480,6 +480,10 @@ def _balanced(blocks, areas, params, exclusion_union, progress):
 
 
 def _clusters(blocks, areas, params, exclusion_union, progress):
+    from fieldplan.read import check_row_attributes
+
+    # Blocks without rows are left out with a flag; a row model given but implausible is an error.
+    check_row_attributes(blocks, needed=True, allow_missing=True, fields=("row_spacing_m", "plant_spacing_m"))
     return _stratified("clusters", blocks, areas, params, exclusion_union, progress)
 
 
