@@ -35,6 +35,9 @@ def format_estimates(table, *, confidence: float) -> str:
     has_date = "target_date" in table
     if has_local:
         head += ["se local", f"{pct} local"]
+    has_icc = "icc" in table and bool(table["icc"].notna().any())
+    if has_icc:
+        head += ["ICC", "deff"]
     if has_p:
         head.append("P(≥ target)")
     if has_date:
@@ -49,6 +52,8 @@ def format_estimates(table, *, confidence: float) -> str:
                 _fmt(r["se_local"]),
                 "—" if pd.isna(r["lower_local"]) else f"{_fmt(r['lower_local'])} – {_fmt(r['upper_local'])}",
             ]
+        if has_icc:
+            cells += [_fmt(r["icc"], 2), _fmt(r["deff"], 2)]
         if has_p:
             cells.append("—" if pd.isna(r["p_reached"]) else f"{r['p_reached']:.2f}")
         if has_date:
