@@ -87,6 +87,12 @@ _ALIASES = {
 }
 
 KEY_COLUMNS = ("point_id", "unit", "date", "units_measured")
+# Plan and paperwork columns that may ride along in a results file but are not
+# measurements; they are never picked as value columns unless named.
+DESCRIPTIVE_COLUMNS = (
+    "sample_id", "block", "stratum", "variety", "row", "plant", "units", "depth_cm",
+    "round", "x", "y", "lon", "lat", "crew", "visit_order", "purpose", "design",
+)  # fmt: skip
 PROBLEM_COLUMNS = ["row", "point_id", "column", "problem", "detail"]
 _DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
 
@@ -201,6 +207,8 @@ def parse_results(
     if value_columns is None:
         cols = []
         for c in others:
+            if c in DESCRIPTIVE_COLUMNS:
+                continue
             text = raw[c].astype("string").str.strip().fillna("")
             filled = text != ""
             if filled.sum() and _to_number(raw[c])[filled.to_numpy()].notna().mean() >= 0.5:

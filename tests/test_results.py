@@ -33,9 +33,7 @@ def bad_file(tmp_path):
 
 def test_problems_listed_with_row_numbers_and_rest_kept(bad_file):
     r = read_results(bad_file, point_ids=PLAN_IDS)
-    got = {
-        (int(row), col, prob) for row, col, prob in r.problems[["row", "column", "problem"]].values
-    }
+    got = {(int(row), col, prob) for row, col, prob in r.problems[["row", "column", "problem"]].values}
     # Row numbers count the header as row 1, as a spreadsheet shows them.
     # common practice, no source
     assert got == {
@@ -90,3 +88,16 @@ def test_missing_point_id_column_is_a_clear_error(tmp_path):
 def test_unreadable_file_is_input_error(tmp_path):
     with pytest.raises(InputError, match="cannot read"):
         read_results(tmp_path / "nope.csv")
+
+
+def test_descriptive_columns_are_not_values(tmp_path):
+    p = tmp_path / "filled_template.csv"
+    p.write_text(
+        "point_id,sample_id,row,plant,pH,P\nB01-001,R1S1-001A,12,40,6.1,23\nB01-002,R1S1-002B,14,9,5.8,19\n",
+        encoding="utf-8",
+    )
+    r = read_results(p, point_ids=PLAN_IDS)
+    # sample ids, row and plant numbers describe the sample, they are not measurements
+    # common practice, no source
+    assert r.value_columns == ["ph", "p"]
+    assert r.problems.empty
