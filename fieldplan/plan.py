@@ -396,7 +396,9 @@ def _keep_design_columns(designed: Plan, purposed: Plan) -> Plan:
         mine = designed.points[column].to_numpy()
         if column in points.columns and column == "instructions":
             theirs = points[column].astype(str).to_numpy(dtype=object)
-            mine = np.array([f"{a}; {b}" for a, b in zip(mine, theirs, strict=True)], dtype=object)
+            mine = (pd.Series(mine, dtype=object).astype(str) + "; " + pd.Series(theirs, dtype=object)).to_numpy(
+                dtype=object
+            )
         if not changed:
             points = points.copy()
             changed = True
