@@ -86,15 +86,17 @@ def test_ties_are_broken_by_rng_evenly():
 def test_minimum_binds_and_rest_is_reallocated():
     a = allocate(20, sizes=[1000, 10, 1], min_per_stratum=2)
     # Both small strata are lifted to the minimum; the rest (16) goes to the large one.
-    # reference: Cochran (1977) section 5.9 (reallocation when a stratum hits a bound,
-    # section number from memory); 20 - 2 - 2 = 16 by hand
+    # common practice, no source: a floor per stratum so each can be estimated;
+    # 20 - 2 - 2 = 16 by hand
     np.testing.assert_allclose(a.exact, [16, 2, 2])
     assert a.at_bound.tolist() == [False, True, True]
 
 
 def test_capacity_binds_and_excess_moves_on():
     a = allocate(30, sizes=[10, 10, 10], min_per_stratum=0, max_per_stratum=[4, 100, 100])
-    # 30/3 = 10 > 4: stratum 1 takes 4, the other two share 26 equally (hand computation)
+    # 30/3 = 10 > 4: stratum 1 takes 4, the other two share 26 equally (hand computation).
+    # reference: Cochran (1977) ch. 5, allocation requiring more than 100 per cent sampling:
+    # take the capped stratum whole and re-allocate the rest (section 5.8, from memory)
     np.testing.assert_allclose(a.exact, [4, 13, 13])
     assert a.n.tolist() == [4, 13, 13]
 

@@ -3,11 +3,14 @@
 The exact (real-valued) share of each stratum follows Cochran, *Sampling
 Techniques*, 3rd ed. (1977), chapter 5:
 
-* ``proportional``: :math:`n_h \\propto N_h` (section 5.3);
+* ``proportional``: :math:`n_h \\propto N_h`;
 * ``equal``: the same share for every stratum;
-* ``neyman``: :math:`n_h \\propto N_h S_h` (Neyman allocation, section 5.5);
+* ``neyman``: :math:`n_h \\propto N_h S_h` (Neyman allocation);
 * ``optimal``: :math:`n_h \\propto N_h S_h / \\sqrt{c_h}` (optimum allocation for a
-  linear cost function, section 5.5).
+  linear cost function ``C = c_0 + sum(c_h n_h)``).
+
+(Sections 5.3 and 5.5 of the book; section and equation numbers are recalled,
+not checked against a copy.)
 
 ``N_h`` may be a count of units or a size measure such as area. Lower and upper
 bounds (at least ``min_per_stratum`` points; no more than a stratum's capacity)

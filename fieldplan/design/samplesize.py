@@ -1,7 +1,8 @@
 """Sample size for estimating a mean, with finite population and cluster corrections.
 
 Formulas (Cochran, *Sampling Techniques*, 3rd ed., 1977, chapter 4; Kish,
-*Survey Sampling*, 1965, section 5.4):
+*Survey Sampling*, 1965, section 5.4, where the design effect is written
+``1 + roh (b - 1)``; section numbers recalled, not checked against a copy):
 
 * relative margin ``e`` (same units as the coefficient of variation ``CV``):
   ``n0 = (q * CV / e)**2``;
