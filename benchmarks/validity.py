@@ -365,12 +365,18 @@ across repetitions: the randomness studied is the design's.
 """
 
 
-def main(argv: list[str] | None = None) -> pd.DataFrame:
-    """Run the study and write ``docs/validity.md`` and ``docs/validity.png``."""
+def main(argv: list[str] | None = None, *, smoke: bool = False) -> pd.DataFrame:
+    """Run the study and write ``docs/validity.md`` and ``docs/validity.png``.
+
+    ``smoke=True`` (``benchmarks.run --smoke``) runs 10 repetitions on small
+    surfaces and writes nothing.
+    """
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--reps", type=int, default=2000)
     ap.add_argument("--out", type=Path, default=Path(__file__).resolve().parents[1] / "docs")
     args = ap.parse_args(argv)
+    if smoke:
+        return run_study([gaussian_surface(r, size=40) for r in (0.0, 10.0)], reps=10)
     t0 = time.perf_counter()
     surfaces = [gaussian_surface(r) for r in (0.0, 5.0, 25.0)]
     meuse = meuse_surface()
