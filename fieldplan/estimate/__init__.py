@@ -7,6 +7,7 @@ Pure functions on arrays: no file I/O. One module per estimator:
 * :mod:`~fieldplan.estimate.systematic`: grid means with SRS and local variance
 * :mod:`~fieldplan.estimate.readiness`: probability of reaching a target, trend
 * :mod:`~fieldplan.estimate.nextplan`: observed SD/CV/ICC for sizing the next round
+* :mod:`~fieldplan.estimate.table`: the estimates table matching a plan's design
 """
 
 from fieldplan.estimate.cluster import (
