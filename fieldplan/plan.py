@@ -145,7 +145,11 @@ def _grid_design(
     spacing = params["spacing"]
     minx, miny, _, _ = blocks.total_bounds
     # A field-wide start needs one lattice: anchor it at a rounded corner of the whole farm.
-    origin = (math.floor(minx / spacing) * spacing, math.floor(miny / spacing) * spacing)
+    # An engine planning a subset of blocks passes the whole farm's anchor in.
+    origin = params.get("grid_origin") or (
+        math.floor(minx / spacing) * spacing,
+        math.floor(miny / spacing) * spacing,
+    )
     field_offset = tuple(stream(seed, "grid-start", "field").random(2))
     frames = []
     flags: list[list[str]] = []

@@ -1,0 +1,118 @@
+"""Random plants from a row model against enumerating every plant.
+
+An estate of about five million plants (vineyard and orchard spacings). For
+each block, fieldplan lays the row model (:func:`row_segments`) and draws 30
+plants by rank (:func:`pick_plants`): work in rows, never in plants. The
+baseline enumerates every plant position of the block the direct way, one
+point per plant on each row line across the block's extent, keeps those inside
+the block (``shapely.contains_xy``) and chooses 30 of them with
+``Generator.choice``. The baseline is vectorised numpy/shapely, not a Python
+loop, so the ratio shows the cost of listing plants, not of the interpreter.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import shapely
+
+from benchmarks.timing import Result, alternating, peak_memory
+from benchmarks.workloads import estate
+from fieldplan.design.clusters import pick_plants, row_segments
+from fieldplan.rng import stream
+
+__all__ = ["enumerate_and_choose", "plant_estate", "study"]
+
+PICKS = 30
+
+
+def plant_estate(n_blocks: int, *, seed: int):
+    """Blocks with close vine/orchard spacings (2–3 m rows, 1–1.6 m plants)."""
+    return estate(n_blocks, seed=seed, row_spacing_m=(2.0, 3.0), plant_spacing_m=(1.0, 1.6))
+
+
+def enumerate_and_choose(
+    polygon, *, row_spacing_m: float, plant_spacing_m: float, row_bearing_deg: float, n: int, rng
+) -> np.ndarray:
+    """Every plant position in the block, then ``n`` of them at random: ``(n, 2)`` coordinates."""
+    theta = np.radians(row_bearing_deg)
+    u = np.array([np.sin(theta), np.cos(theta)])
+    v = np.array([np.cos(theta), -np.sin(theta)])
+    xy = shapely.get_coordinates(polygon)
+    pu, pv = xy @ u, xy @ v
+    across = np.arange(pv.min() + row_spacing_m / 2.0, pv.max(), row_spacing_m)
+    along = np.arange(pu.min() + plant_spacing_m / 2.0, pu.max(), plant_spacing_m)
+    a, b = np.meshgrid(along, across)
+    px = a.ravel() * u[0] + b.ravel() * v[0]
+    py = a.ravel() * u[1] + b.ravel() * v[1]
+    shapely.prepare(polygon)
+    inside = shapely.contains_xy(polygon, px, py)
+    plants = np.column_stack([px[inside], py[inside]])
+    return plants[rng.choice(len(plants), size=n, replace=False)]
+
+
+def study(*, smoke: bool = False, seed: int = 13) -> list[Result]:
+    """Time and trace both over the estate; report the speed and memory ratios."""
+    blocks = plant_estate(4 if smoke else 110, seed=seed)
+    rows = list(blocks.itertuples(index=False))
+
+    def ours():
+        out = []
+        for r in rows:
+            seg = row_segments(
+                r.geometry,
+                row_spacing_m=r.row_spacing_m,
+                plant_spacing_m=r.plant_spacing_m,
+                row_bearing_deg=r.row_bearing_deg,
+            )
+            out.append(pick_plants(seg, PICKS, rng=stream(seed, "clusters", r.block)))
+        return out
+
+    def baseline():
+        return [
+            enumerate_and_choose(
+                r.geometry,
+                row_spacing_m=r.row_spacing_m,
+                plant_spacing_m=r.plant_spacing_m,
+                row_bearing_deg=r.row_bearing_deg,
+                n=PICKS,
+                rng=stream(seed, "enumerate", r.block),
+            )
+            for r in rows
+        ]
+
+    picks = ours()
+    plants = int(sum(p.eligible for p in picks))
+    inside = all(
+        bool(shapely.contains_xy(r.geometry, p.x, p.y).all()) for r, p in zip(rows, picks, strict=True)
+    )
+    t_ours, t_base = alternating(ours, baseline, repeat=1 if smoke else 2)
+    m_ours, m_base = peak_memory(ours), peak_memory(baseline)
+    details = {
+        "blocks": len(rows),
+        "plants": plants,
+        "picks_per_block": PICKS,
+        "picks_inside_blocks": inside,
+        "seconds_fieldplan": round(t_ours, 4),
+        "seconds_enumeration": round(t_base, 4),
+        "peak_bytes_fieldplan": m_ours,
+        "peak_bytes_enumeration": m_base,
+    }
+    return [
+        Result(
+            "clusters",
+            "row-model picks vs enumerating plants: speed",
+            t_base / t_ours,
+            100.0,
+            "higher",
+            details=details,
+        ),
+        Result(
+            "clusters",
+            "row-model picks vs enumerating plants: peak memory (tracemalloc)",
+            m_ours / m_base,
+            1 / 50,
+            "lower",
+            unit="of baseline",
+            details=details,
+        ),
+    ]

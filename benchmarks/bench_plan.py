@@ -1,0 +1,154 @@
+"""End-to-end planning against the I/O floor, and how planning time scales with blocks.
+
+``fieldplan plan`` is timed in process through its API, exactly the calls the
+CLI makes: :func:`fieldplan.read.read_blocks` -> :func:`fieldplan.plan.make_plan`
+-> :func:`fieldplan.store.write_plan` (all registered writers). The floor is
+what any tool must at least do with the same data: read the same GeoJSON with
+geopandas and write the same number of points as GeoJSON with geopandas.
+"""
+
+from __future__ import annotations
+
+import tempfile
+import time
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+
+from benchmarks.timing import Result
+from benchmarks.workloads import estate, write_geojson
+from fieldplan.plan import make_plan
+from fieldplan.read import read_blocks
+from fieldplan.store import WRITERS, write_plan
+
+__all__ = ["plan_once", "floor_once", "writer_times", "study_floor", "study_scaling"]
+
+
+def plan_once(path: Path, out: Path, *, seed: int = 1) -> dict[str, float]:
+    """Read, plan and write once; seconds per stage and the point count."""
+    t0 = time.perf_counter()
+    blocks = read_blocks(path)
+    t1 = time.perf_counter()
+    plan = make_plan(blocks, per_ha=1.0, seed=seed, command=["fieldplan", "plan", str(path)])
+    t2 = time.perf_counter()
+    write_plan(plan, out, force=True)
+    t3 = time.perf_counter()
+    return {"read": t1 - t0, "plan": t2 - t1, "write": t3 - t2, "total": t3 - t0, "points": len(plan.points)}
+
+
+def floor_once(path: Path, points: gpd.GeoDataFrame, out: Path) -> float:
+    """Read the input and write ``points`` as GeoJSON, both with geopandas; seconds."""
+    t0 = time.perf_counter()
+    gpd.read_file(path, engine="pyogrio")
+    points.to_crs(4326).to_file(out, driver="GeoJSON", engine="pyogrio")
+    return time.perf_counter() - t0
+
+
+def writer_times(path: Path, folder: Path, *, seed: int = 1) -> dict[str, float]:
+    """Seconds each registered writer takes on the plan of ``path`` (where the write time goes)."""
+    plan = make_plan(read_blocks(path), per_ha=1.0, seed=seed)
+    out = {}
+    for writer in WRITERS:
+        sub = Path(tempfile.mkdtemp(dir=folder))
+        t0 = time.perf_counter()
+        writer(plan, sub)
+        out[getattr(writer, "__name__", repr(writer))] = round(time.perf_counter() - t0, 4)
+    return out
+
+
+def study_floor(*, smoke: bool = False, seed: int = 21) -> list[Result]:
+    """Plan 1,000 blocks (about 20,000 ha) at 1 point/ha; ratio to the I/O floor."""
+    n = 20 if smoke else 1000
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        path = write_geojson(estate(n, seed=seed), tmp / "blocks.geojson")
+        plan_once(path, tmp / "warm")  # imports, PROJ database, GDAL drivers
+        points = make_plan(read_blocks(path), per_ha=1.0, seed=1).points
+        floor_once(path, points, tmp / "warm.geojson")
+        repeat = 1 if smoke else 2
+        runs, floors = [], []
+        for i in range(repeat):
+            runs.append(plan_once(path, tmp / f"plan{i}"))
+            floors.append(floor_once(path, points, tmp / f"floor{i}.geojson"))
+        best = min(runs, key=lambda r: r["total"])
+        floor = min(floors)
+        writers = writer_times(path, tmp)
+    details = {
+        "blocks": n,
+        "points": best["points"],
+        "how": "in-process API: read_blocks -> make_plan -> write_plan (every registered writer)",
+        "seconds_plan_total": round(best["total"], 3),
+        "seconds_read": round(best["read"], 3),
+        "seconds_make_plan": round(best["plan"], 3),
+        "seconds_write": round(best["write"], 3),
+        "seconds_floor": round(floor, 3),
+        "seconds_per_writer": writers,
+    }
+    core = (
+        "write_points_geojson",
+        "write_points_csv",
+        "write_summary_csv",
+        "write_manifest",
+        "write_readme",
+        "write_gpkg",
+    )
+    core_total = best["read"] + best["plan"] + sum(v for k, v in writers.items() if k in core)
+    return [
+        Result(
+            "plan",
+            "fieldplan plan end to end vs read + write GeoJSON (floor)",
+            best["total"] / floor,
+            1.5,
+            "lower",
+            details=details,
+        ),
+        Result(
+            "plan",
+            "read + make_plan + core files (geojson, csv, gpkg, manifest) vs floor",
+            core_total / floor,
+            1.5,
+            "lower",
+            details={"seconds_core": round(core_total, 3), "seconds_floor": round(floor, 3)},
+            informational=True,
+        ),
+    ]
+
+
+def study_scaling(*, smoke: bool = False, seed: int = 22) -> list[Result]:
+    """make_plan time over block counts; ratio for 10x the blocks and the fitted exponent."""
+    sizes = [10, 30, 100] if smoke else [300, 1000, 3000]
+    big = estate(sizes[-1] if smoke else 3000, seed=seed)
+    times = []
+    for n in sizes:
+        blocks = big.iloc[:n].reset_index(drop=True)
+        blocks = blocks.set_crs(big.crs, allow_override=True)
+        make_plan(blocks, per_ha=1.0, seed=1)  # warm
+        best = np.inf
+        for _ in range(1 if smoke else 3):
+            t0 = time.perf_counter()
+            make_plan(blocks, per_ha=1.0, seed=1)
+            best = min(best, time.perf_counter() - t0)
+        times.append(best)
+    slope = float(np.polyfit(np.log(sizes), np.log(times), 1)[0])
+    ratio = times[-1] / times[0] * (10.0 / (sizes[-1] / sizes[0]))
+    return [
+        Result(
+            "scaling",
+            f"make_plan time for 10x the blocks ({sizes[0]} -> {sizes[-1]})",
+            ratio,
+            11.0,
+            "lower",
+            details={"sizes": sizes, "seconds": [round(t, 4) for t in times]},
+        ),
+        Result(
+            "scaling",
+            "fitted exponent of time ~ blocks^k",
+            slope,
+            1.1,
+            "lower",
+            unit="k",
+            details={"sizes": sizes, "seconds": [round(t, 4) for t in times]},
+            informational=True,
+        ),
+    ]

@@ -1,0 +1,90 @@
+"""Timing helpers and the result record every study returns."""
+
+from __future__ import annotations
+
+import gc
+import statistics
+import time
+import tracemalloc
+from collections.abc import Callable
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+__all__ = ["Result", "best_time", "median_time", "peak_memory", "alternating"]
+
+
+@dataclass
+class Result:
+    """One measured ratio and its target.
+
+    ``ratio`` is always a quotient of two timings (or memory peaks) taken in the
+    same run, so it does not depend on how fast the machine is. ``better`` says
+    which way passes: ``"higher"`` means ``ratio >= target``.
+    """
+
+    study: str
+    name: str
+    ratio: float
+    target: float
+    better: str
+    unit: str = "x"
+    details: dict[str, Any] = field(default_factory=dict)
+    informational: bool = False
+
+    @property
+    def passed(self) -> bool:
+        if self.better == "higher":
+            return self.ratio >= self.target
+        return self.ratio <= self.target
+
+    def as_dict(self) -> dict[str, Any]:
+        return {**asdict(self), "passed": self.passed}
+
+
+def best_time(fn: Callable[[], Any], *, repeat: int = 3) -> float:
+    """Fastest of ``repeat`` wall-clock runs (the least disturbed by other load)."""
+    times = []
+    for _ in range(repeat):
+        gc.collect()
+        start = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - start)
+    return min(times)
+
+
+def median_time(fn: Callable[[], Any], *, repeat: int = 3) -> float:
+    """Median of ``repeat`` wall-clock runs."""
+    times = []
+    for _ in range(repeat):
+        gc.collect()
+        start = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - start)
+    return statistics.median(times)
+
+
+def alternating(a: Callable[[], Any], b: Callable[[], Any], *, repeat: int = 3) -> tuple[float, float]:
+    """Best times of ``a`` and ``b`` run in turn, so slow spells of the machine hit both."""
+    ta, tb = [], []
+    for _ in range(repeat):
+        for fn, out in ((a, ta), (b, tb)):
+            gc.collect()
+            start = time.perf_counter()
+            fn()
+            out.append(time.perf_counter() - start)
+    return min(ta), min(tb)
+
+
+def peak_memory(fn: Callable[[], Any]) -> int:
+    """Peak bytes allocated through Python's allocators while ``fn`` runs (tracemalloc).
+
+    numpy arrays are traced; memory GEOS allocates inside shapely is not.
+    """
+    gc.collect()
+    tracemalloc.start()
+    try:
+        fn()
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    return peak
