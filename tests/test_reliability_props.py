@@ -19,7 +19,7 @@ from fieldplan.plan import DESIGNS, make_plan
 from tests.geoms import E0, N0, UTM33N
 
 TOL = 1e-6
-PROPS = settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+PROPS = settings(max_examples=20, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
 
 @st.composite
