@@ -176,3 +176,13 @@ def test_hypothesis_integers_sum_to_n(sizes, extra, min_each, seed):
     n = int(lo.sum()) + extra
     a = allocate(n, sizes=sizes, min_per_stratum=min_each, rng=np.random.default_rng(seed))
     _check(a, n, lo, np.full(len(sizes), np.inf), np.asarray(sizes))
+
+
+def test_zero_weight_strata_keep_their_minimum():
+    a = allocate(9, sizes=[0.0, 3.0, 6.0], min_per_stratum=1)
+    # common practice, no source: a stratum of zero size gets only its floor (1); the other
+    # 8 are shared 3 : 6 as Cochran's proportional shares, 8/3 and 16/3 (hand computation)
+    np.testing.assert_allclose(a.exact, [1.0, 8 / 3, 16 / 3])
+    assert a.n.tolist() == [1, 3, 5]
+    with pytest.raises(DesignError, match="cannot be reached"):
+        allocate(10, sizes=[0, 1], max_per_stratum=[20, 3], min_per_stratum=1)

@@ -153,7 +153,11 @@ def _water_fill(n: float, w: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.n
     elif j == kinks.size:
         slope = w[positive & ~np.isfinite(hi)].sum()
         if slope <= 0:
-            raise DesignError(f"n={n:g} cannot be reached: the strata with non-zero weight are full")
+            room = hi[positive].sum() + lo[~positive].sum()
+            raise DesignError(
+                f"n={n:g} cannot be reached: strata with zero size or standard deviation take only "
+                f"their minimum, and all strata together then hold at most {room:g}; lower n"
+            )
         lam = kinks[-1] + (n - totals[-1]) / slope
     else:
         step = (kinks[j] - kinks[j - 1]) / (totals[j] - totals[j - 1])
