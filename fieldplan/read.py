@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 import warnings
 import zipfile
 from pathlib import Path
@@ -288,7 +289,7 @@ def _check_geometries(
     if len(invalid):
         if not repair:
             i = int(invalid[0])
-            reason = shapely.is_valid_reason(geoms[i])
+            reason = _readable_reason(shapely.is_valid_reason(geoms[i]))
             raise InvalidBlocksError(
                 f"{path}: {_feature_label(frame, i, id_field)} is not a valid polygon ({reason}); "
                 "fix the outline or pass --repair to repair it with shapely.make_valid"
@@ -301,6 +302,19 @@ def _check_geometries(
         geoms[invalid] = fixed
         frame = frame.set_geometry(gpd.GeoSeries(geoms, crs=frame.crs, index=frame.index))
     return frame, repaired
+
+
+def _readable_reason(reason: str) -> str:
+    """``'Self-intersection[15.00066 47.85379]'`` -> ``'self-intersection near 15.00066, 47.85379'``."""
+    match = re.fullmatch(r"\s*([^\[]+)\[\s*(\S+)\s+(\S+)\s*\]\s*", reason or "")
+    if match is None:
+        return reason
+    what, x, y = match.groups()
+    try:
+        where = f"{float(x):.6f}, {float(y):.6f}"
+    except ValueError:
+        return reason
+    return f"{what.strip().lower()} near {where} in file coordinates"
 
 
 def _zero_area(geoms: np.ndarray) -> np.ndarray:
@@ -574,7 +588,13 @@ def read_exclusions(path: str | Path, *, crs: CRS, layer: str | None = None) -> 
         return gpd.GeoDataFrame({"name": []}, geometry=[], crs=crs)
     geoms = frame.geometry.values
     kinds = frame.geometry.geom_type
-    bad = np.flatnonzero(~kinds.isin(list(_POLYGONAL)).to_numpy() | shapely.is_empty(geoms))
+    void = shapely.is_missing(geoms) | shapely.is_empty(geoms)
+    if void.any():
+        raise InputError(
+            f"{path}: exclusion feature {int(np.argmax(void)) + 1} has an empty geometry; "
+            "delete it or redraw it"
+        )
+    bad = np.flatnonzero(~kinds.isin(list(_POLYGONAL)).to_numpy())
     if len(bad):
         i = int(bad[0])
         raise InputError(

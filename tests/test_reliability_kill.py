@@ -122,3 +122,22 @@ def test_stale_partial_from_dead_process_removed(tmp_path):
     assert not stale.exists()
     assert other.exists() and mine.exists()  # another plan's stage and a live run's stage stay
     assert (out / "manifest.json").read_text() == "{}"
+
+
+def test_failing_writer_leaves_old_plan_and_no_stage(tmp_path, monkeypatch):
+    import fieldplan.store as store
+
+    out = tmp_path / "plan"
+    with staged_folder(out) as stage:
+        (stage / "manifest.json").write_text("old")
+
+    def broken(plan, folder):
+        (folder / "points.geojson").write_text('{"type": "FeatureCollection", "feat')
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(store, "WRITERS", [broken])
+    with pytest.raises(OSError, match="No space left"):
+        store.write_plan(object(), out, force=True)
+    assert [p.name for p in out.iterdir()] == ["manifest.json"]
+    assert (out / "manifest.json").read_text() == "old"
+    assert [p.name for p in tmp_path.iterdir()] == ["plan"]
