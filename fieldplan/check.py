@@ -143,8 +143,11 @@ def points_to_check(plan_dir: Path | str, plan: Any):
     removed = int((~planned.index.isin(current.index)).sum())
     if moved == 0 and added == 0 and removed == 0:
         return plan.points, "checked plan.gpkg (points.geojson holds the same points)"
+    gpkg = Path(plan_dir) / "plan.gpkg"
+    newer = " and is newer" if gpkg.is_file() and path.stat().st_mtime > gpkg.stat().st_mtime else ""
     return edited, (
-        f"checked points.geojson: it differs from plan.gpkg ({moved} moved, {added} added, {removed} removed)"
+        f"checked points.geojson: it differs from plan.gpkg{newer} "
+        f"({moved} moved, {added} added, {removed} removed)"
     )
 
 
@@ -207,8 +210,8 @@ def coverage(
     pid = points["point_id"].astype(str).to_numpy()
     pblock = points["block"].astype(str).to_numpy()
     xy = shapely.get_coordinates(points.geometry.values) if len(points) else np.empty((0, 2))
-    index = {name: i for i, name in enumerate(names)}
-    which = np.array([index.get(b, -1) for b in pblock], dtype=int)
+    index = pd.Series(np.arange(len(names)), index=names)
+    which = pd.Series(pblock).map(index).fillna(-1).to_numpy(dtype=int)
     known = which >= 0
     inside = np.zeros(len(points), dtype=bool)
     if known.any():
@@ -220,16 +223,18 @@ def coverage(
         in_exclusion = shapely.contains_xy(union, xy[:, 0], xy[:, 1])
     duplicated = pd.Series(pid).duplicated(keep=False).to_numpy()
 
-    problem_rows = []
-    for mask, text in (
-        (~known, "names a block that is not in the plan"),
-        (known & ~inside, "lies outside its block"),
-        (in_exclusion, "lies in an exclusion"),
-        (duplicated, "shares its point_id with another point"),
-    ):
-        for i in np.flatnonzero(mask):
-            problem_rows.append({"point_id": pid[i], "block": pblock[i], "problem": text})
-    problems = pd.DataFrame(problem_rows, columns=["point_id", "block", "problem"])
+    problems = pd.concat(
+        [
+            pd.DataFrame({"point_id": pid[mask], "block": pblock[mask], "problem": text})
+            for mask, text in (
+                (~known, "names a block that is not in the plan"),
+                (known & ~inside, "lies outside its block"),
+                (in_exclusion, "lies in an exclusion"),
+                (duplicated, "shares its point_id with another point"),
+            )
+        ],
+        ignore_index=True,
+    )
 
     if "sampled_area_ha" in blocks.columns:
         share_area = blocks["sampled_area_ha"].to_numpy(dtype=float)

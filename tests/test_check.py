@@ -176,3 +176,15 @@ def test_spare_points_do_not_count_as_coverage(plan):
     # common practice, no source: spares stand in only for planned points found inaccessible
     assert row["n_points"] == 0 and "not sampled" in row["notes"]
     assert "spare point(s) left out" in report.source
+
+
+def test_unknown_block_and_duplicate_ids_are_reported(plan):
+    points = plan.points.copy()
+    points.loc[points.index[0], "block"] = "ZZ"
+    points.loc[points.index[2], "point_id"] = points["point_id"].iloc[1]
+    report = coverage(plan, points=points)
+    problems = report.problems.set_index("problem")
+    # common practice, no source: every sample has one id and belongs to a known block
+    assert problems.loc["names a block that is not in the plan", "block"] == "ZZ"
+    assert len(problems.loc["shares its point_id with another point"]) == 2
+    assert not report.ok and any("not in the plan" in f for f in report.failures)
