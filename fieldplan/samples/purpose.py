@@ -82,19 +82,21 @@ def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
     seed = plan.seed
     exclusions = _exclusion_geoms(plan)
     frames, notes = [], {}
+    groups = points.groupby(points["block"].astype(str), sort=False).indices
     for row in plan.blocks.itertuples(index=False):
         block = str(row.block)
-        mask = (points["block"].astype(str) == block).to_numpy()
-        if not mask.any():
+        if block not in groups:
             continue
+        # Only exclusions within reach of this block can cut its allowed area.
+        near = exclusions[shapely.dwithin(exclusions, row.geometry, 1.01 * buffer_m + 1.0)]
         try:
-            area, used = usable_core_area(row.geometry, exclusions, buffer_m=buffer_m)
+            area, used = usable_core_area(row.geometry, near, buffer_m=buffer_m)
         except DesignError as err:
             raise DesignError(f"block {block}: {err}") from None
         block_notes = []
         if used < buffer_m:
             block_notes.append(f"cores: edge buffer cut to {used:g} m (block too small for {buffer_m:g} m)")
-        pts = points[mask]
+        pts = points.iloc[groups[block]]
         if composite == "cell":
             centres = shapely.get_coordinates(pts.geometry.values)
             xy, moved = disc_cores(centres, n=n, radius=radius, area=area, rng=stream(seed, "cores", block))
