@@ -551,8 +551,8 @@ def check_row_attributes(
             listed = ", ".join(f"{names[i]}={values[i]:g}" for i in bad[:3])
             more = ", ..." if len(bad) > 3 else ""
             notes.append(
-                f"{source}: {name} outside {low:g}-{high:g} {unit} in {len(bad)} block(s) ({listed}{more}); "
-                "designs that use rows will refuse them"
+                f"{source}: {name} outside {low:g} to {high:g} {unit} in {len(bad)} block(s) "
+                f"({listed}{more}); fix them before planning with a design that uses rows"
             )
     return notes
 
@@ -562,7 +562,7 @@ def _row_problem(kind: str, name: str, value: float, low: float, high: float, un
         return f"has no {name}; add it ({unit}) to every block this design samples"
     if kind == "not positive":
         return f"has {name}={value:g}, which is not positive; fix the value in the file"
-    return f"has {name}={value:g}, outside the usual {low:g}-{high:g} {unit}; fix the value in the file"
+    return f"has {name}={value:g}, outside the usual {low:g} to {high:g} {unit}; fix the value in the file"
 
 
 def _text_column(frame: gpd.GeoDataFrame, name: str) -> np.ndarray:

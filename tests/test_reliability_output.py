@@ -227,11 +227,11 @@ def _row_blocks(**columns):
         ),
         (
             {"row_spacing_m": [25.0, 2.5, 2.5], "plant_spacing_m": [1.0, 1.2, 1.1]},
-            "block 'A' has row_spacing_m=25, outside the usual 0.5-12 m",
+            "block 'A' has row_spacing_m=25, outside the usual 0.5 to 12 m",
         ),
         (
             {"row_spacing_m": [2.5, 2.5, 2.5], "plant_spacing_m": [1.0, 0.05, 1.1]},
-            "block 'B' has plant_spacing_m=0.05, outside the usual 0.2-15 m",
+            "block 'B' has plant_spacing_m=0.05, outside the usual 0.2 to 15 m",
         ),
     ],
 )
@@ -263,8 +263,8 @@ def test_implausible_row_values_noted_when_reading(tmp_path):
     )
     blocks = read_blocks(write_geojson(frame, tmp_path / "b.geojson"))
     notes = " | ".join(blocks.attrs["notes"])
-    assert "row_spacing_m outside 0.5-12 m in 2 block(s) (B1=0, B2=40)" in notes
-    assert "row_bearing_deg outside -360-360 degrees in 1 block(s) (B1=720)" in notes
+    assert "row_spacing_m outside 0.5 to 12 m in 2 block(s) (B1=0, B2=40)" in notes
+    assert "row_bearing_deg outside -360 to 360 degrees in 1 block(s) (B1=720)" in notes
 
 
 def test_clusters_design_refuses_implausible_spacing(tmp_path):
@@ -280,5 +280,5 @@ def test_clusters_design_refuses_implausible_spacing(tmp_path):
     args = ["plan", str(source), "--design", "clusters", "--per-block", "3", "--out", str(out)]
     result = runner.invoke(app, args)
     assert result.exit_code == 2, result.output
-    assert "vines.geojson: block 'V1' has row_spacing_m=30, outside the usual 0.5-12 m" in result.stderr
+    assert "vines.geojson: block 'V1' has row_spacing_m=30, outside the usual 0.5 to 12 m" in result.stderr
     assert not out.exists()
