@@ -20,21 +20,46 @@ from benchmarks.timing import Result
 from benchmarks.workloads import estate, write_geojson
 from fieldplan.plan import make_plan
 from fieldplan.read import read_blocks
-from fieldplan.store import WRITERS, write_plan
+from fieldplan.store import write_plan
 
-__all__ = ["plan_once", "floor_once", "writer_times", "study_floor", "study_scaling"]
+__all__ = ["plan_once", "floor_once", "study_floor", "study_scaling"]
 
 
-def plan_once(path: Path, out: Path, *, seed: int = 1) -> dict[str, float]:
-    """Read, plan and write once; seconds per stage and the point count."""
-    t0 = time.perf_counter()
-    blocks = read_blocks(path)
-    t1 = time.perf_counter()
-    plan = make_plan(blocks, per_ha=1.0, seed=seed, command=["fieldplan", "plan", str(path)])
-    t2 = time.perf_counter()
-    write_plan(plan, out, force=True)
-    t3 = time.perf_counter()
-    return {"read": t1 - t0, "plan": t2 - t1, "write": t3 - t2, "total": t3 - t0, "points": len(plan.points)}
+def plan_once(path: Path, out: Path, *, seed: int = 1) -> dict:
+    """Read, plan and write once; seconds per stage and per writer, and the point count."""
+    from fieldplan import store
+
+    writers: dict[str, float] = {}
+    original = list(store.WRITERS)
+
+    def timed(writer):
+        def run(plan, folder):
+            t0 = time.perf_counter()
+            writer(plan, folder)
+            name = getattr(writer, "__name__", repr(writer))
+            writers[name] = round(writers.get(name, 0.0) + time.perf_counter() - t0, 4)
+
+        return run
+
+    store.WRITERS[:] = [timed(w) for w in original]
+    try:
+        t0 = time.perf_counter()
+        blocks = read_blocks(path)
+        t1 = time.perf_counter()
+        plan = make_plan(blocks, per_ha=1.0, seed=seed, command=["fieldplan", "plan", str(path)])
+        t2 = time.perf_counter()
+        write_plan(plan, out, force=True)
+        t3 = time.perf_counter()
+    finally:
+        store.WRITERS[:] = original
+    return {
+        "read": t1 - t0,
+        "plan": t2 - t1,
+        "write": t3 - t2,
+        "total": t3 - t0,
+        "points": len(plan.points),
+        "writers": writers,
+    }
 
 
 def floor_once(path: Path, points: gpd.GeoDataFrame, out: Path) -> float:
@@ -43,18 +68,6 @@ def floor_once(path: Path, points: gpd.GeoDataFrame, out: Path) -> float:
     gpd.read_file(path, engine="pyogrio")
     points.to_crs(4326).to_file(out, driver="GeoJSON", engine="pyogrio")
     return time.perf_counter() - t0
-
-
-def writer_times(path: Path, folder: Path, *, seed: int = 1) -> dict[str, float]:
-    """Seconds each registered writer takes on the plan of ``path`` (where the write time goes)."""
-    plan = make_plan(read_blocks(path), per_ha=1.0, seed=seed)
-    out = {}
-    for writer in WRITERS:
-        sub = Path(tempfile.mkdtemp(dir=folder))
-        t0 = time.perf_counter()
-        writer(plan, sub)
-        out[getattr(writer, "__name__", repr(writer))] = round(time.perf_counter() - t0, 4)
-    return out
 
 
 def study_floor(*, smoke: bool = False, seed: int = 21) -> list[Result]:
@@ -73,7 +86,7 @@ def study_floor(*, smoke: bool = False, seed: int = 21) -> list[Result]:
             floors.append(floor_once(path, points, tmp / f"floor{i}.geojson"))
         best = min(runs, key=lambda r: r["total"])
         floor = min(floors)
-        writers = writer_times(path, tmp)
+        writers = best["writers"]
     details = {
         "blocks": n,
         "points": best["points"],

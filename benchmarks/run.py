@@ -59,24 +59,26 @@ def run_studies(names: list[str], *, smoke: bool = False, log=print) -> tuple[li
         if name in STUDIES:
             results.extend(STUDIES[name](smoke=smoke))
         else:
-            _run_external(name, smoke=smoke)
+            results.extend(_run_external(name, smoke=smoke))
         seconds[name] = round(time.perf_counter() - t0, 2)
         log(f"[bench] {name} done in {seconds[name]:.1f} s")
     return results, seconds
 
 
-def _run_external(name: str, *, smoke: bool) -> None:
+def _run_external(name: str, *, smoke: bool) -> list[Result]:
+    """Run another module's study: its ``study(smoke=)`` if it has one, else its ``main``."""
     module = importlib.import_module(f"benchmarks.{EXTERNAL[name]}")
+    study = getattr(module, "study", None)
+    if study is not None:
+        return list(study(smoke=smoke))
     main = getattr(module, "main", None)
     if main is None:
-        return
-    argv: list[str] = []
-    if smoke:
-        params = inspect.signature(main).parameters
-        if "smoke" in params:
-            main(smoke=True)
-            return
-    main(argv)
+        return []
+    if "smoke" in inspect.signature(main).parameters:
+        main([], smoke=smoke)
+    elif not smoke:
+        main([])
+    return []
 
 
 def _available_external() -> list[str]:
@@ -89,7 +91,9 @@ def _fmt(value: float) -> str:
     return f"{value:.2e}"
 
 
-def markdown(results: list[Result], seconds: dict[str, float], *, smoke: bool) -> str:
+def markdown(
+    results: list[Result], seconds: dict[str, float], *, smoke: bool, load: list | None = None
+) -> str:
     """The results table as Markdown."""
     lines = [
         "# fieldplan benchmarks",
@@ -100,6 +104,13 @@ def markdown(results: list[Result], seconds: dict[str, float], *, smoke: bool) -
         "",
         f"Machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}."
         + (" **Smoke run (tiny sizes): figures are not meaningful.**" if smoke else ""),
+        *(
+            [
+                f"Load average (1 min) at start and end: {load[0]:.2f}, {load[1]:.2f}: other work on the machine skews parallel figures most."
+            ]
+            if load
+            else []
+        ),
         "",
         "| study | measure | ratio | target | result |",
         "| --- | --- | ---: | ---: | --- |",
@@ -133,18 +144,25 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--out", type=Path, help="folder for results.md and results.json (default: benchmarks/)")
     args = ap.parse_args(argv)
     chosen = args.only or [*STUDIES, *([] if args.smoke else _available_external())]
+    load = [os.getloadavg()[0]]
     t0 = time.perf_counter()
     results, seconds = run_studies(
         chosen, smoke=args.smoke, log=lambda m: print(m, file=sys.stderr, flush=True)
     )
     seconds["all"] = round(time.perf_counter() - t0, 2)
-    text = markdown(results, seconds, smoke=args.smoke)
+    load.append(os.getloadavg()[0])
+    text = markdown(results, seconds, smoke=args.smoke, load=load)
     print(text)
     out = args.out if args.out is not None else (None if args.smoke else HERE)
     if out is not None:
         out.mkdir(parents=True, exist_ok=True)
         (out / "results.md").write_text(text, encoding="utf-8")
-        payload = {"smoke": args.smoke, "seconds": seconds, "results": [r.as_dict() for r in results]}
+        payload = {
+            "smoke": args.smoke,
+            "seconds": seconds,
+            "load_average": load,
+            "results": [r.as_dict() for r in results],
+        }
         (out / "results.json").write_text(
             json.dumps(payload, indent=2, sort_keys=True) + "\n", encoding="utf-8"
         )

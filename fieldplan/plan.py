@@ -232,6 +232,8 @@ def make_plan(
     progress: Callable[[int, int], None] | None = None,
     design_options: dict | None = None,
     samples: dict | None = None,
+    engine: str = "local",
+    scheduler: str | None = None,
 ) -> Plan:
     """Plan samples over blocks.
 
@@ -266,6 +268,11 @@ def make_plan(
     samples : dict, optional
         Options of :func:`fieldplan.samples.purpose.apply_purpose` (purpose,
         cores, core_radius, composite, depth, crop_profile, core_buffer).
+    engine : {"local", "dask"}
+        Where the design runs: in this process, or over partitions of blocks on a
+        Dask cluster (:mod:`fieldplan.engine`); the plan is the same either way.
+    scheduler : str, optional
+        Address of a running Dask scheduler for ``engine="dask"``; default a local cluster.
     """
     if design not in DESIGNS:
         raise OptionError(f"design must be one of {', '.join(DESIGNS)}; got {design!r}")
@@ -328,7 +335,14 @@ def make_plan(
     if strata_by is not None or "stratum" not in blocks.columns:
         blocks = blocks.copy()
         blocks["stratum"] = strata_labels(blocks, strata_by)
-    table, flags = DESIGNS[design](blocks, areas, run, exclusion_union, progress)
+    if engine == "local" and scheduler is None:
+        table, flags = DESIGNS[design](blocks, areas, run, exclusion_union, progress)
+    else:
+        from fieldplan.engine import run_design
+
+        table, flags = run_design(
+            design, blocks, areas, run, exclusion_union, progress, engine=engine, scheduler=scheduler
+        )
 
     out_blocks = blocks.copy()
     if "stratum" not in out_blocks.columns:

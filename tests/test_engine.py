@@ -118,3 +118,33 @@ def test_dask_benchmark_study_runs(scheduler):
     assert {r.name for r in results} and all(np.isfinite(r.ratio) and r.ratio > 0 for r in results)
     # common practice, no source: the engines' plans are compared inside the study
     assert all(r.details["identical_to_in_process"] for r in results)
+
+
+def test_make_plan_same_plan_on_either_engine(scheduler, farm):
+    from fieldplan.plan import make_plan
+
+    blocks = farm.drop(columns="stratum")
+    options = {"per_ha": 1.5, "layout": "square", "angle": 25.0, "edge_buffer": 3.0, "seed": 11}
+    local = make_plan(blocks, command=["fieldplan"], **options)
+    remote = make_plan(blocks, command=["fieldplan"], engine="dask", scheduler=scheduler, **options)
+    # common practice, no source: a parallel run must reproduce the serial run exactly
+    pd.testing.assert_frame_equal(remote.points, local.points)
+    pd.testing.assert_frame_equal(remote.blocks, local.blocks)
+    assert remote.params == local.params
+
+
+def test_cli_refuses_an_unknown_engine(tmp_path):
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import app
+
+    path = tmp_path / "blocks.geojson"
+    from benchmarks.workloads import write_geojson
+
+    write_geojson(estate(3, seed=1), path)
+    result = CliRunner().invoke(
+        app, ["plan", str(path), "--per-ha", "1", "--engine", "spark", "--out", str(tmp_path / "p")]
+    )
+    assert result.exit_code == 2
+    assert "--engine must be one of local, dask" in result.output
+    assert not (tmp_path / "p").exists()

@@ -143,6 +143,17 @@ def plan(
         str | None,
         typer.Option(help="clusters: field instructions with {row}, {plant}, {units}, {block} placeholders."),
     ] = None,
+    engine: Annotated[
+        str,
+        typer.Option(help="Where to plan: 'local' (this process) or 'dask' (groups of blocks in parallel)."),
+    ] = "local",
+    scheduler: Annotated[
+        str | None,
+        typer.Option(
+            help="With --engine dask: address of a running Dask scheduler, e.g. tcp://scheduler-host:8786 "
+            "(default: two worker processes on this machine)."
+        ),
+    ] = None,
     seed: Seed = 0,
     force: Force = False,
     quiet: Quiet = False,
@@ -177,6 +188,9 @@ def plan(
         "crop_profile": crop_profile,
     }
     resolve_purpose(**samples)  # a bad purpose option fails before any work
+    from fieldplan.engine import check_engine
+
+    check_engine(engine, scheduler)  # a bad engine option fails before any work
     blocks = read_blocks(blocks_file, layer=layer, id_field=id_field, repair=repair)
     exclusions = read_exclusions(exclude, crs=blocks.crs) if exclude is not None else None
     with progress_callback("Planning blocks", quiet=quiet) as progress:
@@ -212,6 +226,8 @@ def plan(
             max_points=max_points,
             command=["fieldplan", *sys.argv[1:]],
             progress=progress,
+            engine=engine,
+            scheduler=scheduler,
         )
     set_cautions(result, cautions)
     write_plan(result, out, force=force)
