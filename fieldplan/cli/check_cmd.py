@@ -40,8 +40,11 @@ def check(
     ] = None,
     quiet: Quiet = False,
 ) -> None:
-    """Check a plan's coverage: every block sampled, points per block against area share,
-    largest gap to the nearest point, points outside their block or in an exclusion.
+    """Check a plan's coverage block by block; exit 1 when a rule fails.
+
+    Every block sampled, points per block against their area share, the largest gap
+    from any spot of a block to its nearest point, points outside their block or in
+    an exclusion.
 
     Hand edits of points.geojson are picked up: when it differs from plan.gpkg it is
     the file checked. Exit code 0 when every rule holds, 1 when one fails.
