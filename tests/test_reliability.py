@@ -41,6 +41,11 @@ def _write(path: Path, content: str | bytes) -> Path:
     return path
 
 
+def _folder(path: Path) -> Path:
+    path.mkdir()
+    return path
+
+
 def _feature_collection(path: Path, features: list[tuple[dict, dict | None]]) -> Path:
     data = {
         "type": "FeatureCollection",
@@ -214,7 +219,7 @@ PNG = b"\x89PNG\r\n\x1a\n" + bytes(64)
 CASES = [
     Case("missing", "file missing", lambda t: (t / "nope.geojson", []), ["nope.geojson", "not found"]),
     Case("empty", "empty file", lambda t: (_write(t / "empty.geojson", ""), []), ["empty"]),
-    Case("folder", "a folder instead of a file", lambda t: (t, []), ["is a folder"]),
+    Case("folder", "a folder instead of a file", lambda t: (_folder(t / "exports"), []), ["is a folder"]),
     Case(
         "csv_renamed",
         "CSV renamed .geojson",
