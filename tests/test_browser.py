@@ -132,6 +132,11 @@ def test_map_opens_offline_without_errors(opened):
     assert log["errors"] == []
     assert page.locator(".fp-point").count() == len(plan.points)
     assert page.evaluate("fieldplanLayers.points.getLayers().length") == len(plan.points)
+    # Fit to bounds: every point is inside the initial view.
+    assert page.evaluate(
+        """() => fieldplanLayers.points.getLayers()
+             .every((m) => fieldplanMap.getBounds().contains(m.getLatLng()))"""
+    )
     assert page.locator(".fp-spare").count() == 0  # spare points are off by default
     assert page.locator(".leaflet-tile").count() == 0  # base layer off by default
     assert page.locator(".leaflet-control-scale-line").count() == 1
