@@ -252,6 +252,7 @@ def _plot(table: pd.DataFrame, path: Path) -> None:
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
+    import matplotlib.ticker
 
     labels = (table["design"] + "\n" + table["estimator"]).unique().tolist()
     surfaces = table["surface"].unique().tolist()
@@ -268,10 +269,14 @@ def _plot(table: pd.DataFrame, path: Path) -> None:
     axes[0].set_xlabel("coverage of the 95 % interval (%)")
     axes[1].axvline(1.0, color="0.5", lw=0.8)
     axes[1].set_xscale("log")
+    ticks = [0.25, 0.5, 1, 2, 4]
+    axes[1].set_xticks(ticks, [f"{t:g}" for t in ticks])
+    axes[1].xaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
+    axes[1].set_xlim(0.2, 6)
     axes[1].set_xlabel("variance of the mean / SRS variance, same n (log)")
     axes[0].set_yticks(ypos, labels, fontsize=8)
     axes[0].invert_yaxis()
-    axes[1].legend(fontsize=8, loc="lower right")
+    axes[1].legend(fontsize=8, loc="upper right", bbox_to_anchor=(1.0, 0.72))
     fig.suptitle("fieldplan designs: interval coverage and efficiency")
     fig.tight_layout()
     fig.savefig(path, dpi=110, metadata={"Software": None})
