@@ -23,6 +23,8 @@ from pyproj import CRS
 from fieldplan import __version__
 from fieldplan.design.grid import cell_area, grid_points, spacing_for_density
 from fieldplan.errors import DesignError, InvalidBlocksError, OptionError
+from fieldplan.field.spares import SPARE_DESIGNS
+from fieldplan.field.substitutes import SUBSTITUTE_RULES, SUBSTITUTES_LAYER, substitutes_layer
 from fieldplan.rng import stream
 from fieldplan.stratified import STRATIFIED_DESIGNS, check_design_options, strata_labels
 
@@ -77,7 +79,7 @@ class Plan:
             }
         )
         out["points_per_ha"] = (out["n_points"] / out["area_ha"]).round(4)
-        extra = [c for c in ("stratum", "n_target_exact", "n_allocated") if c in b.columns]
+        extra = [c for c in ("stratum", "n_target_exact", "n_allocated", "n_spares") if c in b.columns]
         for column in extra:
             out[column] = b[column].to_numpy()
         out["flags"] = b["flags"].to_numpy()
@@ -232,6 +234,8 @@ def make_plan(
     progress: Callable[[int, int], None] | None = None,
     design_options: dict | None = None,
     samples: dict | None = None,
+    spares: int = 0,
+    substitute: str = "none",
     engine: str = "local",
     scheduler: str | None = None,
 ) -> Plan:
@@ -268,6 +272,12 @@ def make_plan(
     samples : dict, optional
         Options of :func:`fieldplan.samples.purpose.apply_purpose` (purpose,
         cores, core_radius, composite, depth, crop_profile, core_buffer).
+    spares : int
+        Extra points per stratum, drawn with the sample and kept in use order
+        (``status`` "spare", ``spare_rank``); random, balanced and clusters designs.
+    substitute : {"none", "within-cell"}
+        Grid plans: precompute one substitute per point, uniform in its lattice
+        cell (layer ``substitutes``). See docs/field-changes.md.
     engine : {"local", "dask"}
         Where the design runs: in this process, or over partitions of blocks on a
         Dask cluster (:mod:`fieldplan.engine`); the plan is the same either way.
@@ -303,6 +313,7 @@ def make_plan(
         raise OptionError(f"--seed must be a non-negative integer, got {seed!r}")
     if len(blocks) == 0:
         raise InvalidBlocksError("no blocks to plan")
+    _check_field_options(design, spares, substitute)
 
     crs = CRS.from_user_input(blocks.crs)
     if exclusions is None:
@@ -327,6 +338,10 @@ def make_plan(
     }
     if strata_by is not None:
         params["strata_by"] = strata_by
+    if spares:
+        params["spares"] = int(spares)
+    if substitute != "none":
+        params["substitute"] = substitute
     if design != "grid":
         params["design_options"] = {k: v for k, v in design_options.items() if k != "rows"}
     areas = sample_areas(blocks, edge_buffer=edge_buffer, exclusions=exclusions)
@@ -349,8 +364,14 @@ def make_plan(
         out_blocks["stratum"] = out_blocks["block"]
     out_blocks["area_ha"] = shapely.area(blocks.geometry.values) / 10_000.0
     out_blocks["sampled_area_ha"] = shapely.area(areas) / 10_000.0
-    counts = table.groupby("block").size()
+    is_spare = (
+        table["status"].eq("spare") if "status" in table.columns else pd.Series(False, index=table.index)
+    )
+    counts = table[~is_spare].groupby("block").size()
     out_blocks["n_points"] = out_blocks["block"].map(counts).fillna(0).astype(int)
+    if spares:
+        n_spare = table[is_spare].groupby("block").size()
+        out_blocks["n_spares"] = out_blocks["block"].map(n_spare).fillna(0).astype(int)
     allocation = table.attrs.get("strata")
     if allocation is not None:
         # A stratum spanning several blocks repeats its allocation on each of them.
@@ -395,7 +416,43 @@ def make_plan(
     # (``samples`` holds the keyword options of fieldplan.samples.purpose.apply_purpose).
     from fieldplan.samples.purpose import apply_purpose
 
-    return _keep_design_columns(plan, apply_purpose(plan, **(samples or {})))
+    plan = _keep_design_columns(plan, apply_purpose(plan, **(samples or {})))
+    if substitute == "within-cell":
+        plan.layers[SUBSTITUTES_LAYER] = _grid_substitutes(plan, blocks, areas, params)
+    return plan
+
+
+def _check_field_options(design: str, spares, substitute: str) -> None:
+    if int(spares) != spares or spares < 0:
+        raise OptionError(f"--spares must be a whole number >= 0, got {spares}")
+    if spares and design not in SPARE_DESIGNS:
+        raise OptionError(
+            f"--spares applies to --design {', '.join(SPARE_DESIGNS)}; "
+            "grid plans keep their spacing with --substitute within-cell instead"
+        )
+    if substitute not in SUBSTITUTE_RULES:
+        raise OptionError(f"--substitute must be one of {', '.join(SUBSTITUTE_RULES)}; got {substitute!r}")
+    if substitute != "none" and design != "grid":
+        raise OptionError(
+            "--substitute within-cell applies to --design grid only; other designs use --spares"
+        )
+
+
+def _grid_substitutes(plan: Plan, blocks, areas: np.ndarray, params: dict) -> gpd.GeoDataFrame:
+    """One within-cell substitute per grid point (see fieldplan.field.substitutes)."""
+    index = pd.Index(blocks["block"]).get_indexer(plan.points["block"])
+    if params["angle"] == "rows":
+        bearing = blocks["row_bearing_deg"].astype(float).fillna(0.0).to_numpy()[index]
+    else:
+        bearing = np.full(len(index), float(params["angle"]))
+    return substitutes_layer(
+        plan.points,
+        np.asarray(areas, dtype=object)[index],
+        bearing,
+        seed=params["seed"],
+        spacing=params["spacing_m"],
+        layout=params["layout"],
+    )
 
 
 def _keep_design_columns(designed: Plan, purposed: Plan) -> Plan:

@@ -39,6 +39,7 @@ from fieldplan.design.clusters import (
 )
 from fieldplan.design.random import random_points
 from fieldplan.errors import DesignError, InputError, OptionError
+from fieldplan.field.spares import order_draw
 from fieldplan.rng import stream
 
 __all__ = [
@@ -282,6 +283,7 @@ def _stratified(
 ) -> tuple[pd.DataFrame, list[list[str]]]:
     opts = params["design_options"]
     seed = params["seed"]
+    n_spares = int(params.get("spares") or 0)
     labels = blocks["stratum"].astype(str).to_numpy(dtype=object)
     strata = list(pd.unique(labels))
     members = [np.flatnonzero(labels == s) for s in strata]
@@ -357,6 +359,9 @@ def _stratified(
         rng = stream(seed, "design", str(stratum))
         m = members[h]
         extra: dict[str, np.ndarray] = {}
+        # Spares continue the same draw (fieldplan.field.spares); they never exceed the eligible plants.
+        n_sel = n_h
+        n_h = int(min(n_h + n_spares, capacity[h]))
         if design == "clusters":
             picks = pick_plants(
                 segments[h], n_h, rng=rng, skip_row_ends=opts["skip_row_ends"], eligible=eligible[h]
@@ -365,6 +370,7 @@ def _stratified(
             x, y = picks.x, picks.y
             if opts["target_units"] is not None:
                 units = cluster_sizes(int(opts["target_units"]), units_per)
+                units = np.concatenate([units, np.full(n_h - n_sel, units_per, dtype=np.int64)])
             else:
                 units = np.full(n_h, units_per, dtype=np.int64)
             extra = {"row": picks.row, "plant": picks.plant, "units": units}
@@ -382,10 +388,15 @@ def _stratified(
         frame = pd.DataFrame({"_order": owner, "block": blocks["block"].to_numpy()[owner], "x": x, "y": y})
         for key, value in extra.items():
             frame[key] = value
+        if n_spares:
+            use_order, status, rank = order_draw(design, np.column_stack([x, y]), n_sel, rng=rng)
+            frame = frame.iloc[use_order].reset_index(drop=True)
+            frame["status"], frame["spare_rank"] = status, rank
         frames.append(frame)
         if progress is not None:
             progress(h + 1, len(strata))
     columns = ["_order", "block", "x", "y"] + (["row", "plant", "units"] if design == "clusters" else [])
+    columns += ["status", "spare_rank"] if n_spares else []
     table = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=columns)
     table = table.sort_values("_order", kind="stable").drop(columns="_order").reset_index(drop=True)
     table["block"] = table["block"].astype(str)

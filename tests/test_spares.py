@@ -103,3 +103,50 @@ def test_order_draw_keeps_random_order_and_reorders_balanced_draws():
     assert order.tolist() == list(range(20)) and rank.tolist()[-5:] == [1, 2, 3, 4, 5]
     order, status, _ = order_draw("balanced", xy, 15, rng=np.random.default_rng(2))
     assert sorted(order.tolist()) == list(range(20)) and (status == "selected").sum() == 15
+
+
+def _blocks():
+    import shapely
+
+    from tests.geoms import E0, N0, blocks_frame
+
+    return blocks_frame(
+        {"A": shapely.box(E0, N0, E0 + 300, N0 + 200), "B": shapely.box(E0 + 400, N0, E0 + 600, N0 + 200)}
+    )
+
+
+def test_plan_with_spares_keeps_them_out_of_the_counts():
+    # reference: spares are not part of the sample until used (docs/field-changes.md rule);
+    # common practice, no source, that a summary counts planned samples only.
+    from fieldplan.plan import make_plan
+
+    for design in ("random", "balanced"):
+        plan = make_plan(_blocks(), design=design, design_options={"per_block": 6}, spares=3, seed=2)
+        pts = plan.points
+        for _, group in pts.groupby("stratum"):
+            assert (group["status"] == "selected").sum() == 6
+            assert sorted(group.loc[group["status"] == "spare", "spare_rank"]) == [1, 2, 3]
+        assert plan.summary()["n_points"].tolist() == [6, 6]
+        assert plan.summary()["n_spares"].tolist() == [3, 3]
+
+
+def test_random_plan_spares_continue_the_same_draw():
+    # reference: prefix of a sequence of independent uniform draws is itself such a sequence
+    # (definition of SRS in a continuous area); the selected points do not depend on K for
+    # the random design beyond the shared generator.
+    from fieldplan.plan import make_plan
+
+    plan = make_plan(_blocks(), design="random", design_options={"per_block": 4}, spares=2, seed=9)
+    a = plan.points[plan.points["block"] == "A"]
+    assert a["spare_rank"].tolist() == [0, 0, 0, 0, 1, 2]
+
+
+def test_spares_are_refused_for_grids():
+    # common practice, no source: extra grid points would change the grid's spacing.
+    import pytest
+
+    from fieldplan.errors import OptionError
+    from fieldplan.plan import make_plan
+
+    with pytest.raises(OptionError, match="within-cell"):
+        make_plan(_blocks(), spacing=50, spares=2)

@@ -61,3 +61,26 @@ def test_each_substitute_depends_only_on_seed_and_point_id():
     np.testing.assert_array_equal(full[5:9], part)
     other = cell_substitutes(xy[5:9], ids[5:9], area, seed=10, spacing=10.0)
     assert not np.array_equal(part, other)
+
+
+def test_grid_plan_precomputes_a_substitute_per_point():
+    # reference: each substitute lies in its point's lattice cell (cell of lattice point p is
+    # p + [-0.5, 0.5)·a + [-0.5, 0.5)·b; Cochran 1977 ch. 8 for the random-start grid).
+    import pytest
+
+    from fieldplan.errors import OptionError
+    from fieldplan.plan import make_plan
+    from tests.geoms import E0, N0, blocks_frame
+
+    blocks = blocks_frame({"A": shapely.box(E0, N0, E0 + 300, N0 + 200)}, row_bearing_deg=[20.0])
+    plan = make_plan(blocks, spacing=25, layout="triangular", angle="rows", substitute="within-cell", seed=3)
+    subs = plan.layers["substitutes"]
+    assert subs["point_id"].tolist() == plan.points["point_id"].tolist()
+    xy = shapely.get_coordinates(plan.points.geometry.values)
+    uv = cell_coordinates(
+        shapely.get_coordinates(subs.geometry.values), xy, lattice_basis(25, "triangular", 20.0)
+    )
+    assert ((uv >= 0) & (uv < 1)).all()
+    assert shapely.contains(blocks.geometry.iloc[0], subs.geometry.values).all()
+    with pytest.raises(OptionError):
+        make_plan(blocks, design="random", design_options={"per_block": 3}, substitute="within-cell")

@@ -154,6 +154,15 @@ def plan(
             "(default: two worker processes on this machine)."
         ),
     ] = None,
+    spares: Annotated[
+        int,
+        typer.Option(
+            "--spares", min=0, help="random/balanced/clusters: extra points per stratum, used in rank order."
+        ),
+    ] = 0,
+    substitute: Annotated[
+        str, typer.Option("--substitute", help="grid: 'within-cell' precomputes a substitute per point.")
+    ] = "none",
     seed: Seed = 0,
     force: Force = False,
     quiet: Quiet = False,
@@ -223,6 +232,8 @@ def plan(
                 "instructions": instructions,
             },
             samples=samples,
+            spares=spares,
+            substitute=substitute,
             max_points=max_points,
             command=["fieldplan", *sys.argv[1:]],
             progress=progress,
@@ -244,8 +255,11 @@ def report(result, out: Path) -> None:
     flagged = result.blocks[result.blocks["flags"] != ""]
     for row in flagged.itertuples(index=False):
         echo_err(f"note: block {row.block}: {row.flags}")
+    n_spare = int(result.points["status"].eq("spare").sum()) if "status" in result.points.columns else 0
     typer.echo(
-        f"Planned {len(result.points)} points in {len(result.blocks)} blocks "
+        f"Planned {len(result.points) - n_spare} points"
+        + (f" and {n_spare} spares" if n_spare else "")
+        + f" in {len(result.blocks)} blocks "
         f"({result.params.get('design')}, seed {result.params.get('seed')}) -> {out}"
     )
     if (out / "map.html").exists():
