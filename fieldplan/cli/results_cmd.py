@@ -49,6 +49,9 @@ def results(
 
     plan = load_plan(plan_dir)
     table = read_results(file, point_ids=plan.points["point_id"].astype(str), value_columns=value)
+    if not table.problems.empty:
+        echo_err(f"{len(table.problems)} problem(s) in {file.name}:")
+        echo_err(format_problems(table.problems))
     existing = stored_results(plan.layers)
     round_no = append_round(
         plan_dir,
@@ -57,9 +60,6 @@ def results(
         imported_utc=_now_utc(),
         allow_duplicate=allow_duplicate,
     )
-    if not table.problems.empty:
-        echo_err(f"{len(table.problems)} problem(s) in {file.name}:")
-        echo_err(format_problems(table.problems))
     if not quiet:
         matched = table.data["point_id"].nunique()
         total = len(plan.points)

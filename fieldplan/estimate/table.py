@@ -53,6 +53,7 @@ def point_values(
             "block": points["block"].astype(str).to_numpy(),
             "x": points.geometry.x.to_numpy(),
             "y": points.geometry.y.to_numpy(),
+            "point_stratum": points["stratum"].astype(str).to_numpy() if "stratum" in points else None,
             "plan_units": points["units"].to_numpy(dtype=float) if "units" in points else np.nan,
         }
     )
@@ -71,7 +72,11 @@ def point_values(
     out = r[["round", "date", "point_id", "unit", "value", "units_measured"]].merge(
         pts, on="point_id", how="inner"
     )
-    return out.merge(meta, on="block", how="left")
+    out = out.merge(meta, on="block", how="left")
+    # A design may stratify within blocks; the points then carry the finer stratum.
+    if out["point_stratum"].notna().all():
+        out["stratum"] = out["point_stratum"]
+    return out.drop(columns="point_stratum")
 
 
 def _srs_like(sub: pd.DataFrame, *, confidence: float, local: bool) -> dict:
