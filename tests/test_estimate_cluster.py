@@ -46,9 +46,7 @@ def test_ratio_mean_matches_samplics():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         ref = samplics.TaylorEstimator(samplics.PopParam.ratio)
-        ref.estimate(
-            y=d["sum"].to_numpy(), x=d["count"].to_numpy(dtype=float), psu=d.index.to_numpy()
-        )
+        ref.estimate(y=d["sum"].to_numpy(), x=d["count"].to_numpy(dtype=float), psu=d.index.to_numpy())
     est = ratio_mean(d["sum"], d["count"])
     # reference: samplics.TaylorEstimator ratio (PyPI samplics 0.6), one PSU per cluster
     assert est.mean == pytest.approx(ref.point_est, abs=1e-9)

@@ -65,9 +65,7 @@ def test_stratified_matches_samplics_taylor():
         warnings.simplefilter("ignore")
         ref = samplics.TaylorEstimator(samplics.PopParam.mean)
         # samplics takes the correction factor itself, 1 - n_h / N_h.
-        ref.estimate(
-            y=y, samp_weight=w, stratum=strata, fpc={h: 1 - n_h[h] / sizes[h] for h in sizes}
-        )
+        ref.estimate(y=y, samp_weight=w, stratum=strata, fpc={h: 1 - n_h[h] / sizes[h] for h in sizes})
     est = stratified_mean(y, strata, sizes=sizes, fpc=True)
     # reference: samplics.TaylorEstimator (PyPI samplics 0.6), stratified design, weights N_h/n_h
     assert est.mean == pytest.approx(ref.point_est, abs=1e-9)
