@@ -193,3 +193,15 @@ def test_cli_mark_and_restore(plan_dir, tmp_path, no_png):
     out = runner.invoke(app, ["mark", str(plan_dir), "A-003", "--inaccessible"])
     assert out.exit_code == 2
     assert np.all(load_plan(plan_dir).points["status"].isin(["selected", "spare"]))
+
+
+def test_check_warns_when_much_of_a_stratum_was_given_up(plan_dir, no_png):
+    # common practice, no source: more than a fifth of a stratum given up deserves a warning.
+    from fieldplan.field.mark import replacement_warnings
+
+    assert replacement_warnings(load_plan(plan_dir)) == []
+    mark_points(plan_dir, ["A-001", "A-002"], reason="waterlogged", now=NOW)
+    lines = replacement_warnings(load_plan(plan_dir))
+    n_a = int((load_plan(plan_dir).points.query("block == 'A'")["spare_rank"] == 0).sum())
+    assert len(lines) == (1 if 2 / n_a > 0.2 else 0)
+    assert replacement_warnings(load_plan(plan_dir), max_share=0.01)[0].startswith("stratum A: 2 of")

@@ -39,7 +39,7 @@ from fieldplan.field.events import (
     read_events,
 )
 from fieldplan.field.spares import SELECTED, SPARE
-from fieldplan.field.substitutes import SUFFIX
+from fieldplan.field.substitutes import SUBSTITUTES_LAYER, SUFFIX
 
 __all__ = [
     "PLANNED_LAYER",
@@ -52,10 +52,16 @@ __all__ = [
     "field_points",
     "mark_points",
     "substitution_summary",
+    "MAX_REPLACED_SHARE",
+    "replacement_warnings",
 ]
 
+#: Share of a stratum's planned points that may be given up before ``fieldplan check`` warns.
+#: Beyond a fifth, the estimate describes the reachable part of the stratum more than the
+#: stratum itself (common practice, no source).
+MAX_REPLACED_SHARE = 0.2
+
 PLANNED_LAYER = "points_planned"
-SUBSTITUTES_LAYER = "substitutes"
 REPLACEMENT = "replacement"
 SUBSTITUTE = "substitute"
 SUBSTITUTE_SUFFIX = SUFFIX
@@ -362,3 +368,21 @@ def substitution_summary(plan) -> pd.DataFrame:
         rule = "none (inaccessible points are dropped)"
     out["rule"] = rule
     return out[columns]
+
+
+def replacement_warnings(plan, *, max_share: float = MAX_REPLACED_SHARE) -> list[str]:
+    """One line per stratum where more than ``max_share`` of the planned points were given up."""
+    table = substitution_summary(plan)
+    if table.empty:
+        return []
+    given_up = table["n_inaccessible"].clip(upper=table["n_planned"])
+    share = given_up / table["n_planned"].clip(lower=1)
+    lines = []
+    for row, part in zip(table.itertuples(index=False), share, strict=True):
+        if part > max_share:
+            lines.append(
+                f"stratum {row.stratum}: {int(min(row.n_inaccessible, row.n_planned))} of {row.n_planned} "
+                f"planned points ({part:.0%}) marked inaccessible, {row.n_replacement + row.n_substitute} "
+                f"replaced; estimates describe the reachable ground (rule: {row.rule})"
+            )
+    return lines
