@@ -205,3 +205,14 @@ def test_check_warns_when_much_of_a_stratum_was_given_up(plan_dir, no_png):
     n_a = int((load_plan(plan_dir).points.query("block == 'A'")["spare_rank"] == 0).sum())
     assert len(lines) == (1 if 2 / n_a > 0.2 else 0)
     assert replacement_warnings(load_plan(plan_dir), max_share=0.01)[0].startswith("stratum A: 2 of")
+
+
+def test_substitution_notes_name_the_rule(plan_dir, no_png):
+    # common practice, no source: an estimate says how the field departed from the plan.
+    from fieldplan.field.mark import substitution_notes
+
+    assert substitution_notes(load_plan(plan_dir)) == []
+    mark_points(plan_dir, ["B-001"], reason="x", now=NOW)
+    (line,) = substitution_notes(load_plan(plan_dir))
+    assert line.startswith("stratum B: 1 point(s) marked inaccessible, 1 spare(s)")
+    assert "draw order" in line

@@ -106,3 +106,17 @@ def test_position_report_uses_plan_points_and_default_limit():
     out = position_report(_Plan(), pd.DataFrame({"point_id": ["P1"], "lon": [10.0], "lat": [45.0002]}))
     assert out["offset_m"].iloc[0] == pytest.approx(22.23, abs=0.01)  # 0.2 × 111.13 m
     assert bool(out["beyond_max_offset"].iloc[0])
+
+
+def test_positions_from_a_semicolon_results_csv(tmp_path):
+    # common practice, no source: European spreadsheets save CSV with semicolons.
+    from fieldplan.field.positions import positions_from_csv
+
+    path = tmp_path / "r.csv"
+    path.write_text("point_id;brix;lon;lat\nA-001;21.5;18.85;-33.9\nA-002;22.0;;\n", encoding="utf-8")
+    frame = positions_from_csv(path)
+    assert frame["point_id"].tolist() == ["A-001", "A-002"]
+    assert frame["lon"].iloc[0] == 18.85 and np.isnan(frame["lat"].iloc[1])
+    plain = tmp_path / "p.csv"
+    plain.write_text("point_id,brix\nA-001,21.5\n", encoding="utf-8")
+    assert positions_from_csv(plain) is None

@@ -54,6 +54,7 @@ __all__ = [
     "substitution_summary",
     "MAX_REPLACED_SHARE",
     "replacement_warnings",
+    "substitution_notes",
 ]
 
 #: Share of a stratum's planned points that may be given up before ``fieldplan check`` warns.
@@ -385,4 +386,19 @@ def replacement_warnings(plan, *, max_share: float = MAX_REPLACED_SHARE) -> list
                 f"planned points ({part:.0%}) marked inaccessible, {row.n_replacement + row.n_substitute} "
                 f"replaced; estimates describe the reachable ground (rule: {row.rule})"
             )
+    return lines
+
+
+def substitution_notes(plan) -> list[str]:
+    """Sentences for an estimate: per stratum with changes, what was given up and what replaced it."""
+    table = substitution_summary(plan)
+    lines = []
+    for row in table.itertuples(index=False):
+        if row.n_inaccessible == 0 and row.n_replacement == 0 and row.n_substitute == 0:
+            continue
+        lines.append(
+            f"stratum {row.stratum}: {row.n_inaccessible} point(s) marked inaccessible, "
+            f"{row.n_replacement} spare(s) and {row.n_substitute} substitute(s) used, "
+            f"{row.n_sampled} of {row.n_planned} planned points sampled; rule: {row.rule}"
+        )
     return lines

@@ -35,6 +35,7 @@ __all__ = [
     "positions_from_table",
     "compare_positions",
     "position_report",
+    "positions_from_csv",
 ]
 
 DEFAULT_OFFSET_M = 10.0
@@ -179,3 +180,25 @@ def position_report(plan, actual: pd.DataFrame, *, max_offset: float | None = No
     )
     limit = default_max_offset(plan.params) if max_offset is None else float(max_offset)
     return compare_positions(planned, actual, max_offset=limit)
+
+
+def positions_from_csv(path: str | Path) -> pd.DataFrame | None:
+    """``point_id, lon, lat`` from a results CSV with optional ``lon``/``lat`` columns, else ``None``."""
+    import csv
+    import io
+
+    path = Path(path)
+    data = path.read_bytes()
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        text = data.decode("latin-1")
+    try:
+        frame = pd.read_csv(io.StringIO(text), sep=None, engine="python", dtype=str, keep_default_na=False)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error) as err:
+        raise InputError(
+            f"{path}: not a readable CSV table ({err}); save it as CSV with a header row"
+        ) from None
+    frame.columns = [str(c).strip().lower() for c in frame.columns]
+    frame = frame.replace("", np.nan)
+    return positions_from_table(frame, source=str(path))

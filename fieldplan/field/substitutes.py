@@ -23,10 +23,19 @@ from numpy.typing import ArrayLike
 from fieldplan.design.grid import lattice_basis
 from fieldplan.rng import stream
 
-__all__ = ["cell_substitutes", "cell_coordinates", "substitutes_layer", "SUBSTITUTE_RULES", "SUFFIX"]
+__all__ = [
+    "cell_substitutes",
+    "cell_coordinates",
+    "substitutes_layer",
+    "SUBSTITUTE_RULES",
+    "SUFFIX",
+    "SUBSTITUTES_LAYER",
+]
 
 #: A substitute's id: its point's id with this suffix.
 SUFFIX = "-S"
+#: Name of the plan.gpkg layer holding the substitutes.
+SUBSTITUTES_LAYER = "substitutes"
 
 SUBSTITUTE_RULES = ("none", "within-cell")
 _BATCH = 64
