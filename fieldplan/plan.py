@@ -217,6 +217,13 @@ def _point_ids(block_column: pd.Series) -> np.ndarray:
     return (block_column.astype(str) + "-" + counts.astype(str).str.zfill(width)).to_numpy()
 
 
+def _check_finite(**values) -> None:
+    # inf or nan would pass the range checks and give an empty or meaningless plan.
+    for name, value in values.items():
+        if isinstance(value, int | float | np.number) and not math.isfinite(value):
+            raise OptionError(f"--{name.replace('_', '-')} must be a finite number, got {value}")
+
+
 def make_plan(
     blocks: gpd.GeoDataFrame,
     *,
@@ -288,6 +295,9 @@ def make_plan(
         raise OptionError(f"design must be one of {', '.join(DESIGNS)}; got {design!r}")
     if start not in START_MODES:
         raise OptionError(f"--start must be one of {', '.join(START_MODES)}; got {start!r}")
+    _check_finite(spacing=spacing, per_ha=per_ha, edge_buffer=edge_buffer, angle=angle)
+    if not max_points >= 1:
+        raise OptionError(f"--max-points must be 1 or more, got {max_points}")
     design_options = {k: v for k, v in (design_options or {}).items() if v is not None}
     strata_by = design_options.pop("strata_by", None)
     rows_frame = design_options.pop("rows", None)
