@@ -120,3 +120,31 @@ def test_positions_from_a_semicolon_results_csv(tmp_path):
     plain = tmp_path / "p.csv"
     plain.write_text("point_id,brix\nA-001,21.5\n", encoding="utf-8")
     assert positions_from_csv(plain) is None
+
+
+def test_recorded_positions_are_stored_and_drawn(tmp_path, monkeypatch):
+    # reference: pyproj.Geod (Karney 2013) for the offset; common practice, no source, that a
+    # later round replaces a point's earlier position.
+    import shapely
+
+    from fieldplan.field.record import record_positions
+    from fieldplan.plan import make_plan
+    from fieldplan.store import load_plan, write_plan
+    from fieldplan.write.tables import points_lonlat
+    from tests.geoms import E0, N0, blocks_frame
+
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "1800000000")
+    plan = make_plan(blocks_frame({"A": shapely.box(E0, N0, E0 + 120, N0 + 80)}), spacing=40, seed=1)
+    folder = write_plan(plan, tmp_path / "p")
+    lonlat = points_lonlat(plan.points)
+    ids = plan.points["point_id"].tolist()
+    taken = pd.DataFrame({"point_id": ids[:2], "lon": lonlat[:2, 0], "lat": lonlat[:2, 1] + [0.0, 0.0003]})
+    report = record_positions(folder, taken, round_no=1)
+    assert report["beyond_max_offset"].tolist() == [False, True]  # 0.0003° ≈ 33 m > 20 m
+    again = pd.DataFrame({"point_id": [ids[1]], "lon": [lonlat[1, 0]], "lat": [lonlat[1, 1]]})
+    record_positions(folder, again, round_no=2)
+    stored = load_plan(folder).layers["actual"]
+    assert sorted(stored["point_id"]) == sorted(ids[:2])
+    assert stored.set_index("point_id").loc[ids[1], "offset_m"] == pytest.approx(0.0, abs=0.01)
+    assert "Recorded position" in (folder / "map.html").read_text(encoding="utf-8")
+    assert (folder / "positions.csv").read_text(encoding="utf-8").startswith("point_id,")
