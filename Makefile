@@ -15,10 +15,24 @@ $(STAMP): pyproject.toml | $(BIN)/python
 	$(BIN)/python -m pip install --quiet -e ".[test,dask,bench]"
 	touch $(STAMP)
 
+FP := $(BIN)/fieldplan
+EST := demo_plots/estate_blocks.geojson
+EXCL := demo_plots/estate_exclusions.geojson
+
 demo: $(STAMP)
-	$(BIN)/fieldplan demo --out $(DEMO_OUT)/plan --force
-	@echo "Demo plan written to $(DEMO_OUT)/plan"
-	@if [ -f $(DEMO_OUT)/plan/map.html ]; then echo "Map: $$(cd $(DEMO_OUT)/plan && pwd)/map.html"; fi
+	$(FP) demo --out $(DEMO_OUT)/plan --force
+	$(FP) crews $(DEMO_OUT)/plan --crews 3 --start 18.89605,-33.86014 --return --force -q
+	$(FP) results $(DEMO_OUT)/plan demo_plots/results_round1.csv || true
+	$(FP) results $(DEMO_OUT)/plan demo_plots/results_round2.csv || true
+	$(FP) estimate $(DEMO_OUT)/plan --value brix --target 23
+	$(FP) plan $(EST) --exclude $(EXCL) --spacing 100 --purpose soil --seed 7 --out $(DEMO_OUT)/soil --force -q
+	$(FP) labels $(DEMO_OUT)/soil --layout a4-3x8 -q
+	$(FP) lab-sheet $(DEMO_OUT)/soil --analyses "pH,P,K" -q
+	$(FP) plan $(EST) --spacing 60 --purpose ripeness --crop-profile wine-grapes --seed 7 --out $(DEMO_OUT)/ripeness --force -q
+	$(FP) labels $(DEMO_OUT)/ripeness --layout letter-3x10 -q
+	@echo
+	@echo "Demo plans written under $(DEMO_OUT)/: plan (grid, crews, results), soil (cores, labels, lab sheet), ripeness"
+	@echo "Map: $$(cd $(DEMO_OUT)/plan && pwd)/map.html"
 
 lint: $(STAMP)
 	$(BIN)/ruff check .
