@@ -53,7 +53,7 @@ def study(*, smoke: bool = False, seed: int = 11) -> list[Result]:
         len(a) == len(b) and np.allclose(np.unique(a.round(6), axis=0), np.unique(b.round(6), axis=0))
         for a, b in zip(fast, slow, strict=True)
     )
-    t_ours, t_naive = alternating(ours, naive, repeat=1 if smoke else 3)
+    t_ours, t_naive = alternating(ours, naive, repeat=1 if smoke else 5)
     points = int(sum(len(a) for a in fast))
     return [
         Result(
