@@ -40,6 +40,7 @@ _POLYGONAL = {"Polygon", "MultiPolygon"}
 _SUFFIXES = {".geojson", ".json", ".gpkg", ".shp", ".zip"}
 # A feature this far from the others is more likely a digitising slip than a real block.
 _FAR_KM = 1000.0
+_MAX_COORD = 1e8
 # Plausible row-model values in metres: vineyards, orchards and row crops, common practice, no source.
 # Bearings may be given as -180..180 or 0..360; anything beyond one turn is a typing slip.
 ROW_LIMITS: dict[str, tuple[float, float]] = {
@@ -157,6 +158,11 @@ def read_frame(path: Path, *, layer: str | None = None) -> gpd.GeoDataFrame:
             frame = gpd.read_file(path, layer=layer, engine="pyogrio")
     except Exception as err:  # pyogrio raises several unrelated types
         first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
+        if "closed linestring" in first:
+            raise InputError(
+                f"{path}: a polygon ring is not closed or has fewer than 4 points (its last point must "
+                "repeat the first); fix the outline or export the file again"
+            ) from None
         raise InputError(f"{path}: cannot read as a spatial file ({first}); check the format") from None
     if not isinstance(frame, gpd.GeoDataFrame) or "geometry" not in frame:
         raise InputError(f"{path}: holds no geometries; export the block boundaries as polygons")
@@ -279,6 +285,7 @@ def _check_geometries(
             f"{path}: {_feature_label(frame, i, id_field)} is a {kinds.iloc[i]}, not a polygon; "
             "redraw it as a polygon or remove it"
         )
+    _check_coordinates(frame, geoms, path, id_field)
     flat = np.flatnonzero(_zero_area(geoms))
     if len(flat):
         raise InvalidBlocksError(
@@ -302,6 +309,20 @@ def _check_geometries(
         geoms[invalid] = fixed
         frame = frame.set_geometry(gpd.GeoSeries(geoms, crs=frame.crs, index=frame.index))
     return frame, repaired
+
+
+def _check_coordinates(frame, geoms: np.ndarray, path: Path, id_field: str) -> None:
+    """Refuse NaN, infinite and absurdly large coordinates, which break every geometry operation."""
+    xy, owner = shapely.get_coordinates(geoms, return_index=True)
+    # No map projection gives metres beyond 1e8, and degrees stop at 360.
+    bad = ~np.isfinite(xy).all(axis=1) | (np.abs(xy) > _MAX_COORD).any(axis=1)
+    if bad.any():
+        k = int(np.argmax(bad))
+        x, y = xy[k]
+        raise InvalidBlocksError(
+            f"{path}: {_feature_label(frame, int(owner[k]), id_field)} has a vertex at ({x:g}, {y:g}), "
+            "which is not a usable coordinate; fix that vertex or redraw the feature"
+        )
 
 
 def _readable_reason(reason: str) -> str:
@@ -594,6 +615,7 @@ def read_exclusions(path: str | Path, *, crs: CRS, layer: str | None = None) -> 
             f"{path}: exclusion feature {int(np.argmax(void)) + 1} has an empty geometry; "
             "delete it or redraw it"
         )
+    _check_coordinates(frame, geoms, path, None)
     bad = np.flatnonzero(~kinds.isin(list(_POLYGONAL)).to_numpy())
     if len(bad):
         i = int(bad[0])

@@ -101,6 +101,23 @@ def _zero_area(tmp):
     ), []
 
 
+def _ring(path: Path, ring: list) -> Path:
+    # json.dumps writes NaN as the bare token NaN, which GDAL's GeoJSON reader accepts.
+    return _feature_collection(path, [({"block": "A"}, {"type": "Polygon", "coordinates": [ring]})])
+
+
+def _nan_vertex(tmp):
+    return _ring(tmp / "nan.geojson", [[15, 47], [float("nan"), 47], [15.003, 47.003], [15, 47]]), []
+
+
+def _huge_vertex(tmp):
+    return _ring(tmp / "huge.geojson", [[15, 47], [1e300, 47], [15.003, 47.003], [15, 47]]), []
+
+
+def _open_ring(tmp):
+    return _ring(tmp / "open.geojson", [[15, 47], [15.003, 47], [15.003, 47.003]]), []
+
+
 def _bowtie(tmp):
     frame = blocks_frame({"X": bowtie, "S": shapely.affinity.translate(square, 1000)})
     return write_geojson(frame, tmp / "bowtie.geojson"), []
@@ -261,6 +278,9 @@ CASES = [
     Case("empty_geometry", "one empty geometry", _one_empty, ["feature 1 (block='A') has an empty geometry"]),
     Case("all_empty", "every geometry empty", _all_empty, ["every geometry is empty"]),
     Case("zero_area", "zero-area polygon", _zero_area, ["feature 1 (block='Z') has zero area"]),
+    Case("nan_vertex", "NaN coordinate", _nan_vertex, ["feature 1 (block='A') has a vertex at (nan, 47)"]),
+    Case("huge_vertex", "absurd coordinate", _huge_vertex, ["block='A'", "(1e+300, 47)", "fix that vertex"]),
+    Case("open_ring", "polygon ring not closed", _open_ring, ["open.geojson", "ring is not closed"]),
     Case(
         "bowtie",
         "self-intersecting polygon",
