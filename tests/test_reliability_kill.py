@@ -23,6 +23,7 @@ from tests.geoms import E0, N0, blocks_frame, write_geojson
 
 runner = CliRunner()
 ROOT = Path(__file__).resolve().parents[1]
+OLD = '{"fieldplan_version": "0.1.0", "note": "old plan"}'
 CORE = {"points.geojson", "points.csv", "summary.csv", "manifest.json", "README.txt", "plan.gpkg"}
 
 
@@ -85,7 +86,7 @@ def test_kill_between_renames_is_recovered(tmp_path, monkeypatch):
     # a kill right after that leaves it under .NAME.PID.*.old, and the next run puts it back.
     out = tmp_path / "plan"
     with staged_folder(out) as stage:
-        (stage / "manifest.json").write_text("old")
+        (stage / "manifest.json").write_text(OLD)
     monkeypatch.setattr(safe, "_exchange", lambda a, b: False)
     real_replace = os.replace
     calls = []
@@ -103,7 +104,7 @@ def test_kill_between_renames_is_recovered(tmp_path, monkeypatch):
     assert not out.exists()
     monkeypatch.setattr(safe, "_pid_alive", lambda pid: False)  # the killed run is gone
     clean_stale_stages(out)
-    assert (out / "manifest.json").read_text() == "old"
+    assert (out / "manifest.json").read_text() == OLD
     assert [p.name for p in tmp_path.iterdir()] == ["plan"]
 
 
@@ -129,7 +130,7 @@ def test_failing_writer_leaves_old_plan_and_no_stage(tmp_path, monkeypatch):
 
     out = tmp_path / "plan"
     with staged_folder(out) as stage:
-        (stage / "manifest.json").write_text("old")
+        (stage / "manifest.json").write_text(OLD)
 
     def broken(plan, folder):
         (folder / "points.geojson").write_text('{"type": "FeatureCollection", "feat')
@@ -139,5 +140,19 @@ def test_failing_writer_leaves_old_plan_and_no_stage(tmp_path, monkeypatch):
     with pytest.raises(OSError, match="No space left"):
         store.write_plan(object(), out, force=True)
     assert [p.name for p in out.iterdir()] == ["manifest.json"]
-    assert (out / "manifest.json").read_text() == "old"
+    assert (out / "manifest.json").read_text() == OLD
     assert [p.name for p in tmp_path.iterdir()] == ["plan"]
+
+
+def test_force_refuses_a_folder_that_is_not_a_plan(tmp_path):
+    # `--out . --force` in a working folder must not replace that folder.
+    work = tmp_path / "work"
+    work.mkdir()
+    (work / "blocks.geojson").write_text("{}")
+    (work / "manifest.json").write_text('{"name": "some web app"}')
+    result = runner.invoke(
+        app, ["plan", str(_estate(tmp_path)), "--spacing", "50", "--force", "--out", str(work)]
+    )
+    assert result.exit_code == 2
+    assert "no fieldplan plan" in result.stderr and "--force only replaces a plan folder" in result.stderr
+    assert sorted(p.name for p in work.iterdir()) == ["blocks.geojson", "manifest.json"]

@@ -175,12 +175,10 @@ def plan(
     from fieldplan.read import read_blocks, read_exclusions
     from fieldplan.store import write_plan
     from fieldplan.stratified import read_rows
-    from fieldplan.write.safe import staged_folder
+    from fieldplan.write.safe import check_out_dir
 
-    # Fail on an occupied folder before doing any work.
-    if out.is_dir() and any(out.iterdir()) and not force:
-        with staged_folder(out, force=False):
-            pass
+    # Fail on an occupied folder (or, with --force, a folder that is not a plan) before any work.
+    check_out_dir(out, force=force)
     from fieldplan.safety import load_cautions, set_cautions
 
     if cautions is not None:

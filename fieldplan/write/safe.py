@@ -23,6 +23,7 @@ __all__ = [
     "safe_filename",
     "staged_folder",
     "clean_stale_stages",
+    "check_out_dir",
 ]
 
 # Spreadsheet programs evaluate cells starting with these as formulas (OWASP "CSV Injection").
@@ -191,6 +192,39 @@ def _fsync_dir(path: Path) -> None:
         os.close(fd)
 
 
+def _is_plan_folder(folder: Path) -> bool:
+    import json
+
+    try:
+        manifest = json.loads((folder / "manifest.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    return isinstance(manifest, dict) and "fieldplan_version" in manifest
+
+
+def check_out_dir(out_dir: Path, *, force: bool = False) -> None:
+    """Refuse an output folder that holds files, unless ``force`` and it holds a plan.
+
+    ``--force`` replaces the whole folder, so it is only honoured for a folder
+    fieldplan wrote (its ``manifest.json`` names a fieldplan version): a slip
+    such as ``--out . --force`` must not delete a working folder.
+    """
+    out_dir = Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise OutputExistsError(f"{out_dir}: exists and is not a folder; choose another --out")
+    if not out_dir.is_dir() or not any(out_dir.iterdir()):
+        return
+    if not force:
+        raise OutputExistsError(
+            f"{out_dir}: folder is not empty; choose another --out or pass --force to replace it"
+        )
+    if not _is_plan_folder(out_dir):
+        raise OutputExistsError(
+            f"{out_dir}: holds files but no fieldplan plan (no manifest.json from fieldplan); "
+            "--force only replaces a plan folder: choose a new or empty --out"
+        )
+
+
 @contextmanager
 def staged_folder(out_dir: Path, *, force: bool = False) -> Iterator[Path]:
     """Yield a temporary folder beside ``out_dir``; on success swap it into place.
@@ -204,12 +238,7 @@ def staged_folder(out_dir: Path, *, force: bool = False) -> Iterator[Path]:
     """
     out_dir = Path(out_dir)
     clean_stale_stages(out_dir)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise OutputExistsError(f"{out_dir}: exists and is not a folder; choose another --out")
-    if out_dir.is_dir() and any(out_dir.iterdir()) and not force:
-        raise OutputExistsError(
-            f"{out_dir}: folder is not empty; choose another --out or pass --force to replace it"
-        )
+    check_out_dir(out_dir, force=force)
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     prefix = f".{out_dir.name}.{os.getpid()}."
     stage = Path(tempfile.mkdtemp(prefix=prefix, suffix=".partial", dir=out_dir.parent))
