@@ -107,14 +107,27 @@ def _check_file(path: Path) -> None:
             raise InputError(
                 f"{path}: not a GeoJSON FeatureCollection of block polygons; export the blocks as GeoJSON"
             )
+    if suffix == ".shp":
+        for part in (".shx", ".dbf"):
+            if not (path.with_suffix(part).exists() or path.with_suffix(part.upper()).exists()):
+                raise InputError(
+                    f"{path}: its {path.with_suffix(part).name} is missing; a Shapefile is several files "
+                    "(.shp, .shx, .dbf, .prj): copy them all, or send them zipped together"
+                )
     if suffix == ".zip":
         try:
             with zipfile.ZipFile(path) as archive:
                 names = archive.namelist()
         except zipfile.BadZipFile:
             raise InputError(f"{path}: not a readable zip archive; zip the Shapefile again") from None
-        if not any(n.lower().endswith(".shp") for n in names):
+        shps = sorted(n for n in names if n.lower().endswith(".shp") and not n.startswith("__MACOSX"))
+        if not shps:
             raise InputError(f"{path}: the zip holds no .shp file; zip the Shapefile's files together")
+        if len(shps) > 1:
+            raise InputError(
+                f"{path}: the zip holds {len(shps)} Shapefiles ({', '.join(shps[:4])}); "
+                "zip the block boundaries alone"
+            )
 
 
 def _sniff_geojson(path: Path, raw: bytes) -> None:

@@ -231,6 +231,25 @@ def _zip_without_shp(tmp):
     return tmp / "blocks.zip", []
 
 
+def _zip_two_shp(tmp):
+    frame = _lonlat_blocks()
+    with zipfile.ZipFile(tmp / "two.zip", "w") as archive:
+        for stem in ("a", "b"):
+            frame.to_file(tmp / f"{stem}.shp")
+            for ext in ("shp", "shx", "dbf", "prj"):
+                archive.write(tmp / f"{stem}.{ext}", f"{stem}.{ext}")
+    return tmp / "two.zip", []
+
+
+def _shp_without(ext: str):
+    def build(tmp):
+        _lonlat_blocks().to_file(tmp / "blocks.shp")
+        (tmp / f"blocks.{ext}").unlink()
+        return tmp / "blocks.shp", []
+
+    return build
+
+
 PNG = b"\x89PNG\r\n\x1a\n" + bytes(64)
 
 CASES = [
@@ -254,6 +273,9 @@ CASES = [
     ),
     Case("bad_zip", "unreadable zip", _bad_zip, ["not a readable zip archive"]),
     Case("zip_no_shp", "zip without a Shapefile", _zip_without_shp, ["holds no .shp"]),
+    Case("zip_two_shp", "zip with two Shapefiles", _zip_two_shp, ["holds 2 Shapefiles (a.shp, b.shp)"]),
+    Case("shp_no_dbf", "Shapefile without its .dbf", _shp_without("dbf"), ["its blocks.dbf is missing"]),
+    Case("shp_no_shx", "Shapefile without its .shx", _shp_without("shx"), ["its blocks.shx is missing"]),
     Case(
         "json_syntax",
         "GeoJSON syntax error",
