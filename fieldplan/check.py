@@ -197,11 +197,15 @@ def coverage(
     points = plan.points if points is None else points
     points = points.to_crs(plan.crs) if points.crs is not None else points
     if "status" in points.columns:
-        # Spares are visited only when a planned point cannot be; they do not cover a block.
-        spare = points["status"].astype(str).str.lower().eq("spare").to_numpy()
-        if spare.any():
-            points = points[~spare]
-            source = f"{source}; {int(spare.sum())} spare point(s) left out"
+        # Unused spares and points marked inaccessible are not sampled; they do not cover a block.
+        status = points["status"].astype(str).str.lower()
+        spare = status.eq("spare").to_numpy()
+        gone = status.eq("inaccessible").to_numpy()
+        if spare.any() or gone.any():
+            points = points[~(spare | gone)]
+            source = f"{source}; {int(spare.sum())} spare point(s) left out" + (
+                f", {int(gone.sum())} inaccessible" if gone.any() else ""
+            )
     blocks = plan.blocks
     names = blocks["block"].astype(str).to_numpy()
     geoms = np.asarray(blocks.geometry.values, dtype=object)

@@ -216,3 +216,22 @@ def test_substitution_notes_name_the_rule(plan_dir, no_png):
     (line,) = substitution_notes(load_plan(plan_dir))
     assert line.startswith("stratum B: 1 point(s) marked inaccessible, 1 spare(s)")
     assert "draw order" in line
+
+
+def test_check_command_warns_and_leaves_inaccessible_points_out(plan_dir, no_png):
+    # common practice, no source: a point given up does not cover its block, and a stratum
+    # with more than a fifth of its points given up is pointed out.
+    from fieldplan.cli.main import app
+
+    mark_points(plan_dir, ["A-001", "A-002", "A-003"], reason="waterlogged", now=NOW)
+    out = CliRunner().invoke(app, ["check", str(plan_dir)])
+    assert "warning: stratum A: 3 of" in out.output
+    from fieldplan.check import coverage
+
+    plan = load_plan(plan_dir)
+    report = coverage(plan)
+    assert "3 inaccessible" in report.source
+    row = report.table.set_index("block").loc["A"]
+    assert row["n_points"] == int(
+        plan.points.query("block == 'A'")["status"].isin(["selected", "replacement"]).sum()
+    )

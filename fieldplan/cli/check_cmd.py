@@ -104,6 +104,10 @@ def check(
             if extra > 0:
                 echo_err(f"... and {extra} more misplaced points")
         typer.echo(f"Table: {out}")
+    from fieldplan.field.mark import replacement_warnings
+
+    for line in replacement_warnings(plan):
+        echo_err(f"warning: {line}")
     for line in report.failures:
         echo_err(f"fail: {line}")
     if not report.ok:
