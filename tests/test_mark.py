@@ -91,6 +91,11 @@ def test_inaccessible_point_brings_in_first_spare_of_its_stratum(plan_dir, no_pn
     # reference: the first n accessible units of a random order are a simple random sample of
     # the accessible units (definition of SRS without replacement, Cochran 1977 §2.2).
     result = mark_points(plan_dir, ["A-002"], reason="flooded", by="ana", now=NOW)
+    import gpxpy
+
+    # reference: GPX 1.1 waypoints parsed with gpxpy; nobody is sent to a point given up.
+    names = [w.name for w in gpxpy.parse((plan_dir / "points.gpx").read_text(encoding="utf-8")).waypoints]
+    assert "A-002" not in names and "A-001" in names
     status = _status(plan_dir)
     assert status["A-002"] == "inaccessible"
     first_spare = load_plan(plan_dir).points.query("block == 'A' and spare_rank == 1")["point_id"].item()

@@ -176,7 +176,11 @@ def gpx_bytes(plan: Any, *, routes=None) -> bytes:
     text = ET.tostring(root, encoding="unicode")
     routes = routes if routes is not None else optional_layer(plan, "routes")
     # GPX 1.1 schema order: metadata, wpt*, rte*, trk*.
-    body = waypoints_xml(plan.points) + routes_xml(routes)
+    points = plan.points
+    if "status" in points.columns:
+        # Points marked inaccessible must not lead anyone there (fieldplan mark).
+        points = points[~points["status"].astype(str).str.lower().eq("inaccessible").to_numpy()]
+    body = waypoints_xml(points) + routes_xml(routes)
     text = text.replace(" " + marker + "\n", body, 1)
     return ('<?xml version="1.0" encoding="UTF-8"?>\n' + text + "\n").encode("utf-8")
 
