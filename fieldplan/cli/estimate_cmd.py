@@ -124,9 +124,15 @@ def estimate(
     atomic_write_text(Path(plan_dir) / ESTIMATES_NAME, csv)
     if not quiet:
         rnd = int(table["round"].iloc[0])
-        typer.echo(
-            f"{normalise_column(value)}, round {rnd}, design {design}: {table['estimator'].iloc[-1]} ({'by ' + by})"
+        methods = "; ".join(
+            f"{'all' if g == 'all' else by}: {e}"
+            for g, e in table.assign(g=table["group"].eq("all").map({True: "all", False: by}))[
+                ["g", "estimator"]
+            ]
+            .drop_duplicates()
+            .itertuples(index=False)
         )
+        typer.echo(f"{normalise_column(value)}, round {rnd}, design {design} ({methods})")
         typer.echo(format_estimates(table, confidence=confidence))
         if design in ("grid", "balanced") and not local_variance:
             typer.echo(
