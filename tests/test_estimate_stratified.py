@@ -47,7 +47,7 @@ def test_stratified_matches_hand_computation(fpc):
     y, strata, sizes = _data()
     est = stratified_mean(y, strata, sizes=sizes, fpc=fpc)
     mean, se, df = _hand(y, strata, sizes, fpc)
-    # reference: Cochran (1977) eqs. 5.1, 5.7 and Satterthwaite df eq. 5.16
+    # reference: Cochran (1977) eqs. 5.1, 5.7 and Satterthwaite df eq. 5.16 (eq. numbers from memory)
     assert est.mean == pytest.approx(mean, abs=1e-9)
     assert est.se == pytest.approx(se, abs=1e-9)
     assert est.df == pytest.approx(df, abs=1e-9)

@@ -56,7 +56,8 @@ def satterthwaite_df(a: ArrayLike, s2: ArrayLike, n: ArrayLike) -> float:
     """Effective degrees of freedom of ``Σ a_h s_h²`` (Satterthwaite 1946).
 
     ``n_e = (Σ a_h s_h²)² / Σ (a_h s_h²)² / (n_h − 1)``; Cochran (1977),
-    *Sampling Techniques* 3rd ed., §5.4, eq. 5.16, with
+    *Sampling Techniques* 3rd ed., §5.4, eq. 5.16 (section and equation number
+    from memory), with
     ``a_h = W_h² (1 − f_h) / n_h`` for the stratified mean.
 
     Strata with ``n_h < 2`` make the result NaN (their variance is unknown).
