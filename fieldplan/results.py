@@ -86,7 +86,7 @@ _ALIASES = {
     "ec_ds_m": "ec_ds_m",
 }
 
-KEY_COLUMNS = ("point_id", "unit", "date", "units_measured")
+KEY_COLUMNS = ("point_id", "unit", "date", "units_measured", "lon", "lat")
 # Plan and paperwork columns that may ride along in a results file but are not
 # measurements; they are never picked as value columns unless named.
 DESCRIPTIVE_COLUMNS = (

@@ -148,3 +148,37 @@ def test_recorded_positions_are_stored_and_drawn(tmp_path, monkeypatch):
     assert stored.set_index("point_id").loc[ids[1], "offset_m"] == pytest.approx(0.0, abs=0.01)
     assert "Recorded position" in (folder / "map.html").read_text(encoding="utf-8")
     assert (folder / "positions.csv").read_text(encoding="utf-8").startswith("point_id,")
+
+
+def test_results_command_flags_samples_taken_too_far(tmp_path, monkeypatch):
+    # reference: pyproj.Geod (Karney 2013): 0.0003° of latitude ≈ 33 m, beyond half of a 40 m grid.
+    import shapely
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import app
+    from fieldplan.plan import make_plan
+    from fieldplan.store import load_plan, write_plan
+    from fieldplan.write.tables import points_lonlat
+    from tests.geoms import E0, N0, blocks_frame
+
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "1800000000")
+    plan = make_plan(blocks_frame({"A": shapely.box(E0, N0, E0 + 120, N0 + 80)}), spacing=40, seed=1)
+    folder = write_plan(plan, tmp_path / "p")
+    lonlat = points_lonlat(plan.points)
+    ids = plan.points["point_id"].tolist()
+    lines = ["point_id,brix,lon,lat"] + [
+        f"{ids[0]},21.5,{lonlat[0, 0]},{lonlat[0, 1]}",
+        f"{ids[1]},22.5,{lonlat[1, 0]},{lonlat[1, 1] + 0.0003}",
+    ]
+    results = tmp_path / "r.csv"
+    results.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    out = CliRunner().invoke(app, ["results", str(folder), str(results)])
+    assert out.exit_code == 0, out.output
+    assert "Positions: 2 recorded, 1 more than 20 m" in out.output
+    assert f"point {ids[1]} was sampled 33." in out.output
+    stored = load_plan(folder)
+    assert (
+        set(stored.layers["results"].columns).isdisjoint({"lon", "lat"})
+        or "value" in stored.layers["results"]
+    )
+    assert len(stored.layers["actual"]) == 2

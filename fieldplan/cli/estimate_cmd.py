@@ -134,6 +134,10 @@ def estimate(
         )
         typer.echo(f"{normalise_column(value)}, round {rnd}, design {design} ({methods})")
         typer.echo(format_estimates(table, confidence=confidence))
+        from fieldplan.field.mark import substitution_notes
+
+        for line in substitution_notes(plan):
+            typer.echo(f"note: {line}")
         if design in ("grid", "balanced") and not local_variance:
             typer.echo(
                 "note: grid/balanced points are treated as a simple random sample, which is "

@@ -36,6 +36,19 @@ def results(
         bool,
         typer.Option("--allow-duplicate", help="Import a file already imported, as a new round."),
     ] = False,
+    positions: Annotated[
+        Path | None,
+        typer.Option(
+            "--positions", help="GPX waypoints named by point id: where samples were actually taken."
+        ),
+    ] = None,
+    max_offset: Annotated[
+        float | None,
+        typer.Option(
+            "--max-offset",
+            help="Metres from the planned spot before a sample is flagged (default: half the grid spacing, else 10).",
+        ),
+    ] = None,
     quiet: Quiet = False,
 ) -> None:
     """Check a results file against the plan's points and store it as the next round.
@@ -67,6 +80,28 @@ def results(
         typer.echo(
             f"Stored round {round_no}: {matched} of {total} plan points, values {cols} "
             f"-> {Path(plan_dir) / 'plan.gpkg'} (layer results)"
+        )
+
+    _positions(plan, plan_dir, file, positions, max_offset=max_offset, round_no=round_no, quiet=quiet)
+
+
+def _positions(plan, plan_dir: Path, file: Path, gpx: Path | None, *, max_offset, round_no: int, quiet: bool):
+    """Compare recorded positions (lon/lat columns or a GPX file) with the plan and store them."""
+    from fieldplan.field.positions import default_max_offset, positions_from_csv, read_gpx_positions
+    from fieldplan.field.record import POSITIONS_NAME, record_positions
+
+    actual = read_gpx_positions(gpx) if gpx is not None else positions_from_csv(file)
+    if actual is None:
+        return
+    limit = default_max_offset(plan.params) if max_offset is None else max_offset
+    report = record_positions(plan_dir, actual, max_offset=limit, round_no=round_no, recorded_utc=_now_utc())
+    far = report[report["beyond_max_offset"]]
+    for row in far.head(50).itertuples(index=False):
+        echo_err(f"warning: point {row.point_id} was sampled {row.offset_m:.1f} m from its planned spot")
+    if not quiet:
+        typer.echo(
+            f"Positions: {len(report)} recorded, {len(far)} more than {limit:g} m from the plan "
+            f"-> {Path(plan_dir) / POSITIONS_NAME}"
         )
 
 
