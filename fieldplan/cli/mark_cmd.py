@@ -76,6 +76,8 @@ def mark(
     )
     for note in result.notes:
         echo_err(f"note: {note}")
+    if (Path(plan_dir) / "crews.csv").exists():
+        echo_err("note: crew routes were made before this change; run 'fieldplan crews' again")
     if quiet:
         return
     for row in result.events.itertuples(index=False):
