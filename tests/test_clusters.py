@@ -7,6 +7,7 @@ import tracemalloc
 import numpy as np
 import pytest
 import shapely
+import shapely.affinity
 from scipy import stats
 from shapely.geometry import LineString, Polygon, box
 
@@ -181,3 +182,144 @@ def test_clipped_model_keeps_numbers_and_positions_of_the_whole_block():
     every = pick_plants(full, full.total_plants, rng=np.random.default_rng(0))
     inside = shapely.contains_xy(headland, every.x, every.y)
     assert part.total_plants == int(inside.sum())
+
+
+# --- Scanline rows against GEOS line-polygon intersection ---------------------
+# reference: shapely/GEOS line-polygon intersection. The functions below clip each
+# row line with shapely.intersection (the way rows were cut before the scanline)
+# and must give the same rows, numbering, starts and lengths.
+
+
+def _reference_segments(row_lines, clip, ps):
+    pieces = shapely.line_merge(shapely.intersection(row_lines, clip))
+    parts, which = shapely.get_parts(pieces, return_index=True)
+    keep = (shapely.get_type_id(parts) == 1) & (shapely.length(parts) > 1e-9)
+    parts, which = parts[keep], which[keep]
+    host = row_lines[which]
+    at_start = shapely.line_locate_point(host, shapely.get_point(parts, 0))
+    at_end = shapely.line_locate_point(host, shapely.get_point(parts, -1))
+    parts = np.where(at_end < at_start, shapely.reverse(parts), parts)
+    order = np.lexsort((np.minimum(at_start, at_end), which))
+    parts, which = parts[order], which[order]
+    length = shapely.length(parts)
+    plants = np.floor(length / ps + 1e-9).astype(np.int64)
+    before = np.cumsum(plants) - plants
+    first = {}
+    for i, w in enumerate(which):
+        first.setdefault(w, before[i])
+    row_base = np.array([first[w] for w in which], dtype=np.int64)
+    return {
+        "row": which + 1,
+        "geometry": parts,
+        "length": length,
+        "plants": plants,
+        "first_plant": before - row_base + 1,
+        "offset": (length - plants * ps) / 2.0 + ps / 2.0,
+    }
+
+
+def _reference_row_segments(polygon, rs, ps, bearing, clip=None):
+    theta = np.radians(bearing)
+    u = np.array([np.sin(theta), np.cos(theta)])
+    v = np.array([np.cos(theta), -np.sin(theta)])
+    xy = shapely.get_coordinates(polygon)
+    pu, pv = xy @ u, xy @ v
+    offsets = np.arange(pv.min() + rs / 2.0, pv.max(), rs)
+    lo, hi = pu.min() - 1.0, pu.max() + 1.0
+    lines = shapely.linestrings(
+        np.stack([offsets[:, None] * v + lo * u, offsets[:, None] * v + hi * u], axis=1)
+    )
+    full = _reference_segments(lines, polygon, ps)
+    if clip is None:
+        return full
+    pieces = shapely.line_merge(shapely.intersection(full["geometry"], clip))
+    parts, parent = shapely.get_parts(pieces, return_index=True)
+    keep = (shapely.get_type_id(parts) == 1) & (shapely.length(parts) > 1e-9)
+    parts, parent = parts[keep], parent[keep]
+    host = full["geometry"][parent]
+    a = shapely.line_locate_point(host, shapely.get_point(parts, 0))
+    b = shapely.line_locate_point(host, shapely.get_point(parts, -1))
+    parts = np.where(b < a, shapely.reverse(parts), parts)
+    lo, hi = np.minimum(a, b), np.maximum(a, b)
+    off = full["offset"][parent]
+    k0 = np.maximum(np.ceil((lo - off) / ps - 1e-9), 0).astype(np.int64)
+    k1 = np.minimum(np.floor((hi - off) / ps + 1e-9), full["plants"][parent] - 1).astype(np.int64)
+    order = np.lexsort((lo, parent))
+    return {
+        "row": full["row"][parent][order],
+        "geometry": parts[order],
+        "length": shapely.length(parts)[order],
+        "plants": np.maximum(k1 - k0 + 1, 0)[order],
+        "first_plant": (full["first_plant"][parent] + k0)[order],
+        "offset": (off + k0 * ps - lo)[order],
+    }
+
+
+def _random_block(rng):
+    """A star-shaped block with up to two holes, or two such blocks side by side."""
+
+    def star(cx, cy, r, k):
+        ang = np.sort(rng.uniform(0, 2 * np.pi, k))
+        rad = r * rng.uniform(0.6, 1.0, k)
+        return np.column_stack([cx + rad * np.cos(ang), cy + rad * np.sin(ang)])
+
+    def one(cx, cy):
+        r = rng.uniform(40, 150)
+        outer = star(cx, cy, r, int(rng.integers(5, 40)))
+        holes = [
+            star(cx + dx, cy + dy, r * 0.12, int(rng.integers(3, 9)))
+            for dx, dy in [(-0.3 * r, 0.0), (0.3 * r, 0.1 * r)][: int(rng.integers(0, 3))]
+        ]
+        return shapely.make_valid(Polygon(outer, holes=holes))
+
+    poly = one(0.0, 0.0)
+    if rng.random() < 0.4:
+        poly = shapely.union(poly, one(400.0, rng.uniform(-50, 50)))
+    # largest polygonal part(s) only: make_valid may return a collection
+    parts = [p for p in shapely.get_parts(poly) if p.geom_type in ("Polygon", "MultiPolygon")]
+    return shapely.union_all(parts) if len(parts) > 1 else parts[0]
+
+
+def _assert_same(got, ref):
+    assert got.row.tolist() == ref["row"].tolist()
+    assert got.plants.tolist() == ref["plants"].tolist()
+    assert got.first_plant.tolist() == ref["first_plant"].tolist()
+    np.testing.assert_allclose(got.length, ref["length"], atol=1e-6, rtol=0)
+    np.testing.assert_allclose(got.offset, ref["offset"], atol=1e-6, rtol=0)
+    start_got = shapely.get_coordinates(shapely.get_point(got.geometry, 0))
+    start_ref = shapely.get_coordinates(shapely.get_point(ref["geometry"], 0))
+    np.testing.assert_allclose(start_got, start_ref, atol=1e-6, rtol=0)
+    end_got = shapely.get_coordinates(shapely.get_point(got.geometry, -1))
+    end_ref = shapely.get_coordinates(shapely.get_point(ref["geometry"], -1))
+    np.testing.assert_allclose(end_got, end_ref, atol=1e-6, rtol=0)
+
+
+@pytest.mark.parametrize("seed", range(40))
+def test_scanline_rows_match_geos_intersection(seed):
+    rng = np.random.default_rng(seed)
+    block = _random_block(rng)
+    # offset the block to realistic UTM coordinates
+    block = shapely.affinity.translate(block, 500_000.0, 6_200_000.0)
+    rs, ps = rng.uniform(1.5, 6.0), rng.uniform(0.8, 4.0)
+    bearing = float(rng.choice([0.0, 90.0, 45.0, rng.uniform(0, 360)]))
+    got = row_segments(block, row_spacing_m=rs, plant_spacing_m=ps, row_bearing_deg=bearing)
+    _assert_same(got, _reference_row_segments(block, rs, ps, bearing))
+    # clipped: a headland and a hole cut out, numbers kept from the whole block
+    inner = shapely.buffer(block, -rng.uniform(2, 10), join_style="mitre")
+    c = block.centroid
+    clip = shapely.difference(inner, shapely.box(c.x - 15, c.y - 10, c.x + 20, c.y + 12))
+    if clip.is_empty:
+        return
+    got = row_segments(block, row_spacing_m=rs, plant_spacing_m=ps, row_bearing_deg=bearing, clip=clip)
+    _assert_same(got, _reference_row_segments(block, rs, ps, bearing, clip))
+
+
+def test_scanline_row_through_a_vertex():
+    # Rows at x = 1, 3, 5 (bearing 0, spacing 2) pass exactly through the diamond's
+    # vertices at x = 3 (top and bottom) and the notch vertex at (3, 4).
+    diamond = Polygon([(0, 5), (3, 0), (6, 5), (3, 10), (4.5, 7.5), (3, 4), (1.5, 7.5), (3, 10)])
+    diamond = shapely.make_valid(diamond)
+    diamond = max(shapely.get_parts(diamond), key=lambda g: g.area)
+    for bearing in (0.0, 180.0):
+        got = row_segments(diamond, row_spacing_m=2.0, plant_spacing_m=0.5, row_bearing_deg=bearing)
+        _assert_same(got, _reference_row_segments(diamond, 2.0, 0.5, bearing))

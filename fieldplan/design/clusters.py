@@ -161,6 +161,84 @@ def _segments(row_lines: np.ndarray, clip: BaseGeometry | None, plant_spacing: f
     )
 
 
+def _row_intervals(
+    rings_uv: tuple[np.ndarray, np.ndarray, np.ndarray], offsets: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Even-odd scanline: pieces of the lines ``v = offsets[k]`` inside the rings.
+
+    ``rings_uv`` holds the ring vertices in the row frame (``u`` along the rows,
+    ``v`` across) and the ring index of each vertex; rings are closed. An edge
+    crosses the line ``v = c`` when ``min(v0, v1) <= c < max(v0, v1)``
+    (half-open, so a vertex on a line is counted once, or twice at a local
+    minimum where the two crossings pair into a zero-length piece). Crossings
+    of a line sorted along ``u`` pair up (1st-2nd, 3rd-4th, ...) into the
+    pieces inside; pieces that meet end to end are joined, as
+    :func:`shapely.line_merge` does.
+
+    Returns
+    -------
+    row, start, end : numpy.ndarray
+        0-based index into ``offsets`` and ``u`` range of each piece, ordered by
+        row then along the row, pieces shorter than ``_LEN_TOL`` dropped.
+    """
+    pu, pv, ring = rings_uv
+    same = ring[:-1] == ring[1:]
+    u0, v0, u1, v1 = pu[:-1][same], pv[:-1][same], pu[1:][same], pv[1:][same]
+    vlo, vhi = np.minimum(v0, v1), np.maximum(v0, v1)
+    k_lo = np.searchsorted(offsets, vlo, side="left")
+    k_hi = np.searchsorted(offsets, vhi, side="left")
+    count = k_hi - k_lo
+    edge = np.repeat(np.arange(count.size), count)
+    k = np.arange(edge.size) - np.repeat(np.cumsum(count) - count, count) + k_lo[edge]
+    c = offsets[k]
+    du, dv = u1[edge] - u0[edge], v1[edge] - v0[edge]
+    # dv is never 0 here: a flat edge crosses no line under the half-open rule.
+    at = u0[edge] + (c - v0[edge]) * (du / dv)
+    order = np.lexsort((at, k))
+    k, at = k[order], at[order]
+    row, start, end = k[0::2], at[0::2], at[1::2]
+    if row.size > 1:
+        # A piece that starts where the previous one on its row ends continues it.
+        joined = np.r_[False, (row[1:] == row[:-1]) & (start[1:] == end[:-1])]
+        if joined.any():
+            head = np.flatnonzero(~joined)
+            last = np.r_[head[1:], row.size] - 1
+            row, start, end = row[head], start[head], end[last]
+    keep = end - start > _LEN_TOL
+    return row[keep], start[keep], end[keep]
+
+
+def _frame(theta: float) -> tuple[np.ndarray, np.ndarray]:
+    u = np.array([np.sin(theta), np.cos(theta)])  # along the rows
+    v = np.array([np.cos(theta), -np.sin(theta)])  # across, to the right of u
+    return u, v
+
+
+def _rings_uv(polygon: BaseGeometry, u: np.ndarray, v: np.ndarray):
+    rings = shapely.get_rings(shapely.get_parts(polygon))
+    xy, ring = shapely.get_coordinates(rings, return_index=True)
+    return xy @ u, xy @ v, ring
+
+
+def _lines(offsets: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.ndarray, v: np.ndarray):
+    base = offsets[:, None] * v
+    ends = np.stack([base + start[:, None] * u, base + end[:, None] * u], axis=1)
+    return shapely.linestrings(ends) if ends.size else np.empty(0, dtype=object)
+
+
+def _plant_layout(row: np.ndarray, length: np.ndarray, ps: float) -> tuple[np.ndarray, ...]:
+    plants = np.floor(length / ps + 1e-9).astype(np.int64)
+    offset = (length - plants * ps) / 2.0 + ps / 2.0
+    # Plants of earlier segments of the same row, for numbering along the row.
+    before = np.cumsum(plants) - plants
+    if row.size:
+        _, first_of_row = np.unique(row, return_index=True)
+        row_base = np.repeat(before[first_of_row], np.diff(np.append(first_of_row, row.size)))
+    else:
+        row_base = np.zeros(0, dtype=np.int64)
+    return plants, offset, before - row_base + 1
+
+
 def row_segments(
     polygon: BaseGeometry,
     *,
@@ -170,6 +248,10 @@ def row_segments(
     clip: BaseGeometry | None = None,
 ) -> RowSegments:
     """Row segments of the spacing model for a block.
+
+    Rows are cut by an even-odd scanline over the polygon's ring edges in the
+    row frame (no per-row geometry operations), so the cost is O(vertices +
+    rows + crossings).
 
     Parameters
     ----------
@@ -189,20 +271,70 @@ def row_segments(
         raise OptionError("row bearing is unknown; give the block a row bearing in degrees")
     if polygon is None or polygon.is_empty:
         raise DesignError("the block has no geometry to lay rows in")
-    theta = np.radians(float(row_bearing_deg))
-    u = np.array([np.sin(theta), np.cos(theta)])  # along the rows
-    v = np.array([np.cos(theta), -np.sin(theta)])  # across, to the right of u
-    xy = shapely.get_coordinates(polygon)
-    pu, pv = xy @ u, xy @ v
+    if shapely.get_type_id(polygon) not in (3, 6):
+        raise DesignError("the block is not a polygon; rows are laid out in polygons only")
+    u, v = _frame(np.radians(float(row_bearing_deg)))
+    pu, pv, ring = _rings_uv(polygon, u, v)
     offsets = np.arange(pv.min() + rs / 2.0, pv.max(), rs)
-    lo, hi = pu.min() - 1.0, pu.max() + 1.0
-    ends = np.stack([offsets[:, None] * v + lo * u, offsets[:, None] * v + hi * u], axis=1)  # (rows, 2, 2)
-    lines = shapely.linestrings(ends)
+    row, start, end = _row_intervals((pu, pv, ring), offsets)
+    length = end - start
+    plants, offset, first_plant = _plant_layout(row, length, ps)
+    full = RowSegments(
+        row=row.astype(np.int64) + 1,
+        geometry=_lines(offsets[row], start, end, u, v),
+        length=length,
+        plants=plants,
+        first_plant=first_plant,
+        offset=offset,
+        plant_spacing=ps,
+    )
     if clip is None:
-        return _segments(lines, polygon, ps)
+        return full
     # Number plants over the whole block, then keep those inside ``clip``.
-    full = _segments(lines, polygon, ps)
-    return _clip_segments(full, clip)
+    if clip.is_empty or shapely.get_type_id(clip) not in (3, 6):
+        return _clip_segments(full, clip)
+    cu, cv, cring = _rings_uv(clip, u, v)
+    crow, cstart, cend = _row_intervals((cu, cv, cring), offsets)
+    return _clip_intervals(full, start, (crow + 1, cstart, cend), offsets, u, v)
+
+
+def _clip_intervals(
+    full: RowSegments,
+    start: np.ndarray,
+    clip: tuple[np.ndarray, np.ndarray, np.ndarray],
+    offsets: np.ndarray,
+    u: np.ndarray,
+    v: np.ndarray,
+) -> RowSegments:
+    """:func:`_clip_segments` for a polygonal clip, on ``u`` intervals of the same rows."""
+    ps = float(full.plant_spacing)
+    crow, cstart, cend = clip
+    # Pair every full segment with every clip piece of its row (both sorted by row).
+    lo_i = np.searchsorted(crow, full.row, side="left")
+    hi_i = np.searchsorted(crow, full.row, side="right")
+    count = hi_i - lo_i
+    parent = np.repeat(np.arange(full.row.size), count)
+    piece = np.arange(parent.size) - np.repeat(np.cumsum(count) - count, count) + lo_i[parent]
+    a0 = start[parent]
+    lo_u = np.maximum(a0, cstart[piece])
+    hi_u = np.minimum(a0 + full.length[parent], cend[piece])
+    keep = hi_u - lo_u > _LEN_TOL
+    parent, lo_u, hi_u, a0 = parent[keep], lo_u[keep], hi_u[keep], a0[keep]
+    lo, hi = lo_u - a0, hi_u - a0
+    off = full.offset[parent]
+    # Plant k of the parent sits at off + k * ps; keep those with lo <= position <= hi.
+    k0 = np.maximum(np.ceil((lo - off) / ps - 1e-9), 0).astype(np.int64)
+    k1 = np.minimum(np.floor((hi - off) / ps + 1e-9), full.plants[parent] - 1).astype(np.int64)
+    row = full.row[parent]
+    return RowSegments(
+        row=row,
+        geometry=_lines(offsets[row - 1], lo_u, hi_u, u, v),
+        length=hi_u - lo_u,
+        plants=np.maximum(k1 - k0 + 1, 0),
+        first_plant=full.first_plant[parent] + k0,
+        offset=off + k0 * ps - lo,
+        plant_spacing=ps,
+    )
 
 
 def _clip_segments(full: RowSegments, clip: BaseGeometry) -> RowSegments:
