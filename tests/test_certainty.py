@@ -10,7 +10,7 @@ from fieldplan.field.certainty import pps_inclusion
 
 
 def test_hand_worked_case():
-    # reference: certainty-unit procedure of Särndal, Swensson & Wretman (1992) §3.6 and Lohr,
+    # reference: certainty-unit procedure of Särndal, Swensson & Wretman (1992) §3.6 (from memory) and Lohr,
     # Sampling: Design and Analysis ch. 6, worked by hand: sizes 50,30,10,5,5 and n=3 give
     # 1.5 for the first unit (certain); then 2·30/50 = 1.2 (certain); then 1·(10,5,5)/20.
     pi, sure = pps_inclusion([50, 30, 10, 5, 5], 3)
@@ -27,7 +27,7 @@ def test_no_certainty_when_all_below_one():
 
 def test_random_sizes_sum_to_n_and_stay_proportional():
     # reference: sum of inclusion probabilities equals the fixed sample size (Särndal et al.
-    # 1992, result 2.6.2); non-certainty units keep pi proportional to size.
+    # 1992, result 2.6.2, from memory); non-certainty units keep pi proportional to size.
     rng = np.random.default_rng(5)
     for _ in range(50):
         sizes = rng.lognormal(0, 1.5, size=40)

@@ -89,7 +89,7 @@ def _status(folder):
 
 def test_inaccessible_point_brings_in_first_spare_of_its_stratum(plan_dir, no_png):
     # reference: the first n accessible units of a random order are a simple random sample of
-    # the accessible units (definition of SRS without replacement, Cochran 1977 §2.2).
+    # the accessible units (definition of SRS without replacement, Cochran 1977 §2.2, from memory).
     result = mark_points(plan_dir, ["A-002"], reason="flooded", by="ana", now=NOW)
     import gpxpy
 
@@ -128,7 +128,7 @@ def test_mark_then_restore_gives_back_the_same_files_and_events_only_grow(plan_d
 
 def test_order_of_marks_does_not_matter_and_spares_skip_inaccessible_ones(plan_dir, tmp_path, no_png):
     # reference: rule "sample = first n accessible points of the draw order" depends only on the
-    # set of inaccessible points (same SRS argument as above, Cochran 1977 §2.2).
+    # set of inaccessible points (same SRS argument as above, Cochran 1977 §2.2, from memory).
     other = Path(shutil.copytree(plan_dir, tmp_path / "other"))
     spares = load_plan(plan_dir).points.query("block == 'A' and spare_rank > 0").sort_values("spare_rank")
     s1, s2 = spares["point_id"].tolist()[:2]

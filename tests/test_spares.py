@@ -24,7 +24,7 @@ def test_split_draw_marks_first_n_selected_and_ranks_spares():
 
 def test_every_prefix_of_one_srs_draw_is_an_srs():
     # reference: definition of simple random sampling without replacement (Cochran, Sampling
-    # Techniques 3rd ed. 1977, §2.2): every unit has inclusion probability m/N in a sample of size m.
+    # Techniques 3rd ed. 1977, §2.2, section number from memory): every unit has inclusion probability m/N in a sample of size m.
     rng = np.random.default_rng(20261202)
     n_pop, n, k, reps = 10, 3, 3, 4000
     draws = np.stack([srs_indices(n_pop, n, k, rng=rng) for _ in range(reps)])
@@ -37,7 +37,7 @@ def test_every_prefix_of_one_srs_draw_is_an_srs():
 
 def test_every_subset_of_a_prefix_is_equally_likely():
     # reference: definition of SRS without replacement: all C(N, m) subsets equally likely
-    # (Cochran 1977, §2.2). N=5, prefix m=2 -> 10 subsets.
+    # (Cochran 1977, §2.2, from memory). N=5, prefix m=2 -> 10 subsets.
     rng = np.random.default_rng(7)
     reps = 5000
     subsets = {s: i for i, s in enumerate(itertools.combinations(range(5), 2))}
