@@ -102,3 +102,33 @@ def test_scale_bar_lengths_follow_1_2_5():
         100,
         2000,
     ]
+
+
+def test_many_blocks_drop_labels_and_draw_every_point(tmp_path):
+    from fieldplan.write.png import MAX_LABELLED_BLOCKS, plan_figure
+
+    n = MAX_LABELLED_BLOCKS + 10
+    features = [
+        {
+            "type": "Feature",
+            "properties": {"block": f"K{i:03d}", "stratum": f"S{i % 40}"},
+            "geometry": _square(18.9 + (i % 15) * 0.0012, -33.86 + (i // 15) * 0.001, 0.001, 0.0008),
+        }
+        for i in range(n)
+    ]
+    path = tmp_path / "many.geojson"
+    path.write_text(json.dumps({"type": "FeatureCollection", "features": features}))
+    many = make_plan(read_blocks(path), spacing=20.0, seed=2, command=["test"])
+    assert many.points["stratum"].nunique() > 24
+    fig = plan_figure(many)
+    ax = fig.axes[0]
+    names = set(many.blocks["block"])
+    assert not any(t.get_text() in names for t in ax.texts)  # no block labels
+    assert any("Block labels left out" in t.get_text() for t in fig.texts)  # and the page says so
+    # Every point is drawn once, whatever the number of strata (40 here, over the legend's 24).
+    from matplotlib.collections import PathCollection
+
+    drawn = np.concatenate([c.get_offsets() for c in ax.collections if isinstance(c, PathCollection)])
+    assert len(drawn) == len(many.points)
+    xy = np.column_stack([many.points.geometry.x, many.points.geometry.y])
+    assert np.array_equal(np.unique(drawn, axis=0), np.unique(xy, axis=0))

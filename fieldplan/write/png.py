@@ -45,6 +45,9 @@ MARKERS = {
     "hexagon": "h",
 }
 MAX_LEGEND_STRATA = 24
+#: Above this many blocks the page carries no block labels: at A4 they overlap
+#: into an unreadable mass, and drawing them dominated the time to write a plan.
+MAX_LABELLED_BLOCKS = 200
 
 
 def nice_length(span_m: float) -> float:
@@ -94,6 +97,35 @@ def _patches(geoms, **style):
             )
             patches.append(PathPatch(MplPath(verts, codes)))
     return PatchCollection(patches, match_original=False, **style)
+
+
+def _scatter_by_marker(ax, xy: np.ndarray, strata: np.ndarray, styles: dict, size: float) -> None:
+    """Points of many strata: one scatter per marker shape, colours per point.
+
+    Points keep the strata's order inside each shape; one call per stratum
+    would cost a matplotlib collection per stratum.
+    """
+    names = list(styles)
+    index = {name: i for i, name in enumerate(names)}
+    uniq, inverse = np.unique(strata, return_inverse=True)
+    code = np.array([index[u] for u in uniq.tolist()], dtype=np.int64)[inverse.ravel()]
+    shapes = np.array([styles[n]["shape"] for n in names], dtype=object)
+    colours = np.array([styles[n]["colour"] for n in names], dtype=object)
+    order = np.argsort(code, kind="stable")
+    for shape in dict.fromkeys(shapes.tolist()):
+        sel = order[shapes[code[order]] == shape]
+        if not sel.size:
+            continue
+        ax.scatter(
+            xy[sel, 0],
+            xy[sel, 1],
+            s=size,
+            marker=MARKERS[shape],
+            c=colours[code[sel]].tolist(),
+            edgecolors="#1a1a1a",
+            linewidths=0.5,
+            zorder=3,
+        )
 
 
 def _text(ax, x, y, s, **kw):
@@ -146,36 +178,41 @@ def plan_figure(plan: Any, *, title: str | None = None):
     strata = points["stratum"].astype(str).to_numpy() if len(points) else np.array([])
     size = 28 if len(points) < 500 else (14 if len(points) < 5000 else 4)
     handles = []
+    if len(styles) > MAX_LEGEND_STRATA:
+        _scatter_by_marker(ax, xy, strata, styles, size)
     for i, (name, style) in enumerate(styles.items()):
+        if i >= MAX_LEGEND_STRATA:
+            break
         mask = strata == name
         marker = MARKERS[style["shape"]]
-        ax.scatter(
-            xy[mask, 0],
-            xy[mask, 1],
-            s=size,
-            marker=marker,
-            c=style["colour"],
-            edgecolors="#1a1a1a",
-            linewidths=0.5,
-            zorder=3,
-        )
-        if i < MAX_LEGEND_STRATA:
-            handles.append(
-                Line2D(
-                    [],
-                    [],
-                    linestyle="none",
-                    marker=marker,
-                    markersize=7,
-                    markerfacecolor=style["colour"],
-                    markeredgecolor="#1a1a1a",
-                    label=f"Stratum {name} ({int(mask.sum())})",
-                )
+        if len(styles) <= MAX_LEGEND_STRATA:
+            ax.scatter(
+                xy[mask, 0],
+                xy[mask, 1],
+                s=size,
+                marker=marker,
+                c=style["colour"],
+                edgecolors="#1a1a1a",
+                linewidths=0.5,
+                zorder=3,
             )
+        handles.append(
+            Line2D(
+                [],
+                [],
+                linestyle="none",
+                marker=marker,
+                markersize=7,
+                markerfacecolor=style["colour"],
+                markeredgecolor="#1a1a1a",
+                label=f"Stratum {name} ({int(mask.sum())})",
+            )
+        )
     if len(styles) > MAX_LEGEND_STRATA:
         handles.append(Patch(color="none", label=f"... and {len(styles) - MAX_LEGEND_STRATA} more strata"))
 
-    if len(blocks):
+    labelled = 0 < len(blocks) <= MAX_LABELLED_BLOCKS
+    if labelled:
         anchors = shapely.get_coordinates(shapely.point_on_surface(blocks.geometry.values))
         varieties = blocks["variety"].tolist() if "variety" in blocks else [None] * len(blocks)
         for (x, y), name, variety in zip(anchors, blocks["block"].tolist(), varieties, strict=True):
@@ -278,6 +315,8 @@ def plan_figure(plan: Any, *, title: str | None = None):
         f"Seed {caption['seed']}   Date {caption['date'] or '-'}   Design {caption['design'] or '-'}"
         f"   {len(points)} points in {len(blocks)} blocks   CRS {plan.crs.name}"
     )
+    if len(blocks) > MAX_LABELLED_BLOCKS:
+        sub += f"   Block labels left out (over {MAX_LABELLED_BLOCKS} blocks): see map.html or points.csv"
     fig.text(0.03, 0.925, sub, fontsize=8, parse_math=False)
     cautions = "Cautions: " + " ".join(str(c) for c in plan_cautions(plan))
     fig.text(
