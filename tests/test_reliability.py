@@ -428,7 +428,7 @@ def test_bad_input_exit_2_one_line_nothing_written(tmp_path, case):
     assert not list(tmp_path.glob(".plan-out.*"))
 
 
-@pytest.mark.parametrize("name", ["missing", "bowtie"])
+@pytest.mark.parametrize("name", ["bowtie"])
 def test_bad_input_real_process(tmp_path, name):
     # The same through `python -m fieldplan`, as a user runs it: no traceback escapes.
     case = next(c for c in CASES if c.name == name)
