@@ -48,11 +48,29 @@ def neutralise_csv_cell(value):
 
 
 def neutralise_frame(frame):
-    """Return a copy of a pandas DataFrame with every text cell neutralised."""
+    """Return a copy of a pandas DataFrame with every text cell neutralised.
+
+    Same result as :func:`neutralise_csv_cell` on each cell, with pandas string
+    methods per column: only text cells starting with a formula character
+    change; numbers, missing values and other objects are left as they are.
+    """
+    import numpy as np
+    import pandas as pd
+
     out = frame.copy()
-    for column in out.columns:
-        if out[column].dtype == object or str(out[column].dtype) in ("string", "str"):
-            out[column] = out[column].map(neutralise_csv_cell)
+    for i in range(out.shape[1]):
+        col = out.iloc[:, i]
+        if not (col.dtype == object or str(col.dtype) in ("string", "str")):
+            continue
+        try:
+            hit = col.str.startswith(_FORMULA_PREFIXES, na=False).to_numpy(dtype=bool, na_value=False)
+        except (AttributeError, TypeError):  # pandas found no text in the column
+            hit = np.zeros(len(col), dtype=bool)
+        values = col.to_numpy(dtype=object).copy()
+        values[hit] = ["'" + v for v in values[hit]]
+        # Rebuilt from a list so pandas infers the column type as Series.map
+        # did (e.g. whole numbers with gaps become floats), keeping the bytes.
+        out.isetitem(i, pd.Series(values.tolist(), index=col.index, name=col.name))
     return out
 
 
