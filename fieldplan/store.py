@@ -5,7 +5,7 @@ from __future__ import annotations
 from collections.abc import Callable
 from pathlib import Path
 
-from fieldplan.errors import PlanDirError
+from fieldplan.errors import OptionError, PlanDirError
 from fieldplan.samples.outputs import write_cores_geojson
 from fieldplan.write.gpkg import GPKG_NAME, read_info, write_gpkg
 from fieldplan.write.gpx import gpx_writer
@@ -21,7 +21,16 @@ from fieldplan.write.tables import (
     write_summary_csv,
 )
 
-__all__ = ["WRITERS", "write_plan", "load_plan", "CORE_LAYERS"]
+__all__ = [
+    "WRITERS",
+    "FORMATS",
+    "CORE_FORMATS",
+    "REQUIRED_FORMATS",
+    "selected_formats",
+    "write_plan",
+    "load_plan",
+    "CORE_LAYERS",
+]
 
 CORE_LAYERS = ("blocks", "points", "exclusions", "plan_info")
 
@@ -41,17 +50,67 @@ WRITERS: list[Callable] = [
 ]
 
 
-def write_plan(plan, out_dir: str | Path, *, force: bool = False) -> Path:
-    """Write every output of ``plan`` into ``out_dir``.
+#: Format name of each writer (by function name), for ``write_plan(formats=...)``.
+FORMATS: dict[str, str] = {
+    "write_points_geojson": "geojson",
+    "write_cores_geojson": "geojson",
+    "write_points_csv": "csv",
+    "write_summary_csv": "summary",
+    "write_manifest": "manifest",
+    "write_readme": "readme",
+    "write_gpkg": "gpkg",
+    "map_writer": "html",
+    "gpx_writer": "gpx",
+    "kml_writer": "kml",
+    "png_writer": "png",
+}
+#: Always written: later commands reload the plan from plan.gpkg and recognise
+#: a plan folder by manifest.json; the README carries the field cautions.
+REQUIRED_FORMATS = ("manifest", "gpkg", "readme")
+#: The tables and GIS files, without the printable page, map and GPS files.
+CORE_FORMATS = ("geojson", "csv", "summary", "manifest", "gpkg", "readme")
+
+
+def selected_formats(formats) -> set[str] | None:
+    """Format names to write for a ``formats`` choice; ``None`` means every format."""
+    if formats is None:
+        return None
+    wanted = {str(f).strip().lower() for f in formats if str(f).strip()}
+    if "all" in wanted:
+        return None
+    if "core" in wanted:
+        wanted = (wanted - {"core"}) | set(CORE_FORMATS)
+    known = set(FORMATS.values())
+    unknown = sorted(wanted - known)
+    if unknown:
+        raise OptionError(
+            f"unknown output format(s) {', '.join(unknown)}; choose from all, core, "
+            + ", ".join(sorted(known))
+        )
+    return wanted | set(REQUIRED_FORMATS)
+
+
+def write_plan(plan, out_dir: str | Path, *, force: bool = False, formats=None) -> Path:
+    """Write the outputs of ``plan`` into ``out_dir``.
 
     Files are written into a temporary folder beside ``out_dir`` that replaces it
     only when complete, so an interrupted run never leaves half a plan. A
     non-empty ``out_dir`` is refused unless ``force``.
+
+    ``formats`` (names from :data:`FORMATS`, or ``"core"`` / ``"all"``) picks
+    the writers to run; ``None`` runs every one. Manifest, GeoPackage and README
+    are always written, and a chosen subset is recorded in the manifest as
+    ``formats``. Writers not listed in :data:`FORMATS` always run.
     """
     out_dir = Path(out_dir)
+    chosen = selected_formats(formats)
+    if chosen is not None:
+        plan.meta["formats"] = sorted(chosen)
     with staged_folder(out_dir, force=force) as stage:
         for writer in WRITERS:
-            writer(plan, stage)
+            kind = FORMATS.get(getattr(writer, "__name__", ""))
+            if chosen is None or kind is None or kind in chosen:
+                writer(plan, stage)
     return out_dir
 
 

@@ -163,6 +163,15 @@ def plan(
     substitute: Annotated[
         str, typer.Option("--substitute", help="grid: 'within-cell' precomputes a substitute per point.")
     ] = "none",
+    formats: Annotated[
+        str,
+        typer.Option(
+            "--formats",
+            help="Outputs to write, comma-separated: all (default); core (points.geojson, points.csv, "
+            "summary.csv, plan.gpkg) for large batch runs; or any of geojson, csv, summary, gpkg, html, "
+            "gpx, kml, png. manifest.json, plan.gpkg and README.txt are always written.",
+        ),
+    ] = "all",
     seed: Seed = 0,
     force: Force = False,
     quiet: Quiet = False,
@@ -179,6 +188,10 @@ def plan(
 
     # Fail on an occupied folder (or, with --force, a folder that is not a plan) before any work.
     check_out_dir(out, force=force)
+    from fieldplan.store import selected_formats
+
+    chosen_formats = formats.split(",")
+    selected_formats(chosen_formats)  # an unknown format fails before any work
     from fieldplan.safety import load_cautions, set_cautions
 
     if cautions is not None:
@@ -239,7 +252,7 @@ def plan(
             scheduler=scheduler,
         )
     set_cautions(result, cautions)
-    write_plan(result, out, force=force)
+    write_plan(result, out, force=force, formats=chosen_formats)
     if not quiet:
         report(result, out)
 

@@ -1,0 +1,55 @@
+"""``fieldplan plan --formats``: write a chosen subset of the plan folder's files."""
+
+from __future__ import annotations
+
+import json
+
+from typer.testing import CliRunner
+
+from fieldplan.cli.main import app
+from fieldplan.demo import demo_blocks_path
+from fieldplan.store import load_plan
+
+runner = CliRunner()
+
+
+def _plan(out, *args):
+    return runner.invoke(
+        app,
+        ["plan", str(demo_blocks_path()), "--spacing", "60", "--seed", "4", "-q", "--out", str(out), *args],
+    )
+
+
+def test_core_formats_skip_page_map_and_gps_files(tmp_path):
+    full, core = tmp_path / "full", tmp_path / "core"
+    assert _plan(full).exit_code == 0
+    result = _plan(core, "--formats", "core")
+    assert result.exit_code == 0, result.output
+    names = {p.name for p in core.iterdir()}
+    assert names == {
+        "points.geojson",
+        "points.csv",
+        "summary.csv",
+        "manifest.json",
+        "plan.gpkg",
+        "README.txt",
+    }
+    assert {"plan.png", "map.html", "points.kml", "points.gpx"} <= {p.name for p in full.iterdir()}
+    # The files that are written do not depend on the choice.
+    for name in ("points.geojson", "points.csv", "summary.csv"):
+        assert (core / name).read_bytes() == (full / name).read_bytes()
+    manifest = json.loads((core / "manifest.json").read_text())
+    assert manifest["formats"] == sorted(["csv", "geojson", "gpkg", "manifest", "readme", "summary"])
+    assert "formats" not in json.loads((full / "manifest.json").read_text())
+    # reference: the plan folder reloads from plan.gpkg (always written)
+    assert len(load_plan(core).points) == sum(1 for _ in (core / "points.csv").open()) - 1
+
+
+def test_single_formats_and_unknown_format(tmp_path):
+    out = tmp_path / "gpx"
+    assert _plan(out, "--formats", "gpx,csv").exit_code == 0
+    names = {p.name for p in out.iterdir()}
+    assert names == {"points.gpx", "points.csv", "manifest.json", "plan.gpkg", "README.txt"}
+    bad = _plan(tmp_path / "bad", "--formats", "csv,xls")
+    assert bad.exit_code == 2
+    assert "xls" in bad.output and not (tmp_path / "bad").exists()
