@@ -130,8 +130,10 @@ def load_plan(plan_dir: str | Path):
         names = [row[0] for row in pyogrio.list_layers(path)]
         info = read_info(path)
         blocks = gpd.read_file(path, layer="blocks", engine="pyogrio")
+        blocks = blocks.set_geometry(_single_parts(blocks.geometry.values), crs=blocks.crs)
         points = gpd.read_file(path, layer="points", engine="pyogrio")
         exclusions = gpd.read_file(path, layer="exclusions", engine="pyogrio")
+        exclusions = exclusions.set_geometry(_single_parts(exclusions.geometry.values), crs=exclusions.crs)
         layers = {}
         for name in names:
             if name in CORE_LAYERS:
@@ -144,3 +146,17 @@ def load_plan(plan_dir: str | Path):
     crs = CRS.from_user_input(blocks.crs)
     blocks["flags"] = blocks["flags"].fillna("") if "flags" in blocks else ""
     return Plan(blocks, points, exclusions.set_crs(crs, allow_override=True), crs, params, info, layers)
+
+
+def _single_parts(geoms):
+    """The blocks layer stores every block as MultiPolygon; give one-part blocks back as Polygon.
+
+    A reloaded plan then writes the same files as the plan that was saved.
+    """
+    import numpy as np
+    import shapely
+
+    geoms = np.asarray(geoms, dtype=object).copy()
+    one = (shapely.get_type_id(geoms) == 6) & (shapely.get_num_geometries(geoms) == 1)
+    geoms[one] = shapely.get_geometry(geoms[one], 0)
+    return geoms

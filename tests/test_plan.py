@@ -170,3 +170,14 @@ def test_property_points_inside_buffered_blocks(seed, buffer, spacing, layout, s
     assert plan.blocks["n_points"].sum() == len(plan.points)
     again = make_plan(blocks, spacing=spacing, edge_buffer=buffer, layout=layout, start=start, seed=seed)
     assert plan.points.geometry.geom_equals(again.points.geometry).all()
+
+
+def test_reloaded_plan_writes_the_same_files(tmp_path):
+    # A plan read back from plan.gpkg must reproduce every file the original wrote.
+    from fieldplan.demo import make_demo_plan
+
+    plan = make_demo_plan()
+    write_plan(plan, tmp_path / "a")
+    write_plan(load_plan(tmp_path / "a"), tmp_path / "b")
+    for name in ("points.geojson", "points.csv", "summary.csv", "map.html", "points.kml", "points.gpx"):
+        assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes(), name
