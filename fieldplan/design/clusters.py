@@ -32,6 +32,7 @@ cumulative counts. Memory and time are O(rows + n), never O(plants).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import shapely
@@ -64,8 +65,6 @@ class RowSegments:
     ----------
     row : numpy.ndarray
         1-based row number of each segment.
-    geometry : numpy.ndarray
-        LineString of each segment, oriented from the row's start.
     length : numpy.ndarray
         Segment length in metres.
     plants : numpy.ndarray
@@ -77,15 +76,33 @@ class RowSegments:
     plant_spacing : float or numpy.ndarray
         Distance between plants along a row, metres (one value, or one per
         segment after :func:`concat_segments`).
+    lines : numpy.ndarray, optional
+        LineString of each segment, oriented from the row's start (mapped rows).
+    ends : numpy.ndarray, optional
+        ``(k, 2, 2)`` start and end coordinates of straight segments (row model);
+        their LineStrings are built only when :attr:`geometry` is asked for.
     """
 
     row: np.ndarray
-    geometry: np.ndarray
     length: np.ndarray
     plants: np.ndarray
     first_plant: np.ndarray
     offset: np.ndarray
     plant_spacing: float | np.ndarray
+    lines: np.ndarray | None = None
+    ends: np.ndarray | None = None
+
+    @cached_property
+    def geometry(self) -> np.ndarray:
+        """LineString of each segment, oriented from the row's start."""
+        return self.lines_at(slice(None))
+
+    def lines_at(self, index) -> np.ndarray:
+        """LineStrings of the segments at ``index`` (built from :attr:`ends` if needed)."""
+        if self.lines is not None:
+            return self.lines[index]
+        ends = self.ends[index]
+        return shapely.linestrings(ends) if ends.size else np.empty(0, dtype=object)
 
     @property
     def total_plants(self) -> int:
@@ -152,7 +169,7 @@ def _segments(row_lines: np.ndarray, clip: BaseGeometry | None, plant_spacing: f
         row_base = np.zeros(0, dtype=np.int64)
     return RowSegments(
         row=which.astype(np.int64) + 1,
-        geometry=parts,
+        lines=parts,
         length=length,
         plants=plants,
         first_plant=before - row_base + 1,
@@ -220,10 +237,9 @@ def _rings_uv(polygon: BaseGeometry, u: np.ndarray, v: np.ndarray):
     return xy @ u, xy @ v, ring
 
 
-def _lines(offsets: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.ndarray, v: np.ndarray):
+def _ends(offsets: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.ndarray, v: np.ndarray):
     base = offsets[:, None] * v
-    ends = np.stack([base + start[:, None] * u, base + end[:, None] * u], axis=1)
-    return shapely.linestrings(ends) if ends.size else np.empty(0, dtype=object)
+    return np.stack([base + start[:, None] * u, base + end[:, None] * u], axis=1)
 
 
 def _plant_layout(row: np.ndarray, length: np.ndarray, ps: float) -> tuple[np.ndarray, ...]:
@@ -231,11 +247,9 @@ def _plant_layout(row: np.ndarray, length: np.ndarray, ps: float) -> tuple[np.nd
     offset = (length - plants * ps) / 2.0 + ps / 2.0
     # Plants of earlier segments of the same row, for numbering along the row.
     before = np.cumsum(plants) - plants
-    if row.size:
-        _, first_of_row = np.unique(row, return_index=True)
-        row_base = np.repeat(before[first_of_row], np.diff(np.append(first_of_row, row.size)))
-    else:
-        row_base = np.zeros(0, dtype=np.int64)
+    # ``row`` is sorted: a row's segments are consecutive.
+    first_of_row = np.flatnonzero(np.r_[True, row[1:] != row[:-1]]) if row.size else row
+    row_base = np.repeat(before[first_of_row], np.diff(np.append(first_of_row, row.size)))
     return plants, offset, before - row_base + 1
 
 
@@ -281,7 +295,7 @@ def row_segments(
     plants, offset, first_plant = _plant_layout(row, length, ps)
     full = RowSegments(
         row=row.astype(np.int64) + 1,
-        geometry=_lines(offsets[row], start, end, u, v),
+        ends=_ends(offsets[row], start, end, u, v),
         length=length,
         plants=plants,
         first_plant=first_plant,
@@ -328,7 +342,7 @@ def _clip_intervals(
     row = full.row[parent]
     return RowSegments(
         row=row,
-        geometry=_lines(offsets[row - 1], lo_u, hi_u, u, v),
+        ends=_ends(offsets[row - 1], lo_u, hi_u, u, v),
         length=hi_u - lo_u,
         plants=np.maximum(k1 - k0 + 1, 0),
         first_plant=full.first_plant[parent] + k0,
@@ -362,7 +376,7 @@ def _clip_segments(full: RowSegments, clip: BaseGeometry) -> RowSegments:
     order = np.lexsort((lo, parent))
     return RowSegments(
         row=full.row[parent][order],
-        geometry=parts[order],
+        lines=parts[order],
         length=shapely.length(parts)[order],
         plants=plants[order],
         first_plant=(full.first_plant[parent] + k0)[order],
@@ -387,9 +401,11 @@ def concat_segments(parts: list[RowSegments]) -> tuple[RowSegments, np.ndarray]:
     spacing = np.concatenate(
         [np.broadcast_to(np.asarray(p.plant_spacing, dtype=float), p.row.shape) for p in parts]
     )
+    straight = all(p.lines is None for p in parts)
     joined = RowSegments(
         row=cat("row"),
-        geometry=np.concatenate([p.geometry for p in parts]),
+        lines=None if straight else np.concatenate([p.geometry for p in parts]),
+        ends=np.concatenate([p.ends for p in parts]) if straight else None,
         length=cat("length"),
         plants=cat("plants"),
         first_plant=cat("first_plant"),
@@ -518,7 +534,7 @@ def pick_plants(
     spacing = np.asarray(segments.plant_spacing, dtype=float)
     step = spacing if spacing.ndim == 0 else spacing[seg]
     dist = segments.offset[seg] + within * step
-    pts = shapely.line_interpolate_point(segments.geometry[seg], dist)
+    pts = shapely.line_interpolate_point(segments.lines_at(seg), dist)
     xy = shapely.get_coordinates(pts).reshape(-1, 2)
     return PlantPicks(
         row=segments.row[seg],
