@@ -121,7 +121,11 @@ def study_floor(*, smoke: bool = False, seed: int = 21) -> list[Result]:
             core["total"] / floor,
             1.5,
             "lower",
-            details=details(core, f"{api}(formats={list(CORE)}), as 'fieldplan plan --formats core'"),
+            details={
+                **details(core, f"{api}(formats={list(CORE)}), as 'fieldplan plan --formats core'"),
+                "note": "the target applies to this row: the floor writes one GeoJSON; the all-formats "
+                "row adds the offline map, KML, GPX and printable page, which the floor does not write",
+            },
         ),
         Result(
             "plan",
