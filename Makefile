@@ -28,7 +28,7 @@ demo: $(STAMP)
 	$(FP) plan $(EST) --exclude $(EXCL) --spacing 100 --purpose soil --seed 7 --out $(DEMO_OUT)/soil --force -q
 	$(FP) labels $(DEMO_OUT)/soil --layout a4-3x8 -q
 	$(FP) lab-sheet $(DEMO_OUT)/soil --analyses "pH,P,K" -q
-	$(FP) plan $(EST) --spacing 60 --purpose ripeness --crop-profile wine-grapes --seed 7 --out $(DEMO_OUT)/ripeness --force -q
+	$(FP) plan $(EST) --spacing 60 --purpose ripeness --crop-profile wine-grapes --select "crop=wine grape" --seed 7 --out $(DEMO_OUT)/ripeness --force -q
 	$(FP) labels $(DEMO_OUT)/ripeness --layout letter-3x10 -q
 	@echo
 	@echo "Demo plans written under $(DEMO_OUT)/: plan (grid, crews, results), soil (cores, labels, lab sheet), ripeness"

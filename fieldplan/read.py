@@ -21,13 +21,14 @@ import shapely
 from pyproj import CRS
 
 from fieldplan.crs import WGS84, utm_crs_for
-from fieldplan.errors import InputError, InvalidBlocksError
+from fieldplan.errors import InputError, InvalidBlocksError, OptionError
 
 __all__ = [
     "ID_CANDIDATES",
     "ROW_FIELDS",
     "read_blocks",
     "read_exclusions",
+    "select_blocks",
     "file_sha256",
     "read_frame",
     "check_row_attributes",
@@ -654,4 +655,27 @@ def read_exclusions(path: str | Path, *, crs: CRS, layer: str | None = None) -> 
     out = gpd.GeoDataFrame(
         {"name": names}, geometry=gpd.GeoSeries(geoms, crs=frame.crs).to_crs(crs).values, crs=crs
     )
+    return out
+
+
+def select_blocks(blocks: gpd.GeoDataFrame, expression: str) -> gpd.GeoDataFrame:
+    """Keep the blocks whose attribute matches ``FIELD=VALUE[,VALUE...]`` (case-insensitive text).
+
+    Examples: ``crop=wine grape``, ``variety=Syrah,Pinotage``, ``block=V01,V02``.
+    """
+    source = blocks.attrs.get("source", "blocks")
+    field, sep, values = expression.partition("=")
+    field = field.strip()
+    if not sep or not field or not values.strip():
+        raise OptionError(f"--select takes FIELD=VALUE[,VALUE...], e.g. crop=wine grape; got {expression!r}")
+    column = _find_column(blocks, field.lower()) if field.lower() != "block" else "block"
+    if column is None:
+        fields = ", ".join(c for c in blocks.columns if c != "geometry")
+        raise OptionError(f"{source}: no field {field!r} to select on; fields are: {fields}")
+    wanted = {v.strip().casefold() for v in values.split(",") if v.strip()}
+    keep = blocks[column].map(lambda v: v is not None and str(v).strip().casefold() in wanted).to_numpy(bool)
+    if not keep.any():
+        raise OptionError(f"{source}: no block has {field} in {sorted(wanted)}; check the values in the file")
+    out = blocks[keep].reset_index(drop=True)
+    out.attrs.update(blocks.attrs)
     return out

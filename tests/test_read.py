@@ -147,3 +147,19 @@ def test_exclusions_refuse_lines(tmp_path):
     path = write_geojson(frame, tmp_path / "x.geojson")
     with pytest.raises(InputError, match="buffer tracks"):
         read_exclusions(path, crs="EPSG:32633")
+
+
+def test_select_blocks_by_attribute(tmp_path):
+    from fieldplan.errors import OptionError
+    from fieldplan.read import select_blocks
+
+    frame = _lonlat_blocks(variety=["Syrah", "syrah ", "Pinotage"])
+    blocks = read_blocks(write_geojson(frame, tmp_path / "b.geojson"))
+    assert select_blocks(blocks, "variety=SYRAH")["block"].tolist() == ["B0", "B1"]
+    assert select_blocks(blocks, "block=B2,B0")["block"].tolist() == ["B0", "B2"]
+    with pytest.raises(OptionError, match="no block has"):
+        select_blocks(blocks, "variety=Merlot")
+    with pytest.raises(OptionError, match="no field 'crop'"):
+        select_blocks(blocks, "crop=vine")
+    with pytest.raises(OptionError, match="FIELD=VALUE"):
+        select_blocks(blocks, "variety")

@@ -53,6 +53,10 @@ def plan(
         Path | None, typer.Option(help="Polygons to keep samples out of (wet spots, buildings, tracks).")
     ] = None,
     layer: Annotated[str | None, typer.Option(help="GeoPackage layer holding the blocks.")] = None,
+    select: Annotated[
+        str | None,
+        typer.Option(help="Plan only blocks whose FIELD matches: FIELD=VALUE[,VALUE...], e.g. 'crop=wine grape'."),
+    ] = None,
     id_field: Annotated[
         str | None,
         typer.Option("--id-field", help="Field with block ids (default: block, block_id, id or name)."),
@@ -181,7 +185,7 @@ def plan(
     Example: fieldplan plan blocks.geojson --spacing 40 --edge-buffer 8 --seed 7 --out plan-2027-soil
     """
     from fieldplan.plan import make_plan
-    from fieldplan.read import read_blocks, read_exclusions
+    from fieldplan.read import read_blocks, read_exclusions, select_blocks
     from fieldplan.store import write_plan
     from fieldplan.stratified import read_rows
     from fieldplan.write.safe import check_out_dir
@@ -212,6 +216,8 @@ def plan(
 
     check_engine(engine, scheduler)  # a bad engine option fails before any work
     blocks = read_blocks(blocks_file, layer=layer, id_field=id_field, repair=repair)
+    if select is not None:
+        blocks = select_blocks(blocks, select)
     exclusions = read_exclusions(exclude, crs=blocks.crs) if exclude is not None else None
     with progress_callback("Planning blocks", quiet=quiet) as progress:
         result = make_plan(
