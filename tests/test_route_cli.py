@@ -105,8 +105,27 @@ def test_crews_max_hours_and_option_errors(plan_dir):
     pts = load_plan(plan_dir).points
     assert left[0] == "point_id,block"
     assert len(left) - 1 == int((pts["crew"] == 0).sum()) > 0
-    bad = runner.invoke(app, ["crews", str(plan_dir), "--crews", "2", "--return", "--force"])
-    assert bad.exit_code == 2 and "--start" in bad.output and "Traceback" not in bad.output
+    bad = runner.invoke(app, ["crews", str(plan_dir), "--crews", "0", "--force"])
+    assert bad.exit_code == 2 and "--crews" in bad.output and "Traceback" not in bad.output
+
+
+def test_crews_return_without_start_uses_blocks_centroid(plan_dir):
+    import shapely
+    from pyproj import Transformer
+
+    result = runner.invoke(app, ["crews", str(plan_dir), "--crews", "2", "--return"])
+    assert result.exit_code == 0, result.output
+    assert "Drop-off:" in result.output and "centroid" in result.output
+    plan = load_plan(plan_dir)
+    # reference: shapely.centroid of shapely.union_all (GEOS), the documented default drop-off
+    centre = shapely.centroid(shapely.union_all(plan.blocks.geometry.values))
+    for line in plan.layers["routes"].geometry:
+        xy = shapely.get_coordinates(line)
+        assert xy[0] == pytest.approx([centre.x, centre.y], abs=1e-6)
+        assert xy[-1] == pytest.approx([centre.x, centre.y], abs=1e-6)
+    # the printed LON,LAT is the same point; reference: pyproj.Transformer
+    lon, lat = Transformer.from_crs(plan.crs, "EPSG:4326", always_xy=True).transform(centre.x, centre.y)
+    assert f"{lon:.6f},{lat:.6f}" in result.output
 
 
 def test_schedule_ics(plan_dir, tmp_path):

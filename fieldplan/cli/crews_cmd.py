@@ -18,7 +18,13 @@ def crews(
     n_crews: Annotated[int, typer.Option("--crews", min=1, help="Number of crews.")],
     start: Annotated[
         str | None,
-        typer.Option("--start", help="Drop-off point LON,LAT where every crew begins."),
+        typer.Option(
+            "--start",
+            help=(
+                "Drop-off point LON,LAT where every crew begins. With --return and no --start, "
+                "the centroid of the union of the plan's blocks."
+            ),
+        ),
     ] = None,
     walk_speed: Annotated[float, typer.Option("--walk-speed", min=0.1, help="Walking speed, km/h.")] = 4.0,
     minutes_per_point: Annotated[
@@ -29,7 +35,10 @@ def crews(
         typer.Option("--max-hours", min=0.1, help="Longest day of a crew; what does not fit is listed."),
     ] = None,
     return_to_start: Annotated[
-        bool, typer.Option("--return", help="Crews walk back to the drop-off (needs --start).")
+        bool,
+        typer.Option(
+            "--return", help="Crews walk back to the drop-off (--start, else the blocks' centroid)."
+        ),
     ] = False,
     across_factor: Annotated[
         float,
@@ -70,8 +79,19 @@ def crews(
             f"(listed in {Path(plan_dir) / 'crews_unfitted.csv'}); add crews or hours"
         )
     if not quiet:
+        if run.start_xy is not None:
+            typer.echo(_start_line(run, plan.crs))
         typer.echo(run.table.to_string(index=False))
         typer.echo(f"Crews written to {Path(plan_dir)} (crews.csv, crew_NN.gpx, crew_sheets.html)")
+
+
+def _start_line(run, crs) -> str:
+    """Say which drop-off the crews start from, in LON,LAT as --start takes it."""
+    from pyproj import Transformer
+
+    lon, lat = Transformer.from_crs(crs, "EPSG:4326", always_xy=True).transform(*run.start_xy)
+    where = "--start" if run.start_source == "given" else "centroid of the plan's blocks (no --start given)"
+    return f"Drop-off: {lon:.6f},{lat:.6f} ({where})"
 
 
 def register(app: typer.Typer) -> None:

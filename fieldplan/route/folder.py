@@ -27,7 +27,7 @@ from fieldplan.errors import OutputExistsError
 from fieldplan.route.crews import DEFAULT_MINUTES_PER_POINT, DEFAULT_WALK_KMH, CrewPlan, assign_crews
 from fieldplan.route.metric import DEFAULT_ACROSS_FACTOR
 
-__all__ = ["CrewRun", "plan_crews", "write_crews"]
+__all__ = ["CrewRun", "default_start_xy", "plan_crews", "write_crews"]
 
 # Point statuses nobody walks to: unused spares and points marked inaccessible.
 _NOT_VISITED = ("spare", "inaccessible")
@@ -44,6 +44,19 @@ class CrewRun:
     routes: object  # GeoDataFrame
     unfitted_ids: list[str]
     start_xy: np.ndarray | None
+    start_source: str = ""  # "given" (--start), "centroid" (default for --return) or "" (none)
+
+
+def default_start_xy(plan) -> np.ndarray:
+    """The drop-off used when none is given: the centroid of the union of the plan's blocks.
+
+    Blocks are used rather than the sampled points because they do not change
+    when points are marked inaccessible or spares come into use, so repeated
+    runs keep the same drop-off. The centroid may lie outside every block (an
+    L-shaped estate); it is a meeting point, not a sampling point.
+    """
+    union = shapely.union_all(plan.blocks.geometry.values)
+    return np.asarray(shapely.get_coordinates(shapely.centroid(union))[0], dtype=float)
 
 
 def plan_crews(
@@ -60,7 +73,8 @@ def plan_crews(
 ) -> CrewRun:
     """Assign the plan's points to crews (no file is written).
 
-    Points whose ``status`` is ``"spare"`` or ``"inaccessible"`` are left out (crew 0). Row bearings
+    Points whose ``status`` is ``"spare"`` or ``"inaccessible"`` are left out (crew 0). With
+    ``return_to_start`` and no ``start_lonlat`` the drop-off is :func:`default_start_xy`. Row bearings
     come from the blocks table (``row_bearing_deg``). The search is seeded from
     the plan's seed, so the same plan gives the same crews.
     """
@@ -91,10 +105,12 @@ def plan_crews(
     codes, _ = pd.factorize(block_names, sort=True)
     bearing = np.array([bearing_by_block.get(b, np.nan) for b in block_names], dtype=float)
 
-    start_xy = None
+    start_xy, start_source = None, ""
     if start_lonlat is not None:
         to_local = Transformer.from_crs("EPSG:4326", plan.crs, always_xy=True)
-        start_xy = np.array(to_local.transform(*start_lonlat), dtype=float)
+        start_xy, start_source = np.array(to_local.transform(*start_lonlat), dtype=float), "given"
+    elif return_to_start:
+        start_xy, start_source = default_start_xy(plan), "centroid"
 
     idx = np.flatnonzero(active)
     seed = int(plan.params.get("seed", 0))
@@ -146,7 +162,7 @@ def plan_crews(
     unfitted = points["point_id"].astype(str).to_numpy()[idx[result.unfitted]].tolist()
     layers = {**getattr(plan, "layers", {}), "routes": routes}
     new_plan = dataclasses.replace(plan, points=points, layers=layers)
-    return CrewRun(new_plan, result, table, routes, unfitted, start_xy)
+    return CrewRun(new_plan, result, table, routes, unfitted, start_xy, start_source)
 
 
 def _swap_gpkg(plan_dir: Path, points, routes) -> None:
