@@ -49,3 +49,34 @@ def nearest_neighbour_distances(xy: np.ndarray) -> np.ndarray:
 
     dist, _ = cKDTree(xy).query(xy, k=2)
     return dist[:, 1]
+
+
+def lonlat_estate_file(
+    path: Path,
+    blocks: list[tuple],
+    *,
+    lon0: float = 18.9,
+    lat0: float = -33.86,
+    step: float = 0.003,
+    width: float = 0.0025,
+    height: float = 0.002,
+) -> Path:
+    """Write side-by-side lon/lat rectangles as a GeoJSON block file and return its path.
+
+    ``blocks`` holds ``(name, variety)`` or ``(name, variety, width_deg)`` tuples.
+    """
+    features = []
+    for i, spec in enumerate(blocks):
+        name, variety = spec[0], spec[1]
+        w = spec[2] if len(spec) > 2 else width
+        x0, y0 = lon0 + i * step, lat0
+        ring = [[x0, y0], [x0 + w, y0], [x0 + w, y0 + height], [x0, y0 + height], [x0, y0]]
+        features.append(
+            {
+                "type": "Feature",
+                "properties": {"block": name, "variety": variety},
+                "geometry": {"type": "Polygon", "coordinates": [ring]},
+            }
+        )
+    Path(path).write_text(json.dumps({"type": "FeatureCollection", "features": features}))
+    return Path(path)

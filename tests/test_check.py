@@ -18,27 +18,13 @@ from fieldplan.cli.main import app
 from fieldplan.plan import make_plan
 from fieldplan.read import read_blocks
 from fieldplan.store import write_plan
-
-
-def _square(x0: float, y0: float, w: float, h: float) -> dict:
-    ring = [[x0, y0], [x0 + w, y0], [x0 + w, y0 + h], [x0, y0 + h], [x0, y0]]
-    return {"type": "Polygon", "coordinates": [ring]}
+from tests.geoms import lonlat_estate_file
 
 
 @pytest.fixture(scope="module")
 def plan(tmp_path_factory):
     folder = tmp_path_factory.mktemp("estate")
-    names = [("A1", 0.0025), ("=1+1", 0.0015)]
-    features = [
-        {
-            "type": "Feature",
-            "properties": {"block": name, "variety": "Syrah"},
-            "geometry": _square(18.9 + i * 0.003, -33.86, width, 0.002),
-        }
-        for i, (name, width) in enumerate(names)
-    ]
-    path = folder / "blocks.geojson"
-    path.write_text(json.dumps({"type": "FeatureCollection", "features": features}))
+    path = lonlat_estate_file(folder / "blocks.geojson", [("A1", "Syrah", 0.0025), ("=1+1", "Syrah", 0.0015)])
     blocks = read_blocks(path)
     exclusions = gpd.GeoDataFrame(
         {"name": ["wet spot"]},

@@ -18,30 +18,17 @@ from fieldplan.read import read_blocks
 from fieldplan.write.gpx import gpx_bytes, write_gpx, xml_text
 from fieldplan.write.kml import kml_bytes, kml_colour, write_kml
 from fieldplan.write.tables import write_points_geojson
+from tests.geoms import lonlat_estate_file
 
 KML = "{http://www.opengis.net/kml/2.2}"
 EVIL = "<b>&amp;\"'</b>]]>"
-
-
-def _square(x0: float, y0: float, w: float, h: float) -> dict:
-    ring = [[x0, y0], [x0 + w, y0], [x0 + w, y0 + h], [x0, y0 + h], [x0, y0]]
-    return {"type": "Polygon", "coordinates": [ring]}
 
 
 @pytest.fixture(scope="module")
 def plan(tmp_path_factory):
     folder = tmp_path_factory.mktemp("estate")
     names = [("A1", "Syrah"), (EVIL, "Chenin\x01blanc")]
-    features = [
-        {
-            "type": "Feature",
-            "properties": {"block": name, "variety": variety},
-            "geometry": _square(-121.5 + i * 0.003, 38.5, 0.0025, 0.002),
-        }
-        for i, (name, variety) in enumerate(names)
-    ]
-    path = folder / "blocks.geojson"
-    path.write_text(json.dumps({"type": "FeatureCollection", "features": features}))
+    path = lonlat_estate_file(folder / "blocks.geojson", names, lon0=-121.5, lat0=38.5)
     blocks = read_blocks(path)
     out = make_plan(blocks, spacing=35.0, seed=11, command=["test"])
     out.points["instructions"] = np.where(
