@@ -1,7 +1,9 @@
 """points.gpx: GPX 1.1 waypoints (and planned routes) for hand-held GPS units.
 
 Waypoints are named by point id; ``desc`` carries the block, stratum, row/plant,
-units and instructions when the plan has them. Coordinates are WGS84 with the
+units and instructions when the plan has them. Unused spares keep their point id
+as name (recorded waypoints are matched by it) but get ``<type>spare</type>`` and
+a ``desc`` starting "SPARE #rank - use only when told". Coordinates are WGS84 with the
 same rounding as ``points.geojson``. Written with :mod:`xml.etree.ElementTree`,
 which escapes text and attributes; characters XML 1.0 forbids are dropped.
 """
@@ -28,6 +30,8 @@ __all__ = [
     "xml_escape",
     "text_column",
     "point_description",
+    "spare_mask",
+    "spare_note",
     "waypoints_xml",
     "routes_xml",
     "gpx_bytes",
@@ -71,8 +75,11 @@ def xml_escape(texts: pd.Series) -> pd.Series:
 
 
 def point_description(points) -> list[str]:
-    """One line per point: block, stratum, row/plant, units, instructions (when present)."""
-    result = pd.Series([""] * len(points), dtype=object)
+    """One line per point: block, stratum, row/plant, units, instructions (when present).
+
+    Unused spares start with :func:`spare_note`, so no one mistakes one for a planned point.
+    """
+    result = spare_note(points)
     labels = (
         ("block", "Block "),
         ("stratum", "stratum "),
@@ -89,6 +96,26 @@ def point_description(points) -> list[str]:
         joined = (result + "; " + part).where(part != "", result)
         result = part.where(result == "", joined)
     return result.tolist()
+
+
+def spare_mask(points) -> np.ndarray:
+    """Boolean per point: an unused spare (``status == "spare"``)."""
+    if "status" not in points.columns:
+        return np.zeros(len(points), dtype=bool)
+    return points["status"].astype(str).str.lower().eq("spare").to_numpy()
+
+
+def spare_note(points) -> pd.Series:
+    """ "SPARE #rank - use only when told" for unused spares, ``""`` for every other point."""
+    spare = pd.Series(spare_mask(points), dtype=bool)
+    if "spare_rank" in points.columns:
+        rank = pd.to_numeric(points["spare_rank"], errors="coerce").fillna(0).to_numpy()
+        whole = np.char.mod("%d", np.maximum(rank, 0).astype(np.int64))
+        rank_text = pd.Series(np.where(rank > 0, np.char.add(" #", whole), ""), dtype=object)
+    else:
+        rank_text = pd.Series([""] * len(points), dtype=object)
+    note = "SPARE" + rank_text + " \u2014 use only when told"
+    return note.where(spare, "").astype(object)
 
 
 def _element(tag: str, texts: pd.Series, indent: str) -> pd.Series:
@@ -109,11 +136,14 @@ def waypoints_xml(points) -> str:
     lonlat = points_lonlat(points)
     names = text_column(points["point_id"])
     descs = pd.Series(point_description(points), dtype=object)
+    notes = spare_note(points)
     strata = (
         text_column(points["stratum"])
         if "stratum" in points.columns
         else pd.Series([""] * len(points), dtype=object)
     )
+    # The GPX 1.1 type element classifies a waypoint; a spare is a different kind of stop.
+    strata = strata.where(notes == "", "spare")
     # GPX 1.1 schema order inside wpt: ... name, cmt, desc, src, link, sym, type ...
     rows = (
         " <wpt "

@@ -2,7 +2,9 @@
 
 One Placemark per point (named by point id, block and stratum in ExtendedData),
 block and exclusion outlines as Polygons. Styles use the same colour-blind-safe
-palette as the map; no icon URLs, so viewers fall back to their own pin.
+palette as the map; no icon URLs, so viewers fall back to their own pin. Unused
+spares go in a Folder of their own, "Spares (use only when a point is
+inaccessible)", with a grey, smaller pin.
 """
 
 from __future__ import annotations
@@ -15,15 +17,17 @@ import numpy as np
 import pandas as pd
 import shapely
 
-from fieldplan.write.gpx import point_description, text_column, xml_escape, xml_text
+from fieldplan.write.gpx import point_description, spare_mask, text_column, xml_escape, xml_text
 from fieldplan.write.html_map import plan_caption, stratum_styles
 from fieldplan.write.safe import atomic_write_bytes
 from fieldplan.write.tables import LONLAT_DECIMALS, points_lonlat
 
-__all__ = ["KML_NS", "kml_colour", "kml_bytes", "placemarks_xml", "write_kml", "kml_writer"]
+__all__ = ["KML_NS", "SPARES_FOLDER", "kml_colour", "kml_bytes", "placemarks_xml", "write_kml", "kml_writer"]
 
 KML_NS = "http://www.opengis.net/kml/2.2"
 _DATA_COLUMNS = ("block", "stratum", "design", "row", "plant", "units", "status")
+SPARES_FOLDER = "Spares (use only when a point is inaccessible)"
+_SPARE_STYLE = "spare"
 
 
 def kml_colour(hex_rgb: str, *, alpha: int = 255) -> str:
@@ -63,13 +67,19 @@ def _area_placemark(folder: ET.Element, name: str, description: str, style: str,
 
 
 def _style(
-    doc: ET.Element, sid: str, *, icon: str | None = None, line: str | None = None, fill: str | None = None
+    doc: ET.Element,
+    sid: str,
+    *,
+    icon: str | None = None,
+    line: str | None = None,
+    fill: str | None = None,
+    scale: str = "0.8",
 ) -> None:
     style = ET.SubElement(doc, "Style", {"id": sid})
     if icon is not None:
         icon_style = ET.SubElement(style, "IconStyle")
         ET.SubElement(icon_style, "color").text = kml_colour(icon)
-        ET.SubElement(icon_style, "scale").text = "0.8"
+        ET.SubElement(icon_style, "scale").text = scale
     if line is not None:
         line_style = ET.SubElement(style, "LineStyle")
         ET.SubElement(line_style, "color").text = kml_colour(line)
@@ -101,6 +111,8 @@ def kml_bytes(plan: Any) -> bytes:
     _style(doc, "exclusion", line="#555555", fill="#999999")
     for name, sid in style_ids.items():
         _style(doc, sid, icon=styles[name]["colour"])
+    # Grey and smaller than any stratum pin, and in a folder of their own: a spare is not a plan point.
+    _style(doc, _SPARE_STYLE, icon="#8c8c8c", scale="0.6")
 
     blocks_folder = ET.SubElement(doc, "Folder")
     ET.SubElement(blocks_folder, "name").text = "Blocks"
@@ -122,18 +134,29 @@ def kml_bytes(plan: Any) -> bytes:
         for name, geom in zip(names, wgs.geometry.values, strict=True):
             _area_placemark(ex_folder, f"Excluded: {xml_text(name)}", "", "exclusion", geom)
 
+    spare = spare_mask(points)
     pts_folder = ET.SubElement(doc, "Folder")
     ET.SubElement(pts_folder, "name").text = "Sample points"
-    marker = "<fieldplan-points />"
+    marker, spare_marker = "<fieldplan-points />", "<fieldplan-spares />"
     ET.SubElement(pts_folder, "fieldplan-points")
+    if spare.any():
+        spare_folder = ET.SubElement(doc, "Folder")
+        ET.SubElement(spare_folder, "name").text = SPARES_FOLDER
+        ET.SubElement(spare_folder, "fieldplan-spares")
     ET.indent(root, space=" ")
     text = ET.tostring(root, encoding="unicode")
-    text = text.replace("   " + marker + "\n", placemarks_xml(points, style_ids), 1)
+    text = text.replace("   " + marker + "\n", placemarks_xml(points[~spare], style_ids), 1)
+    if spare.any():
+        spares_xml = placemarks_xml(points[spare], {}, style=_SPARE_STYLE)
+        text = text.replace("   " + spare_marker + "\n", spares_xml, 1)
     return ('<?xml version="1.0" encoding="UTF-8"?>\n' + text + "\n").encode("utf-8")
 
 
-def placemarks_xml(points, style_ids: dict[str, str]) -> str:
-    """One point Placemark per row of ``points`` as indented KML text (built column-wise)."""
+def placemarks_xml(points, style_ids: dict[str, str], *, style: str | None = None) -> str:
+    """One point Placemark per row of ``points`` as indented KML text (built column-wise).
+
+    Each point is styled by its stratum through ``style_ids``, or all by ``style`` when given.
+    """
     if len(points) == 0:
         return ""
     lonlat = points_lonlat(points)
@@ -146,7 +169,11 @@ def placemarks_xml(points, style_ids: dict[str, str]) -> str:
     )
     names = text_column(points["point_id"])
     descs = pd.Series(point_description(points), dtype=object)
-    styles = points["stratum"].astype(str).reset_index(drop=True).map(style_ids)
+    styles = (
+        pd.Series([style] * len(points), dtype=object)
+        if style is not None
+        else points["stratum"].astype(str).reset_index(drop=True).map(style_ids)
+    )
     extended = pd.Series([""] * len(points), dtype=object)
     for column in (c for c in _DATA_COLUMNS if c in points.columns):
         texts = text_column(points[column])
