@@ -95,6 +95,10 @@ def map_file(tmp_path_factory):
     )
     plan = make_plan(blocks, spacing=30.0, seed=3, exclusions=exclusions, command=["test"])
     plan.points["units"] = np.arange(len(plan.points)) % 3 + 1
+    # The last two points marked inaccessible (as `fieldplan mark` does): drawn apart.
+    plan.points["status"] = np.where(
+        np.arange(len(plan.points)) >= len(plan.points) - 2, "inaccessible", "selected"
+    )
     xy = shapely.get_coordinates(plan.points.geometry.values)
     routes = gpd.GeoDataFrame(
         {"crew": ["1", EVIL_CREW]},
@@ -130,8 +134,15 @@ def test_map_opens_offline_without_errors(opened):
     # common practice, no source: an offline page must make no request beyond file://
     assert log["requests"] == []
     assert log["errors"] == []
-    assert page.locator(".fp-point").count() == len(plan.points)
-    assert page.evaluate("fieldplanLayers.points.getLayers().length") == len(plan.points)
+    n_gone = int((plan.points["status"] == "inaccessible").sum())
+    assert n_gone == 2
+    assert page.locator(".fp-point").count() == len(plan.points) - n_gone
+    assert page.evaluate("fieldplanLayers.points.getLayers().length") == len(plan.points) - n_gone
+    # Inaccessible points: on by default, struck through (two lines each), and in the legend.
+    assert page.locator(".fp-inaccessible").count() == n_gone
+    assert page.locator(".fp-inaccessible line.fp-strike").count() == 2 * n_gone
+    legend = page.locator(".fp-legend").inner_text()
+    assert "Inaccessible point" in legend and page.locator(".fp-legend line.fp-strike").count() == 2
     # Fit to bounds: every point is inside the initial view.
     assert page.evaluate(
         """() => fieldplanLayers.points.getLayers()
@@ -200,7 +211,9 @@ def test_canvas_markers_for_large_plans(map_file, playwright_driver, tmp_path):
     try:
         assert log["requests"] == [] and log["errors"] == []
         assert page.locator(".fp-point").count() == 0  # drawn on a canvas, not as elements
-        assert page.evaluate("fieldplanLayers.points.getLayers().length") == len(plan.points)
+        n_gone = int((plan.points["status"] == "inaccessible").sum())
+        assert page.evaluate("fieldplanLayers.points.getLayers().length") == len(plan.points) - n_gone
+        assert page.evaluate("fieldplanLayers.inaccessible.getLayers().length") == n_gone
         # Click the drawn marker nearest the map centre: the canvas hit test opens its popup.
         target = page.evaluate(
             """() => {

@@ -210,3 +210,29 @@ def test_write_map_is_deterministic(plan, tmp_path):
     a = write_map(plan, tmp_path / "a.html").read_bytes()
     b = write_map(plan, tmp_path / "b.html").read_bytes()
     assert a == b  # common practice, no source: reproducible outputs compare byte for byte
+
+
+def test_inaccessible_points_get_their_own_layer_symbol_and_legend(plan):
+    import dataclasses
+
+    from fieldplan.write.html_map import INACCESSIBLE_STYLE
+
+    points = plan.points.copy()
+    points["status"] = "selected"
+    gone = points["point_id"].iloc[[1, 4]].tolist()
+    points.loc[points["point_id"].isin(gone), "status"] = "inaccessible"
+    page = map_html(dataclasses.replace(plan, points=points))
+    data = _data(page)
+    assert data["inaccessible"]["props"]["point_id"] == gone
+    assert data["points"]["n"] == len(points) - 2 and not set(gone) & set(data["points"]["props"]["point_id"])
+    # WCAG 2.1 SC 1.4.1 "Use of Color": not by colour alone, so a shape no stratum uses
+    # reference: W3C Web Content Accessibility Guidelines 2.1, success criterion 1.4.1
+    style = data["inaccessible_style"]
+    assert style == INACCESSIBLE_STYLE
+    assert style["shape"] not in {s["shape"] for s in data["strata"]} and style["shape"] not in SHAPES
+    assert style["colour"] not in PALETTE
+    assert "inaccessible" in style["legend"].lower()
+    assert "Inaccessible points (not sampled)" in page  # the layer toggle
+    # Without marks nothing changes: no inaccessible layer, every point drawn as planned.
+    plain = _data(map_html(plan))
+    assert plain["inaccessible"]["n"] == 0 and plain["points"]["n"] == len(plan.points)

@@ -35,6 +35,7 @@ __all__ = [
     "PALETTE",
     "ROUTE_COLOURS",
     "DOM_MARKER_LIMIT",
+    "INACCESSIBLE_STYLE",
     "SHAPES",
     "plan_caption",
     "optional_layer",
@@ -66,6 +67,13 @@ ROUTE_DASHES: tuple[str | None, ...] = (None, "10 6", "2 6", "14 4 2 4")
 
 OSM_TILES = "https://tile.openstreetmap.org/{z}/{x}/{y}.png"
 OSM_ATTRIBUTION = "\u00a9 OpenStreetMap contributors"
+#: Points marked inaccessible: a grey circle struck through, a shape no stratum uses,
+#: so they differ from planned points by shape as well as by colour.
+INACCESSIBLE_STYLE = {
+    "shape": "circle-x",
+    "colour": "#bdbdbd",
+    "legend": "Inaccessible point (marked, not sampled)",
+}
 COORD_DECIMALS = 7  # about 1 cm; GPX/KML carry more
 #: Above this many points the map draws them on a canvas instead of one element each.
 DOM_MARKER_LIMIT = 1500
@@ -270,6 +278,14 @@ def _jsonify_for_script(data: dict) -> str:
     )
 
 
+def _split_inaccessible(points):
+    """Points still to visit and points marked inaccessible (``fieldplan mark``)."""
+    if points is None or "status" not in points.columns:
+        return points, None
+    gone = points["status"].astype(str).str.lower().eq("inaccessible").to_numpy()
+    return points[~gone], points[gone]
+
+
 def _split_points(points, spares):
     """Planned points and spare points; spares come from ``status == 'spare'`` if not given."""
     if points is not None and "status" in points.columns:
@@ -295,11 +311,12 @@ def map_data(plan: Any, *, routes=None, spares=None, actual=None, markers: str =
     actual = actual if actual is not None else optional_layer(plan, "actual")
     actual = _as_points(actual)
     points, spares = _split_points(plan.points, spares)
+    points, inaccessible = _split_inaccessible(points)
     strata = list(points["stratum"].astype(str)) if len(points) else []
     if spares is not None and len(spares) and "stratum" in spares.columns:
         strata += list(spares["stratum"].astype(str))
     styles = stratum_styles(strata)
-    n_markers = len(points) + (0 if spares is None else len(spares))
+    n_markers = len(points) + sum(0 if extra is None else len(extra) for extra in (spares, inaccessible))
     mode = markers if markers != "auto" else ("dom" if n_markers <= DOM_MARKER_LIMIT else "canvas")
     point_cols = list(POPUP_FIELDS) + [c for c in ("instructions",) if c in points.columns]
     blocks_wgs = plan.blocks.to_crs(4326) if len(plan.blocks) else plan.blocks
@@ -320,6 +337,8 @@ def map_data(plan: Any, *, routes=None, spares=None, actual=None, markers: str =
         "exclusions": _features(getattr(plan, "exclusions", None), ["name"]),
         "points": _point_columns(points, point_cols),
         "spares": _point_columns(spares, point_cols),
+        "inaccessible": _point_columns(inaccessible, point_cols),
+        "inaccessible_style": INACCESSIBLE_STYLE,
         "actual": _point_columns(actual, ["point_id", "block", "recorded_utc", "offset_m"]),
         "marker_mode": mode,
         "routes": route_fc,
@@ -393,7 +412,9 @@ def write_map(
         LineStrings with a ``crew`` column; each crew gets its own toggle.
     spares : GeoDataFrame, optional
         Spare points (same columns as ``plan.points``); off by default in the map.
-        Points whose ``status`` is ``"spare"`` are shown here too.
+        Points whose ``status`` is ``"spare"`` are shown here too. Points whose
+        ``status`` is ``"inaccessible"`` get their own layer (on by default) and
+        the :data:`INACCESSIBLE_STYLE` symbol, a grey circle struck through.
     actual : GeoDataFrame, optional
         Recorded positions (``point_id`` column), drawn as small crosses.
     markers : {"auto", "dom", "canvas"}
@@ -450,8 +471,8 @@ html, body { height: 100%; margin: 0; }
 .fp-panel h2 { font-size: 13px; margin: 0 0 4px; }
 .fp-panel ul { margin: 4px 0 0; padding-left: 16px; }
 .fp-legend-row { display: flex; align-items: center; gap: 6px; margin: 2px 0; }
-.fp-point, .fp-spare, .fp-actual { background: none; border: none; }
-.fp-point svg, .fp-spare svg, .fp-actual svg { display: block; overflow: visible; }
+.fp-point, .fp-spare, .fp-actual, .fp-inaccessible { background: none; border: none; }
+.fp-point svg, .fp-spare svg, .fp-actual svg, .fp-inaccessible svg { display: block; overflow: visible; }
 .fp-label { display: none; position: absolute; left: 17px; top: 0; white-space: nowrap;
   font: bold 11px sans-serif; color: #111; text-shadow: 0 0 2px #fff, 0 0 2px #fff; }
 .fp-show-labels .fp-label { display: block; }
@@ -496,10 +517,25 @@ _APP_JS = r"""
       [0.75, 0.5], [0.5, 0.75], [0, 0.25], [-0.5, 0.75], [-0.75, 0.5], [-0.25, 0]]
   };
 
+  // "circle-x": a circle struck through by an X, for points no one should walk to.
+  var STRIKE = [[-0.6, -0.6, 0.6, 0.6], [-0.6, 0.6, 0.6, -0.6]];
+
   function shapeSvg(shape, fill, size, stroke) {
     var svg = document.createElementNS(SVGNS, "svg");
     svg.setAttribute("width", size); svg.setAttribute("height", size);
     svg.setAttribute("viewBox", "0 0 16 16");
+    if (shape === "circle-x") {
+      var struck = shapeSvg("circle", fill, size, stroke);
+      STRIKE.forEach(function (q) {
+        var ln = document.createElementNS(SVGNS, "line");
+        ln.setAttribute("x1", (8 + 7 * q[0]).toFixed(2)); ln.setAttribute("y1", (8 + 7 * q[1]).toFixed(2));
+        ln.setAttribute("x2", (8 + 7 * q[2]).toFixed(2)); ln.setAttribute("y2", (8 + 7 * q[3]).toFixed(2));
+        ln.setAttribute("stroke", stroke || "#1a1a1a"); ln.setAttribute("stroke-width", "2");
+        ln.setAttribute("class", "fp-strike");
+        struck.appendChild(ln);
+      });
+      return struck;
+    }
     var s;
     if (shape === "circle" || !SHAPE_POINTS[shape]) {
       s = document.createElementNS(SVGNS, "circle");
@@ -565,6 +601,13 @@ _APP_JS = r"""
         ctx.closePath();
       }
       r._fillStroke(ctx, this);
+      if (this.options.shape === "circle-x") {
+        ctx.beginPath();
+        STRIKE.forEach(function (q) {
+          ctx.moveTo(p.x + q[0] * rad, p.y + q[1] * rad); ctx.lineTo(p.x + q[2] * rad, p.y + q[3] * rad);
+        });
+        ctx.globalAlpha = 1; ctx.lineWidth = 2; ctx.strokeStyle = this.options.color; ctx.stroke();
+      }
       if (this.options.label && this._map && this._map.getZoom() >= LABEL_ZOOM) {
         ctx.globalAlpha = 1;
         ctx.font = "bold 11px sans-serif";
@@ -688,6 +731,14 @@ _APP_JS = r"""
     });
     overlays.push(["Spare points", layers.spares]);
   }
+  if (data.inaccessible.n) {
+    // Shown by default: knowing where not to go matters as much as where to go.
+    layers.inaccessible = pointLayer(data.inaccessible, function (props, latlng) {
+      var st = data.inaccessible_style;
+      return pointMarker(props, latlng, "fp-inaccessible", st.shape, st.colour, 14);
+    }).addTo(map);
+    overlays.push(["Inaccessible points (not sampled)", layers.inaccessible]);
+  }
   if (data.actual.n) {
     layers.actual = pointLayer(data.actual, function (props, latlng) {
       return pointMarker(props, latlng, "fp-actual", "x", "#111111", 12);
@@ -744,6 +795,10 @@ _APP_JS = r"""
       row(ex, "Exclusion (hatched on map)");
     }
     if (data.spares.n) { row(shapeSvg("cross", "#ffffff", 14), "Spare point (off by default)"); }
+    if (data.inaccessible.n) {
+      var ist = data.inaccessible_style;
+      row(shapeSvg(ist.shape, ist.colour, 14), ist.legend);
+    }
     if (data.actual.n) { row(shapeSvg("x", "#111111", 12), "Recorded position"); }
     data.crews.forEach(function (crew) {
       var svg = document.createElementNS(SVGNS, "svg"); svg.setAttribute("width", "24"); svg.setAttribute("height", "10");
