@@ -38,6 +38,7 @@ __all__ = [
     "RESULTS_LAYER",
     "long_results",
     "stored_results",
+    "refuse_duplicate",
     "append_round",
 ]
 
@@ -434,6 +435,28 @@ def stored_results(layers: Mapping[str, pd.DataFrame]) -> pd.DataFrame:
     return frame
 
 
+def refuse_duplicate(table: ResultsTable, existing: pd.DataFrame, *, allow_duplicate: bool = False) -> None:
+    """Raise if a file with the same SHA-256 as ``table`` was stored before.
+
+    Callers run this before reporting the file's problems, so a refused import
+    says only that it was refused.
+
+    Raises
+    ------
+    InputError
+        If ``existing`` holds a round with ``table.sha256`` and ``allow_duplicate`` is false.
+    """
+    if not table.sha256 or allow_duplicate or "sha256" not in existing.columns:
+        return
+    same = existing["sha256"] == table.sha256
+    if same.any():
+        prev = existing.loc[same, "round"].iloc[0]
+        raise InputError(
+            f"{table.source}: this exact file was already imported as round {int(prev)}; "
+            "use --allow-duplicate to import it again as a new round"
+        )
+
+
 def append_round(
     plan_dir: str | Path,
     table: ResultsTable,
@@ -459,12 +482,7 @@ def append_round(
 
     from fieldplan.write.gpkg import GPKG_NAME, write_layer
 
-    if table.sha256 and not allow_duplicate and (existing["sha256"] == table.sha256).any():
-        prev = existing.loc[existing["sha256"] == table.sha256, "round"].iloc[0]
-        raise InputError(
-            f"{table.source}: this exact file was already imported as round {int(prev)}; "
-            "use --allow-duplicate to import it again as a new round"
-        )
+    refuse_duplicate(table, existing, allow_duplicate=allow_duplicate)
     round_no = int(existing["round"].max()) + 1 if len(existing) else 1
     new = long_results(table, round_no=round_no, imported_utc=imported_utc)
     if new.empty:

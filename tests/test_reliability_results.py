@@ -60,3 +60,28 @@ def test_rounds_append_only_and_reimport_refused(tmp_path):
     assert forced.exit_code == 0, forced.output
     assert sorted(_rounds(plan)["round"].unique()) == [1, 2, 3]
     assert not list(plan.glob(".*tmp*"))
+
+
+def test_refused_reimport_prints_only_the_refusal(tmp_path):
+    frame = blocks_frame({"B0": lonlat_square(15.0, 47.0)}, crs="EPSG:4326")
+    plan = tmp_path / "plan"
+    made = runner.invoke(
+        app,
+        ["plan", str(write_geojson(frame, tmp_path / "b.geojson")), "--spacing", "80", "--out", str(plan)],
+    )
+    assert made.exit_code == 0, made.output
+    ids = pyogrio.read_dataframe(plan / "plan.gpkg", layer="points")["point_id"].astype(str).tolist()[:3]
+    # One unknown point id and one cell that is not a number: problems on the first import.
+    path = tmp_path / "lab.csv"
+    path.write_text(f"point_id,ph\n{ids[0]},6.1\n{ids[1]},n/a\nNOPE-1,6.0\n{ids[2]},6.5\n")
+    first = runner.invoke(app, ["results", str(plan), str(path)])
+    assert first.exit_code == 0, first.output
+    assert "problem(s) in lab.csv" in first.stderr
+
+    again = runner.invoke(app, ["results", str(plan), str(path)])
+    assert again.exit_code == 2
+    lines = again.stderr.splitlines()
+    # common practice, no source: a refusal is one line, with nothing from the file before it
+    assert len(lines) == 1
+    assert "lab.csv" in lines[0] and "--allow-duplicate" in lines[0] and "problem" not in lines[0]
+    assert again.stdout == ""

@@ -57,15 +57,23 @@ def results(
     values outside a plausible range) is listed with its row number; the rest of
     the file is kept. Earlier rounds are never overwritten.
     """
-    from fieldplan.results import append_round, format_problems, read_results, stored_results
+    from fieldplan.results import (
+        append_round,
+        format_problems,
+        read_results,
+        refuse_duplicate,
+        stored_results,
+    )
     from fieldplan.store import load_plan
 
     plan = load_plan(plan_dir)
     table = read_results(file, point_ids=plan.points["point_id"].astype(str), value_columns=value)
+    existing = stored_results(plan.layers)
+    # A refused re-import prints the refusal alone, not the problems of a file already dealt with.
+    refuse_duplicate(table, existing, allow_duplicate=allow_duplicate)
     if not table.problems.empty:
         echo_err(f"{len(table.problems)} problem(s) in {file.name}:")
         echo_err(format_problems(table.problems))
-    existing = stored_results(plan.layers)
     round_no = append_round(
         plan_dir,
         table,
