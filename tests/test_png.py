@@ -14,6 +14,7 @@ from pyproj import CRS, Proj, Transformer
 from fieldplan.plan import make_plan
 from fieldplan.read import read_blocks
 from fieldplan.write.png import nice_length, plan_image_bytes, true_north_bearing, write_png
+from tests.geoms import lonlat_estate_file
 
 
 def _square(x0: float, y0: float, w: float, h: float) -> dict:
@@ -26,16 +27,7 @@ def plan(tmp_path_factory):
     folder = tmp_path_factory.mktemp("estate")
     # '$' would switch matplotlib to mathtext (and '$x^' fail to parse) if not escaped.
     names = [("A1", "Syrah"), ("$x^", "a$b$c"), ("B_2", None)]
-    features = [
-        {
-            "type": "Feature",
-            "properties": {"block": name, "variety": variety},
-            "geometry": _square(18.9 + i * 0.003, -33.86, 0.0025, 0.002),
-        }
-        for i, (name, variety) in enumerate(names)
-    ]
-    path = folder / "blocks.geojson"
-    path.write_text(json.dumps({"type": "FeatureCollection", "features": features}))
+    path = lonlat_estate_file(folder / "blocks.geojson", names)
     return make_plan(read_blocks(path), spacing=30.0, seed=5, command=["test"])
 
 
