@@ -32,37 +32,35 @@ def main(
     """Plan where and how to take samples in fields, vineyards and orchards."""
 
 
-from fieldplan.cli import demo_cmd, plan_cmd  # noqa: E402
+from fieldplan.cli import (  # noqa: E402
+    check_cmd,
+    crews_cmd,
+    demo_cmd,
+    estimate_cmd,
+    lab_cmd,
+    labels_cmd,
+    mark_cmd,
+    plan_cmd,
+    results_cmd,
+    schedule_cmd,
+    size_cmd,
+)
 
-plan_cmd.register(app)
-demo_cmd.register(app)
-from fieldplan.cli import size_cmd  # noqa: E402
-
-size_cmd.register(app)
-from fieldplan.cli import results_cmd  # noqa: E402
-
-results_cmd.register(app)
-from fieldplan.cli import estimate_cmd  # noqa: E402
-
-estimate_cmd.register(app)
-from fieldplan.cli import labels_cmd  # noqa: E402
-
-labels_cmd.register(app)
-from fieldplan.cli import lab_cmd  # noqa: E402
-
-lab_cmd.register(app)
-from fieldplan.cli import mark_cmd  # noqa: E402
-
-mark_cmd.register(app)
-from fieldplan.cli import check_cmd  # noqa: E402
-
-check_cmd.register(app)
-from fieldplan.cli import crews_cmd  # noqa: E402
-
-crews_cmd.register(app)
-from fieldplan.cli import schedule_cmd  # noqa: E402
-
-schedule_cmd.register(app)
+# The order here is the order of `fieldplan --help`: the working day from plan to estimate.
+for _command in (
+    plan_cmd,
+    demo_cmd,
+    size_cmd,
+    check_cmd,
+    crews_cmd,
+    schedule_cmd,
+    mark_cmd,
+    labels_cmd,
+    lab_cmd,
+    results_cmd,
+    estimate_cmd,
+):
+    _command.register(app)
 
 
 def run() -> None:
