@@ -88,26 +88,8 @@ def _check_file(path: Path) -> None:
             "GeoPackage (.gpkg), Shapefile (.shp) or a zipped Shapefile (.zip)"
         )
     if suffix in (".geojson", ".json"):
-        raw = path.read_bytes()
-        _sniff_geojson(path, raw)
-        text = raw.decode("utf-8-sig", errors="replace")
-        try:
-            data = json.loads(text)
-        except json.JSONDecodeError as err:
-            raise InputError(
-                f"{path}: GeoJSON syntax error at line {err.lineno}, column {err.colno} "
-                f"({err.msg}); fix the file or export it again"
-            ) from None
-        if not isinstance(data, dict) or data.get("type") not in (
-            "FeatureCollection",
-            "Feature",
-            "Polygon",
-            "MultiPolygon",
-            "GeometryCollection",
-        ):
-            raise InputError(
-                f"{path}: not a GeoJSON FeatureCollection of block polygons; export the blocks as GeoJSON"
-            )
+        with path.open("rb") as handle:
+            _sniff_geojson(path, handle.read(4096))
     if suffix == ".shp":
         for part in (".shx", ".dbf"):
             if not (path.with_suffix(part).exists() or path.with_suffix(part.upper()).exists()):
@@ -129,6 +111,32 @@ def _check_file(path: Path) -> None:
                 f"{path}: the zip holds {len(shps)} Shapefiles ({', '.join(shps[:4])}); "
                 "zip the block boundaries alone"
             )
+
+
+def _check_geojson_text(path: Path) -> None:
+    """Parse GeoJSON text to name a syntax error's line and column, or a non-GeoJSON type.
+
+    Only called when the fast reader failed or found no polygons: parsing every
+    coordinate in Python costs as much as reading the file.
+    """
+    text = path.read_bytes().decode("utf-8-sig", errors="replace")
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError as err:
+        raise InputError(
+            f"{path}: GeoJSON syntax error at line {err.lineno}, column {err.colno} "
+            f"({err.msg}); fix the file or export it again"
+        ) from None
+    if not isinstance(data, dict) or data.get("type") not in (
+        "FeatureCollection",
+        "Feature",
+        "Polygon",
+        "MultiPolygon",
+        "GeometryCollection",
+    ):
+        raise InputError(
+            f"{path}: not a GeoJSON FeatureCollection of block polygons; export the blocks as GeoJSON"
+        )
 
 
 def _sniff_geojson(path: Path, raw: bytes) -> None:
@@ -156,6 +164,7 @@ def read_frame(path: Path, *, layer: str | None = None) -> gpd.GeoDataFrame:
     """Read any supported vector file into a GeoDataFrame, turning library errors into InputError."""
     path = Path(path)
     _check_file(path)
+    geojson = path.suffix.lower() in (".geojson", ".json")
     if path.suffix.lower() == ".gpkg" and layer is None:
         import pyogrio
 
@@ -171,6 +180,8 @@ def read_frame(path: Path, *, layer: str | None = None) -> gpd.GeoDataFrame:
             warnings.simplefilter("ignore")
             frame = gpd.read_file(path, layer=layer, engine="pyogrio")
     except Exception as err:  # pyogrio raises several unrelated types
+        if geojson:
+            _check_geojson_text(path)
         first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
         if "closed linestring" in first:
             raise InputError(
@@ -178,6 +189,12 @@ def read_frame(path: Path, *, layer: str | None = None) -> gpd.GeoDataFrame:
                 "repeat the first); fix the outline or export the file again"
             ) from None
         raise InputError(f"{path}: cannot read as a spatial file ({first}); check the format") from None
+    if geojson and (
+        not isinstance(frame, gpd.GeoDataFrame)
+        or "geometry" not in frame
+        or not frame.geometry.geom_type.isin(list(_POLYGONAL)).any()
+    ):
+        _check_geojson_text(path)
     if not isinstance(frame, gpd.GeoDataFrame) or "geometry" not in frame:
         raise InputError(f"{path}: holds no geometries; export the block boundaries as polygons")
     return frame
@@ -277,7 +294,7 @@ def _check_geometries(
     Returns the frame (repaired where asked) and the repaired features' original geometries.
     """
     repaired: dict[int, object] = {}
-    geoms = frame.geometry.values
+    geoms = np.asarray(frame.geometry.values)
     missing = np.flatnonzero(shapely.is_missing(geoms) | shapely.is_empty(geoms))
     if len(missing) == len(frame):
         raise InvalidBlocksError(f"{path}: every geometry is empty; export the block boundaries again")
@@ -300,13 +317,14 @@ def _check_geometries(
             "redraw it as a polygon or remove it"
         )
     _check_coordinates(frame, geoms, path, id_field)
-    flat = np.flatnonzero(_zero_area(geoms))
+    valid = shapely.is_valid(geoms)
+    flat = np.flatnonzero(_zero_area(geoms, valid))
     if len(flat):
         raise InvalidBlocksError(
             f"{path}: {_feature_label(frame, int(flat[0]), id_field)} has zero area (its corners lie on "
             "one line or on one spot); redraw it as a polygon or remove it"
         )
-    invalid = np.flatnonzero(~shapely.is_valid(geoms))
+    invalid = np.flatnonzero(~valid)
     if len(invalid):
         if not repair:
             i = int(invalid[0])
@@ -352,10 +370,14 @@ def _readable_reason(reason: str) -> str:
     return f"{what.strip().lower()} near {where} in file coordinates"
 
 
-def _zero_area(geoms: np.ndarray) -> np.ndarray:
+def _zero_area(geoms: np.ndarray, valid: np.ndarray) -> np.ndarray:
     """True where a polygon encloses nothing, even after repair (collinear or repeated corners)."""
-    fixed = shapely.make_valid(geoms)
-    area = np.array([shapely.area(_polygonal_part(g)) for g in fixed], dtype=float)
+    area = shapely.area(geoms)
+    # make_valid leaves a valid polygon as it is, so only the invalid ones need repairing first.
+    broken = np.flatnonzero(~valid)
+    if len(broken):
+        fixed = shapely.make_valid(geoms[broken])
+        area[broken] = [shapely.area(_polygonal_part(g)) for g in fixed]
     minx, miny, maxx, maxy = shapely.bounds(geoms).T
     scale = np.maximum(maxx - minx, maxy - miny) ** 2
     return area <= 1e-12 * np.where(scale > 0, scale, 1.0)
