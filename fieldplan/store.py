@@ -14,6 +14,7 @@ from fieldplan.write.kml import kml_writer
 from fieldplan.write.png import png_writer
 from fieldplan.write.safe import staged_folder
 from fieldplan.write.tables import (
+    shared_lonlat,
     write_manifest,
     write_points_csv,
     write_points_geojson,
@@ -106,7 +107,7 @@ def write_plan(plan, out_dir: str | Path, *, force: bool = False, formats=None) 
     chosen = selected_formats(formats)
     if chosen is not None:
         plan.meta["formats"] = sorted(chosen)
-    with staged_folder(out_dir, force=force) as stage:
+    with staged_folder(out_dir, force=force) as stage, shared_lonlat(getattr(plan, "points", None)):
         for writer in WRITERS:
             kind = FORMATS.get(getattr(writer, "__name__", ""))
             if chosen is None or kind is None or kind in chosen:

@@ -7,6 +7,7 @@ layers a later stage adds (``routes``, ``cores``, ``results``...).
 
 from __future__ import annotations
 
+import importlib.util
 import json
 import os
 from contextlib import contextmanager
@@ -46,8 +47,13 @@ def info_table(plan) -> pd.DataFrame:
     )
 
 
-def write_layer(path: Path, name: str, frame, *, geometry_type: str | None = None) -> None:
-    """Write one layer (spatial or plain table) into a GeoPackage, replacing it if present."""
+def write_layer(
+    path: Path, name: str, frame, *, geometry_type: str | None = None, fast: bool = False
+) -> None:
+    """Write one layer (spatial or plain table) into a GeoPackage, replacing it if present.
+
+    ``fast`` uses the Arrow writer when it gives the same layer (see :func:`_arrow_ok`).
+    """
     import pyogrio
 
     with _fixed_clock():
@@ -55,16 +61,39 @@ def write_layer(path: Path, name: str, frame, *, geometry_type: str | None = Non
             kwargs = {"geometry_type": geometry_type} if geometry_type else {}
             if len(frame) == 0 and not geometry_type:
                 kwargs["geometry_type"] = "Unknown"
+            if fast and _arrow_ok(frame, geometry_type):
+                kwargs["use_arrow"] = True
             pyogrio.write_dataframe(frame, path, layer=name, driver="GPKG", **kwargs)
         else:
             pyogrio.write_dataframe(pd.DataFrame(frame), path, layer=name, driver="GPKG")
+
+
+def _arrow_ok(frame: gpd.GeoDataFrame, geometry_type: str | None) -> bool:
+    """Whether the Arrow writer gives the same layer as the feature-by-feature one.
+
+    It is about twice as fast, but writes geometries as they are (a layer declared
+    MultiPolygon holding Polygons needs the other writer, which promotes them) and
+    turns NaN into null, so only plain text, integer and boolean columns qualify.
+    """
+    if geometry_type is None or len(frame) == 0 or importlib.util.find_spec("pyarrow") is None:
+        return False
+    for column in frame.columns:
+        if column == frame.geometry.name:
+            continue
+        dtype = frame[column].dtype
+        if not (pd.api.types.is_string_dtype(dtype) and not pd.api.types.is_object_dtype(dtype)) and not (
+            (pd.api.types.is_integer_dtype(dtype) or pd.api.types.is_bool_dtype(dtype))
+            and not pd.api.types.is_extension_array_dtype(dtype)
+        ):
+            return False
+    return bool((frame.geometry.geom_type == geometry_type).all())
 
 
 def write_gpkg(plan, folder: Path) -> None:
     """Write ``plan.gpkg`` with the plan's layers and ``plan_info``."""
     path = Path(folder) / GPKG_NAME
     write_layer(path, "blocks", plan.blocks, geometry_type="MultiPolygon")
-    write_layer(path, "points", plan.points, geometry_type="Point")
+    write_layer(path, "points", plan.points, geometry_type="Point", fast=True)
     write_layer(path, "exclusions", plan.exclusions, geometry_type="MultiPolygon")
     write_layer(path, "plan_info", info_table(plan))
     for name, frame in plan.layers.items():

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import math
 import re
+from contextlib import contextmanager
 from pathlib import Path
 
 import numpy as np
@@ -13,10 +14,11 @@ import shapely
 
 from fieldplan.crs import WGS84
 from fieldplan.safety import cautions_text, plan_cautions
-from fieldplan.write.safe import atomic_write_text, neutralise_frame
+from fieldplan.write.safe import atomic_write_text, neutralise_csv_cell, neutralise_frame
 
 __all__ = [
     "points_lonlat",
+    "shared_lonlat",
     "write_points_geojson",
     "write_points_csv",
     "write_summary_csv",
@@ -29,12 +31,44 @@ __all__ = [
 LONLAT_DECIMALS = 8
 
 
+# [points frame, its geometry array, lon/lat or None] while :func:`shared_lonlat` is active.
+_SHARED: list[list] = []
+
+
 def points_lonlat(points) -> np.ndarray:
     """``(n, 2)`` WGS84 longitude/latitude of a GeoDataFrame's points, rounded for output."""
+    for entry in _SHARED:
+        if entry[0] is points and entry[1] is points.geometry.values:
+            if entry[2] is None:
+                entry[2] = _lonlat(points)
+            return entry[2].copy()
+    return _lonlat(points)
+
+
+def _lonlat(points) -> np.ndarray:
     if len(points) == 0:
         return np.empty((0, 2))
     xy = shapely.get_coordinates(points.to_crs(WGS84).geometry.values)
     return np.round(xy, LONLAT_DECIMALS)
+
+
+@contextmanager
+def shared_lonlat(points):
+    """Inside the block, :func:`points_lonlat` of ``points`` is computed once for all callers.
+
+    Several writers of one plan need the same lon/lat; the projection is done once.
+    A writer that replaces the geometry column gets a fresh computation. ``None``
+    (a plan without points) shares nothing.
+    """
+    if points is None:
+        yield
+        return
+    entry = [points, points.geometry.values, None]
+    _SHARED.append(entry)
+    try:
+        yield
+    finally:
+        _SHARED[:] = [e for e in _SHARED if e is not entry]
 
 
 def _json_value(value):
@@ -135,12 +169,31 @@ def write_points_csv(plan, folder: Path) -> None:
     table["lat"] = lonlat[:, 1]
     table["x"] = xy[:, 0]
     table["y"] = xy[:, 1]
-    table["crs"] = plan.crs.to_string()
     for column in pts.columns:
         if column not in base and column != "geometry":
             table[column] = pts[column].to_numpy()
-    text = neutralise_frame(table).to_csv(index=False, lineterminator="\n")
-    atomic_write_text(folder / "points.csv", text)
+    table = neutralise_frame(table)
+    # One value for every row: neutralised once rather than per cell.
+    table.insert(len(base) + 4, "crs", neutralise_csv_cell(plan.crs.to_string()))
+    for i in range(table.shape[1]):
+        text = _csv_floats(table.iloc[:, i])
+        if text is not None:
+            table.isetitem(i, text)
+    atomic_write_text(folder / "points.csv", table.to_csv(index=False, lineterminator="\n"))
+
+
+def _csv_floats(column: pd.Series) -> np.ndarray | None:
+    """A float column as the text ``DataFrame.to_csv`` writes for it, or None for another type.
+
+    Python's shortest round-trip ``repr`` is the text numpy gives and pandas writes,
+    computed faster; missing values stay empty cells.
+    """
+    if column.dtype != np.float64:  # float32 text differs, extension floats hold pd.NA
+        return None
+    numbers = column.to_numpy()
+    text = np.array(list(map(repr, numbers.tolist())), dtype=object)
+    text[np.isnan(numbers)] = ""
+    return text
 
 
 def write_summary_csv(plan, folder: Path) -> None:
