@@ -175,25 +175,69 @@ def write_points_csv(plan, folder: Path) -> None:
     table = neutralise_frame(table)
     # One value for every row: neutralised once rather than per cell.
     table.insert(len(base) + 4, "crs", neutralise_csv_cell(plan.crs.to_string()))
-    for i in range(table.shape[1]):
-        text = _csv_floats(table.iloc[:, i])
-        if text is not None:
-            table.isetitem(i, text)
-    atomic_write_text(folder / "points.csv", table.to_csv(index=False, lineterminator="\n"))
+    text = _csv_text(table)
+    if text is None:
+        text = table.to_csv(index=False, lineterminator="\n")
+    atomic_write_text(folder / "points.csv", text)
 
 
-def _csv_floats(column: pd.Series) -> np.ndarray | None:
-    """A float column as the text ``DataFrame.to_csv`` writes for it, or None for another type.
+_CSV_QUOTE = re.compile(r'[,"\r\n]')
 
-    Python's shortest round-trip ``repr`` is the text numpy gives and pandas writes,
-    computed faster; missing values stay empty cells.
+
+def _csv_text(table: pd.DataFrame) -> str | None:
+    """The text ``table.to_csv(index=False, lineterminator="\\n")`` writes, column by column.
+
+    None (use pandas) for an empty table, a column of another type, or a cell that
+    the csv module would quote; the fast path only covers cells written as they are.
     """
-    if column.dtype != np.float64:  # float32 text differs, extension floats hold pd.NA
+    if len(table) == 0:
         return None
-    numbers = column.to_numpy()
-    text = np.array(list(map(repr, numbers.tolist())), dtype=object)
-    text[np.isnan(numbers)] = ""
-    return text
+    columns = [_csv_cells(table.iloc[:, i]) for i in range(table.shape[1])]
+    names = [str(c) for c in table.columns]
+    if any(c is None for c in columns):
+        return None
+    text = [c for c, dtype in zip(columns, table.dtypes, strict=True) if not _is_number(dtype)]
+    if _CSV_QUOTE.search("".join(names)) or (
+        text and _CSV_QUOTE.search("".join(np.concatenate(text).tolist()))
+    ):
+        return None
+    pieces = np.empty((len(table), 2 * len(columns)), dtype=object)
+    pieces[:, 1::2] = ","
+    pieces[:, -1] = "\n"
+    for k, cells in enumerate(columns):
+        pieces[:, 2 * k] = cells
+    return ",".join(names) + "\n" + "".join(pieces.ravel().tolist())
+
+
+def _is_number(dtype) -> bool:
+    # Cells of these types are digits, signs, dots, "e", "inf", "nan", "True"/"False": never quoted.
+    return dtype == np.float64 or dtype == np.int64 or dtype == np.bool_
+
+
+def _csv_cells(column: pd.Series) -> np.ndarray | None:
+    """A column's cells as ``DataFrame.to_csv`` writes them, or None for an unusual type.
+
+    Floats: Python's shortest round-trip ``repr``, the text numpy gives and pandas
+    writes. Missing values are empty cells.
+    """
+    dtype = column.dtype
+    if dtype == np.float64:  # float32 text differs, extension floats hold pd.NA
+        numbers = column.to_numpy()
+        text = np.array(list(map(repr, numbers.tolist())), dtype=object)
+        text[np.isnan(numbers)] = ""
+        return text
+    if dtype == np.int64:
+        return np.array(list(map(str, column.to_numpy().tolist())), dtype=object)
+    if dtype == np.bool_:
+        return np.where(column.to_numpy(), "True", "False").astype(object)
+    if isinstance(dtype, pd.StringDtype):
+        return column.to_numpy(dtype=object, na_value="")
+    if not pd.api.types.is_object_dtype(dtype):
+        return None
+    if pd.api.types.infer_dtype(column, skipna=True) not in ("string", "empty"):
+        return None
+    values = column.to_numpy(dtype=object)
+    return np.where(pd.isna(values), "", values).astype(object)
 
 
 def write_summary_csv(plan, folder: Path) -> None:
