@@ -216,7 +216,8 @@ def _row_intervals(
     row, start, end = k[0::2], at[0::2], at[1::2]
     if row.size > 1:
         # A piece that starts where the previous one on its row ends continues it.
-        joined = np.r_[False, (row[1:] == row[:-1]) & (start[1:] == end[:-1])]
+        # np.concatenate rather than np.r_: this runs once per block, where np.r_'s overhead shows.
+        joined = np.concatenate(([False], (row[1:] == row[:-1]) & (start[1:] == end[:-1])))
         if joined.any():
             head = np.flatnonzero(~joined)
             last = np.r_[head[1:], row.size] - 1
@@ -239,7 +240,10 @@ def _rings_uv(polygon: BaseGeometry, u: np.ndarray, v: np.ndarray):
 
 def _ends(offsets: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.ndarray, v: np.ndarray):
     base = offsets[:, None] * v
-    return np.stack([base + start[:, None] * u, base + end[:, None] * u], axis=1)
+    out = np.empty((offsets.size, 2, 2))
+    out[:, 0] = base + start[:, None] * u
+    out[:, 1] = base + end[:, None] * u
+    return out
 
 
 def _plant_layout(row: np.ndarray, length: np.ndarray, ps: float) -> tuple[np.ndarray, ...]:
@@ -248,7 +252,7 @@ def _plant_layout(row: np.ndarray, length: np.ndarray, ps: float) -> tuple[np.nd
     # Plants of earlier segments of the same row, for numbering along the row.
     before = np.cumsum(plants) - plants
     # ``row`` is sorted: a row's segments are consecutive.
-    first_of_row = np.flatnonzero(np.r_[True, row[1:] != row[:-1]]) if row.size else row
+    first_of_row = np.flatnonzero(np.concatenate(([True], row[1:] != row[:-1]))) if row.size else row
     row_base = np.repeat(before[first_of_row], np.diff(np.append(first_of_row, row.size)))
     return plants, offset, before - row_base + 1
 
