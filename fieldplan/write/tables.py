@@ -14,7 +14,7 @@ import shapely
 
 from fieldplan.crs import WGS84
 from fieldplan.safety import cautions_text, plan_cautions
-from fieldplan.write.safe import atomic_write_text, neutralise_csv_cell, neutralise_frame
+from fieldplan.write.safe import _FORMULA_PREFIXES, atomic_write_text, neutralise_frame
 
 __all__ = [
     "points_lonlat",
@@ -169,26 +169,26 @@ def write_points_csv(plan, folder: Path) -> None:
     table["lat"] = lonlat[:, 1]
     table["x"] = xy[:, 0]
     table["y"] = xy[:, 1]
+    table["crs"] = plan.crs.to_string()
     for column in pts.columns:
         if column not in base and column != "geometry":
             table[column] = pts[column].to_numpy()
-    table = neutralise_frame(table)
-    # One value for every row: neutralised once rather than per cell.
-    table.insert(len(base) + 4, "crs", neutralise_csv_cell(plan.crs.to_string()))
     text = _csv_text(table)
     if text is None:
-        text = table.to_csv(index=False, lineterminator="\n")
+        text = neutralise_frame(table).to_csv(index=False, lineterminator="\n")
     atomic_write_text(folder / "points.csv", text)
 
 
 _CSV_QUOTE = re.compile(r'[,"\r\n]')
+_FORMULA_START = re.compile("^[" + re.escape("".join(_FORMULA_PREFIXES)) + "]", re.MULTILINE)
 
 
 def _csv_text(table: pd.DataFrame) -> str | None:
-    """The text ``table.to_csv(index=False, lineterminator="\\n")`` writes, column by column.
+    """The text ``neutralise_frame(table).to_csv(index=False, lineterminator="\\n")`` gives.
 
-    None (use pandas) for an empty table, a column of another type, or a cell that
-    the csv module would quote; the fast path only covers cells written as they are.
+    Built column by column. None (use pandas) for an empty table, a column of
+    another type, or a cell that the csv module would quote; the fast path only
+    covers cells written as they are.
     """
     if len(table) == 0:
         return None
@@ -201,6 +201,12 @@ def _csv_text(table: pd.DataFrame) -> str | None:
         text and _CSV_QUOTE.search("".join(np.concatenate(text).tolist()))
     ):
         return None
+    for cells in text:
+        # As neutralise_frame does to text cells (numbers stay as they are). No cell
+        # holds a line break now, so one search over the column finds any to change.
+        if _FORMULA_START.search("\n".join(cells.tolist())):
+            hit = pd.Series(cells, dtype=object).str.startswith(_FORMULA_PREFIXES).to_numpy(dtype=bool)
+            cells[hit] = "'" + cells[hit]
     pieces = np.empty((len(table), 2 * len(columns)), dtype=object)
     pieces[:, 1::2] = ","
     pieces[:, -1] = "\n"
