@@ -80,3 +80,31 @@ def test_too_many_points_is_a_design_error():
 
     with pytest.raises(DesignError):
         balanced_points(Polygon(), 3, rng=np.random.default_rng(0))
+
+
+@pytest.mark.parametrize("n", [1, 3])
+def test_diagonal_sliver_gets_uniform_candidates_not_a_huge_lattice(n):
+    # A 5 cm wide, 3 km long strip at 45 degrees: its area is ~150 m2 in bounds of
+    # ~4.5 km2, so a lattice fine enough to catch it would need ~1e12 cells.
+    # Reference: shapely.contains_xy (GEOS point-in-polygon) for "inside".
+    strip = shapely.affinity.rotate(box(0, 0, 3000, 0.05), 45, origin=(0, 0))
+    s = balanced_points(strip, n, rng=np.random.default_rng(4))
+    assert s.points.shape == (n, 2)
+    assert s.candidates.shape[0] >= 20 * n
+    assert shapely.contains_xy(strip, s.points[:, 0], s.points[:, 1]).all()
+    np.testing.assert_allclose(s.inclusion, n / s.candidates.shape[0])
+
+
+def test_lattice_built_in_chunks_matches_one_meshgrid():
+    # The chunked scan must give the same candidates, in the same order, as a
+    # single meshgrid over the bounds (reference: numpy.meshgrid + contains_xy).
+    from fieldplan.design.balanced import candidate_lattice
+
+    poly = _field()
+    got = candidate_lattice(poly, spacing=0.2, rng=np.random.default_rng(9))
+    ox, oy = np.random.default_rng(9).random(2) * 0.2
+    xmin, ymin, xmax, ymax = poly.bounds
+    gx, gy = np.meshgrid(np.arange(xmin + ox, xmax, 0.2), np.arange(ymin + oy, ymax, 0.2))
+    gx, gy = gx.ravel(), gy.ravel()
+    inside = shapely.contains_xy(poly, gx, gy)
+    np.testing.assert_array_equal(got, np.column_stack([gx[inside], gy[inside]]))

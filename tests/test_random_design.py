@@ -60,3 +60,23 @@ def test_same_seed_same_points_and_draw_order():
 def test_empty_polygon_is_a_design_error():
     with pytest.raises(DesignError):
         random_points(Polygon(), 5, rng=np.random.default_rng(0))
+
+
+def test_thin_diagonal_strip_is_sampled_uniformly_through_triangles():
+    # An L of two 2 m wide strips (600 m and 300 m long) turned 30 degrees fills
+    # under 2 % of its bounds, so points come from the triangulation. Uniformity:
+    # the share in each arm should follow its area (chi-square, scipy.stats), and
+    # positions along the long arm should be uniform (Kolmogorov-Smirnov).
+    long_arm, short_arm = box(0, 0, 600, 2), box(0, 2, 2, 302)
+    strip = shapely.affinity.rotate(shapely.union_all([long_arm, short_arm]), 30, origin=(0, 0))
+    xmin, ymin, xmax, ymax = strip.bounds
+    assert strip.area / ((xmax - xmin) * (ymax - ymin)) < 0.05
+    xy = random_points(strip, 4000, rng=np.random.default_rng(12))
+    assert shapely.contains_xy(strip, xy[:, 0], xy[:, 1]).all()
+    back = shapely.affinity.rotate(shapely.MultiPoint(xy), -30, origin=(0, 0))
+    local = shapely.get_coordinates(back)
+    in_long = local[:, 1] < 2
+    expected = np.array([long_arm.area, short_arm.area]) / strip.area * len(xy)
+    observed = np.array([in_long.sum(), (~in_long).sum()])
+    assert stats.chisquare(observed, expected).pvalue > 0.001
+    assert stats.kstest(local[in_long, 0] / 600, "uniform").pvalue > 0.001

@@ -39,6 +39,7 @@ from numpy.typing import ArrayLike
 from scipy.spatial import cKDTree
 from shapely.geometry.base import BaseGeometry
 
+from fieldplan.design.random import random_points
 from fieldplan.errors import DesignError
 
 __all__ = [
@@ -52,6 +53,12 @@ __all__ = [
 _K = 12
 _BRUTE = 256
 _EPS = 1e-12
+# Lattice cells laid over the polygon's bounds, at most: a thin diagonal sliver
+# has a tiny area in wide bounds, and a lattice fine enough to catch it would not
+# fit in memory. Past this, candidates are drawn uniformly inside the polygon.
+_MAX_CELLS = 4_000_000
+# Rows of the lattice tested at once, so the work arrays stay small.
+_CHUNK_CELLS = 1_000_000
 
 
 @dataclass(frozen=True)
@@ -69,7 +76,9 @@ class BalancedSample:
     selected : numpy.ndarray
         Indices of the selected candidates in ``candidates``.
     spacing : float
-        Candidate lattice spacing in metres.
+        Candidate lattice spacing in metres (for a sliver that no affordable
+        lattice catches, candidates are uniform random points and this is the
+        spacing they average).
     """
 
     points: np.ndarray
@@ -90,11 +99,27 @@ def candidate_lattice(polygon: BaseGeometry, *, spacing: float, rng: np.random.G
     ox, oy = rng.random(2) * spacing
     xs = np.arange(xmin + ox, xmax, spacing)
     ys = np.arange(ymin + oy, ymax, spacing)
-    gx, gy = np.meshgrid(xs, ys)
-    gx, gy = gx.ravel(), gy.ravel()
     shapely.prepare(polygon)
-    inside = shapely.contains_xy(polygon, gx, gy)
-    return np.column_stack([gx[inside], gy[inside]])
+    step = max(1, _CHUNK_CELLS // max(xs.size, 1))
+    parts = [np.empty((0, 2))]
+    for start in range(0, ys.size, step):
+        gx, gy = np.meshgrid(xs, ys[start : start + step])
+        gx, gy = gx.ravel(), gy.ravel()
+        inside = shapely.contains_xy(polygon, gx, gy)
+        parts.append(np.column_stack([gx[inside], gy[inside]]))
+    return np.concatenate(parts)
+
+
+def lattice_cells(polygon: BaseGeometry, spacing: float) -> float:
+    """Number of lattice cells a lattice of ``spacing`` lays over the polygon's bounds."""
+    xmin, ymin, xmax, ymax = polygon.bounds
+    return (np.floor((xmax - xmin) / spacing) + 1.0) * (np.floor((ymax - ymin) / spacing) + 1.0)
+
+
+def _uniform_candidates(polygon: BaseGeometry, count: int, rng: np.random.Generator) -> np.ndarray:
+    """``count`` uniform random candidates in the polygon, ordered by row (y) then x."""
+    xy = random_points(polygon, count, rng=rng)
+    return xy[np.lexsort((xy[:, 0], xy[:, 1]))]
 
 
 def local_pivotal(coords: ArrayLike, prob: ArrayLike, *, rng: np.random.Generator) -> np.ndarray:
@@ -240,13 +265,20 @@ def balanced_points(
         raise DesignError("cannot place balanced points in an empty polygon or one without area")
     target = max(int(candidates), 20 * n, 1)
     spacing = float(np.sqrt(polygon.area / target))
-    lattice = candidate_lattice(polygon, spacing=spacing, rng=rng)
-    # Thin or tiny polygons can catch fewer lattice points than planned.
-    for _ in range(8):
-        if lattice.shape[0] >= max(2 * n, 1):
-            break
-        spacing /= 2.0
+    lattice = np.empty((0, 2))
+    if lattice_cells(polygon, spacing) <= _MAX_CELLS:
         lattice = candidate_lattice(polygon, spacing=spacing, rng=rng)
+        # Thin or tiny polygons can catch fewer lattice points than planned.
+        for _ in range(8):
+            if lattice.shape[0] >= max(2 * n, 1) or lattice_cells(polygon, spacing / 2.0) > _MAX_CELLS:
+                break
+            spacing /= 2.0
+            lattice = candidate_lattice(polygon, spacing=spacing, rng=rng)
+    if lattice.shape[0] < max(2 * n, 1):
+        # A sliver no affordable lattice catches: uniform candidates keep every
+        # part of it reachable with equal probability, and LPM still spreads them.
+        lattice = _uniform_candidates(polygon, target, rng)
+        spacing = float(np.sqrt(polygon.area / target))
     if lattice.shape[0] < n:
         raise DesignError(
             f"only {lattice.shape[0]} candidate locations fit the polygon for {n} points; "
