@@ -21,7 +21,7 @@ import shapely
 from pyproj import CRS
 
 from fieldplan import __version__
-from fieldplan.design.grid import cell_area, grid_points, spacing_for_density
+from fieldplan.design.grid import cell_area, grid_points_many, spacing_for_density
 from fieldplan.errors import DesignError, InvalidBlocksError, OptionError
 from fieldplan.field.spares import SPARE_DESIGNS
 from fieldplan.field.substitutes import SUBSTITUTE_RULES, SUBSTITUTES_LAYER, substitutes_layer
@@ -152,60 +152,59 @@ def _grid_design(
         math.floor(minx / spacing) * spacing,
         math.floor(miny / spacing) * spacing,
     )
-    field_offset = tuple(stream(seed, "grid-start", "field").random(2))
-    frames = []
-    flags: list[list[str]] = []
-    total = 0
-    for i, row in enumerate(blocks.itertuples(index=False)):
-        block_flags: list[str] = []
-        if params["start"] == "field":
-            offset, block_origin = field_offset, origin
-        else:
-            offset = tuple(stream(seed, "grid-start", row.block).random(2))
-            bx, by, _, _ = shapely.bounds(row.geometry)
-            block_origin = (bx, by)
-        bearing = params["angle"]
-        if bearing == "rows":
-            bearing = row.row_bearing_deg
-            if not np.isfinite(bearing):
-                bearing = 0.0
-                block_flags.append("no row_bearing_deg: grid not rotated")
-        xy = grid_points(
-            areas[i],
-            spacing,
-            layout=layout,
-            bearing_deg=float(bearing),
-            origin=block_origin,
-            offset=offset,
-            max_points=params["max_points"],
-        )
-        if len(xy) == 0:
+    n = len(blocks)
+    names = blocks["block"].astype(str).to_numpy()
+    flags: list[list[str]] = [[] for _ in range(n)]
+    if params["start"] == "field":
+        offsets = np.asarray(stream(seed, "grid-start", "field").random(2))
+        origins = np.asarray(origin, dtype=float)
+    else:
+        offsets = np.array([stream(seed, "grid-start", name).random(2) for name in names]).reshape(n, 2)
+        origins = shapely.bounds(blocks.geometry.values)[:, :2]
+    bearing = params["angle"]
+    if bearing == "rows":
+        bearing = blocks["row_bearing_deg"].to_numpy(dtype=float)
+        for i in np.flatnonzero(~np.isfinite(bearing)):
+            flags[i].append("no row_bearing_deg: grid not rotated")
+        bearing = np.where(np.isfinite(bearing), bearing, 0.0)
+    xy, owner = grid_points_many(
+        areas,
+        spacing,
+        layout=layout,
+        bearing_deg=bearing,
+        origin=origins,
+        offset=offsets,
+        max_points=params["max_points"],
+        max_total=params["max_points"],
+    )
+    counts = np.bincount(owner, minlength=n)
+    missed = counts == 0
+    if missed.any() and owner.size <= params["max_points"]:
+        # Blocks the grid missed get one point each; their places in block order are kept below.
+        extra_xy, extra_owner = [], []
+        for i in np.flatnonzero(missed):
             point, note = _fallback_point(
-                row.geometry, areas[i], exclusion_union, stream(seed, "fallback", row.block)
+                blocks.geometry.values[i], areas[i], exclusion_union, stream(seed, "fallback", names[i])
             )
-            xy = np.asarray(point, dtype=float).reshape(1, 2)
-            block_flags.append(note)
-        total += len(xy)
-        if total > params["max_points"]:
-            raise DesignError(
-                f"the plan would hold more than {params['max_points']:,} points "
-                f"(already {total:,} after block {row.block!r}); use a wider --spacing or lower --per-ha"
-            )
-        # One DataFrame per block costs more than the grid itself; collect arrays instead.
-        frames.append((row.block, xy))
-        flags.append(block_flags)
-        if progress is not None:
-            progress(i + 1, len(blocks))
-    return _points_table(frames), flags
-
-
-def _points_table(frames: list[tuple[str, np.ndarray]]) -> pd.DataFrame:
-    """One ``block, x, y`` table from per-block coordinate arrays, in block order."""
-    names = np.array([name for name, _ in frames], dtype=object)
-    counts = [len(xy) for _, xy in frames]
-    xy = np.concatenate([xy for _, xy in frames]) if frames else np.empty((0, 2))
-    block = pd.Series(np.repeat(names, counts), dtype="str")
-    return pd.DataFrame({"block": block, "x": xy[:, 0], "y": xy[:, 1]})
+            extra_xy.append(np.asarray(point, dtype=float).reshape(1, 2))
+            extra_owner.append(i)
+            flags[i].append(note)
+        xy = np.concatenate([xy, *extra_xy])
+        owner = np.concatenate([owner, np.asarray(extra_owner, dtype=owner.dtype)])
+        order = np.argsort(owner, kind="stable")
+        xy, owner = xy[order], owner[order]
+        counts = np.bincount(owner, minlength=n)
+    running = np.cumsum(counts)
+    over = np.flatnonzero(running > params["max_points"])
+    if over.size:
+        i = int(over[0])
+        raise DesignError(
+            f"the plan would hold more than {params['max_points']:,} points "
+            f"(already {int(running[i]):,} after block {names[i]!r}); use a wider --spacing or lower --per-ha"
+        )
+    if progress is not None:
+        progress(n, n)
+    return pd.DataFrame({"block": pd.Series(names[owner], dtype="str"), "x": xy[:, 0], "y": xy[:, 1]}), flags
 
 
 DESIGNS: dict[str, Callable] = {"grid": _grid_design, **STRATIFIED_DESIGNS}

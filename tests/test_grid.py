@@ -76,3 +76,65 @@ def test_points_always_inside_polygon_with_hole(cx, cy, radius, hole, spacing, b
     poly = outer.difference(shapely.Point(cx + radius * 0.2, cy).buffer(radius * hole))
     xy = grid_points(poly, spacing, layout=layout, bearing_deg=bearing, offset=(u, v))
     assert np.all(shapely.contains_xy(poly, xy[:, 0], xy[:, 1]))
+
+
+def _lattice_reference(poly, spacing, layout, bearing, origin, offset):
+    """Every lattice point in a generous window, kept by a point-by-point containment test."""
+    basis = lattice_basis(spacing, layout, bearing)
+    start = np.asarray(origin) + np.asarray(offset) @ basis
+    minx, miny, maxx, maxy = poly.bounds
+    reach = int(np.ceil(max(maxx - minx, maxy - miny, 1.0) / spacing * 2.5)) + 3
+    centre = np.array([(minx + maxx) / 2, (miny + maxy) / 2]) - start
+    ci, cj = np.round(centre @ np.linalg.inv(basis)).astype(int)
+    ii, jj = np.meshgrid(np.arange(ci - reach, ci + reach + 1), np.arange(cj - reach, cj + reach + 1))
+    xy = start + np.column_stack([ii.ravel(), jj.ravel()]) @ basis
+    keep = np.array([poly.contains(shapely.Point(x, y)) for x, y in xy])
+    return xy[keep]
+
+
+@pytest.mark.parametrize("chunk", [None, 50])
+def test_grid_points_many_matches_a_point_by_point_lattice(monkeypatch, chunk):
+    # reference: the lattice definition (start + i·b1 + j·b2) with shapely's Polygon.contains
+    # tested point by point; batching blocks (and chunking them) must not change any block's points.
+    from fieldplan.design import grid
+
+    if chunk is not None:
+        monkeypatch.setattr(grid, "_CHUNK_CANDIDATES", chunk)
+    rng = np.random.default_rng(5)
+    polys = [
+        shapely.affinity.translate(concave, 500_000, 6_000_000),
+        None,
+        shapely.affinity.translate(with_hole, 500_400, 6_000_000),
+        shapely.Polygon(),
+        shapely.affinity.translate(multipart, 501_000, 6_000_300),
+    ]
+    bearings = rng.uniform(0, 360, len(polys))
+    offsets = rng.random((len(polys), 2))
+    origins = rng.uniform(0, 100, (len(polys), 2)) + [500_000, 6_000_000]
+    for layout in ("square", "triangular"):
+        xy, block = grid.grid_points_many(
+            polys, 13.0, layout=layout, bearing_deg=bearings, origin=origins, offset=offsets
+        )
+        assert np.all(np.diff(block) >= 0)
+        for i, poly in enumerate(polys):
+            got = xy[block == i]
+            if poly is None or poly.is_empty:
+                assert len(got) == 0
+                continue
+            ref = _lattice_reference(poly, 13.0, layout, bearings[i], origins[i], offsets[i])
+            assert len(got) == len(ref) > 0
+            np.testing.assert_allclose(np.unique(got.round(6), axis=0), np.unique(ref.round(6), axis=0))
+            one = grid_points(
+                poly, 13.0, layout=layout, bearing_deg=bearings[i], origin=origins[i], offset=offsets[i]
+            )
+            assert np.array_equal(one, got)
+
+
+def test_grid_points_many_stops_after_the_chunk_that_passes_max_total(monkeypatch):
+    from fieldplan.design import grid
+
+    monkeypatch.setattr(grid, "_CHUNK_CANDIDATES", 10)
+    polys = [shapely.box(100 * k, 0, 100 * k + 90, 90) for k in range(20)]
+    xy, block = grid.grid_points_many(polys, 10.0, offset=(0.5, 0.5), max_total=150)
+    # 81 points a block: the second block passes 150 and nothing after it is built.
+    assert len(xy) == 162 and block.max() == 1

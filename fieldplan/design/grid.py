@@ -22,6 +22,7 @@ __all__ = [
     "spacing_for_density",
     "lattice_basis",
     "grid_points",
+    "grid_points_many",
     "expected_count",
 ]
 
@@ -118,32 +119,124 @@ def grid_points(
     >>> grid_points(box(0, 0, 100, 100), 50, offset=(0.5, 0.5)).shape
     (4, 2)
     """
-    if polygon is None or shapely.is_empty(polygon):
-        return np.empty((0, 2))
-    if not all(0.0 <= o < 1.0 for o in offset):
-        raise OptionError(f"grid offset must lie in [0, 1), got {offset}")
-    basis = lattice_basis(spacing, layout, bearing_deg)
-    start = np.asarray(origin, dtype=float) + np.asarray(offset) @ basis
-    minx, miny, maxx, maxy = shapely.bounds(polygon)
-    corners = np.array([[minx, miny], [minx, maxy], [maxx, miny], [maxx, maxy]]) - start
+    xy, _ = grid_points_many(
+        [polygon],
+        spacing,
+        layout=layout,
+        bearing_deg=bearing_deg,
+        origin=origin,
+        offset=offset,
+        max_points=max_points,
+    )
+    return xy
+
+
+#: Lattice points tested in one vectorised pass; bounds memory for large farms.
+_CHUNK_CANDIDATES = 1_000_000
+
+
+def grid_points_many(
+    polygons,
+    spacing: float,
+    *,
+    layout: str = "square",
+    bearing_deg=0.0,
+    origin=(0.0, 0.0),
+    offset=(0.0, 0.0),
+    max_points: int | None = None,
+    max_total: int | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Lattice points inside many polygons, in one vectorised pass per chunk of blocks.
+
+    Gives, block by block, exactly the points of :func:`grid_points`: each
+    block's lattice depends only on its own bearing, origin and offset.
+
+    Parameters
+    ----------
+    polygons : array_like of Polygon or MultiPolygon (or None / empty)
+        Areas to sample, metric CRS.
+    spacing : float
+        Distance between neighbouring points in metres (one for all blocks).
+    layout : {"square", "triangular"}
+    bearing_deg : float or array_like
+        Per block, or one for all.
+    origin, offset : (float, float) or array_like of shape (n, 2)
+        Per block, or one pair for all (see :func:`grid_points`).
+    max_points : int, optional
+        Refuse a block whose lattice would hold more candidate points than this.
+    max_total : int, optional
+        Stop after the chunk of blocks that takes the point count above this
+        (the caller reports it); later blocks are then missing from the result.
+
+    Returns
+    -------
+    xy : numpy.ndarray
+        ``(k, 2)`` coordinates, block by block, each block's as :func:`grid_points` orders them.
+    block : numpy.ndarray
+        Index into ``polygons`` of each point's block.
+    """
+    _check_layout(layout)
+    if not spacing > 0:
+        raise OptionError(f"--spacing must be positive, got {spacing}")
+    polys = np.asarray(polygons, dtype=object).reshape(-1)
+    n = polys.size
+    offsets = np.broadcast_to(np.asarray(offset, dtype=float), (n, 2))
+    if not ((offsets >= 0.0) & (offsets < 1.0)).all():
+        bad = offsets[~((offsets >= 0.0) & (offsets < 1.0)).all(axis=1)][0]
+        raise OptionError(f"grid offset must lie in [0, 1), got {tuple(bad.tolist())}")
+    empty = shapely.is_missing(polys)
+    empty[~empty] = shapely.is_empty(polys[~empty])
+    theta = np.radians(np.broadcast_to(np.asarray(bearing_deg, dtype=float), (n,)))
+    e1 = np.column_stack([np.sin(theta), np.cos(theta)])
+    e2 = np.column_stack([-e1[:, 1], e1[:, 0]])
+    second = e2 if layout == "square" else 0.5 * e1 + (math.sqrt(3.0) / 2.0) * e2
+    b0, b1 = spacing * e1, spacing * second
+    start = np.broadcast_to(np.asarray(origin, dtype=float), (n, 2)) + offsets[:, :1] * b0 + offsets[:, 1:] * b1
+    bounds = shapely.bounds(np.where(empty, None, polys))
+    bounds[empty] = 0.0
     # Lattice coordinates of the bounding box corners tell which indices can fall inside.
-    (b00, b01), (b10, b11) = basis.tolist()
-    det = b00 * b11 - b01 * b10
-    lattice = corners @ (np.array([[b11, -b01], [-b10, b00]]) / det)
-    lo = np.floor(lattice.min(axis=0)).astype(np.int64)
-    hi = np.ceil(lattice.max(axis=0)).astype(np.int64)
-    n_candidates = int(hi[0] - lo[0] + 1) * int(hi[1] - lo[1] + 1)
-    if max_points is not None and n_candidates > 4 * max_points + 1_000_000:
-        raise DesignError(
-            f"grid would test {n_candidates:,} lattice points in one block; "
-            "use a wider spacing or a lower density"
-        )
-    # Same order as meshgrid(i, j).ravel(): the first index runs fastest.
-    ni, nj = int(hi[0] - lo[0] + 1), int(hi[1] - lo[1] + 1)
-    index = np.empty((ni * nj, 2))
-    index[:, 0] = np.tile(np.arange(lo[0], hi[0] + 1, dtype=float), nj)
-    index[:, 1] = np.repeat(np.arange(lo[1], hi[1] + 1, dtype=float), ni)
-    xy = start + index @ basis
-    shapely.prepare(polygon)
-    inside = shapely.contains_xy(polygon, xy[:, 0], xy[:, 1])
-    return xy[inside]
+    det = b0[:, 0] * b1[:, 1] - b0[:, 1] * b1[:, 0]
+    inv = np.stack([np.column_stack([b1[:, 1], -b0[:, 1]]), np.column_stack([-b1[:, 0], b0[:, 0]])], axis=1)
+    inv = inv / det[:, None, None]
+    cx = bounds[:, [0, 0, 2, 2]] - start[:, :1]
+    cy = bounds[:, [1, 3, 1, 3]] - start[:, 1:]
+    li = cx * inv[:, 0, :1] + cy * inv[:, 1, :1]
+    lj = cx * inv[:, 0, 1:] + cy * inv[:, 1, 1:]
+    lo_i, hi_i = np.floor(li.min(axis=1)).astype(np.int64), np.ceil(li.max(axis=1)).astype(np.int64)
+    lo_j, hi_j = np.floor(lj.min(axis=1)).astype(np.int64), np.ceil(lj.max(axis=1)).astype(np.int64)
+    ni, nj = hi_i - lo_i + 1, hi_j - lo_j + 1
+    cand = np.where(empty, 0, ni * nj)
+    if max_points is not None:
+        big = np.flatnonzero(cand > 4 * max_points + 1_000_000)
+        if big.size:
+            raise DesignError(
+                f"grid would test {int(cand[big[0]]):,} lattice points in one block; "
+                "use a wider spacing or a lower density"
+            )
+    shapely.prepare(polys[~empty])
+    out_xy, out_block = [], []
+    first = total = 0
+    ends = np.cumsum(cand)
+    while first < n:
+        # Blocks up to the candidate budget (at least one) go through one contains_xy.
+        budget = (ends[first - 1] if first else 0) + _CHUNK_CANDIDATES
+        last = max(int(np.searchsorted(ends, budget, side="right")), first + 1)
+        sl = slice(first, last)
+        counts = cand[sl]
+        b = np.repeat(np.arange(first, last), counts)
+        m = np.arange(b.size) - np.repeat(np.cumsum(counts) - counts, counts)
+        # Same order as meshgrid(i, j).ravel(): the first index runs fastest.
+        i = (lo_i[b] + m % ni[b]).astype(float)
+        j = (lo_j[b] + m // ni[b]).astype(float)
+        x = start[b, 0] + i * b0[b, 0] + j * b1[b, 0]
+        y = start[b, 1] + i * b0[b, 1] + j * b1[b, 1]
+        inside = shapely.contains_xy(polys[b], x, y)
+        out_xy.append(np.column_stack([x[inside], y[inside]]))
+        out_block.append(b[inside])
+        first = last
+        total += int(inside.sum())
+        if max_total is not None and total > max_total:
+            break
+    if not out_xy:
+        return np.empty((0, 2)), np.zeros(0, dtype=np.int64)
+    return np.concatenate(out_xy), np.concatenate(out_block)

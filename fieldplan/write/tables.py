@@ -6,11 +6,13 @@ import json
 import math
 import re
 from contextlib import contextmanager
+from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import shapely
+from pyproj import CRS, Transformer
 
 from fieldplan.crs import WGS84
 from fieldplan.safety import cautions_text, plan_cautions
@@ -48,8 +50,20 @@ def points_lonlat(points) -> np.ndarray:
 def _lonlat(points) -> np.ndarray:
     if len(points) == 0:
         return np.empty((0, 2))
-    xy = shapely.get_coordinates(points.to_crs(WGS84).geometry.values)
+    # Transform the coordinates only: GeoDataFrame.to_crs also builds new point
+    # geometries, which costs more than the projection itself.
+    xy = shapely.get_coordinates(points.geometry.values)
+    transformer = _to_wgs84(points.crs)
+    if transformer is not None:
+        xy = np.column_stack(transformer.transform(xy[:, 0], xy[:, 1]))
     return np.round(xy, LONLAT_DECIMALS)
+
+
+@lru_cache(maxsize=8)
+def _to_wgs84(crs) -> Transformer | None:
+    if crs is None or CRS.from_user_input(crs).equals(WGS84):
+        return None
+    return Transformer.from_crs(crs, WGS84, always_xy=True)
 
 
 @contextmanager
