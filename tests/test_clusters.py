@@ -224,7 +224,10 @@ def _reference_row_segments(polygon, rs, ps, bearing, clip=None):
     v = np.array([np.cos(theta), -np.sin(theta)])
     xy = shapely.get_coordinates(polygon)
     pu, pv = xy @ u, xy @ v
-    offsets = np.arange(pv.min() + rs / 2.0, pv.max(), rs)
+    # Row k at first + k * rs (np.arange's start + k * ((start + rs) - start) drifts
+    # by micrometres at UTM magnitudes).
+    first = pv.min() + rs / 2.0
+    offsets = first + np.arange(max(int(np.ceil((pv.max() - first) / rs)), 0)) * rs
     lo, hi = pu.min() - 1.0, pu.max() + 1.0
     lines = shapely.linestrings(
         np.stack([offsets[:, None] * v + lo * u, offsets[:, None] * v + hi * u], axis=1)

@@ -39,6 +39,8 @@ import shapely
 from numpy.typing import ArrayLike
 from shapely.geometry.base import BaseGeometry
 
+from fieldplan.design.scanline import LEN_TOL as _LEN_TOL
+from fieldplan.design.scanline import clip_pieces, first_distinct, locate_plants, row_model
 from fieldplan.errors import DesignError, OptionError
 
 __all__ = [
@@ -53,8 +55,6 @@ __all__ = [
     "rows_from_lines",
     "sample_ranks",
 ]
-
-_LEN_TOL = 1e-9
 
 
 @dataclass(frozen=True)
@@ -178,64 +178,21 @@ def _segments(row_lines: np.ndarray, clip: BaseGeometry | None, plant_spacing: f
     )
 
 
-def _row_intervals(
-    rings_uv: tuple[np.ndarray, np.ndarray, np.ndarray], offsets: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Even-odd scanline: pieces of the lines ``v = offsets[k]`` inside the rings.
-
-    ``rings_uv`` holds the ring vertices in the row frame (``u`` along the rows,
-    ``v`` across) and the ring index of each vertex; rings are closed. An edge
-    crosses the line ``v = c`` when ``min(v0, v1) <= c < max(v0, v1)``
-    (half-open, so a vertex on a line is counted once, or twice at a local
-    minimum where the two crossings pair into a zero-length piece). Crossings
-    of a line sorted along ``u`` pair up (1st-2nd, 3rd-4th, ...) into the
-    pieces inside; pieces that meet end to end are joined, as
-    :func:`shapely.line_merge` does.
-
-    Returns
-    -------
-    row, start, end : numpy.ndarray
-        0-based index into ``offsets`` and ``u`` range of each piece, ordered by
-        row then along the row, pieces shorter than ``_LEN_TOL`` dropped.
-    """
-    pu, pv, ring = rings_uv
-    same = ring[:-1] == ring[1:]
-    u0, v0, u1, v1 = pu[:-1][same], pv[:-1][same], pu[1:][same], pv[1:][same]
-    vlo, vhi = np.minimum(v0, v1), np.maximum(v0, v1)
-    k_lo = np.searchsorted(offsets, vlo, side="left")
-    k_hi = np.searchsorted(offsets, vhi, side="left")
-    count = k_hi - k_lo
-    edge = np.repeat(np.arange(count.size), count)
-    k = np.arange(edge.size) - np.repeat(np.cumsum(count) - count, count) + k_lo[edge]
-    c = offsets[k]
-    du, dv = u1[edge] - u0[edge], v1[edge] - v0[edge]
-    # dv is never 0 here: a flat edge crosses no line under the half-open rule.
-    at = u0[edge] + (c - v0[edge]) * (du / dv)
-    order = np.lexsort((at, k))
-    k, at = k[order], at[order]
-    row, start, end = k[0::2], at[0::2], at[1::2]
-    if row.size > 1:
-        # A piece that starts where the previous one on its row ends continues it.
-        # np.concatenate rather than np.r_: this runs once per block, where np.r_'s overhead shows.
-        joined = np.concatenate(([False], (row[1:] == row[:-1]) & (start[1:] == end[:-1])))
-        if joined.any():
-            head = np.flatnonzero(~joined)
-            last = np.r_[head[1:], row.size] - 1
-            row, start, end = row[head], start[head], end[last]
-    keep = end - start > _LEN_TOL
-    return row[keep], start[keep], end[keep]
-
-
 def _frame(theta: float) -> tuple[np.ndarray, np.ndarray]:
     u = np.array([np.sin(theta), np.cos(theta)])  # along the rows
     v = np.array([np.cos(theta), -np.sin(theta)])  # across, to the right of u
     return u, v
 
 
-def _rings_uv(polygon: BaseGeometry, u: np.ndarray, v: np.ndarray):
-    rings = shapely.get_rings(shapely.get_parts(polygon))
-    xy, ring = shapely.get_coordinates(rings, return_index=True)
-    return xy @ u, xy @ v, ring
+def _ring_coordinates(polygon: BaseGeometry) -> tuple[np.ndarray, np.ndarray]:
+    """Ring vertices of a polygon or multipolygon, and the ring index of each."""
+    # Attribute access is several times cheaper than get_parts + get_rings for one geometry.
+    parts = polygon.geoms if shapely.get_type_id(polygon) == 6 else (polygon,)
+    rings = []
+    for part in parts:
+        rings.append(part.exterior)
+        rings.extend(part.interiors)
+    return shapely.get_coordinates(rings, return_index=True)
 
 
 def _ends(offsets: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.ndarray, v: np.ndarray):
@@ -244,17 +201,6 @@ def _ends(offsets: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.ndarray
     out[:, 0] = base + start[:, None] * u
     out[:, 1] = base + end[:, None] * u
     return out
-
-
-def _plant_layout(row: np.ndarray, length: np.ndarray, ps: float) -> tuple[np.ndarray, ...]:
-    plants = np.floor(length / ps + 1e-9).astype(np.int64)
-    offset = (length - plants * ps) / 2.0 + ps / 2.0
-    # Plants of earlier segments of the same row, for numbering along the row.
-    before = np.cumsum(plants) - plants
-    # ``row`` is sorted: a row's segments are consecutive.
-    first_of_row = np.flatnonzero(np.concatenate(([True], row[1:] != row[:-1]))) if row.size else row
-    row_base = np.repeat(before[first_of_row], np.diff(np.append(first_of_row, row.size)))
-    return plants, offset, before - row_base + 1
 
 
 def row_segments(
@@ -292,39 +238,39 @@ def row_segments(
     if shapely.get_type_id(polygon) not in (3, 6):
         raise DesignError("the block is not a polygon; rows are laid out in polygons only")
     u, v = _frame(np.radians(float(row_bearing_deg)))
-    pu, pv, ring = _rings_uv(polygon, u, v)
-    offsets = np.arange(pv.min() + rs / 2.0, pv.max(), rs)
-    row, start, end = _row_intervals((pu, pv, ring), offsets)
-    length = end - start
-    plants, offset, first_plant = _plant_layout(row, length, ps)
+    xy, ring = _ring_coordinates(polygon)
+    row, start, length, plants, first_plant, offset, ends, first, count = row_model(xy, ring, u, v, rs, ps)
     full = RowSegments(
-        row=row.astype(np.int64) + 1,
-        ends=_ends(offsets[row], start, end, u, v),
+        row=row + 1,
+        ends=ends,
         length=length,
         plants=plants,
         first_plant=first_plant,
         offset=offset,
         plant_spacing=ps,
     )
-    if clip is None:
+    if clip is None or clip is polygon:
         return full
     # Number plants over the whole block, then keep those inside ``clip``.
     if clip.is_empty or shapely.get_type_id(clip) not in (3, 6):
         return _clip_segments(full, clip)
-    cu, cv, cring = _rings_uv(clip, u, v)
-    crow, cstart, cend = _row_intervals((cu, cv, cring), offsets)
-    return _clip_intervals(full, start, (crow + 1, cstart, cend), offsets, u, v)
+    cxy, cring = _ring_coordinates(clip)
+    crow, cstart, cend = clip_pieces(cxy, cring, u, v, first, rs, count)
+    return _clip_intervals(full, start, (crow + 1, cstart, cend), (first, rs), u, v)
 
 
 def _clip_intervals(
     full: RowSegments,
     start: np.ndarray,
     clip: tuple[np.ndarray, np.ndarray, np.ndarray],
-    offsets: np.ndarray,
+    rows: tuple[float, float],
     u: np.ndarray,
     v: np.ndarray,
 ) -> RowSegments:
-    """:func:`_clip_segments` for a polygonal clip, on ``u`` intervals of the same rows."""
+    """:func:`_clip_segments` for a polygonal clip, on ``u`` intervals of the same rows.
+
+    ``rows`` is the first row's offset and the row spacing.
+    """
     ps = float(full.plant_spacing)
     crow, cstart, cend = clip
     # Pair every full segment with every clip piece of its row (both sorted by row).
@@ -346,7 +292,7 @@ def _clip_intervals(
     row = full.row[parent]
     return RowSegments(
         row=row,
-        ends=_ends(offsets[row - 1], lo_u, hi_u, u, v),
+        ends=_ends(rows[0] + (row - 1) * rows[1], lo_u, hi_u, u, v),
         length=hi_u - lo_u,
         plants=np.maximum(k1 - k0 + 1, 0),
         first_plant=full.first_plant[parent] + k0,
@@ -483,9 +429,7 @@ def sample_ranks(total: int, n: int, *, rng: np.random.Generator) -> np.ndarray:
     while out.size < n:
         need = n - out.size
         draw = rng.integers(0, total, size=need + need // 8 + 8, dtype=np.int64)
-        both = np.concatenate([out, draw])
-        _, first = np.unique(both, return_index=True)
-        out = both[np.sort(first)][:n]
+        out = first_distinct(np.concatenate([out, draw]), n)
     return out
 
 
@@ -532,14 +476,26 @@ def pick_plants(
             "lower the number or the skips"
         )
     ranks = sample_ranks(total, n, rng=rng)
-    cum = np.cumsum(eligible)
-    seg = np.searchsorted(cum, ranks, side="right")
-    within = ranks - (cum[seg] - eligible[seg]) + int(skip_row_ends)
     spacing = np.asarray(segments.plant_spacing, dtype=float)
-    step = spacing if spacing.ndim == 0 else spacing[seg]
-    dist = segments.offset[seg] + within * step
-    pts = shapely.line_interpolate_point(segments.lines_at(seg), dist)
-    xy = shapely.get_coordinates(pts).reshape(-1, 2)
+    if segments.ends is not None:
+        # Straight segments: the plant is a linear interpolation of the ends.
+        seg, within, xy = locate_plants(
+            np.asarray(eligible, dtype=np.int64),
+            ranks,
+            int(skip_row_ends),
+            segments.offset,
+            spacing.reshape(-1),
+            segments.ends,
+            segments.length,
+        )
+    else:
+        cum = np.cumsum(eligible)
+        seg = np.searchsorted(cum, ranks, side="right")
+        within = ranks - (cum[seg] - eligible[seg]) + int(skip_row_ends)
+        step = spacing if spacing.ndim == 0 else spacing[seg]
+        dist = segments.offset[seg] + within * step
+        pts = shapely.line_interpolate_point(segments.lines_at(seg), dist)
+        xy = shapely.get_coordinates(pts).reshape(-1, 2)
     return PlantPicks(
         row=segments.row[seg],
         plant=segments.first_plant[seg] + within,

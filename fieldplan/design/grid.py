@@ -191,7 +191,9 @@ def grid_points_many(
     e2 = np.column_stack([-e1[:, 1], e1[:, 0]])
     second = e2 if layout == "square" else 0.5 * e1 + (math.sqrt(3.0) / 2.0) * e2
     b0, b1 = spacing * e1, spacing * second
-    start = np.broadcast_to(np.asarray(origin, dtype=float), (n, 2)) + offsets[:, :1] * b0 + offsets[:, 1:] * b1
+    start = (
+        np.broadcast_to(np.asarray(origin, dtype=float), (n, 2)) + offsets[:, :1] * b0 + offsets[:, 1:] * b1
+    )
     bounds = shapely.bounds(np.where(empty, None, polys))
     bounds[empty] = 0.0
     # Lattice coordinates of the bounding box corners tell which indices can fall inside.
