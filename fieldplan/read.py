@@ -8,6 +8,7 @@ naming the file, the feature and the fix.
 from __future__ import annotations
 
 import hashlib
+import importlib.util
 import json
 import re
 import warnings
@@ -160,6 +161,9 @@ def _sniff_geojson(path: Path, raw: bytes) -> None:
         )
 
 
+_HAS_ARROW = importlib.util.find_spec("pyarrow") is not None
+
+
 def read_frame(path: Path, *, layer: str | None = None) -> gpd.GeoDataFrame:
     """Read any supported vector file into a GeoDataFrame, turning library errors into InputError."""
     path = Path(path)
@@ -178,7 +182,8 @@ def read_frame(path: Path, *, layer: str | None = None) -> gpd.GeoDataFrame:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            frame = gpd.read_file(path, layer=layer, engine="pyogrio")
+            # Arrow transfer is about a quarter faster than feature by feature.
+            frame = gpd.read_file(path, layer=layer, engine="pyogrio", use_arrow=_HAS_ARROW)
     except Exception as err:  # pyogrio raises several unrelated types
         if geojson:
             _check_geojson_text(path)

@@ -314,15 +314,18 @@ def _stratified(
             for i in m[~gone[m]]:
                 seg, notes = _row_model(blocks, i, use[i], opts, params.get("rows_frame"))
                 flags[i].extend(notes)
-                if seg is None or seg.row.size == 0:
+                if seg is None:
+                    continue
+                count = eligible_plants(
+                    seg, skip_row_ends=opts["skip_row_ends"], skip_border_rows=opts["skip_border_rows"]
+                )
+                if count.sum() == 0:
+                    # A sliver left by the edge buffer or exclusions can hold no whole plant.
+                    flags[i].append("no eligible plants in the sampled area: not sampled")
                     continue
                 parts.append(seg)
                 owner_idx.append(i)
-                elig.append(
-                    eligible_plants(
-                        seg, skip_row_ends=opts["skip_row_ends"], skip_border_rows=opts["skip_border_rows"]
-                    )
-                )
+                elig.append(count)
             if parts:
                 joined, which = concat_segments(parts)
                 segments[h] = joined
