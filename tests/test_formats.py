@@ -53,3 +53,23 @@ def test_single_formats_and_unknown_format(tmp_path):
     bad = _plan(tmp_path / "bad", "--formats", "csv,xls")
     assert bad.exit_code == 2
     assert "xls" in bad.output and not (tmp_path / "bad").exists()
+
+
+def test_new_plan_gpkg_is_a_sound_sqlite_database_and_settings_are_restored(tmp_path):
+    # reference: SQLite's PRAGMA integrity_check and the GeoPackage 1.3 required tables
+    # (gpkg_spatial_ref_sys, gpkg_contents, gpkg_geometry_columns; OGC 12-128r18 §1.1).
+    import sqlite3
+
+    import pyogrio
+
+    out = tmp_path / "plan"
+    assert _plan(out, "--formats", "core").exit_code == 0
+    with sqlite3.connect(out / "plan.gpkg") as db:
+        assert db.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        tables = {row[0] for row in db.execute("SELECT name FROM sqlite_master WHERE type='table'")}
+        contents = {row[0] for row in db.execute("SELECT table_name FROM gpkg_contents")}
+    assert {"gpkg_spatial_ref_sys", "gpkg_contents", "gpkg_geometry_columns"} <= tables
+    assert {"blocks", "points", "exclusions", "plan_info"} <= contents
+    # The no-sync mode is for the new file only: later layer writes get SQLite's defaults.
+    assert pyogrio.get_gdal_config_option("OGR_SQLITE_SYNCHRONOUS") is None
+    assert pyogrio.get_gdal_config_option("OGR_SQLITE_JOURNAL") is None

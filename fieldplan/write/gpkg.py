@@ -89,15 +89,42 @@ def _arrow_ok(frame: gpd.GeoDataFrame, geometry_type: str | None) -> bool:
     return bool((frame.geometry.geom_type == geometry_type).all())
 
 
+@contextmanager
+def _new_file_mode(path: Path):
+    """SQLite without per-transaction syncs or an on-disk journal, for a file being created.
+
+    A new plan.gpkg is written into a staging folder that replaces the plan only
+    once every file is complete, so SQLite's crash protection buys nothing here;
+    one fsync at the end makes the finished file durable instead of one per
+    transaction. Layers added later to an existing plan keep SQLite's defaults.
+    """
+    import pyogrio
+
+    if path.exists():
+        raise FileExistsError(f"{path} exists; the fast mode is for a new file only")
+    options = {"OGR_SQLITE_SYNCHRONOUS": "OFF", "OGR_SQLITE_JOURNAL": "MEMORY"}
+    pyogrio.set_gdal_config_options(options)
+    try:
+        yield
+    finally:
+        pyogrio.set_gdal_config_options({key: None for key in options})
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
 def write_gpkg(plan, folder: Path) -> None:
-    """Write ``plan.gpkg`` with the plan's layers and ``plan_info``."""
+    """Write a new ``plan.gpkg`` with the plan's layers and ``plan_info``."""
     path = Path(folder) / GPKG_NAME
-    write_layer(path, "blocks", plan.blocks, geometry_type="MultiPolygon")
-    write_layer(path, "points", plan.points, geometry_type="Point", fast=True)
-    write_layer(path, "exclusions", plan.exclusions, geometry_type="MultiPolygon")
-    write_layer(path, "plan_info", info_table(plan))
-    for name, frame in plan.layers.items():
-        write_layer(path, name, frame)
+    with _new_file_mode(path):
+        write_layer(path, "blocks", plan.blocks, geometry_type="MultiPolygon")
+        write_layer(path, "points", plan.points, geometry_type="Point", fast=True)
+        write_layer(path, "exclusions", plan.exclusions, geometry_type="MultiPolygon")
+        write_layer(path, "plan_info", info_table(plan))
+        for name, frame in plan.layers.items():
+            write_layer(path, name, frame)
 
 
 def read_info(path: Path) -> dict:
