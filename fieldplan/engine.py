@@ -88,10 +88,14 @@ def _plan_partition(part, design: str, params: dict, exclusion_union) -> tuple:
         return None, {}, None
     table, flags = DESIGNS[design](blocks, areas, params, exclusion_union, None)
     index = dict(zip(blocks["block"].to_numpy(), order, strict=True))
-    table = table.copy()
     strata = table.attrs.get("strata")
+    # The driver knows every block's name: send back its position instead, as
+    # pickling hundreds of thousands of short strings costs more than the design.
+    position = pd.Series(index).reindex(pd.unique(table["block"])).to_numpy(dtype=np.int64)
+    codes = pd.factorize(table["block"], sort=False)[0]
+    table = table.drop(columns="block")
     table.attrs = {}
-    table[_ORDER] = table["block"].map(index).to_numpy(dtype=np.int64)
+    table[_ORDER] = position[codes]
     return table, dict(zip(order.tolist(), flags, strict=True)), strata
 
 
@@ -158,7 +162,13 @@ def _merge(results, blocks, n_blocks: int, design: str) -> tuple[pd.DataFrame, l
         flags_by_index.update(flags)
     table = pd.concat(tables, ignore_index=True)
     # Points in block order, each block's points in their drawn order: as in process.
-    table = table.sort_values(_ORDER, kind="stable").drop(columns=_ORDER).reset_index(drop=True)
+    order = table[_ORDER].to_numpy()
+    if order.size and not (np.diff(order) >= 0).all():
+        table = table.iloc[np.argsort(order, kind="stable")].reset_index(drop=True)
+        order = table[_ORDER].to_numpy()
+    names = blocks["block"].astype(str).to_numpy(dtype=object)
+    table.insert(0, "block", pd.Series(names[order], dtype="str"))
+    table = table.drop(columns=_ORDER)
     strata_parts = [s for _, _, s in results if s is not None]
     if strata_parts:
         strata = pd.concat(strata_parts, ignore_index=True)
