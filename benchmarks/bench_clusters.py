@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from benchmarks.timing import Result, alternating, peak_memory
+from benchmarks.timing import Result, fast_vs_slow, peak_memory
 from benchmarks.workloads import estate
 from fieldplan.design.clusters import pick_plants, row_segments
 from fieldplan.rng import stream
@@ -90,19 +90,8 @@ def study(*, smoke: bool = False, seed: int = 13) -> list[Result]:
     inside = all(
         bool(shapely.contains_xy(r.geometry, p.x, p.y).all()) for r, p in zip(rows, picks, strict=True)
     )
-    # One pass of fieldplan over the estate takes a few milliseconds, near the
-    # scheduler's jitter: time INNER passes per run and take the median over
-    # runs alternating with the baseline, as the grid study does.
-    inner = 1 if smoke else 10
-
-    def ours_inner():
-        for _ in range(inner):
-            ours()
-
-    runs = 1 if smoke else 5
-    pairs = [alternating(ours_inner, baseline, repeat=1) for _ in range(runs)]
-    t_ours = float(np.median([a for a, _ in pairs])) / inner
-    t_base = float(np.median([b for _, b in pairs]))
+    inner, runs = (1, 1) if smoke else (10, 5)
+    t_ours, t_base = fast_vs_slow(ours, baseline, inner=inner, runs=runs)
     # Peaks while drawing, results not kept: what one block's draw needs at most.
     m_ours = peak_memory(lambda: [None for _ in _each(ours_block, rows)])
     m_base = peak_memory(lambda: [None for _ in _each(base_block, rows)])

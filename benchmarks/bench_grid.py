@@ -16,7 +16,7 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from benchmarks.timing import Result, alternating
+from benchmarks.timing import Result, fast_vs_slow
 from benchmarks.workloads import estate
 from fieldplan.design.grid import grid_points_many
 
@@ -60,19 +60,8 @@ def study(*, smoke: bool = False, seed: int = 11) -> list[Result]:
         len(a) == len(b) and np.allclose(np.unique(a.round(6), axis=0), np.unique(b.round(6), axis=0))
         for a, b in zip(fast, slow, strict=True)
     )
-    # One pass of fieldplan takes a few milliseconds, near the timer's and the
-    # scheduler's jitter: time INNER passes per run, and compare medians over
-    # runs taken in turn with the baseline, so one slow spell cannot decide it.
-    inner = 1 if smoke else 20
-
-    def ours_inner():
-        for _ in range(inner):
-            ours()
-
-    runs = 1 if smoke else 7
-    pairs = [alternating(ours_inner, naive, repeat=1) for _ in range(runs)]
-    t_ours = float(np.median([a for a, _ in pairs])) / inner
-    t_naive = float(np.median([b for _, b in pairs]))
+    inner, runs = (1, 1) if smoke else (20, 7)
+    t_ours, t_naive = fast_vs_slow(ours, naive, inner=inner, runs=runs)
     points = int(sum(len(a) for a in fast))
     return [
         Result(

@@ -93,7 +93,7 @@ def study_floor(*, smoke: bool = False, seed: int = 21) -> list[Result]:
         points = make_plan(read_blocks(path), per_ha=1.0, seed=1).points
         floor_once(path, points, tmp / "warm.geojson")
         plan_once(path, tmp / "warm_core", formats=CORE)
-        repeat = 1 if smoke else 5  # best of 5: other work on a shared machine skews single runs
+        repeat = 1 if smoke else 9  # best of 9: other work on a shared machine skews single runs
         runs, cores, sames, floors = [], [], [], []
         for i in range(repeat):
             runs.append(plan_once(path, tmp / f"plan{i}"))

@@ -10,7 +10,7 @@ from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
-__all__ = ["Result", "best_time", "median_time", "peak_memory", "alternating"]
+__all__ = ["Result", "best_time", "median_time", "peak_memory", "alternating", "fast_vs_slow"]
 
 
 @dataclass
@@ -73,6 +73,24 @@ def alternating(a: Callable[[], Any], b: Callable[[], Any], *, repeat: int = 3) 
             fn()
             out.append(time.perf_counter() - start)
     return min(ta), min(tb)
+
+
+def fast_vs_slow(
+    fast: Callable[[], Any], slow: Callable[[], Any], *, inner: int, runs: int
+) -> tuple[float, float]:
+    """Seconds per pass of ``fast`` and of ``slow``: medians over ``runs`` runs taken in turn.
+
+    One pass of the fast side takes a few milliseconds, near the timer's and the
+    scheduler's jitter, so each run times ``inner`` passes of it; alternating
+    with the slow side and taking medians keeps one slow spell from deciding.
+    """
+
+    def fast_inner():
+        for _ in range(inner):
+            fast()
+
+    pairs = [alternating(fast_inner, slow, repeat=1) for _ in range(runs)]
+    return statistics.median(a for a, _ in pairs) / inner, statistics.median(b for _, b in pairs)
 
 
 def peak_memory(fn: Callable[[], Any]) -> int:
