@@ -73,3 +73,25 @@ def test_new_plan_gpkg_is_a_sound_sqlite_database_and_settings_are_restored(tmp_
     # The no-sync mode is for the new file only: later layer writes get SQLite's defaults.
     assert pyogrio.get_gdal_config_option("OGR_SQLITE_SYNCHRONOUS") is None
     assert pyogrio.get_gdal_config_option("OGR_SQLITE_JOURNAL") is None
+
+
+def test_blocks_layer_stores_multipolygons_and_missing_numbers_as_null(tmp_path):
+    # reference: GeoPackage 1.3 (OGC 12-128r18) §2.1.6: a layer's geometries are of the type
+    # declared in gpkg_geometry_columns; SQLite stores no NaN, a missing number is NULL.
+    import sqlite3
+
+    import pyogrio
+
+    out = tmp_path / "plan"
+    assert _plan(out, "--formats", "core").exit_code == 0
+    stored = pyogrio.read_dataframe(out / "plan.gpkg", layer="blocks")
+    assert set(stored.geometry.geom_type) == {"MultiPolygon"}
+    with sqlite3.connect(out / "plan.gpkg") as db:
+        declared = db.execute(
+            "SELECT geometry_type_name FROM gpkg_geometry_columns WHERE table_name = 'blocks'"
+        ).fetchone()[0]
+        kinds = {row[0] for row in db.execute("SELECT typeof(area_ha) FROM blocks")}
+    assert declared == "MULTIPOLYGON"
+    assert kinds == {"real"}
+    # The plan reloads with one-part blocks as Polygons again.
+    assert set(load_plan(out).blocks.geometry.geom_type) <= {"Polygon", "MultiPolygon"}
