@@ -47,7 +47,7 @@ def _workloads(smoke: bool, seed: int) -> list[tuple[str, str, object, object, d
     }
     # Spatially balanced points (local pivotal method) per block: CPU-bound work of
     # tens of milliseconds a block, the kind of plan that is worth spreading out.
-    lpm_blocks = estate(8 if smoke else 120, seed=seed + 1)
+    lpm_blocks = estate(8 if smoke else 200, seed=seed + 1)
     lpm_blocks["stratum"] = lpm_blocks["block"]
     lpm = {"seed": 5, "design_options": check_design_options("balanced", {"per_block": 12})}
     return [
@@ -90,13 +90,13 @@ def study(*, smoke: bool = False, seed: int = 31, scheduler: str | None = None) 
 
     Two workloads: a dense grid over 3,000 blocks (cheap per block, so moving
     blocks and points between processes weighs as much as the work), and
-    spatially balanced points over 120 blocks (CPU-bound). The target applies
+    spatially balanced points over 200 blocks (CPU-bound). The target applies
     to the second, the case the engine is for; the grid row is informational.
     With ``scheduler`` (a running cluster's address, as the tests pass) every
     timing uses that cluster, so only the plumbing is exercised.
     """
     logging.getLogger("distributed").setLevel(logging.ERROR)
-    repeat = 1 if smoke else 2
+    repeat = 1 if smoke else 3
     results = []
     for label, design, blocks, areas, params in _workloads(smoke, seed):
         details = _measure(design, blocks, areas, params, scheduler=scheduler, repeat=repeat)
