@@ -53,7 +53,9 @@ def test_study_functions_run_on_tiny_sizes():
         *bench_plan.study_scaling(smoke=True),
     ]
     for r in results:
-        assert math.isfinite(r.ratio) and r.ratio > 0 and r.target > 0 and r.better in ("higher", "lower")
+        assert math.isfinite(r.ratio) and r.target > 0 and r.better in ("higher", "lower")
+        # A fitted exponent can come out below zero on tiny sizes, where fixed costs dominate.
+        assert r.unit == "k" or r.ratio > 0
     by_study = {r.study: r for r in results}
     # reference: shapely Polygon.contains; baseline and fieldplan agree point for point
     assert by_study["grid"].details["same_points"]

@@ -39,6 +39,7 @@ from numpy.typing import ArrayLike
 from scipy.spatial import cKDTree
 from shapely.geometry.base import BaseGeometry
 
+from fieldplan.design.pivotal import BUILT_AT, COUNT, DONE, NEED_DRAWS, pivotal_steps
 from fieldplan.design.random import random_points
 from fieldplan.errors import DesignError
 
@@ -140,98 +141,51 @@ def local_pivotal(coords: ArrayLike, prob: ArrayLike, *, rng: np.random.Generato
     numpy.ndarray
         Sorted indices of the selected candidates.
     """
-    xy = np.asarray(coords, dtype=float)
-    p = np.asarray(prob, dtype=float).copy()
+    xy = np.ascontiguousarray(coords, dtype=float)
+    p = np.array(prob, dtype=float)
     if xy.ndim != 2 or p.shape != (xy.shape[0],):
         raise DesignError("coordinates must be (N, d) with one inclusion probability each")
     if np.any(p < -_EPS) or np.any(p > 1 + _EPS):
         raise DesignError("inclusion probabilities must lie between 0 and 1")
     total = xy.shape[0]
     # alive[pos[i]] == i for undecided i: O(1) removal by swapping with the last.
-    alive = np.flatnonzero((p > _EPS) & (p < 1 - _EPS))
+    alive = np.flatnonzero((p > _EPS) & (p < 1 - _EPS)).astype(np.int64)
     count = alive.size
     pos = np.full(total, -1, dtype=np.int64)
     pos[alive] = np.arange(count)
+    if count == 0:
+        # Every probability is already 0 or 1 (e.g. as many points as candidates).
+        return np.flatnonzero(p >= 1 - 1e-6)
+    state = np.array([count, 0, count, -1], dtype=np.int64)  # count, step, built at, pending unit
 
     def rebuild() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        count = int(state[COUNT])
         members = alive[:count].copy()
         k = min(_K + 1, count)
         dist, idx = cKDTree(xy[members]).query(xy[members], k=k)
-        dist = dist.reshape(count, k)[:, 1:]
-        idx = members[idx.reshape(count, k)[:, 1:]]
+        dist = np.ascontiguousarray(dist.reshape(count, k)[:, 1:], dtype=float)
+        idx = np.ascontiguousarray(members[idx.reshape(count, k)[:, 1:]], dtype=np.int64)
         row = np.full(total, -1, dtype=np.int64)
         row[members] = np.arange(count)
         return row, dist, idx
 
-    def remove(i: int) -> None:
-        nonlocal count
-        at = pos[i]
-        last = alive[count - 1]
-        alive[at] = last
-        pos[last] = at
-        pos[i] = -1
-        count -= 1
-
     row, nn_dist, nn_idx = rebuild()
-    built_at = count
     draws = rng.random((max(count, 1), 3))
-    step = 0
-    while count > 1:
-        u = draws[step % draws.shape[0]]
-        step += 1
-        if step % draws.shape[0] == 0:
+    pending_u = np.zeros(3)
+    while True:
+        status = pivotal_steps(xy, p, alive, pos, state, pending_u, row, nn_dist, nn_idx, draws, _BRUTE, _EPS)
+        if status == DONE:
+            break
+        if status == NEED_DRAWS:
             draws = rng.random(draws.shape)
-        i = int(alive[int(u[0] * count)])
-        cand = nn_idx[row[i]]
-        live = pos[cand] >= 0
-        if not live.any():
-            if count < built_at * 0.9 and count > _BRUTE:
-                row, nn_dist, nn_idx = rebuild()
-                built_at = count
-            else:
-                # Few candidates decided since the last rebuild, or few left:
-                # a direct distance scan for this one unit is cheaper than a rebuild.
-                members = alive[:count]
-                d = np.sqrt(((xy[members] - xy[i]) ** 2).sum(axis=1))
-                d[pos[i]] = np.inf
-                best = d.min()
-                ties = members[d <= best * (1 + 1e-9)]
-                j = int(ties[int(u[1] * ties.size)])
-                _fight(p, i, j, u[2])
-                for unit in (i, j):
-                    if p[unit] <= _EPS or p[unit] >= 1 - _EPS:
-                        remove(unit)
-                continue
-            cand = nn_idx[row[i]]
-            live = pos[cand] >= 0
-        d = nn_dist[row[i]][live]
-        ties = cand[live][d <= d[0] * (1 + 1e-9)]
-        j = int(ties[int(u[1] * ties.size)])
-        _fight(p, i, j, u[2])
-        for unit in (i, j):
-            if p[unit] <= _EPS or p[unit] >= 1 - _EPS:
-                remove(unit)
-    if count == 1:
+        else:
+            row, nn_dist, nn_idx = rebuild()
+            state[BUILT_AT] = state[COUNT]
+    if state[COUNT] == 1:
         # Only float residue can leave one unit undecided when sum(p) is whole.
         last = alive[0]
         p[last] = 1.0 if rng.random() < p[last] else 0.0
     return np.flatnonzero(p >= 1 - 1e-6)
-
-
-def _fight(p: np.ndarray, i: int, j: int, u: float) -> None:
-    """Update the pair (i, j) as in Grafström et al. (2012), section 2."""
-    pi, pj = p[i], p[j]
-    s = pi + pj
-    if s < 1:
-        if u < pj / s:
-            p[i], p[j] = 0.0, s
-        else:
-            p[i], p[j] = s, 0.0
-    else:
-        if u < (1 - pj) / (2 - s):
-            p[i], p[j] = 1.0, s - 1
-        else:
-            p[i], p[j] = s - 1, 1.0
 
 
 def balanced_points(
