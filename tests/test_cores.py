@@ -145,16 +145,18 @@ def test_small_block_cuts_the_buffer_and_says_so():
     assert (to_edge >= used - TOL).all()
 
 
-def test_vectorised_speed():
-    import time
-
+def test_ten_thousand_composites_in_one_call():
+    # Speed is measured in benchmarks/, never asserted here.
     area, _ = usable_core_area(shapely.box(0, 0, 10_000, 10_000), None, buffer_m=30)
     g = np.arange(0, 10_000, 100.0)
     centres = np.column_stack([np.repeat(g, len(g)), np.tile(g, len(g))])
-    start = time.perf_counter()
     xy, _ = disc_cores(centres, n=16, radius=10, area=area, rng=np.random.default_rng(0))
     assert xy.shape == (10_000, 16, 2)
-    assert time.perf_counter() - start < 5.0
+    # common practice, no source: the cores of a composite lie within its radius of the point
+    # (points at least buffer + radius inside the field; nearer the edge the disc moves in)
+    inner = ((centres >= 40.0) & (centres <= 10_000 - 40.0)).all(axis=1)
+    dist = np.hypot(*(xy[inner] - centres[inner][:, None, :]).transpose(2, 0, 1))
+    assert inner.sum() > 9_000 and dist.max() <= 10.0 + 1e-9
 
 
 def test_depth_and_option_checks():
