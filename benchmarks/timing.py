@@ -41,26 +41,24 @@ class Result:
         return {**asdict(self), "passed": self.passed}
 
 
-def best_time(fn: Callable[[], Any], *, repeat: int = 3) -> float:
-    """Fastest of ``repeat`` wall-clock runs (the least disturbed by other load)."""
+def _run_times(fn: Callable[[], Any], repeat: int) -> list[float]:
     times = []
     for _ in range(repeat):
         gc.collect()
         start = time.perf_counter()
         fn()
         times.append(time.perf_counter() - start)
-    return min(times)
+    return times
+
+
+def best_time(fn: Callable[[], Any], *, repeat: int = 3) -> float:
+    """Fastest of ``repeat`` wall-clock runs (the least disturbed by other load)."""
+    return min(_run_times(fn, repeat))
 
 
 def median_time(fn: Callable[[], Any], *, repeat: int = 3) -> float:
     """Median of ``repeat`` wall-clock runs."""
-    times = []
-    for _ in range(repeat):
-        gc.collect()
-        start = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
+    return statistics.median(_run_times(fn, repeat))
 
 
 def alternating(a: Callable[[], Any], b: Callable[[], Any], *, repeat: int = 3) -> tuple[float, float]:
