@@ -135,6 +135,11 @@ def _fallback_point(block_geom, area, exclusion_union, rng: np.random.Generator)
     return rep, "edge buffer leaves nothing: one point on the block's surface"
 
 
+#: Blocks per vectorised grid pass: large enough that per-call costs vanish, small
+#: enough for the progress bar to move on a big farm.
+_GRID_BATCH = 500
+
+
 def _grid_design(
     blocks: gpd.GeoDataFrame,
     areas: np.ndarray,
@@ -167,16 +172,31 @@ def _grid_design(
         for i in np.flatnonzero(~np.isfinite(bearing)):
             flags[i].append("no row_bearing_deg: grid not rotated")
         bearing = np.where(np.isfinite(bearing), bearing, 0.0)
-    xy, owner = grid_points_many(
-        areas,
-        spacing,
-        layout=layout,
-        bearing_deg=bearing,
-        origin=origins,
-        offset=offsets,
-        max_points=params["max_points"],
-        max_total=params["max_points"],
-    )
+    bearing = np.broadcast_to(np.asarray(bearing, dtype=float), (n,))
+    origins = np.broadcast_to(np.asarray(origins, dtype=float), (n, 2))
+    offsets = np.broadcast_to(np.asarray(offsets, dtype=float), (n, 2))
+    # Blocks go through in batches, each one vectorised pass, so the progress bar moves.
+    parts_xy, parts_owner, total = [], [], 0
+    for first in range(0, n, _GRID_BATCH):
+        sl = slice(first, min(first + _GRID_BATCH, n))
+        xy, owner = grid_points_many(
+            areas[sl],
+            spacing,
+            layout=layout,
+            bearing_deg=bearing[sl],
+            origin=origins[sl],
+            offset=offsets[sl],
+            max_points=params["max_points"],
+            max_total=params["max_points"] - total,
+        )
+        parts_xy.append(xy)
+        parts_owner.append(owner + first)
+        total += len(xy)
+        if progress is not None:
+            progress(sl.stop, n)
+        if total > params["max_points"]:
+            break
+    xy, owner = np.concatenate(parts_xy), np.concatenate(parts_owner)
     counts = np.bincount(owner, minlength=n)
     missed = counts == 0
     if missed.any() and owner.size <= params["max_points"]:
@@ -202,8 +222,6 @@ def _grid_design(
             f"the plan would hold more than {params['max_points']:,} points "
             f"(already {int(running[i]):,} after block {names[i]!r}); use a wider --spacing or lower --per-ha"
         )
-    if progress is not None:
-        progress(n, n)
     return pd.DataFrame({"block": pd.Series(names[owner], dtype="str"), "x": xy[:, 0], "y": xy[:, 1]}), flags
 
 

@@ -181,3 +181,22 @@ def test_reloaded_plan_writes_the_same_files(tmp_path):
     write_plan(load_plan(tmp_path / "a"), tmp_path / "b")
     for name in ("points.geojson", "points.csv", "summary.csv", "map.html", "points.kml", "points.gpx"):
         assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes(), name
+
+
+def test_grid_progress_moves_batch_by_batch_and_points_do_not_depend_on_batches(monkeypatch):
+    # common practice, no source: a long plan reports progress as it goes; batching is an
+    # implementation detail and must not change a single point.
+    import fieldplan.plan as plan_module
+
+    squares = {f"B{i:02d}": shapely.box(E0 + 120 * i, N0, E0 + 120 * i + 100, N0 + 100) for i in range(7)}
+    blocks = blocks_frame(squares)
+    whole = make_plan(blocks, spacing=20, seed=3)
+    calls = []
+    monkeypatch.setattr(plan_module, "_GRID_BATCH", 3)
+    batched = make_plan(blocks, spacing=20, seed=3, progress=lambda done, total: calls.append((done, total)))
+    assert calls == [(3, 7), (6, 7), (7, 7)]
+    assert whole.points["point_id"].tolist() == batched.points["point_id"].tolist()
+    np.testing.assert_array_equal(
+        shapely.get_coordinates(whole.points.geometry.values),
+        shapely.get_coordinates(batched.points.geometry.values),
+    )
