@@ -59,13 +59,25 @@ def xml_text(value: Any) -> str:
     return _NOT_XML_CHAR.sub("", str(value))
 
 
+_XML_SPECIAL = re.compile('[&<>"]')
+
+
 def text_column(values) -> pd.Series:
     """:func:`xml_text` over a column, as a Series of str (not yet escaped)."""
+    column = pd.Series(values).reset_index(drop=True)
+    if pd.api.types.is_string_dtype(column.dtype) and pd.api.types.infer_dtype(column) in ("string", "empty"):
+        # All text: one search over the column decides whether any cell needs xml_text.
+        cells = column.to_numpy(dtype=object, na_value="")
+        cells = np.where(pd.isna(cells), "", cells).astype(object)
+        if _NOT_XML_CHAR.search("".join(cells.tolist())) is None:
+            return pd.Series(cells, dtype=object)
     return pd.Series(values, dtype=object).reset_index(drop=True).map(xml_text).astype(object)
 
 
 def xml_escape(texts: pd.Series) -> pd.Series:
     """Escape ``& < > "`` for element text and double-quoted attributes (XML 1.0 section 2.4)."""
+    if _XML_SPECIAL.search("".join(texts.tolist())) is None:
+        return texts
     return (
         texts.str.replace("&", "&amp;", regex=False)
         .str.replace("<", "&lt;", regex=False)
