@@ -47,7 +47,7 @@ def _workloads(smoke: bool, seed: int) -> list[tuple[str, str, object, object, d
     }
     # Spatially balanced points (local pivotal method) per block: CPU-bound work of
     # tens of milliseconds a block, the kind of plan that is worth spreading out.
-    lpm_blocks = estate(8 if smoke else 200, seed=seed + 1)
+    lpm_blocks = estate(8 if smoke else 600, seed=seed + 1)
     lpm_blocks["stratum"] = lpm_blocks["block"]
     lpm = {"seed": 5, "design_options": check_design_options("balanced", {"per_block": 12})}
     return [
@@ -90,7 +90,7 @@ def study(*, smoke: bool = False, seed: int = 31, scheduler: str | None = None) 
 
     Two workloads: a dense grid over 3,000 blocks (cheap per block, so moving
     blocks and points between processes weighs as much as the work), and
-    spatially balanced points over 200 blocks (CPU-bound). The target applies
+    spatially balanced points over 600 blocks (CPU-bound). The target applies
     to the second, the case the engine is for; the grid row is informational.
     With ``scheduler`` (a running cluster's address, as the tests pass) every
     timing uses that cluster, so only the plumbing is exercised.
