@@ -21,6 +21,7 @@ __all__ = [
     "cell_area",
     "spacing_for_density",
     "lattice_basis",
+    "lattice_bases",
     "grid_points",
     "grid_points_many",
     "expected_count",
@@ -57,21 +58,25 @@ def spacing_for_density(per_ha: float, layout: str = "square") -> float:
     return math.sqrt(10_000.0 / per_ha / cell_area(1.0, layout))
 
 
+def lattice_bases(spacing: float, layout: str = "square", bearing_deg=0.0) -> np.ndarray:
+    """The two lattice vectors for each bearing: ``(n, 2, 2)``, rows as in :func:`lattice_basis`."""
+    _check_layout(layout)
+    if not spacing > 0:
+        raise OptionError(f"--spacing must be positive, got {spacing}")
+    theta = np.radians(np.asarray(bearing_deg, dtype=float).reshape(-1))
+    e1 = np.column_stack([np.sin(theta), np.cos(theta)])
+    e2 = np.column_stack([-e1[:, 1], e1[:, 0]])
+    second = e2 if layout == "square" else 0.5 * e1 + (math.sqrt(3.0) / 2.0) * e2
+    return spacing * np.stack([e1, second], axis=1)
+
+
 def lattice_basis(spacing: float, layout: str = "square", bearing_deg: float = 0.0) -> np.ndarray:
     """The two lattice vectors as rows of a 2×2 array, in metres.
 
     The first vector points along ``bearing_deg`` (clockwise from grid north), so a
     bearing equal to a block's row bearing lays grid lines along its rows.
     """
-    _check_layout(layout)
-    if not spacing > 0:
-        raise OptionError(f"--spacing must be positive, got {spacing}")
-    theta = math.radians(bearing_deg)
-    e1 = np.array([math.sin(theta), math.cos(theta)])
-    e2 = np.array([-e1[1], e1[0]])
-    second = e2 if layout == "square" else 0.5 * e1 + (math.sqrt(3.0) / 2.0) * e2
-    # Plain array construction: this runs once per block, where vstack's overhead shows.
-    return spacing * np.array([e1, second])
+    return lattice_bases(spacing, layout, bearing_deg)[0]
 
 
 def expected_count(area_m2: float, spacing: float, layout: str = "square") -> float:
@@ -175,9 +180,6 @@ def grid_points_many(
     block : numpy.ndarray
         Index into ``polygons`` of each point's block.
     """
-    _check_layout(layout)
-    if not spacing > 0:
-        raise OptionError(f"--spacing must be positive, got {spacing}")
     polys = np.asarray(polygons, dtype=object).reshape(-1)
     n = polys.size
     offsets = np.broadcast_to(np.asarray(offset, dtype=float), (n, 2))
@@ -186,11 +188,8 @@ def grid_points_many(
         raise OptionError(f"grid offset must lie in [0, 1), got {tuple(bad.tolist())}")
     empty = shapely.is_missing(polys)
     empty[~empty] = shapely.is_empty(polys[~empty])
-    theta = np.radians(np.broadcast_to(np.asarray(bearing_deg, dtype=float), (n,)))
-    e1 = np.column_stack([np.sin(theta), np.cos(theta)])
-    e2 = np.column_stack([-e1[:, 1], e1[:, 0]])
-    second = e2 if layout == "square" else 0.5 * e1 + (math.sqrt(3.0) / 2.0) * e2
-    b0, b1 = spacing * e1, spacing * second
+    basis = lattice_bases(spacing, layout, np.broadcast_to(np.asarray(bearing_deg, dtype=float), (n,)))
+    b0, b1 = basis[:, 0], basis[:, 1]
     start = (
         np.broadcast_to(np.asarray(origin, dtype=float), (n, 2)) + offsets[:, :1] * b0 + offsets[:, 1:] * b1
     )

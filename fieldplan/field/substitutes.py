@@ -20,7 +20,7 @@ import numpy as np
 import shapely
 from numpy.typing import ArrayLike
 
-from fieldplan.design.grid import lattice_basis
+from fieldplan.design.grid import lattice_bases
 from fieldplan.rng import stream
 
 __all__ = [
@@ -91,8 +91,7 @@ def cell_substitutes(
     bearings = np.broadcast_to(np.asarray(bearing_deg, dtype=float), (k,))
     geoms = np.broadcast_to(np.asarray(areas, dtype=object), (k,))
     shapely.prepare(geoms)
-    unique_bearings, which = np.unique(bearings, return_inverse=True)
-    bases = np.stack([lattice_basis(spacing, layout, float(b)) for b in unique_bearings])[which.ravel()]
+    bases = lattice_bases(spacing, layout, bearings)
     generators = [stream(seed, "substitute", str(pid)) for pid in ids]
     pending = np.arange(k)
     for _ in range(_ROUNDS):
