@@ -6,7 +6,7 @@ import numpy as np
 import shapely
 
 from fieldplan.design.clusters import concat_segments, pick_plants, row_segments
-from fieldplan.design.scanline import first_distinct, locate_plants, row_pieces
+from fieldplan.design.scanline import first_distinct, row_pieces, segment_ends
 
 
 def test_first_distinct_matches_numpy_unique_first_occurrences():
@@ -25,16 +25,14 @@ def test_plants_located_as_shapely_interpolates_along_the_segment():
         [(0, 0), (180, 20), (160, 140), (40, 120), (60, 60)], [[(80, 60), (100, 60), (90, 80)]]
     )
     seg = row_segments(block, row_spacing_m=2.7, plant_spacing_m=1.3, row_bearing_deg=63.0)
-    ranks = np.random.default_rng(1).choice(seg.total_plants, size=200, replace=False)
-    eligible = seg.plants.astype(np.int64)
-    at, within, xy = locate_plants(eligible, ranks, 0, seg.offset, np.array([1.3]), seg.ends, seg.length)
-    cum = np.cumsum(eligible)
-    ref_seg = np.searchsorted(cum, ranks, side="right")
-    assert np.array_equal(at, ref_seg)
+    picks = pick_plants(seg, 200, rng=np.random.default_rng(1), skip_row_ends=1)
+    within = picks.plant - seg.first_plant[picks.segment]
     ref = shapely.get_coordinates(
-        shapely.line_interpolate_point(seg.geometry[ref_seg], seg.offset[ref_seg] + within * 1.3)
+        shapely.line_interpolate_point(seg.geometry[picks.segment], seg.offset[picks.segment] + within * 1.3)
     )
-    np.testing.assert_allclose(xy, ref, atol=1e-7, rtol=0)
+    np.testing.assert_allclose(np.column_stack([picks.x, picks.y]), ref, atol=1e-7, rtol=0)
+    # every pick keeps one plant clear of each end of its segment
+    assert (within >= 1).all() and (within <= seg.plants[picks.segment] - 2).all()
 
 
 def test_mixed_plant_spacings_after_joining_blocks():
@@ -65,3 +63,13 @@ def test_row_through_a_vertex_counts_the_crossing_once():
     assert row.tolist() == [0, 1, 2]
     np.testing.assert_allclose(start, [0.0, 0.0, 0.0])
     np.testing.assert_allclose(end, [0.5 / 1.5 * 10, 10.0, 0.5 / 1.5 * 10])
+
+
+def test_segment_ends_are_the_row_frame_mapped_back():
+    # reference: rotation of the frame (u along the rows, v across) back to x, y by the unit vectors.
+    theta = np.radians(30.0)
+    u = np.array([np.sin(theta), np.cos(theta)])
+    v = np.array([np.cos(theta), -np.sin(theta)])
+    ends = segment_ends(np.array([2.0, 5.0]), np.array([1.0, -3.0]), np.array([4.0, 0.5]), u, v)
+    np.testing.assert_allclose(ends[0, 0], 2.0 * v + 1.0 * u)
+    np.testing.assert_allclose(ends[1, 1], 5.0 * v + 0.5 * u)

@@ -40,7 +40,7 @@ from numpy.typing import ArrayLike
 from shapely.geometry.base import BaseGeometry
 
 from fieldplan.design.scanline import LEN_TOL as _LEN_TOL
-from fieldplan.design.scanline import clip_pieces, first_distinct, locate_plants, row_model
+from fieldplan.design.scanline import clip_pieces, first_distinct, row_model, segment_ends
 from fieldplan.errors import DesignError, OptionError
 
 __all__ = [
@@ -195,14 +195,6 @@ def _ring_coordinates(polygon: BaseGeometry) -> tuple[np.ndarray, np.ndarray]:
     return shapely.get_coordinates(rings, return_index=True)
 
 
-def _ends(offsets: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.ndarray, v: np.ndarray):
-    base = offsets[:, None] * v
-    out = np.empty((offsets.size, 2, 2))
-    out[:, 0] = base + start[:, None] * u
-    out[:, 1] = base + end[:, None] * u
-    return out
-
-
 def row_segments(
     polygon: BaseGeometry,
     *,
@@ -292,7 +284,7 @@ def _clip_intervals(
     row = full.row[parent]
     return RowSegments(
         row=row,
-        ends=_ends(rows[0] + (row - 1) * rows[1], lo_u, hi_u, u, v),
+        ends=segment_ends(rows[0] + (row - 1) * rows[1], lo_u, hi_u, u, v),
         length=hi_u - lo_u,
         plants=np.maximum(k1 - k0 + 1, 0),
         first_plant=full.first_plant[parent] + k0,
@@ -476,26 +468,19 @@ def pick_plants(
             "lower the number or the skips"
         )
     ranks = sample_ranks(total, n, rng=rng)
+    cum = np.cumsum(eligible)
+    seg = np.searchsorted(cum, ranks, side="right")
+    within = ranks - (cum[seg] - eligible[seg]) + int(skip_row_ends)
     spacing = np.asarray(segments.plant_spacing, dtype=float)
+    dist = segments.offset[seg] + within * (spacing if spacing.ndim == 0 else spacing[seg])
     if segments.ends is not None:
         # Straight segments: the plant is a linear interpolation of the ends.
-        seg, within, xy = locate_plants(
-            np.asarray(eligible, dtype=np.int64),
-            ranks,
-            int(skip_row_ends),
-            segments.offset,
-            spacing.reshape(-1),
-            segments.ends,
-            segments.length,
-        )
+        ends = segments.ends[seg]
+        xy = ends[:, 0] + (ends[:, 1] - ends[:, 0]) * (dist / segments.length[seg])[:, None]
     else:
-        cum = np.cumsum(eligible)
-        seg = np.searchsorted(cum, ranks, side="right")
-        within = ranks - (cum[seg] - eligible[seg]) + int(skip_row_ends)
-        step = spacing if spacing.ndim == 0 else spacing[seg]
-        dist = segments.offset[seg] + within * step
-        pts = shapely.line_interpolate_point(segments.lines_at(seg), dist)
-        xy = shapely.get_coordinates(pts).reshape(-1, 2)
+        xy = shapely.get_coordinates(shapely.line_interpolate_point(segments.lines_at(seg), dist)).reshape(
+            -1, 2
+        )
     return PlantPicks(
         row=segments.row[seg],
         plant=segments.first_plant[seg] + within,

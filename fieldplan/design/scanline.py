@@ -19,11 +19,11 @@ __all__ = [
     "clip_pieces",
     "first_distinct",
     "frame_coordinates",
-    "locate_plants",
     "plant_layout",
     "row_model",
     "row_pieces",
     "row_span",
+    "segment_ends",
 ]
 
 # Pieces shorter than this (metres) are dropped: touching points, not rows.
@@ -182,7 +182,6 @@ def plant_layout(
     plants = np.empty(k, dtype=np.int64)
     first_plant = np.empty(k, dtype=np.int64)
     offset = np.empty(k)
-    ends = np.empty((k, 2, 2))
     on_row = 0
     for i in range(k):
         if i > 0 and row[i] != row[i - 1]:
@@ -193,58 +192,20 @@ def plant_layout(
         first_plant[i] = on_row + 1
         on_row += c
         offset[i] = (length[i] - c * plant_spacing) / 2.0 + plant_spacing / 2.0
-        base = first + row[i] * spacing
-        for j in range(2):
-            ends[i, 0, j] = base * v[j] + start[i] * u[j]
-            ends[i, 1, j] = base * v[j] + end[i] * u[j]
+    ends = segment_ends(first + row * spacing, start, end, u, v)
     return length, plants, first_plant, offset, ends
 
 
 @njit(cache=True, nogil=True)
-def locate_plants(
-    eligible: np.ndarray,
-    ranks: np.ndarray,
-    skip: int,
-    offset: np.ndarray,
-    step: np.ndarray,
-    ends: np.ndarray,
-    length: np.ndarray,
-):
-    """Segment, plant index on the segment and coordinates of each drawn rank.
-
-    Eligible plants are ranked segment by segment; rank ``r`` falls in the
-    segment whose cumulative eligible count first exceeds it (a binary search)
-    and is its ``skip + (r - eligible before)``-th plant. ``step`` holds one
-    plant spacing for all segments, or one per segment.
-
-    Returns
-    -------
-    seg, within : numpy.ndarray
-        Segment index and 0-based plant index along the segment.
-    xy : numpy.ndarray
-        ``(n, 2)`` plant coordinates.
-    """
-    k = eligible.size
-    cum = np.empty(k, dtype=np.int64)
-    acc = 0
+def segment_ends(across: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.ndarray, v: np.ndarray):
+    """``(k, 2, 2)`` start and end points of pieces at ``v = across`` from ``u = start`` to ``end``."""
+    k = across.size
+    ends = np.empty((k, 2, 2))
     for i in range(k):
-        acc += eligible[i]
-        cum[i] = acc
-    n = ranks.size
-    seg = np.empty(n, dtype=np.int64)
-    within = np.empty(n, dtype=np.int64)
-    xy = np.empty((n, 2))
-    for j in range(n):
-        r = ranks[j]
-        s = np.searchsorted(cum, r, side="right")
-        seg[j] = s
-        w = r - (cum[s] - eligible[s]) + skip
-        within[j] = w
-        ps = step[s] if step.size > 1 else step[0]
-        t = (offset[s] + w * ps) / length[s]
-        for d in range(2):
-            xy[j, d] = ends[s, 0, d] + (ends[s, 1, d] - ends[s, 0, d]) * t
-    return seg, within, xy
+        for j in range(2):
+            ends[i, 0, j] = across[i] * v[j] + start[i] * u[j]
+            ends[i, 1, j] = across[i] * v[j] + end[i] * u[j]
+    return ends
 
 
 @njit(cache=True, nogil=True)
