@@ -73,3 +73,18 @@ def test_segment_ends_are_the_row_frame_mapped_back():
     ends = segment_ends(np.array([2.0, 5.0]), np.array([1.0, -3.0]), np.array([4.0, 0.5]), u, v)
     np.testing.assert_allclose(ends[0, 0], 2.0 * v + 1.0 * u)
     np.testing.assert_allclose(ends[1, 1], 5.0 * v + 0.5 * u)
+
+
+def test_ranks_located_as_numpy_searchsorted_on_cumulative_counts():
+    # reference: numpy.cumsum + numpy.searchsorted(side="right") over eligible counts per segment.
+    from fieldplan.design.scanline import locate_ranks
+
+    rng = np.random.default_rng(7)
+    eligible = rng.integers(0, 9, 300).astype(np.int64)
+    ranks = rng.choice(int(eligible.sum()), size=500, replace=False).astype(np.int64)
+    seg, within = locate_ranks(eligible, ranks, 2)
+    cum = np.cumsum(eligible)
+    ref = np.searchsorted(cum, ranks, side="right")
+    assert np.array_equal(seg, ref)
+    assert np.array_equal(within, ranks - (cum[ref] - eligible[ref]) + 2)
+    assert (eligible[seg] > 0).all()

@@ -40,7 +40,14 @@ from numpy.typing import ArrayLike
 from shapely.geometry.base import BaseGeometry
 
 from fieldplan.design.scanline import LEN_TOL as _LEN_TOL
-from fieldplan.design.scanline import clip_pieces, first_distinct, row_model, segment_ends
+from fieldplan.design.scanline import (
+    clip_pieces,
+    first_distinct,
+    locate_ranks,
+    row_model,
+    segment_ends,
+    straight_points,
+)
 from fieldplan.errors import DesignError, OptionError
 
 __all__ = [
@@ -468,15 +475,12 @@ def pick_plants(
             "lower the number or the skips"
         )
     ranks = sample_ranks(total, n, rng=rng)
-    cum = np.cumsum(eligible)
-    seg = np.searchsorted(cum, ranks, side="right")
-    within = ranks - (cum[seg] - eligible[seg]) + int(skip_row_ends)
+    seg, within = locate_ranks(np.asarray(eligible, dtype=np.int64), ranks, int(skip_row_ends))
     spacing = np.asarray(segments.plant_spacing, dtype=float)
     dist = segments.offset[seg] + within * (spacing if spacing.ndim == 0 else spacing[seg])
     if segments.ends is not None:
         # Straight segments: the plant is a linear interpolation of the ends.
-        ends = segments.ends[seg]
-        xy = ends[:, 0] + (ends[:, 1] - ends[:, 0]) * (dist / segments.length[seg])[:, None]
+        xy = straight_points(seg, dist, segments.ends, segments.length)
     else:
         xy = shapely.get_coordinates(shapely.line_interpolate_point(segments.lines_at(seg), dist)).reshape(
             -1, 2

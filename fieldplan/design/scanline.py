@@ -19,11 +19,13 @@ __all__ = [
     "clip_pieces",
     "first_distinct",
     "frame_coordinates",
+    "locate_ranks",
     "plant_layout",
     "row_model",
     "row_pieces",
     "row_span",
     "segment_ends",
+    "straight_points",
 ]
 
 # Pieces shorter than this (metres) are dropped: touching points, not rows.
@@ -259,3 +261,32 @@ def first_distinct(values: np.ndarray, n: int) -> np.ndarray:
             out[m] = values[j]
             m += 1
     return out[:m]
+
+
+@njit(cache=True, nogil=True)
+def locate_ranks(eligible: np.ndarray, ranks: np.ndarray, skip: int) -> tuple[np.ndarray, np.ndarray]:
+    """Segment and 0-based plant index along it of each drawn rank.
+
+    Eligible plants are ranked segment by segment; rank ``r`` falls in the first
+    segment whose cumulative eligible count exceeds it (a binary search) and is
+    its ``skip + (r - eligible before)``-th plant.
+    """
+    cum = np.cumsum(eligible)
+    seg = np.searchsorted(cum, ranks, side="right")
+    within = np.empty(ranks.size, dtype=np.int64)
+    for j in range(ranks.size):
+        s = seg[j]
+        within[j] = ranks[j] - (cum[s] - eligible[s]) + skip
+    return seg, within
+
+
+@njit(cache=True, nogil=True)
+def straight_points(seg: np.ndarray, dist: np.ndarray, ends: np.ndarray, length: np.ndarray) -> np.ndarray:
+    """``(n, 2)`` points ``dist`` metres along straight segments ``seg`` (given by their ends)."""
+    xy = np.empty((seg.size, 2))
+    for j in range(seg.size):
+        s = seg[j]
+        t = dist[j] / length[s]
+        for d in range(2):
+            xy[j, d] = ends[s, 0, d] + (ends[s, 1, d] - ends[s, 0, d]) * t
+    return xy
