@@ -308,7 +308,9 @@ def _stratified(
     eligible: list = [None] * len(strata)
     # Strata with no area left (or, for clusters, no plants) take no points.
     capacity = np.where(stratum_ha > 0, np.inf, 0.0)
+    modelled = False
     if design == "clusters":
+        skips = (opts["skip_row_ends"], opts["skip_border_rows"])
         for h, m in enumerate(members):
             parts, owner_idx, elig = [], [], []
             for i in m[~gone[m]]:
@@ -316,11 +318,16 @@ def _stratified(
                 flags[i].extend(notes)
                 if seg is None:
                     continue
-                count = eligible_plants(
-                    seg, skip_row_ends=opts["skip_row_ends"], skip_border_rows=opts["skip_border_rows"]
-                )
+                modelled = True
+                count = eligible_plants(seg, skip_row_ends=skips[0], skip_border_rows=skips[1])
+                if count.sum() == 0 and use[i] is not fallback[i]:
+                    # The edge buffer left a sliver with no whole plant: as the other designs do
+                    # when it leaves nothing, sample the block's rows without it.
+                    seg, _ = _row_model(blocks, i, fallback[i], opts, params.get("rows_frame"))
+                    count = eligible_plants(seg, skip_row_ends=skips[0], skip_border_rows=skips[1])
+                    if count.sum() > 0:
+                        flags[i].append("edge buffer leaves no whole plant: sampled the block without it")
                 if count.sum() == 0:
-                    # A sliver left by the edge buffer or exclusions can hold no whole plant.
                     flags[i].append("no eligible plants in the sampled area: not sampled")
                     continue
                 parts.append(seg)
@@ -339,6 +346,11 @@ def _stratified(
     if not active.any():
         if design != "clusters":
             raise DesignError("no block has area left to sample after the edge buffer and exclusions")
+        if modelled:
+            raise DesignError(
+                "no block has a whole eligible plant left after the exclusions and the plants and rows "
+                "skipped; lower --skip-row-ends/--skip-border-rows or check the row spacings"
+            )
         raise DesignError(
             "no block has a row layout (row_spacing_m, plant_spacing_m, row_bearing_deg) "
             "or mapped rows (--rows); clusters need plants to draw from"

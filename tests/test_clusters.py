@@ -326,3 +326,24 @@ def test_scanline_row_through_a_vertex():
     for bearing in (0.0, 180.0):
         got = row_segments(diamond, row_spacing_m=2.0, plant_spacing_m=0.5, row_bearing_deg=bearing)
         _assert_same(got, _reference_row_segments(diamond, 2.0, 0.5, bearing))
+
+
+def test_edge_buffer_leaving_no_whole_plant_samples_the_block_without_it():
+    # Row model by hand: a 100 m x 20.5 m block with a 10 m edge buffer keeps a strip 0.5 m deep;
+    # rows running north cross it over 0.5 m, less than the 1 m plant spacing, so no whole plant
+    # (floor(0.5 / 1) = 0). As for the other designs when the buffer leaves nothing, the block is
+    # sampled without the buffer and says so.
+    from fieldplan.plan import make_plan
+    from tests.geoms import E0, N0, blocks_frame
+
+    blocks = blocks_frame(
+        {"S": box(E0, N0, E0 + 100, N0 + 20.5)},
+        row_spacing_m=[2.0],
+        plant_spacing_m=[1.0],
+        row_bearing_deg=[0.0],
+    )
+    plan = make_plan(
+        blocks, design="clusters", edge_buffer=10.0, seed=2, design_options={"per_block": 3}
+    )
+    assert len(plan.points) == 3
+    assert "edge buffer leaves no whole plant" in plan.blocks["flags"].iloc[0]
