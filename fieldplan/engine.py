@@ -91,8 +91,8 @@ def _plan_partition(part, design: str, params: dict, exclusion_union) -> tuple:
     strata = table.attrs.get("strata")
     # The driver knows every block's name: send back its position instead, as
     # pickling hundreds of thousands of short strings costs more than the design.
-    position = pd.Series(index).reindex(pd.unique(table["block"])).to_numpy(dtype=np.int64)
-    codes = pd.factorize(table["block"], sort=False)[0]
+    codes, names = pd.factorize(table["block"], sort=False)
+    position = pd.Series(index).reindex(names).to_numpy(dtype=np.int64)
     table = table.drop(columns="block")
     table.attrs = {}
     table[_ORDER] = position[codes]

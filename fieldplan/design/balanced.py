@@ -170,7 +170,7 @@ def local_pivotal(coords: ArrayLike, prob: ArrayLike, *, rng: np.random.Generato
         return row, dist, idx
 
     row, nn_dist, nn_idx = rebuild()
-    draws = rng.random((max(count, 1), 3))
+    draws = rng.random((count, 3))
     pending_u = np.zeros(3)
     while True:
         status = pivotal_steps(xy, p, alive, pos, state, pending_u, row, nn_dist, nn_idx, draws, _BRUTE, _EPS)

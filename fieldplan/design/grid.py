@@ -183,8 +183,9 @@ def grid_points_many(
     polys = np.asarray(polygons, dtype=object).reshape(-1)
     n = polys.size
     offsets = np.broadcast_to(np.asarray(offset, dtype=float), (n, 2))
-    if not ((offsets >= 0.0) & (offsets < 1.0)).all():
-        bad = offsets[~((offsets >= 0.0) & (offsets < 1.0)).all(axis=1)][0]
+    valid = ((offsets >= 0.0) & (offsets < 1.0)).all(axis=1)
+    if not valid.all():
+        bad = offsets[~valid][0]
         raise OptionError(f"grid offset must lie in [0, 1), got {tuple(bad.tolist())}")
     empty = shapely.is_missing(polys)
     empty[~empty] = shapely.is_empty(polys[~empty])
