@@ -115,7 +115,10 @@ def sample_areas(
 
 
 def _fallback_point(block_geom, area, exclusion_union, rng: np.random.Generator):
-    """One point for a block the grid missed: random inside the sampled area, else a safe spot."""
+    """One point for a block the grid missed: random inside the sampled area, else a safe spot.
+
+    Returns ``(None, note)`` when exclusions cover the whole block: no spot is safe.
+    """
     if area is not None and not shapely.is_empty(area) and shapely.area(area) > 0:
         minx, miny, maxx, maxy = shapely.bounds(area)
         shapely.prepare(area)
@@ -128,9 +131,10 @@ def _fallback_point(block_geom, area, exclusion_union, rng: np.random.Generator)
         return rep, "too small for the grid: one point on its surface"
     target = block_geom
     if exclusion_union is not None:
-        rest = shapely.difference(block_geom, exclusion_union)
-        if not shapely.is_empty(rest):
-            target = rest
+        target = shapely.difference(block_geom, exclusion_union)
+        if shapely.is_empty(target) or shapely.area(target) <= 0:
+            # As the other designs do: an excluded spot is never a sampling point.
+            return None, "exclusions cover the block: not sampled"
     rep = shapely.get_coordinates(shapely.point_on_surface(target))[0]
     return rep, "edge buffer leaves nothing: one point on the block's surface"
 
@@ -206,9 +210,10 @@ def _grid_design(
             point, note = _fallback_point(
                 blocks.geometry.values[i], areas[i], exclusion_union, stream(seed, "fallback", names[i])
             )
-            extra_xy.append(np.asarray(point, dtype=float).reshape(1, 2))
-            extra_owner.append(i)
             flags[i].append(note)
+            if point is not None:
+                extra_xy.append(np.asarray(point, dtype=float).reshape(1, 2))
+                extra_owner.append(i)
         xy = np.concatenate([xy, *extra_xy])
         owner = np.concatenate([owner, np.asarray(extra_owner, dtype=owner.dtype)])
         order = np.argsort(owner, kind="stable")
@@ -408,7 +413,9 @@ def make_plan(
         out_blocks["n_allocated"] = key.map(by["n_allocated"]).astype(int).to_numpy()
     buffer_flags = [
         ["edge buffer wider than the block: sampled without it"]
-        if edge_buffer > 0 and shapely.is_empty(a) and not any("edge buffer" in f for f in fl)
+        if edge_buffer > 0
+        and shapely.is_empty(a)
+        and not any("edge buffer" in f or "not sampled" in f for f in fl)
         else []
         for a, fl in zip(areas, flags, strict=True)
     ]

@@ -200,3 +200,18 @@ def test_grid_progress_moves_batch_by_batch_and_points_do_not_depend_on_batches(
         shapely.get_coordinates(whole.points.geometry.values),
         shapely.get_coordinates(batched.points.geometry.values),
     )
+
+
+@pytest.mark.parametrize("edge_buffer", [0.0, 5.0])
+def test_block_covered_by_exclusions_gets_no_grid_point(edge_buffer):
+    # common practice, no source: an excluded area (hazard, wet spot, no-go zone) is never a
+    # sampling point, even for a block the grid would otherwise give one fallback point.
+    square = shapely.box(E0, N0, E0 + 40, N0 + 40)
+    other = shapely.box(E0 + 200, N0, E0 + 300, N0 + 100)
+    blocks = blocks_frame({"A": square, "B": other})
+    cover = gpd.GeoDataFrame({"name": ["wet"]}, geometry=[square.centroid.buffer(29.0)], crs=UTM33N)
+    plan = make_plan(blocks, exclusions=cover, spacing=12.0, edge_buffer=edge_buffer, seed=0)
+    flags = dict(zip(plan.blocks["block"], plan.blocks["flags"], strict=True))
+    assert flags["A"] == "exclusions cover the block: not sampled"
+    assert (plan.points["block"] == "A").sum() == 0
+    assert (plan.points["block"] == "B").sum() > 0
