@@ -143,7 +143,7 @@ def check_design_options(design: str, options: dict) -> dict:
     if opts["target_units"] is not None and design != "clusters":
         raise OptionError("--target-units applies to --design clusters only")
     if opts["target_units"] is not None and opts["units_per_cluster"] is None:
-        raise OptionError("--target-units needs --units-per-cluster (units taken at each picked plant)")
+        raise OptionError("--target-units needs --plants-per-cluster (plants in each cluster, one unit from each)")
     for key in ("per_block", "n", "target_units", "units_per_cluster"):
         value = opts[key]
         if value is not None and (int(value) != value or value < 1):

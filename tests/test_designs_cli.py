@@ -66,7 +66,7 @@ def test_balanced_total_allocated_in_proportion_to_area(tmp_path, blocks):
 
 def test_clusters_target_units(tmp_path, blocks):
     _, points, summary = _plan(
-        tmp_path, "c", "--design", "clusters", "--target-units", "30", "--units-per-cluster", "4",
+        tmp_path, "c", "--design", "clusters", "--target-units", "30", "--plants-per-cluster", "4",
         "--skip-row-ends", "2", "--skip-border-rows", "1", "--edge-buffer", "3",
     )  # fmt: skip
     with_rows = blocks.loc[blocks["row_spacing_m"].notna(), "block"]
@@ -81,6 +81,19 @@ def test_clusters_target_units(tmp_path, blocks):
     assert _inside_own_block(points, blocks).all()
     arable = summary.set_index("block").loc[["F01", "F02"]]
     assert (arable["n_points"] == 0).all() and arable["flags"].str.contains("plant_spacing").all()
+
+
+def test_clusters_old_option_name_is_a_hidden_alias(tmp_path):
+    args = ["--design", "clusters", "--target-units", "12", "--skip-row-ends", "2"]
+    _, new, _ = _plan(tmp_path, "new", *args, "--plants-per-cluster", "4")
+    _, old, _ = _plan(tmp_path, "old", *args, "--units-per-cluster", "4")
+    # common practice, no source: a renamed option keeps working for one release and gives the same plan
+    pd.testing.assert_frame_equal(new, old)
+    helptext = runner.invoke(app, ["plan", "--help"], env={"COLUMNS": "200"}).output
+    assert "--plants-per-cluster" in helptext and "--units-per-cluster" not in helptext
+    both = runner.invoke(app, ["plan", str(demo_blocks_path()), *args, "--plants-per-cluster", "4",
+                               "--units-per-cluster", "5", "-q", "--out", str(tmp_path / "both")])
+    assert both.exit_code == 2 and "--plants-per-cluster" in both.output
 
 
 def test_clusters_from_mapped_rows(tmp_path, blocks):

@@ -129,10 +129,17 @@ def plan(
     ] = None,
     target_units: Annotated[
         int | None,
-        typer.Option("--target-units", help="clusters: units to collect per stratum (with --units-per-cluster)."),
+        typer.Option("--target-units", help="clusters: units to collect per stratum (with --plants-per-cluster)."),
     ] = None,
     units_per_cluster: Annotated[
-        int | None, typer.Option("--units-per-cluster", help="clusters: units taken at each picked plant.")
+        int | None,
+        typer.Option(
+            "--plants-per-cluster",
+            help="clusters: consecutive plants in each cluster, one unit taken at each.",
+        ),
+    ] = None,
+    units_per_cluster_old: Annotated[
+        int | None, typer.Option("--units-per-cluster", hidden=True, help="Old name of --plants-per-cluster.")
     ] = None,
     skip_row_ends: Annotated[
         int | None, typer.Option("--skip-row-ends", help="clusters: plants left out at each end of every row.")
@@ -184,6 +191,14 @@ def plan(
 
     Example: fieldplan plan blocks.geojson --spacing 40 --edge-buffer 8 --seed 7 --out plan-2027-soil
     """
+    if units_per_cluster_old is not None:
+        # The old name read as "berries per grape cluster"; kept hidden for one release.
+        if units_per_cluster is not None and units_per_cluster != units_per_cluster_old:
+            from fieldplan.errors import OptionError
+
+            raise OptionError("give --plants-per-cluster only (--units-per-cluster is its old name)")
+        echo_err("note: --units-per-cluster is now --plants-per-cluster; the old name goes in the next release")
+        units_per_cluster = units_per_cluster_old
     from fieldplan.plan import make_plan
     from fieldplan.read import read_blocks, read_exclusions, select_blocks
     from fieldplan.store import write_plan
