@@ -78,4 +78,5 @@ def test_clusters_per_plant_rows_give_icc():
     # reference: Kish (1965) deff = 1 + (m - 1) rho > 1 for positively correlated plants;
     # here the between-cluster SD (2) dwarfs the within (0.5), so rho is near 0.94
     assert 0.8 < tab.loc["all", "icc"] < 1.0
-    assert tab.loc["all", "mean"] == pytest.approx(y.mean(), abs=1e-12)
+    # reference: Cochran (1977) §6.10, separate ratio per block weighted by area (3 ha and 1 ha)
+    assert tab.loc["all", "mean"] == pytest.approx(0.75 * y[:20].mean() + 0.25 * y[20:].mean(), abs=1e-12)

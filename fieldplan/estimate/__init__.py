@@ -15,6 +15,7 @@ from fieldplan.estimate.cluster import (
     cluster_mean_from_units,
     icc_anova,
     ratio_mean,
+    stratified_ratio_mean,
 )
 from fieldplan.estimate.intervals import satterthwaite_df, t_interval
 from fieldplan.estimate.nextplan import Variability, observed_variability
@@ -41,6 +42,7 @@ __all__ = [
     "ratio_mean",
     "satterthwaite_df",
     "stratified_mean",
+    "stratified_ratio_mean",
     "successive_difference_se",
     "systematic_mean",
     "t_interval",

@@ -9,9 +9,12 @@ Pure function of the plan's points and blocks and the stored results rows
   docs/validity.md). A group of several blocks (stratum, variety, farm, and
   the ``all`` row) is a stratified estimate with blocks as strata weighted by
   their sampled area (Cochran 1977, ch. 5).
-* clusters: the ratio estimator over clusters, ``Σ y_i / Σ m_i``, with its
-  linearised variance; with one row per plant also the intra-cluster
-  correlation and design effect.
+* clusters: within one stratum the ratio estimator over clusters,
+  ``Σ y_i / Σ m_i``, with its linearised variance; a group of several strata
+  (variety, farm, the ``all`` row) is the separate ratio estimator, one ratio
+  per stratum combined with area weights (Cochran 1977, §6.10-6.11). With one
+  row per plant also the intra-cluster correlation (within strata) and the
+  observed design effect.
 """
 
 from __future__ import annotations
@@ -20,7 +23,7 @@ import numpy as np
 import pandas as pd
 
 from fieldplan.errors import InputError, OptionError
-from fieldplan.estimate.cluster import cluster_mean_from_units, ratio_mean
+from fieldplan.estimate.cluster import icc_anova, ratio_mean, stratified_ratio_mean
 from fieldplan.estimate.intervals import check_confidence, t_interval
 from fieldplan.estimate.readiness import prob_reached, project_blocks
 from fieldplan.estimate.stratified import ONE_POINT_NOTE, stratified_mean
@@ -126,16 +129,62 @@ def _srs_like(sub: pd.DataFrame, *, confidence: float, local: bool) -> dict:
     return row
 
 
-def _clusters(sub: pd.DataFrame, *, confidence: float) -> dict:
-    per_plant = (sub["unit"].astype(str) != "").any() and sub.duplicated("point_id").any()
+def _cluster_totals(sub: pd.DataFrame) -> tuple[pd.DataFrame, bool]:
+    """One row per cluster: ``point_id, block, stratum, area, y`` (total), ``m`` (units)."""
+    per_plant = bool((sub["unit"].astype(str) != "").any() and sub.duplicated("point_id").any())
     if per_plant:
-        e = cluster_mean_from_units(sub["value"], sub["point_id"], confidence=confidence)
+        y = sub["value"].astype(float)
+        m = pd.Series(np.isfinite(y.to_numpy()).astype(float), index=sub.index)
     else:
         m = sub["units_measured"].astype(float)
         m = m.where(np.isfinite(m), sub["plan_units"].astype(float)).fillna(1.0)
-        e = ratio_mean(sub["value"].to_numpy() * m.to_numpy(), m.to_numpy(), confidence=confidence)
+        y = sub["value"].astype(float) * m
+    frame = sub[["point_id", "block", "stratum", "area"]].assign(y=y.to_numpy(), m=m.to_numpy())
+    frame = frame[np.isfinite(frame["y"].to_numpy())]
+    totals = frame.groupby("point_id", sort=False).agg(
+        block=("block", "first"), stratum=("stratum", "first"), area=("area", "first"), y=("y", "sum"), m=("m", "sum")
+    )
+    return totals.reset_index(), per_plant
+
+
+def _clusters(sub: pd.DataFrame, *, confidence: float) -> dict:
+    """Ratio estimate over clusters; over several strata, the separate ratio estimator.
+
+    Each design stratum (a block unless the plan was stratified by a field) gets
+    its own ratio; strata are combined with weights from their sampled area
+    (Cochran 1977, §6.10-6.11 and ch. 5), never pooled into one ratio.
+    """
+    totals, per_plant = _cluster_totals(sub)
+    strata = totals["stratum"].astype(str)
+    multi = strata.nunique() > 1
+    if multi:
+        # Area of each stratum within this group: its blocks' sampled areas, each counted once.
+        blocks = totals.drop_duplicates("block")
+        area = blocks["area"].astype(float).where(lambda a: np.isfinite(a) & (a > 0), 1.0)
+        sizes = area.groupby(blocks["stratum"].astype(str).to_numpy()).sum().to_dict()
+        e = stratified_ratio_mean(
+            totals["y"], totals["m"], strata, weights=sizes, single="pooled", confidence=confidence
+        )
+        kind = "block" if (totals["stratum"].astype(str) == totals["block"].astype(str)).all() else "stratum"
+        estimator = f"stratified by {kind} (area weights), separate ratio per {kind}, linearised variance"
+    else:
+        e = ratio_mean(totals["y"].to_numpy(), totals["m"].to_numpy(), confidence=confidence)
+        estimator = "ratio over clusters, linearised variance"
+    icc = deff = float("nan")
+    if per_plant:
+        vals = sub[np.isfinite(sub["value"].astype(float).to_numpy())]
+        icc = icc_anova(vals["value"], vals["point_id"], vals["stratum"].astype(str) if multi else None)
+        # Observed design effect: the cluster variance over that of as many plants drawn at random
+        # within the same strata (Kish 1965).
+        g = vals.groupby(vals["stratum"].astype(str).to_numpy())["value"].agg(["count", "var"])
+        if multi:
+            w = e.strata.set_index("group")["weight"].reindex(g.index).to_numpy()
+            v_srs = float(np.sum(w**2 * g["var"].to_numpy() / g["count"].to_numpy()))
+        else:
+            v_srs = float(g["var"].iloc[0] / g["count"].iloc[0]) if g["count"].iloc[0] > 1 else np.nan
+        deff = e.se**2 / v_srs if np.isfinite(v_srs) and v_srs > 0 else float("nan")
     return {
-        "estimator": "ratio over clusters, linearised variance",
+        "estimator": estimator,
         "n": e.n_clusters,
         "units": e.n_units,
         "mean": e.mean,
@@ -143,8 +192,8 @@ def _clusters(sub: pd.DataFrame, *, confidence: float) -> dict:
         "df": e.df,
         "lower": e.lower,
         "upper": e.upper,
-        "icc": e.icc,
-        "deff": e.deff,
+        "icc": icc,
+        "deff": deff,
         "note": e.note,
     }
 
