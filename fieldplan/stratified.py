@@ -52,7 +52,7 @@ __all__ = [
 ]
 
 DEFAULT_INSTRUCTIONS = (
-    "Start at row {row}, plant {plant}; take {units} unit(s) from consecutive plants, "
+    "Start at row {row}, plant {plant}; sample {units} consecutive plant(s) along the row, "
     "alternating sides of the row and rotating top, middle and bottom of the canopy"
 )
 _FIELDS = ("block", "row", "plant", "units")

@@ -161,7 +161,10 @@ def test_ten_thousand_composites_in_one_call():
 
 def test_depth_and_option_checks():
     assert parse_depth("0-15") == "0-15" and parse_depth(" 15 - 30 ") == "15-30"
-    for bad in ("15", "15-0", "a-b"):
+    # common practice, no source: soil depths are written "0-15 cm", often without the space
+    for text in ("0-15cm", "0-15 cm", "0cm-15cm", " 0 – 15 CM "):
+        assert parse_depth(text) == "0-15"
+    for bad in ("15", "15-0", "a-b", "0-15in", "0-15mm", "0-15 m"):
         with pytest.raises(OptionError, match="--depth"):
             parse_depth(bad)
     with pytest.raises(OptionError):

@@ -179,6 +179,19 @@ def test_bad_marks_are_refused(plan_dir, no_png):
         mark_points(plan_dir, ["A-002"], action="restore")
 
 
+def test_mark_ids_match_whatever_their_case(plan_dir, no_png):
+    # common practice, no source: ids read off a label or typed on a phone change case
+    # ("a-002"); the plan's own spelling is recorded, and restore matches the same way.
+    mark_points(plan_dir, ["a-002", "b-001"], reason="flooded", now=NOW)
+    events = read_events(plan_dir / "plan.gpkg")
+    assert events["point_id"].tolist() == ["A-002", "B-001"]
+    assert _status(plan_dir)["A-002"] == "inaccessible"
+    with pytest.raises(OptionError, match="already"):
+        mark_points(plan_dir, ["A-002"], reason="x")
+    mark_points(plan_dir, ["A-002", "b-001"], action="restore", now=NOW)
+    assert read_events(plan_dir / "plan.gpkg")["point_id"].tolist()[-2:] == ["A-002", "B-001"]
+
+
 def test_cli_mark_and_restore(plan_dir, tmp_path, no_png):
     # common practice, no source: errors are one line and exit code 2.
     from fieldplan.cli.main import app

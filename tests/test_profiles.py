@@ -126,8 +126,65 @@ def test_cluster_design_keeps_its_units_and_instructions():
     assert (plan.points["units"] == 5).all()
     text = plan.points["instructions"]
     assert text.str.startswith("Start at row").all()
-    assert text.str.endswith(load_profile("wine-grapes").instructions).all()
+    expected = load_profile("wine-grapes").instructions_for(plants=5, skip_end_plants=0, skip_border_rows=0)
+    assert text.str.endswith(expected).all()
     assert (plan.points["per_sample"] == "100-200 berries").all()
+
+
+def test_cluster_instructions_follow_the_effective_options():
+    # The plan's own --skip-row-ends/--skip-border-rows are what the design left out,
+    # so the text must say those numbers, not the crop profile's (wine-grapes: 2 and 1).
+    from fieldplan.demo import demo_blocks_path
+    from fieldplan.read import read_blocks
+
+    blocks = read_blocks(demo_blocks_path())
+    vines = blocks[blocks["block"].isin(["V01", "V02"])].reset_index(drop=True)
+    options = {"per_block": 3, "units_per_cluster": 5, "skip_row_ends": 3}
+    plan = make_plan(
+        vines, design="clusters", design_options=options, seed=1, samples={"purpose": "ripeness"}
+    )
+    text = plan.points["instructions"]
+    assert text.str.contains("skip 3 end plant(s) per row and 0 border row(s)", regex=False).all()
+    assert not text.str.contains("skip 2 end plant", regex=False).any()
+    notes = " ".join(plan.meta["notes"])
+    assert "--skip-row-ends 3 --skip-border-rows 1" in notes
+    assert "outside the profile's 1-3 per plant" in notes
+
+
+@pytest.mark.parametrize("name", SHIPPED)
+@pytest.mark.parametrize("plants", [1, 3, 5, 7, 12, 30, 34, 80, 150, 199, 200, 250])
+def test_per_plant_amount_lands_the_sample_in_the_profile_range(name, plants):
+    # reference: the profile's own per_sample range (common practice, no source): taking
+    # `a` units from each of `k` plants gives k*a units, which must lie in [fewest, most]
+    # whenever whole numbers allow; otherwise the amount is flagged as not following it.
+    p = load_profile(name)
+    lo, hi, follows = p.per_plant_for(plants)
+    s_lo, s_hi = p.per_sample
+    feasible = -(-s_lo // plants) <= s_hi // plants
+    if feasible:
+        assert s_lo <= plants * lo <= plants * hi <= s_hi
+    else:
+        # some plants give one unit more than others: the total can still land in range
+        assert plants * lo <= s_hi and plants * hi >= s_lo or s_hi < plants
+    if follows:
+        assert p.per_plant[0] <= lo <= hi <= p.per_plant[1]
+        assert p.cluster_warning(plants) == ""
+    else:
+        assert "outside the profile" in p.cluster_warning(plants)
+    text = p.instructions_for(plants=plants, skip_end_plants=4, skip_border_rows=2)
+    assert f"from each of the {plants} plant(s)" in text
+    assert "skip 4 end plant(s) per row and 2 border row(s)" in text
+
+
+def test_cluster_of_wine_grape_vines_per_plant_amounts():
+    # reference: arithmetic on the profile's 100-200 berries (common practice, no source):
+    # 5 vines need 20-40 berries each; 80 vines fit the profile's 1-3 per plant at 2 each
+    # (160 berries); 250 vines at one berry each give 250 > 200.
+    p = load_profile("wine-grapes")
+    assert p.per_plant_for(5) == (20, 40, False)
+    assert p.per_plant_for(80) == (2, 2, True)
+    assert p.per_plant_for(50) == (2, 3, True)
+    assert p.per_plant_for(250) == (1, 1, False)
 
 
 def test_ripeness_notes_points_in_border_rows_and_row_ends():

@@ -193,6 +193,21 @@ def _replacements(
     return out
 
 
+def _canonical_ids(ids: list[str], known: set[str]) -> list[str]:
+    """The plan's spelling of each id: ids typed on a phone or from a label often change case.
+
+    An exact match wins; otherwise a case-insensitive one, if it names one point only.
+    """
+    folded: dict[str, list[str]] = {}
+    for pid in sorted(known):
+        folded.setdefault(pid.casefold(), []).append(pid)
+    out = []
+    for pid in ids:
+        same = folded.get(pid.casefold(), [])
+        out.append(pid if pid in known or len(same) != 1 else same[0])
+    return list(dict.fromkeys(out))
+
+
 def _normalised_blocks(blocks: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
     # plan.gpkg stores blocks as MultiPolygon; single parts go back to Polygon so the
     # re-written outputs match those of the freshly planned folder.
@@ -270,6 +285,7 @@ def mark_points(
     known = set(planned["point_id"].astype(str))
     if substitutes is not None and len(substitutes):
         known |= set(substitutes["substitute_id"].astype(str))
+    ids = _canonical_ids(ids, known)
     unknown = [p for p in ids if p not in known]
     if unknown:
         raise OptionError(f"{plan_dir}: point {unknown[0]!r} is not in this plan; check the id in points.csv")

@@ -70,28 +70,110 @@ class CropProfile:
     def units_text(self) -> str:
         """E.g. ``"100-200 berries"``."""
         lo, hi = self.per_sample
-        count = f"{lo}" if lo == hi else f"{lo}-{hi}"
+        return f"{_span(lo, hi)} {self.unit if hi == 1 else self.plural}"
+
+    @property
+    def plural(self) -> str:
+        """The unit in the plural ("berries", "fruit")."""
         unit = self.unit
-        if hi == 1:
-            plural = unit
-        elif unit.endswith("y") and unit[-2:-1] not in tuple("aeiou"):
-            plural = unit[:-1] + "ies"
-        else:
-            plural = unit + "s"
-        return f"{count} {plural}"
+        if unit.endswith("y") and unit[-2:-1] not in tuple("aeiou"):
+            return unit[:-1] + "ies"
+        return unit if unit.endswith(("fruit", "s")) else unit + "s"
 
     @property
     def instructions(self) -> str:
         """One-line instruction for a point record or a label."""
-        lo, hi = self.per_plant
-        per_plant = f"{lo}" if lo == hi else f"{lo}-{hi}"
+        return self.instructions_for()
+
+    def per_plant_for(self, plants: int) -> tuple[int, int, bool]:
+        """Units to take from each of ``plants`` plants so the sample lands in ``per_sample``.
+
+        Returns ``(fewest, most, follows)``: ``plants * fewest >= per_sample[0]`` and
+        ``plants * most <= per_sample[1]`` whenever whole numbers allow it, within the
+        profile's ``per_plant`` range where they overlap; ``follows`` is False when
+        the amounts per plant leave the profile's ``per_plant`` range, or when even
+        one unit per plant overshoots the sample (more plants than units).
+
+        Examples
+        --------
+        >>> load_profile("wine-grapes").per_plant_for(5)
+        (20, 40, False)
+        >>> load_profile("wine-grapes").per_plant_for(80)
+        (2, 2, True)
+        """
+        k = int(plants)
+        if k < 1:
+            raise ValueError(f"plants must be 1 or more, got {plants}")
+        s_lo, s_hi = self.per_sample
+        p_lo, p_hi = self.per_plant
+        need_lo, need_hi = -(-s_lo // k), s_hi // k
+        if need_hi < 1:
+            return 1, 1, False
+        if need_lo > need_hi:
+            # No even amount lands in the range: some plants give one more than others.
+            lo, hi = need_hi, need_lo
+            return lo, hi, p_lo <= lo and hi <= p_hi
+        lo, hi = max(need_lo, p_lo), min(need_hi, p_hi)
+        if lo <= hi:
+            return lo, hi, True
+        return need_lo, need_hi, False
+
+    def instructions_for(
+        self,
+        *,
+        plants: int | None = None,
+        skip_end_plants: int | None = None,
+        skip_border_rows: int | None = None,
+    ) -> str:
+        """Instruction for one sample, from the plan's effective options.
+
+        Parameters
+        ----------
+        plants : int, optional
+            Plants the sample is gathered from (a cluster's size); the text then says
+            how many units to take from each so the total lands in ``per_sample``.
+            Without it, the profile's own ``per_plant``.
+        skip_end_plants, skip_border_rows : int, optional
+            Plants and rows the plan leaves out (default: the profile's).
+        """
+        ends = self.skip_end_plants if skip_end_plants is None else int(skip_end_plants)
+        border = self.skip_border_rows if skip_border_rows is None else int(skip_border_rows)
         sides = "both sides of the row" if self.sides == "both" else "one side of the row"
+        if plants is None:
+            lo, hi = self.per_plant
+            amount = f"{self.units_text}, {_span(lo, hi)} per plant"
+        else:
+            lo, hi, _ = self.per_plant_for(plants)
+            total = f"{int(plants) * lo}" if lo == hi else f"{int(plants) * lo}-{int(plants) * hi}"
+            amount = (
+                f"{_span(lo, hi)} {self.unit if hi == 1 else self.plural} from each of the "
+                f"{int(plants)} plant(s) ({total} in all; the profile asks {self.units_text})"
+            )
         return (
-            f"{self.units_text}, {per_plant} per plant, {sides}; "
+            f"{amount}, {sides}; "
             f"mix {'/'.join(self.exposure)} and {'/'.join(self.heights)}; "
-            f"skip {self.skip_end_plants} end plant(s) per row and "
-            f"{self.skip_border_rows} border row(s)"
+            f"skip {ends} end plant(s) per row and "
+            f"{border} border row(s)"
         )
+
+    def cluster_warning(self, plants: int) -> str:
+        """Why clusters of ``plants`` plants cannot follow the profile ('' when they can)."""
+        lo, hi, follows = self.per_plant_for(plants)
+        if follows:
+            return ""
+        s_lo, s_hi = self.per_sample
+        p_lo, p_hi = self.per_plant
+        fewest, most = -(-s_lo // p_hi), s_hi // p_lo
+        return (
+            f"crop profile {self.name}: {self.units_text} from {int(plants)} plant(s) means "
+            f"{_span(lo, hi)} per plant, outside the profile's {_span(p_lo, p_hi)} per plant; "
+            f"to follow the profile, plan clusters of {fewest}-{most} plants, or keep these "
+            "clusters knowing each plant weighs more in its sample"
+        )
+
+
+def _span(lo: int, hi: int) -> str:
+    return f"{lo}" if lo == hi else f"{lo}-{hi}"
 
 
 def shipped_profiles() -> list[str]:

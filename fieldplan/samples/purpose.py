@@ -35,7 +35,8 @@ __all__ = ["PURPOSES", "COMPOSITES", "DEFAULT_PROFILE", "apply_purpose", "resolv
 PURPOSES = ("general", "soil", "ripeness")
 COMPOSITES = ("cell", "zone")
 DEFAULT_PROFILE = "wine-grapes"
-_DEPTH = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*-\s*(\d+(?:\.\d+)?)\s*$")
+# "0-15", "0-15cm", "0 - 15 cm", "0–15 cm" (en dash): the unit is optional but must be cm.
+_DEPTH = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*(?:cm)?\s*[-\u2013]\s*(\d+(?:\.\d+)?)\s*(?:cm)?\s*$", re.I)
 _MAX_CORES = 200
 _OWN_PARAMS = (
     "purpose",
@@ -53,12 +54,18 @@ _OWN_COLUMNS = ("purpose", "depth_cm", "sample_id", "per_sample", "instructions"
 
 
 def parse_depth(text: str | None) -> str:
-    """Check a depth range in cm, e.g. ``"0-15"``; returns it normalised ('' for none)."""
+    """Check a depth range in cm, e.g. ``"0-15"`` or ``"0-15cm"``; returns it normalised ('' for none).
+
+    Examples
+    --------
+    >>> parse_depth("0-15cm"), parse_depth(" 15 - 30 cm "), parse_depth("0\u201315")
+    ('0-15', '15-30', '0-15')
+    """
     if text is None or str(text).strip() == "":
         return ""
     match = _DEPTH.match(str(text))
     if not match:
-        raise OptionError(f"--depth takes a range in cm such as 0-15 or 15-30; got {text!r}")
+        raise OptionError(f"--depth takes a range in cm such as 0-15, 0-15cm or 15-30; got {text!r}")
     top, bottom = (float(g) for g in match.groups())
     if not bottom > top:
         raise OptionError(f"--depth {text!r}: the bottom must be deeper than the top")
@@ -176,6 +183,41 @@ def _edge_notes(plan, points, profile) -> dict[str, list[str]]:
         ]
         for i in np.flatnonzero(counts)
     }
+
+
+def _profile_instructions(plan, points, profile) -> tuple[np.ndarray, list[str]]:
+    """The crop profile's instruction per point, from the plan's effective options.
+
+    A clusters plan leaves out the row ends and border rows of its own options
+    (not the profile's) and gathers each sample from ``units`` plants, so its
+    text says those numbers and how much to take from each plant for the total
+    to land in the profile's range. Returns the texts and plan notes where the
+    plan cannot follow the profile.
+    """
+    if plan.params.get("design") != "clusters" or "units" not in points.columns:
+        return np.full(len(points), profile.instructions, dtype=object), []
+    opts = plan.params.get("design_options", {})
+    ends = int(opts.get("skip_row_ends") or 0)
+    border = int(opts.get("skip_border_rows") or 0)
+    plants = points["units"].to_numpy(dtype=np.int64)
+    sizes, which = np.unique(plants, return_inverse=True)
+    texts = np.array(
+        [
+            profile.instructions_for(plants=int(k), skip_end_plants=ends, skip_border_rows=border)
+            for k in sizes
+        ],
+        dtype=object,
+    )
+    notes = [w for w in (profile.cluster_warning(int(k)) for k in sizes) if w]
+    if ends < profile.skip_end_plants or border < profile.skip_border_rows:
+        notes.append(
+            f"crop profile {profile.name} skips {profile.skip_end_plants} end plant(s) per row and "
+            f"{profile.skip_border_rows} border row(s); this plan leaves out {ends} and {border} "
+            f"(--skip-row-ends, --skip-border-rows); re-plan with --skip-row-ends "
+            f"{max(ends, profile.skip_end_plants)} --skip-border-rows "
+            f"{max(border, profile.skip_border_rows)} to follow the profile"
+        )
+    return texts[which.reshape(-1)] if len(points) else np.empty(0, dtype=object), notes
 
 
 def _with_notes(blocks: gpd.GeoDataFrame, notes: dict[str, list[str]]) -> gpd.GeoDataFrame:
@@ -309,9 +351,10 @@ def apply_purpose(
         points["sample_id"] = blocks.map(ids).to_numpy()
     else:
         points["sample_id"] = make_sample_ids(len(points), code=code)
+    profile_notes: list[str] = []
     if profile is not None:
         points["per_sample"] = profile.units_text
-        points["instructions"] = profile.instructions
+        points["instructions"], profile_notes = _profile_instructions(plan, points, profile)
 
     layers = dict(plan.layers)
     blocks = plan.blocks
@@ -326,6 +369,8 @@ def apply_purpose(
         # The clusters design skips border rows and row ends itself (its own options).
         blocks = _with_notes(blocks, _edge_notes(plan, points, profile))
     meta = dict(plan.meta)
+    if profile_notes:
+        meta["notes"] = [*meta.get("notes", []), *profile_notes]
     if "counts" in meta:
         meta["counts"] = {**meta["counts"], "samples": int(points["sample_id"].nunique())}
         if "cores" in layers:
