@@ -167,7 +167,7 @@ class CropProfile:
         return (
             f"crop profile {self.name}: {self.units_text} from {int(plants)} plant(s) means "
             f"{_span(lo, hi)} per plant, outside the profile's {_span(p_lo, p_hi)} per plant; "
-            f"to follow the profile, plan clusters of {fewest}-{most} plants, or keep these "
+            f"to follow the profile, plan clusters of {fewest}-{most} plants (--plants-per-cluster), or keep these "
             "clusters knowing each plant weighs more in its sample"
         )
 
