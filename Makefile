@@ -12,7 +12,7 @@ $(BIN)/python:
 	$(BIN)/python -m pip install --quiet --upgrade pip
 
 $(STAMP): pyproject.toml | $(BIN)/python
-	$(BIN)/python -m pip install --quiet -e ".[test,dask,bench]"
+	$(BIN)/python -m pip install --quiet -e ".[test,dask,bench,web]"
 	touch $(STAMP)
 
 FP := $(BIN)/fieldplan

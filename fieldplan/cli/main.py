@@ -43,6 +43,7 @@ from fieldplan.cli import (  # noqa: E402
     plan_cmd,
     results_cmd,
     schedule_cmd,
+    serve_cmd,
     size_cmd,
 )
 
@@ -59,6 +60,7 @@ for _command in (
     lab_cmd,
     results_cmd,
     estimate_cmd,
+    serve_cmd,
 ):
     _command.register(app)
 
