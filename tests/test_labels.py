@@ -28,6 +28,7 @@ from fieldplan.samples.labels import (
     parse_layout,
 )
 from fieldplan.samples.purpose import apply_purpose
+from fieldplan.store import load_plan
 from tests.geoms import blocks_frame, concave, square
 
 MM_PER_IN = 25.4  # reference: international inch, exactly 25.4 mm (1959 agreement)
@@ -174,6 +175,7 @@ def test_lab_sheet_round_trip_through_the_results_reader(tmp_path):
     sub = pd.read_csv(tmp_path / SUBMISSION_NAME, dtype=str, keep_default_na=False)
     assert list(sub.columns) == [
         "sample_id",
+        "status",
         "block",
         "depth_cm",
         "purpose",
@@ -252,6 +254,61 @@ def test_cli_plan_labels_and_lab_sheet(tmp_path):
     assert bad.exit_code == 2 and "same column" in bad.output
     bad = runner.invoke(app, ["labels", str(tmp_path / "nowhere")])
     assert bad.exit_code == 2
+
+
+def test_labels_and_lab_sheet_hold_active_samples_spares_only_on_request(tmp_path):
+    # common practice, no source: a bag is labelled for every sample to be taken and no other;
+    # spares are printed only when asked for, apart and clearly marked, and a point given up in
+    # the field has no sample. QR codes read back with zxing-cpp (reference: independent decoder).
+    import zxingcpp
+    from PIL import Image
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import app
+    from fieldplan.demo import demo_blocks_path
+    from fieldplan.field.mark import mark_points
+
+    runner = CliRunner()
+    out = tmp_path / "ripe"
+    args = ["plan", str(demo_blocks_path()), "--design", "random", "--per-block", "2", "--spares", "1"]
+    result = runner.invoke(app, [*args, "--purpose", "ripeness", "--seed", "3", "--out", str(out), "-q"])
+    assert result.exit_code == 0, result.output
+    points = load_plan(out).points
+    n_active, n_spare = int((points["status"] == "selected").sum()), int((points["status"] == "spare").sum())
+    assert n_active == 28 and n_spare == 14
+    gone = points.loc[points["status"] == "selected", "point_id"].iloc[0]
+    mark_points(out, [gone], reason="flooded")
+    points = load_plan(out).points
+    active = points[points["status"].isin(["selected", "replacement"])]
+    assert len(active) == n_active
+
+    records = label_records(points, plan_id="X")
+    assert set(records["sample_id"]) == set(active["sample_id"]) and len(records) == n_active
+    assert gone not in set(points.loc[points["sample_id"].isin(records["sample_id"]), "point_id"])
+    result = runner.invoke(app, ["labels", str(out), "--layout", "4x10", "--preview"])
+    assert result.exit_code == 0 and f"{n_active} labels on" in result.output
+    decoded = {r.text for r in zxingcpp.read_barcodes(Image.open(out / "labels_preview.png"))}
+    assert decoded == set(active["sample_id"])
+
+    spares = label_records(points, plan_id="X", include_spares=True)
+    assert len(spares) == n_active + n_spare - 1
+    assert list(spares["status"][:n_active]) == list(records["status"])
+    tail = spares.iloc[n_active:]
+    assert (tail["status"] == "spare").all() and tail["block"].str.endswith("SPARE").all()
+    assert tail["detail"].str.startswith("SPARE").all()
+    result = runner.invoke(app, ["labels", str(out), "--include-spares"])
+    assert result.exit_code == 0 and f"({n_spare - 1} spare(s), marked SPARE, at the end)" in result.output
+
+    result = runner.invoke(app, ["lab-sheet", str(out), "--analyses", "Brix,pH"])
+    assert result.exit_code == 0, result.output
+    sub = pd.read_csv(out / SUBMISSION_NAME, dtype=str)
+    assert list(sub["sample_id"]) == list(records["sample_id"])
+    assert set(sub["status"]) == {"selected", "replacement"}
+    template = pd.read_csv(out / TEMPLATE_NAME, dtype=str)
+    assert gone not in set(template["point_id"]) and len(template) == n_active
+    result = runner.invoke(app, ["lab-sheet", str(out), "--analyses", "Brix,pH", "--include-spares"])
+    sub = pd.read_csv(out / SUBMISSION_NAME, dtype=str)
+    assert (sub["status"] == "spare").sum() == n_spare - 1 and "spare(s)" in result.output
 
 
 def test_text_outside_the_pdf_base_fonts_prints_as_question_marks():

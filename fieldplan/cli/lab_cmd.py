@@ -22,11 +22,17 @@ def lab_sheet(
         int,
         typer.Option("--round", min=1, help="Sampling round: rounds after the first get their own ids."),
     ] = 1,
+    include_spares: Annotated[
+        bool,
+        typer.Option("--include-spares", help="Also list unused spares (status 'spare'), after the others."),
+    ] = False,
     quiet: Quiet = False,
 ) -> None:
     """Write lab_submission.csv and results_template.csv into the plan folder.
 
     Round 2 and later (--round) write lab_submission_r2.csv etc. with that round's ids.
+    Samples of points to be sampled only, with a status column (selected, replacement,
+    substitute); --include-spares adds the unused spares (status spare).
 
     Fill in results_template.csv (one row per sample) and read it back with
     'fieldplan results'.
@@ -39,10 +45,14 @@ def lab_sheet(
 
     names = parse_analyses(analyses)
     plan = load_plan(plan_dir)
-    paths = write_lab_sheet(plan, plan_dir, analyses=names, round_no=round_no)
+    paths = write_lab_sheet(plan, plan_dir, analyses=names, round_no=round_no, include_spares=include_spares)
     if not quiet:
-        samples = plan.points["sample_id"].nunique()
-        typer.echo(f"{samples} samples, analyses {', '.join(names)} -> " + ", ".join(str(p) for p in paths))
+        from fieldplan.samples.lab import sample_rows
+
+        rows = sample_rows(plan.points, include_spares=include_spares)
+        n_spare = int((rows["status"] == "spare").sum())
+        samples = f"{len(rows)} samples" + (f" ({n_spare} spare(s))" if n_spare else "")
+        typer.echo(f"{samples}, analyses {', '.join(names)} -> " + ", ".join(str(p) for p in paths))
         if plan.params.get("purpose") == "soil":
             typer.echo("\n".join("Caution: " + c for c in CAUTIONS if "buried" in c))
 

@@ -42,12 +42,22 @@ def labels(
         int,
         typer.Option("--round", min=1, help="Sampling round: rounds after the first get their own ids."),
     ] = 1,
+    include_spares: Annotated[
+        bool,
+        typer.Option(
+            "--include-spares",
+            help="Also print labels for unused spares, after the others and marked SPARE.",
+        ),
+    ] = False,
     preview: Annotated[
         bool, typer.Option(help="Also write labels_preview.png (first sheet) to check before printing.")
     ] = False,
     quiet: Quiet = False,
 ) -> None:
     """Write labels.pdf into the plan folder: one label per sample with its id as text and QR code.
+
+    Samples of points to be sampled only (points marked inaccessible get none);
+    --include-spares adds the unused spares after them, each marked SPARE.
 
     Round 2 and later (--round) write labels_r2.pdf etc. with that round's ids.
 
@@ -60,7 +70,9 @@ def labels(
     sheet = parse_layout(layout)
     when = _check_date(date)
     plan = load_plan(plan_dir)
-    records = label_records(plan.points, plan_id=plan.params.get("plan_id", ""), round_no=round_no)
+    records = label_records(
+        plan.points, plan_id=plan.params.get("plan_id", ""), round_no=round_no, include_spares=include_spares
+    )
     suffix = "" if round_no == 1 else f"_r{round_no}"
     pdf_path = plan_dir / f"labels{suffix}.pdf"
     atomic_write_bytes(pdf_path, labels_pdf(records, sheet, date=when, skip=skip))
@@ -72,8 +84,10 @@ def labels(
         atomic_write_bytes(plan_dir / f"labels{suffix}_preview.png", buffer.getvalue())
     if not quiet:
         sheets = -(-(skip + len(records)) // sheet.per_page)
+        n_spare = int((records["status"] == "spare").sum())
+        extra = f" ({n_spare} spare(s), marked SPARE, at the end)" if n_spare else ""
         typer.echo(
-            f"{len(records)} labels on {sheets} {sheet.name} sheet(s) -> {pdf_path}\n"
+            f"{len(records)} labels{extra} on {sheets} {sheet.name} sheet(s) -> {pdf_path}\n"
             "Print at 100 % (no 'fit to page') so labels line up with the sheet."
         )
 

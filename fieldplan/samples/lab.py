@@ -1,6 +1,7 @@
 """Laboratory paperwork: the submission sheet and the results template.
 
-``lab_submission.csv`` lists one row per sample for the lab: sample id, block,
+``lab_submission.csv`` lists one row per sample for the lab: sample id, status
+(``selected``, ``replacement``, ``substitute``; ``spare`` with ``include_spares``), block,
 depth, purpose, a blank collection date for the crew and the analyses asked
 for. ``results_template.csv`` has one row per sample with ``point_id`` and
 ``sample_id`` and one blank column per analysis; filled in, it is read back
@@ -12,6 +13,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from fieldplan.errors import OptionError
@@ -19,6 +21,8 @@ from fieldplan.samples.ids import round_sample_ids
 from fieldplan.write.safe import atomic_write_text, neutralise_csv_cell, neutralise_frame
 
 __all__ = [
+    "ACTIVE_STATUSES",
+    "sample_rows",
     "SUBMISSION_NAME",
     "TEMPLATE_NAME",
     "RESERVED_COLUMNS",
@@ -69,21 +73,64 @@ def parse_analyses(text: str) -> list[str]:
     return names
 
 
-def _samples(points: pd.DataFrame) -> pd.DataFrame:
+#: Point statuses whose samples are taken (see fieldplan.field.mark).
+ACTIVE_STATUSES = ("selected", "replacement", "substitute")
+SPARE_STATUS = "spare"
+
+
+def sample_rows(points: pd.DataFrame, *, include_spares: bool = False) -> pd.DataFrame:
+    """One row per sample to label or send to the lab, with its ``status``.
+
+    Samples of active points (``selected``, ``replacement``, ``substitute``) come
+    first in plan order; with ``include_spares`` the unused spares follow in the
+    order they would come into use (``spare_rank``). Points marked inaccessible
+    never get a sample. A composite that stands for several points (a zone
+    composite) is listed once, under its first active point.
+    """
     if "sample_id" not in points.columns:
         raise OptionError("the plan has no sample ids; re-run 'fieldplan plan' with this version")
-    return points.drop_duplicates("sample_id", keep="first")
+    status = (
+        points["status"].fillna("selected").astype(str).str.lower()
+        if "status" in points.columns
+        else pd.Series("selected", index=points.index)
+    )
+    active = status.isin(ACTIVE_STATUSES).to_numpy()
+    spare = (status == SPARE_STATUS).to_numpy()
+    rank = (
+        pd.to_numeric(points["spare_rank"], errors="coerce").fillna(0).to_numpy()
+        if "spare_rank" in points.columns
+        else np.zeros(len(points))
+    )
+    keep = active | (spare & include_spares)
+    order = np.lexsort((rank, ~active))
+    order = order[keep[order]]
+    out = points.iloc[order].copy()
+    out["status"] = status.to_numpy()[order]
+    return out.drop_duplicates("sample_id", keep="first")
 
 
-def submission_table(points: pd.DataFrame, *, analyses: list[str], round_no: int = 1) -> pd.DataFrame:
-    """One row per sample: ``sample_id, block, depth_cm, purpose, round, collection_date, analyses``."""
-    first = _samples(points)
+def _samples(points: pd.DataFrame) -> pd.DataFrame:
+    # Callers may pass rows from sample_rows (already one per sample, with a status).
+    if "status" in points.columns and points["sample_id"].is_unique:
+        return points
+    return sample_rows(points)
+
+
+def submission_table(
+    points: pd.DataFrame, *, analyses: list[str], round_no: int = 1, include_spares: bool = False
+) -> pd.DataFrame:
+    """One row per sample: ``sample_id, status, block, depth_cm, purpose, round, collection_date, analyses``.
+
+    Active samples only, unless ``include_spares`` (see :func:`sample_rows`).
+    """
+    first = sample_rows(points, include_spares=include_spares)
     n = len(first)
     depth = first["depth_cm"].fillna("").astype(str) if "depth_cm" in first else [""] * n
     purpose = first["purpose"].fillna("").astype(str) if "purpose" in first else [""] * n
     return pd.DataFrame(
         {
             "sample_id": round_sample_ids(first["sample_id"].astype(str).to_numpy(), round_no),
+            "status": first["status"].to_numpy(),
             "block": first["block"].astype(str).to_numpy(),
             "depth_cm": list(depth),
             "purpose": list(purpose),
@@ -94,14 +141,16 @@ def submission_table(points: pd.DataFrame, *, analyses: list[str], round_no: int
     )
 
 
-def results_template(points: pd.DataFrame, *, analyses: list[str], round_no: int = 1) -> pd.DataFrame:
+def results_template(
+    points: pd.DataFrame, *, analyses: list[str], round_no: int = 1, include_spares: bool = False
+) -> pd.DataFrame:
     """One row per sample: ``point_id, sample_id`` and a blank column per analysis.
 
     A composite that stands for several points (a zone composite) is listed
     under the first of its points. The round is not a column: the results
     reader would take a column of numbers for a measurement.
     """
-    first = _samples(points)
+    first = sample_rows(points, include_spares=include_spares)
     table = pd.DataFrame(
         {
             "point_id": first["point_id"].astype(str).to_numpy(),
@@ -113,18 +162,21 @@ def results_template(points: pd.DataFrame, *, analyses: list[str], round_no: int
     return table
 
 
-def write_lab_sheet(plan, folder: str | Path, *, analyses: list[str], round_no: int = 1) -> list[Path]:
+def write_lab_sheet(
+    plan, folder: str | Path, *, analyses: list[str], round_no: int = 1, include_spares: bool = False
+) -> list[Path]:
     """Write ``lab_submission.csv`` and ``results_template.csv`` into ``folder``.
 
     Rounds after the first are written as ``lab_submission_r2.csv`` etc., so
-    earlier sheets are kept.
+    earlier sheets are kept. Active samples only unless ``include_spares``.
     """
     folder = Path(folder)
     suffix = "" if round_no == 1 else f"_r{int(round_no)}"
     out = []
+    opts = {"analyses": analyses, "round_no": round_no, "include_spares": include_spares}
     for name, table in (
-        (SUBMISSION_NAME, submission_table(plan.points, analyses=analyses, round_no=round_no)),
-        (TEMPLATE_NAME, results_template(plan.points, analyses=analyses, round_no=round_no)),
+        (SUBMISSION_NAME, submission_table(plan.points, **opts)),
+        (TEMPLATE_NAME, results_template(plan.points, **opts)),
     ):
         name = name.replace(".csv", f"{suffix}.csv")
         safe = neutralise_frame(table)

@@ -24,6 +24,7 @@ import pandas as pd
 
 from fieldplan.errors import OptionError
 from fieldplan.samples.ids import round_sample_ids
+from fieldplan.samples.lab import SPARE_STATUS, sample_rows
 
 __all__ = [
     "MM_PER_IN",
@@ -144,25 +145,33 @@ def label_boxes(layout: SheetLayout) -> np.ndarray:
     return np.column_stack([x, y, np.full_like(x, layout.label_w), np.full_like(x, layout.label_h)])
 
 
-def label_records(points: pd.DataFrame, *, plan_id: str, round_no: int = 1) -> pd.DataFrame:
-    """One row per sample: ``sample_id, block, detail, plan_id, round``, in plan order.
+def label_records(
+    points: pd.DataFrame, *, plan_id: str, round_no: int = 1, include_spares: bool = False
+) -> pd.DataFrame:
+    """One row per sample: ``sample_id, block, detail, plan_id, round, status``.
 
+    Samples of active points in plan order (points marked inaccessible get no
+    label); with ``include_spares`` the spares follow in the order they would
+    come into use, each marked ``SPARE`` on its block and detail lines.
     ``detail`` says what the sample is: "soil 0-15 cm", "ripeness", ...
     Rounds after the first get their own ids (:func:`~fieldplan.samples.ids.round_sample_ids`).
     """
-    if "sample_id" not in points.columns:
-        raise OptionError("the plan has no sample ids; re-run 'fieldplan plan' with this version")
-    first = points.drop_duplicates("sample_id", keep="first")
+    first = sample_rows(points, include_spares=include_spares)
     purpose = first["purpose"].astype(str) if "purpose" in first else pd.Series("", index=first.index)
     depth = first["depth_cm"].fillna("").astype(str) if "depth_cm" in first else ""
     detail = np.where(depth != "", purpose + " " + depth + " cm", purpose)
+    spare = (first["status"] == SPARE_STATUS).to_numpy()
+    block = first["block"].astype(str).to_numpy(dtype=object)
     return pd.DataFrame(
         {
             "sample_id": round_sample_ids(first["sample_id"].astype(str).to_numpy(), round_no),
-            "block": first["block"].astype(str).to_numpy(),
-            "detail": np.asarray(detail, dtype=object),
+            "block": np.where(spare, block + " - SPARE", block),
+            "detail": np.where(spare, "SPARE: use only if told - " + detail.astype(str), detail).astype(
+                object
+            ),
             "plan_id": str(plan_id),
             "round": int(round_no),
+            "status": first["status"].to_numpy(),
         }
     )
 
