@@ -13,6 +13,9 @@ $(BIN)/python:
 
 $(STAMP): pyproject.toml | $(BIN)/python
 	$(BIN)/python -m pip install --quiet -e ".[test,dask,bench,web]"
+	@# Tests check kriging against scikit-gstat; it pins scipy<1.17, so it comes without dependencies
+	@# (it imports only numpy, scipy, pandas, numba, scikit-learn and matplotlib, all installed above).
+	$(BIN)/python -m pip install --quiet --no-deps scikit-gstat
 	touch $(STAMP)
 
 FP := $(BIN)/fieldplan
