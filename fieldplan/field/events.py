@@ -26,6 +26,7 @@ __all__ = [
     "ACTIONS",
     "INACCESSIBLE",
     "RESTORE",
+    "REMOVE_ROUND",
     "current_user",
     "make_events",
     "read_events",
@@ -36,7 +37,9 @@ EVENTS_LAYER = "events"
 EVENT_COLUMNS = ("event_id", "time_utc", "user", "action", "point_id", "replacement_id", "reason")
 INACCESSIBLE = "inaccessible"
 RESTORE = "restore"
-ACTIONS = (INACCESSIBLE, RESTORE)
+#: A results round taken out with ``fieldplan results --remove-round`` (point_id empty).
+REMOVE_ROUND = "remove-round"
+ACTIONS = (INACCESSIBLE, RESTORE, REMOVE_ROUND)
 
 
 def current_user(by: str | None = None) -> str:
