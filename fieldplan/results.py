@@ -122,7 +122,10 @@ _ALIASES = {
 
 KEY_COLUMNS = ("point_id", "unit", "date", "units_measured", "lon", "lat")
 # Other names lab and field exports give the sampling date; read as ``date``.
-DATE_ALIASES = ("sample_date", "sampling_date", "date_sampled", "sampled_on", "collection_date", "date_collected")
+DATE_ALIASES = (
+    "sample_date", "sampling_date", "date_sampled", "date_of_sampling", "sampled", "sampled_on",
+    "collection_date", "date_collected",
+)  # fmt: skip
 # Cells in these columns are never joined when repairing unquoted decimal commas.
 _NOT_DECIMAL = frozenset(
     {"point_id", "sample_id", "unit", "date", "block", "stratum", "variety", "row", "plant", "round", "crew"}
