@@ -2,7 +2,10 @@
 
 The public API is small::
 
-    from fieldplan import read_blocks, make_plan, write_plan, load_plan
+    from fieldplan import read_blocks, PlanSpec, make_plan, write_plan, load_plan
+
+    spec = PlanSpec.from_dict({"design": "random", "per_block": 5, "purpose": "soil"})
+    plan = make_plan(read_blocks("blocks.geojson"), spec, seed=7)
 
 Names load lazily so that ``fieldplan --help`` stays fast.
 """
@@ -21,6 +24,9 @@ _LAZY = {
     "write_plan": "fieldplan.store",
     "load_plan": "fieldplan.store",
     "FieldplanError": "fieldplan.errors",
+    "PlanSpec": "fieldplan.spec",
+    "SpecError": "fieldplan.spec",
+    "spec_schema": "fieldplan.spec",
 }
 
 __all__ = ["__version__", *_LAZY]
@@ -30,3 +36,8 @@ def __getattr__(name: str):
     if name in _LAZY:
         return getattr(importlib.import_module(_LAZY[name]), name)
     raise AttributeError(f"module 'fieldplan' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    # Lazy names show up in dir() and tab completion as if they were loaded.
+    return sorted({*__all__, *(n for n in globals() if n.startswith("__"))})

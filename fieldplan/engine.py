@@ -1,6 +1,6 @@
 """Engines that run a design over blocks: in this process, or in parallel on Dask.
 
-A design function (see :data:`fieldplan.plan.DESIGNS`) takes every block at
+A design function (registered in :data:`fieldplan.spec.DESIGNS`) takes every block at
 once. Decisions that depend on all blocks are made here, once, before the
 blocks are split: the field-wide grid origin (from the farm's total bounds)
 goes into the design parameters, and stratified designs are split only between
@@ -78,7 +78,7 @@ def partition_keys(design: str, blocks: pd.DataFrame, n_parts: int) -> np.ndarra
 
 def _plan_partition(part, design: str, params: dict, exclusion_union) -> tuple:
     """Worker side: run the design on one partition's blocks."""
-    from fieldplan.plan import DESIGNS
+    from fieldplan.spec import DESIGNS
 
     part = part.sort_values(_ORDER, kind="stable")
     areas = np.asarray(part[_AREA].values, dtype=object)
@@ -86,7 +86,7 @@ def _plan_partition(part, design: str, params: dict, exclusion_union) -> tuple:
     blocks = part.drop(columns=[_AREA, _ORDER, _PART]).reset_index(drop=True)
     if len(blocks) == 0:
         return None, {}, None
-    table, flags = DESIGNS[design](blocks, areas, params, exclusion_union, None)
+    table, flags = DESIGNS[design].load()(blocks, areas, params, exclusion_union, None)
     index = dict(zip(blocks["block"].to_numpy(), order, strict=True))
     strata = table.attrs.get("strata")
     # The driver knows every block's name: send back its position instead, as
@@ -196,7 +196,7 @@ def run_design(
     Parameters
     ----------
     design : str
-        Name in :data:`fieldplan.plan.DESIGNS`.
+        Name in :data:`fieldplan.spec.DESIGNS`.
     blocks, areas, params, exclusion_union, progress
         As the design functions take them.
     engine : {"local", "dask"}
@@ -207,7 +207,7 @@ def run_design(
     partitions : int, optional
         Number of partitions; default four per worker, at most one per block.
     """
-    from fieldplan.plan import DESIGNS
+    from fieldplan.spec import DESIGNS
 
     check_engine(engine, scheduler)
     params = dict(params)
@@ -216,7 +216,7 @@ def run_design(
     opts = params.get("design_options") or {}
     global_allocation = design != "grid" and opts.get("n") is not None
     if engine == "local" or global_allocation or len(blocks) < 2:
-        return DESIGNS[design](blocks, areas, params, exclusion_union, progress)
+        return DESIGNS[design].load()(blocks, areas, params, exclusion_union, progress)
 
     def go(c) -> tuple:
         workers = max(1, len(c.scheduler_info().get("workers", {})) or 1)

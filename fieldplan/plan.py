@@ -23,18 +23,18 @@ from pyproj import CRS
 from fieldplan import __version__
 from fieldplan.design.grid import cell_area, grid_points_many, spacing_for_density
 from fieldplan.errors import DesignError, InvalidBlocksError, OptionError
-from fieldplan.field.spares import SPARE_DESIGNS
-from fieldplan.field.substitutes import SUBSTITUTE_RULES, SUBSTITUTES_LAYER, substitutes_layer
+from fieldplan.field.substitutes import SUBSTITUTES_LAYER, substitutes_layer
 from fieldplan.rng import stream
+from fieldplan.spec import PlanSpec, SpecError
 from fieldplan.stratified import STRATIFIED_DESIGNS, check_design_options, strata_labels
 
-__all__ = ["Plan", "make_plan", "sample_areas", "DESIGNS", "DEFAULT_MAX_POINTS"]
+__all__ = ["Plan", "PlanSpec", "make_plan", "sample_areas", "DESIGNS", "DEFAULT_MAX_POINTS"]
 
 DEFAULT_MAX_POINTS = 10_000_000
 START_MODES = ("field", "block")
 
 
-@dataclass
+@dataclass(frozen=True)
 class Plan:
     """A sampling plan: blocks, points, exclusions and everything needed to reproduce it.
 
@@ -52,7 +52,8 @@ class Plan:
     crs : pyproj.CRS
         The local metric CRS of all three frames.
     params : dict
-        Plan parameters, JSON-serialisable.
+        The plan's spec as :meth:`fieldplan.spec.PlanSpec.to_dict` gives it, with
+        ``seed``, ``plan_id`` and (grids) ``spacing_m``, the spacing used.
     meta : dict
         Manifest: version, command, seed, input file and its SHA-256, CRS, time, counts.
     layers : dict
@@ -88,6 +89,11 @@ class Plan:
     @property
     def seed(self) -> int:
         return int(self.params["seed"])
+
+    @property
+    def spec(self) -> PlanSpec:
+        """The plan's specification, rebuilt from ``params`` (plans of older versions too)."""
+        return PlanSpec.from_dict(self.params, strict=False)
 
 
 def _utc_now() -> str:
@@ -239,113 +245,119 @@ def _point_ids(block_column: pd.Series) -> np.ndarray:
     return (block_column.astype(str) + "-" + counts.astype(str).str.zfill(width)).to_numpy()
 
 
-def _check_finite(**values) -> None:
-    # inf or nan would pass the range checks and give an empty or meaningless plan.
-    for name, value in values.items():
-        if isinstance(value, int | float | np.number) and not math.isfinite(value):
-            raise OptionError(f"--{name.replace('_', '-')} must be a finite number, got {value}")
+def _run_params(spec: PlanSpec, seed: int) -> dict:
+    """The parameters the design functions and engines read, from a checked spec."""
+    grid, size, clusters = spec.grid, spec.size, spec.clusters
+    spacing = grid.spacing
+    if spec.design == "grid" and spacing is None:
+        spacing = spacing_for_density(size.per_ha, grid.layout)
+    run = {
+        "design": spec.design,
+        "seed": int(seed),
+        "spacing": float(spacing) if spacing is not None else None,
+        "per_ha": size.per_ha,
+        "layout": grid.layout,
+        "start": grid.start,
+        "angle": grid.angle,
+        "max_points": spec.scale.max_points,
+        "spares": spec.replacements.spares,
+    }
+    if spec.design != "grid":
+        options = {
+            "per_block": size.per_block,
+            "per_ha": size.per_ha,
+            "n": size.n,
+            "allocation": size.allocation,
+            "size_field": size.size_field,
+            "sd_field": size.sd_field,
+            "cost_field": size.cost_field,
+            "min_per_stratum": size.min_per_stratum,
+            "candidates": size.candidates,
+        }
+        if spec.design == "clusters":
+            options.update(
+                target_units=clusters.target_units,
+                units_per_cluster=clusters.plants_per_cluster,
+                skip_row_ends=clusters.skip_row_ends,
+                skip_border_rows=clusters.skip_border_rows,
+                instructions=clusters.instructions,
+            )
+        run["design_options"] = check_design_options(spec.design, options)
+    return run
+
+
+def _as_spec(spec, options: dict) -> tuple[PlanSpec, object]:
+    """The spec to plan with, and a rows frame passed the old way (in ``design_options``)."""
+    if options:
+        if spec is not None:
+            raise TypeError("make_plan takes a spec or keyword options, not both")
+        rows = (options.get("design_options") or {}).get("rows")
+        return PlanSpec.from_options(**options), rows
+    if spec is None:
+        raise SpecError("spacing", "give a spec, e.g. PlanSpec.from_dict({{'spacing': 40}})")
+    if isinstance(spec, PlanSpec):
+        return spec, None
+    return PlanSpec.from_dict(spec), None
 
 
 def make_plan(
     blocks: gpd.GeoDataFrame,
+    spec: PlanSpec | dict | None = None,
     *,
-    design: str = "grid",
-    spacing: float | None = None,
-    per_ha: float | None = None,
-    layout: str = "square",
-    start: str = "field",
-    angle: float | str = 0.0,
-    edge_buffer: float = 0.0,
-    exclusions: gpd.GeoDataFrame | None = None,
     seed: int = 0,
-    max_points: int = DEFAULT_MAX_POINTS,
+    exclusions: gpd.GeoDataFrame | None = None,
+    rows: gpd.GeoDataFrame | None = None,
     command: list[str] | None = None,
     progress: Callable[[int, int], None] | None = None,
-    design_options: dict | None = None,
-    samples: dict | None = None,
-    spares: int = 0,
-    substitute: str = "none",
-    engine: str = "local",
-    scheduler: str | None = None,
+    **options,
 ) -> Plan:
     """Plan samples over blocks.
 
     Parameters
     ----------
     blocks : geopandas.GeoDataFrame
-        Output of :func:`fieldplan.read.read_blocks` (metric CRS, ``block`` column).
-    design : str
-        Name of a design in :data:`DESIGNS`.
-    spacing, per_ha : float
-        Grid spacing in metres, or density in points per hectare; exactly one.
-    layout : {"square", "triangular"}
-    start : {"field", "block"}
-        One random start for the whole field, or one per block.
-    angle : float or "rows"
-        Grid bearing in degrees clockwise from north, or ``"rows"`` to follow each
-        block's ``row_bearing_deg``.
-    edge_buffer : float
-        Inward buffer in metres (headland) kept free of samples.
-    exclusions : geopandas.GeoDataFrame, optional
-        Polygons kept free of samples, in the blocks' CRS.
+        Blocks in a metric CRS with a ``block`` column: :func:`fieldplan.read.read_blocks`
+        or :func:`fieldplan.prepare_blocks`.
+    spec : PlanSpec or dict
+        What to plan (:class:`fieldplan.spec.PlanSpec`, or its flat dict, e.g. a
+        manifest's ``parameters`` or a recipe).
     seed : int
-        Seed of every random choice; the same inputs and seed give the same plan.
-    max_points : int
-        Refuse plans with more points than this.
-    design_options : dict, optional
-        ``strata_by`` (a block field; default each block is a stratum) for every
-        design, and for ``random``, ``balanced`` and ``clusters`` the options of
-        :func:`fieldplan.stratified.check_design_options` (``per_block``, ``n``,
-        ``allocation``, ``target_units``, ``rows`` (a GeoDataFrame of row lines),
-        ...). ``per_ha`` above also sets their density.
-    samples : dict, optional
-        Options of :func:`fieldplan.samples.purpose.apply_purpose` (purpose,
-        cores, core_radius, composite, depth, crop_profile, core_buffer).
-    spares : int
-        Extra points per stratum, drawn with the sample and kept in use order
-        (``status`` "spare", ``spare_rank``); random, balanced and clusters designs.
-    substitute : {"none", "within-cell"}
-        Grid plans: precompute one substitute per point, uniform in its lattice
-        cell (layer ``substitutes``). See docs/field-changes.md.
-    engine : {"local", "dask"}
-        Where the design runs: in this process, or over partitions of blocks on a
-        Dask cluster (:mod:`fieldplan.engine`); the plan is the same either way.
-    scheduler : str, optional
-        Address of a running Dask scheduler for ``engine="dask"``; default a local cluster.
+        Seed of every random choice; the same inputs, spec and seed give the same plan.
+    exclusions : geopandas.GeoDataFrame, optional
+        Polygons kept free of samples, in the blocks' CRS (the spec's ``exclude``
+        names the file the CLI read them from).
+    rows : geopandas.GeoDataFrame, optional
+        Mapped row lines for ``design="clusters"`` (the spec's ``rows`` names their file).
+    command : list of str, optional
+        Command line recorded in the manifest (default ``sys.argv``).
+    progress : callable, optional
+        ``progress(done, total)`` as blocks or strata are planned.
+    **options
+        The keyword options ``make_plan`` took before the spec (``design``,
+        ``spacing``, ``per_ha``, ``layout``, ``start``, ``angle``, ``edge_buffer``,
+        ``max_points``, ``design_options``, ``samples``, ``spares``,
+        ``substitute``, ``engine``, ``scheduler``): still accepted, and turned
+        into a spec with :meth:`fieldplan.spec.PlanSpec.from_options`.
+
+    Returns
+    -------
+    Plan
+        ``params`` holds ``spec.to_dict()`` with the ``seed``, the plan's code
+        ``plan_id`` and, for grids, the spacing used ``spacing_m``.
     """
-    if design not in DESIGNS:
-        raise OptionError(f"design must be one of {', '.join(DESIGNS)}; got {design!r}")
-    if start not in START_MODES:
-        raise OptionError(f"--start must be one of {', '.join(START_MODES)}; got {start!r}")
-    _check_finite(spacing=spacing, per_ha=per_ha, edge_buffer=edge_buffer, angle=angle)
-    if not max_points >= 1:
-        raise OptionError(f"--max-points must be 1 or more, got {max_points}")
-    design_options = {k: v for k, v in (design_options or {}).items() if v is not None}
-    strata_by = design_options.pop("strata_by", None)
-    rows_frame = design_options.pop("rows", None)
-    if design == "grid":
-        if design_options or rows_frame is not None:
-            given = ", ".join("--" + k.replace("_", "-") for k in design_options)
-            raise OptionError(f"--design grid does not take {given or '--rows'}; use --spacing or --per-ha")
-        if spacing is not None and per_ha is not None:
-            raise OptionError("give --spacing or --per-ha, not both")
-        if spacing is None and per_ha is None:
-            raise OptionError("give a grid --spacing in metres or a density --per-ha")
-        if spacing is None:
-            spacing = spacing_for_density(per_ha, layout)
-        if not spacing > 0:
-            raise OptionError(f"--spacing must be positive metres, got {spacing}")
-    else:
-        if spacing is not None:
-            raise OptionError(f"--spacing applies to --design grid only, not --design {design}")
-        design_options = check_design_options(design, {**design_options, "per_ha": per_ha})
-    if isinstance(angle, str) and angle != "rows":
-        raise OptionError(f"--angle takes degrees or 'rows', got {angle!r}")
-    if not isinstance(seed, int | np.integer) or seed < 0:
-        raise OptionError(f"--seed must be a non-negative integer, got {seed!r}")
+    spec, legacy_rows = _as_spec(spec, options)
+    rows = rows if rows is not None else legacy_rows
+    if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
+        raise SpecError("seed", f"{{seed}} must be a non-negative integer, got {seed!r}")
     if len(blocks) == 0:
         raise InvalidBlocksError("no blocks to plan")
-    _check_field_options(design, spares, substitute)
+    if rows is not None and spec.design != "clusters":
+        raise SpecError("rows", "{rows} applies to {design} clusters only")
+    design = spec.design
+    run = _run_params(spec, seed)
+    spacing, layout, max_points = run["spacing"], run["layout"], run["max_points"]
+    edge_buffer = spec.edge_buffer
+    strata_by = spec.size.strata_by
 
     crs = CRS.from_user_input(blocks.crs)
     if exclusions is None:
@@ -357,33 +369,15 @@ def make_plan(
             f"the grid would create about {expected:,.0f} points, more than the limit of "
             f"{max_points:,}; use a wider --spacing or a lower --per-ha (or raise --max-points)"
         )
-    params = {
-        "design": design,
-        "spacing_m": round(float(spacing), 6) if spacing is not None else None,
-        "per_ha": per_ha,
-        "layout": layout,
-        "start": start,
-        "angle": angle if isinstance(angle, str) else float(angle),
-        "edge_buffer_m": float(edge_buffer),
-        "seed": int(seed),
-        "max_points": int(max_points),
-    }
-    if strata_by is not None:
-        params["strata_by"] = strata_by
-    if spares:
-        params["spares"] = int(spares)
-    if substitute != "none":
-        params["substitute"] = substitute
-    if design != "grid":
-        params["design_options"] = {k: v for k, v in design_options.items() if k != "rows"}
     areas = sample_areas(blocks, edge_buffer=edge_buffer, exclusions=exclusions)
     exclusion_union = shapely.union_all(exclusions.geometry.values) if len(exclusions) else None
-    run = {**params, "spacing": float(spacing) if spacing is not None else None, "rows_frame": rows_frame}
+    run["rows_frame"] = rows
     if strata_by is not None or "stratum" not in blocks.columns:
         blocks = blocks.copy()
         blocks["stratum"] = strata_labels(blocks, strata_by)
+    engine, scheduler = spec.scale.engine, spec.scale.scheduler
     if engine == "local" and scheduler is None:
-        table, flags = DESIGNS[design](blocks, areas, run, exclusion_union, progress)
+        table, flags = spec.design_info.load()(blocks, areas, run, exclusion_union, progress)
     else:
         from fieldplan.engine import run_design
 
@@ -401,7 +395,7 @@ def make_plan(
     )
     counts = table[~is_spare].groupby("block").size()
     out_blocks["n_points"] = out_blocks["block"].map(counts).fillna(0).astype(int)
-    if spares:
+    if spec.replacements.spares:
         n_spare = table[is_spare].groupby("block").size()
         out_blocks["n_spares"] = out_blocks["block"].map(n_spare).fillna(0).astype(int)
     allocation = table.attrs.get("strata")
@@ -445,31 +439,31 @@ def make_plan(
         "counts": {"blocks": int(len(out_blocks)), "points": int(len(points))},
         "notes": list(blocks.attrs.get("notes", [])),
     }
-    plan = Plan(out_blocks, points, exclusions, crs, params, meta)
-    # Purpose stage: sample ids, depth, soil cores or ripeness instructions
-    # (``samples`` holds the keyword options of fieldplan.samples.purpose.apply_purpose).
+    # The plan's code (in every sample id) comes from what decides the points only,
+    # so the engine or the output formats never change the ids.
+    identity = {**spec.identity(), "seed": int(seed)}
+    plan = Plan(out_blocks, points, exclusions, crs, identity, meta)
+    # Purpose stage: sample ids, depth, soil cores or ripeness instructions.
     from fieldplan.samples.purpose import apply_purpose
 
-    plan = _keep_design_columns(plan, apply_purpose(plan, **(samples or {})))
-    if substitute == "within-cell":
+    samples = spec.samples
+    purposed = apply_purpose(
+        plan,
+        purpose=samples.purpose,
+        cores=samples.cores,
+        core_radius=samples.core_radius,
+        composite=samples.composite,
+        depth=samples.depth,
+        crop_profile=samples.crop_profile,
+        core_buffer=samples.core_buffer,
+    )
+    params = {**spec.to_dict(), "seed": int(seed), "plan_id": purposed.params.get("plan_id")}
+    if design == "grid":
+        params["spacing_m"] = round(float(spacing), 6)
+    plan = _keep_design_columns(plan, replace(purposed, params=params))
+    if spec.replacements.substitute == "within-cell":
         plan.layers[SUBSTITUTES_LAYER] = _grid_substitutes(plan, blocks, areas, params)
     return plan
-
-
-def _check_field_options(design: str, spares, substitute: str) -> None:
-    if int(spares) != spares or spares < 0:
-        raise OptionError(f"--spares must be a whole number >= 0, got {spares}")
-    if spares and design not in SPARE_DESIGNS:
-        raise OptionError(
-            f"--spares applies to --design {', '.join(SPARE_DESIGNS)}; "
-            "grid plans keep their spacing with --substitute within-cell instead"
-        )
-    if substitute not in SUBSTITUTE_RULES:
-        raise OptionError(f"--substitute must be one of {', '.join(SUBSTITUTE_RULES)}; got {substitute!r}")
-    if substitute != "none" and design != "grid":
-        raise OptionError(
-            "--substitute within-cell applies to --design grid only; other designs use --spares"
-        )
 
 
 def _grid_substitutes(plan: Plan, blocks, areas: np.ndarray, params: dict) -> gpd.GeoDataFrame:

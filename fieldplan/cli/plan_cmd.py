@@ -10,18 +10,7 @@ import typer
 
 from fieldplan.cli.options import Force, Quiet, Seed, echo_err, handle_errors, progress_callback
 
-__all__ = ["register", "plan"]
-
-
-def _parse_angle(text: str) -> float | str:
-    from fieldplan.errors import OptionError
-
-    if text == "rows":
-        return "rows"
-    try:
-        return float(text)
-    except ValueError:
-        raise OptionError(f"--angle takes degrees (e.g. 30) or 'rows'; got {text!r}") from None
+__all__ = ["register", "plan", "run_plan"]
 
 
 @handle_errors
@@ -199,25 +188,22 @@ def plan(
             raise OptionError("give --plants-per-cluster only (--units-per-cluster is its old name)")
         echo_err("note: --units-per-cluster is now --plants-per-cluster; the old name goes in the next release")
         units_per_cluster = units_per_cluster_old
-    from fieldplan.plan import make_plan
-    from fieldplan.read import read_blocks, read_exclusions, select_blocks
-    from fieldplan.store import write_plan
-    from fieldplan.stratified import read_rows
-    from fieldplan.write.safe import check_out_dir
+    from fieldplan.spec import PlanSpec, SpecError, flag_of
 
-    # Fail on an occupied folder (or, with --force, a folder that is not a plan) before any work.
-    check_out_dir(out, force=force)
-    from fieldplan.store import selected_formats
-
-    chosen_formats = formats.split(",")
-    selected_formats(chosen_formats)  # an unknown format fails before any work
-    from fieldplan.safety import load_cautions, set_cautions
-
-    if cautions is not None:
-        load_cautions(cautions)  # a bad cautions file fails before any work
-    from fieldplan.samples.purpose import resolve_purpose
-
-    samples = {
+    values = {
+        "design": design,
+        "spacing": spacing,
+        "per_ha": per_ha,
+        "layout": layout,
+        "start": start,
+        "angle": angle,
+        "edge_buffer": edge_buffer,
+        "exclude": exclude,
+        "layer": layer,
+        "select": select,
+        "id_field": id_field,
+        "repair": repair,
+        "max_points": max_points,
         "purpose": purpose,
         "cores": cores,
         "core_radius": core_radius,
@@ -225,57 +211,84 @@ def plan(
         "core_buffer": core_buffer,
         "depth": depth,
         "crop_profile": crop_profile,
+        "cautions": cautions,
+        "strata_by": strata_by,
+        "per_block": per_block,
+        "n": n_total,
+        "allocation": allocation,
+        "size_field": size_field,
+        "sd_field": sd_field,
+        "cost_field": cost_field,
+        "min_per_stratum": min_per_stratum,
+        "target_units": target_units,
+        "plants_per_cluster": units_per_cluster,
+        "skip_row_ends": skip_row_ends,
+        "skip_border_rows": skip_border_rows,
+        "rows": rows,
+        "instructions": instructions,
+        "engine": engine,
+        "scheduler": scheduler,
+        "spares": spares,
+        "substitute": substitute,
+        "formats": formats,
     }
-    resolve_purpose(**samples)  # a bad purpose option fails before any work
-    from fieldplan.engine import check_engine
+    try:
+        spec = PlanSpec.from_dict({k: str(v) if isinstance(v, Path) else v for k, v in values.items()})
+        run_plan(blocks_file, spec, out=out, seed=seed, force=force, quiet=quiet)
+    except SpecError as err:
+        # The library names parameters; here they are flags.
+        from fieldplan.errors import OptionError
 
-    check_engine(engine, scheduler)  # a bad engine option fails before any work
-    blocks = read_blocks(blocks_file, layer=layer, id_field=id_field, repair=repair)
-    if select is not None:
-        blocks = select_blocks(blocks, select)
-    exclusions = read_exclusions(exclude, crs=blocks.crs) if exclude is not None else None
+        raise OptionError(err.render(flag_of)) from None
+
+
+def run_plan(blocks_file: Path, spec, *, out: Path, seed: int, force: bool, quiet: bool):
+    """Check the output folder and resources, read, plan, write and report one spec."""
+    from fieldplan.engine import check_engine
+    from fieldplan.plan import make_plan
+    from fieldplan.read import read_blocks, read_exclusions, select_blocks
+    from fieldplan.safety import load_cautions, set_cautions
+    from fieldplan.samples.purpose import resolve_purpose
+    from fieldplan.store import write_plan
+    from fieldplan.stratified import read_rows
+    from fieldplan.write.safe import check_out_dir
+
+    # Fail on an occupied folder (or, with --force, a folder that is not a plan) before any work.
+    check_out_dir(out, force=force)
+    cautions = Path(spec.outputs.cautions) if spec.outputs.cautions else None
+    if cautions is not None:
+        load_cautions(cautions)  # a bad cautions file fails before any work
+    samples = spec.samples
+    resolve_purpose(  # a missing crop profile fails before any work
+        purpose=samples.purpose,
+        cores=samples.cores,
+        core_radius=samples.core_radius,
+        composite=samples.composite,
+        depth=samples.depth,
+        crop_profile=samples.crop_profile,
+        core_buffer=samples.core_buffer,
+    )
+    check_engine(spec.scale.engine, spec.scale.scheduler)  # a missing dask fails before any work
+    blocks = read_blocks(blocks_file, **spec.input.read_options())
+    if spec.input.select is not None:
+        blocks = select_blocks(blocks, spec.input.select)
+    exclusions = read_exclusions(spec.input.exclude, crs=blocks.crs) if spec.input.exclude else None
+    rows = read_rows(spec.clusters.rows, crs=blocks.crs) if spec.clusters.rows else None
     with progress_callback("Planning blocks", quiet=quiet) as progress:
         result = make_plan(
             blocks,
-            spacing=spacing,
-            per_ha=per_ha,
-            layout=layout,
-            start=start,
-            angle=_parse_angle(angle),
-            edge_buffer=edge_buffer,
-            exclusions=exclusions,
+            spec,
             seed=seed,
-            design=design,
-            design_options={
-                "strata_by": strata_by,
-                "per_block": per_block,
-                "n": n_total,
-                "allocation": allocation,
-                "size_field": size_field,
-                "sd_field": sd_field,
-                "cost_field": cost_field,
-                "min_per_stratum": min_per_stratum,
-                "target_units": target_units,
-                "units_per_cluster": units_per_cluster,
-                "skip_row_ends": skip_row_ends,
-                "skip_border_rows": skip_border_rows,
-                "rows": read_rows(rows, crs=blocks.crs) if rows is not None else None,
-                "rows_file": str(rows) if rows is not None else None,
-                "instructions": instructions,
-            },
-            samples=samples,
-            spares=spares,
-            substitute=substitute,
-            max_points=max_points,
+            exclusions=exclusions,
+            rows=rows,
             command=["fieldplan", *sys.argv[1:]],
             progress=progress,
-            engine=engine,
-            scheduler=scheduler,
         )
     set_cautions(result, cautions)
-    write_plan(result, out, force=force, formats=chosen_formats)
+    write_plan(result, out, force=force, formats=list(spec.outputs.formats))
     if not quiet:
         report(result, out)
+    return result
 
 
 def report(result, out: Path) -> None:

@@ -196,7 +196,8 @@ def _profile_instructions(plan, points, profile) -> tuple[np.ndarray, list[str]]
     """
     if plan.params.get("design") != "clusters" or "units" not in points.columns:
         return np.full(len(points), profile.instructions, dtype=object), []
-    opts = plan.params.get("design_options", {})
+    # Plans keep their options flat (fieldplan.spec); older plans under design_options.
+    opts = plan.params.get("design_options") or plan.params
     ends = int(opts.get("skip_row_ends") or 0)
     border = int(opts.get("skip_border_rows") or 0)
     plants = points["units"].to_numpy(dtype=np.int64)
