@@ -7,6 +7,7 @@ import math
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
 import pytest
 import shapely
 
@@ -18,6 +19,7 @@ from fieldplan.samples.cores import (
     DEFAULT_BUFFER_M,
     DEFAULT_CORES,
     DEFAULT_DEPTH_CM,
+    disc_composites,
     disc_cores,
     long_axis,
     sunflower_offsets,
@@ -254,3 +256,112 @@ def test_block_cores_do_not_depend_on_block_order():
         c1 = one.layers["cores"][one.layers["cores"]["block"] == block]
         c2 = two.layers["cores"][two.layers["cores"]["block"] == block]
         assert shapely.equals(c1.geometry.values, c2.geometry.values).all()
+
+
+def _geodesic_core_distances(folder):
+    """Distance of every core from its point, both read back from the written GeoJSON (WGS84)."""
+    from pyproj import Geod
+
+    points = gpd.read_file(folder / "points.geojson")
+    cores = gpd.read_file(folder / "cores.geojson")
+    at = points.set_index("point_id").geometry
+    own = at.loc[cores["point_id"]].to_numpy()
+    _, _, dist = Geod(ellps="WGS84").inv(
+        cores.geometry.x.to_numpy(), cores.geometry.y.to_numpy(), shapely.get_x(own), shapely.get_y(own)
+    )
+    return cores, points, dist
+
+
+def test_cores_stay_within_the_radius_of_the_point_the_crew_walks_to(tmp_path):
+    # reference: pyproj.Geod (WGS84 ellipsoid) distances between the written lon/lat of every
+    # core and of its point; 0.1 % covers the UTM scale factor near the central meridian
+    # (0.9996-1.0010, from memory) and GeoJSON rounding.
+    narrow = shapely.Polygon(
+        [(E0, N0), (E0 + 420, N0 + 30), (E0 + 400, N0 + 260), (E0 + 220, N0 + 110), (E0 + 20, N0 + 240)]
+    )
+    blocks = blocks_frame({"A": square, "B": shapely.affinity.translate(narrow, 600)})
+    excl = gpd.GeoDataFrame({"name": ["heap"]}, geometry=[HEAP], crs=UTM33N)
+    general = make_plan(blocks, spacing=60, exclusions=excl, seed=11)
+    plan = make_plan(blocks, spacing=60, exclusions=excl, seed=11, samples={"purpose": "soil"})
+    write_plan(plan, tmp_path / "p")
+    cores, points, dist = _geodesic_core_distances(tmp_path / "p")
+    assert len(cores) == 16 * len(points)
+    assert dist.max() <= 10.0 * 1.001
+    # The plan points nearer the edge than the 30 m core buffer moved in, with their cores.
+    moved = points["moved_m"].to_numpy(float) > 0
+    assert moved.mean() > 0.2
+    from pyproj import Geod
+
+    before = general.points.to_crs(4326).geometry
+    _, _, shift = Geod(ellps="WGS84").inv(before.x, before.y, points.geometry.x, points.geometry.y)
+    np.testing.assert_allclose(shift, points["moved_m"].to_numpy(float), rtol=2e-3, atol=0.02)
+    # Every point the crew walks to lies in the allowed core area (reference: shapely/GEOS distance).
+    local = plan.points.geometry.values
+    for block, geom in zip(plan.blocks["block"], plan.blocks.geometry, strict=True):
+        mine = plan.points["block"].to_numpy() == block
+        to_edge, to_excl = _clearance(shapely.get_coordinates(local[mine]), geom, [HEAP])
+        assert (to_edge >= 30 - TOL).all() and (to_excl >= 30 - TOL).all()
+    # Every moved point is named in summary.csv, with how far it moved.
+    summary = pd.read_csv(tmp_path / "p" / "summary.csv", keep_default_na=False)
+    flags = " ".join(summary["flags"])
+    for pid, metres in zip(points["point_id"][moved], points["moved_m"][moved], strict=True):
+        assert f"{pid} {metres:.1f} m" in flags
+    # And the GPX waypoint is the moved point (reference: gpxpy parser, GPX 1.1).
+    import gpxpy
+
+    gpx = gpxpy.parse((tmp_path / "p" / "points.gpx").read_text(encoding="utf-8"))
+    way = {w.name: (w.longitude, w.latitude) for w in gpx.waypoints}
+    for pid, geom in zip(points["point_id"], points.geometry, strict=True):
+        lon, lat = way[pid]
+        assert abs(lon - geom.x) < 1e-6 and abs(lat - geom.y) < 1e-6
+
+
+def test_cores_pressed_against_an_exclusion_stay_in_their_disc():
+    # reference: shapely/GEOS distances in the metric frame: a core moved to the nearest allowed
+    # spot is taken from the allowed part of its own disc, never further than the radius.
+    area = shapely.box(0, 0, 200, 200).difference(shapely.box(95, -10, 105, 210))
+    centres = np.column_stack([np.full(200, 100.0 + 6.0), np.linspace(5, 195, 200)])
+    out = disc_composites(centres, n=16, radius=10, area=area, rng=np.random.default_rng(3))
+    dist = np.hypot(*(out.xy - out.centres[:, None, :]).transpose(2, 0, 1))
+    assert dist.max() <= 10.0 + 1e-9
+    flat = out.xy.reshape(-1, 2)
+    assert shapely.contains_xy(area, flat[:, 0], flat[:, 1]).all()
+    assert (out.shift_m == 0).all()
+    # centres in the strip move half a radius (and a 0.25 m inset) inside, and say how far:
+    # from x = 99 to the nearer side x = 95, then 5.25 m further
+    strip = np.column_stack([np.full(5, 99.0), np.linspace(20, 180, 5)])
+    out = disc_composites(strip, n=16, radius=10, area=area, rng=np.random.default_rng(4))
+    assert np.allclose(out.shift_m, 9.25, atol=1e-6)
+    assert np.hypot(*(out.xy - out.centres[:, None, :]).transpose(2, 0, 1)).max() <= 10.0 + 1e-9
+
+
+def test_substitute_gets_its_own_cores_and_the_old_ones_are_retired(tmp_path, monkeypatch):
+    # reference: pyproj.Geod distances of the written cores from the substitute's written point;
+    # common practice, no source: a composite is taken around the spot actually sampled.
+    from fieldplan.field.mark import mark_points
+
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "1800000000")
+    blocks = blocks_frame({"A": square, "B": shapely.affinity.translate(concave, 600)})
+    plan = make_plan(blocks, spacing=100, seed=5, substitute="within-cell", samples={"purpose": "soil"})
+    folder = write_plan(plan, tmp_path / "p")
+    planned = (folder / "cores.geojson").read_bytes()
+    edge = plan.points.loc[plan.points["moved_m"] > 0, "point_id"].iloc[0]
+    inner = plan.points.loc[plan.points["moved_m"] == 0, "point_id"].iloc[0]
+    mark_points(folder, [edge.lower(), inner], reason="flooded")
+    cores, points, dist = _geodesic_core_distances(folder)
+    assert dist.max() <= 10.0 * 1.001
+    for pid in (edge, inner):
+        sub = pid + "-S"
+        assert (cores.loc[cores["point_id"] == pid, "status"] == "retired").sum() == 16
+        mine = cores[cores["point_id"] == sub]
+        assert len(mine) == 16 and (mine["status"] == "active").all()
+        assert mine["core_id"].str.contains("/S").all() and mine["core_id"].is_unique
+        assert points.loc[points["point_id"] == sub, "status"].item() == "substitute"
+    assert cores["core_id"].is_unique
+    assert (cores["status"] == "active").sum() == 16 * int(
+        points["status"].isin(["selected", "substitute"]).sum()
+    )
+    back = load_plan(folder)
+    assert len(back.layers["cores"]) == len(cores)
+    mark_points(folder, [edge, inner], action="restore")
+    assert (folder / "cores.geojson").read_bytes() == planned

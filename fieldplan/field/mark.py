@@ -40,6 +40,7 @@ from fieldplan.field.events import (
 )
 from fieldplan.field.spares import SELECTED, SPARE
 from fieldplan.field.substitutes import SUBSTITUTES_LAYER, SUFFIX
+from fieldplan.samples.purpose import field_cores, with_notes
 
 __all__ = [
     "PLANNED_LAYER",
@@ -302,6 +303,8 @@ def mark_points(
         after_off = [p for p in off if p not in ids]
     before = field_points(planned, off, substitutes)
     after = field_points(planned, after_off, substitutes)
+    # Soil plans: a substitute in use gets its own cores; those of points given up are retired.
+    cores, after, moved = field_cores(plan, after)
     repl = _replacements(before, after, ids, planned)
     rows = make_events([action] * len(ids), ids, replacement_ids=repl, reason=reason, user=by, now=now)
     notes = []
@@ -319,13 +322,20 @@ def mark_points(
         write_layer(tmp, "points", after, geometry_type="Point")
         if first_mark:
             write_layer(tmp, PLANNED_LAYER, planned, geometry_type="Point")
+        if cores is not None:
+            write_layer(tmp, "cores", cores, geometry_type="Point")
         stored = append_events(tmp, rows)
         os.replace(tmp, gpkg)
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
     layers = {k: v for k, v in plan.layers.items() if k not in _OWN_LAYERS}
-    view = replace(plan, points=after, blocks=_normalised_blocks(plan.blocks), layers=layers)
+    if cores is not None:
+        layers["cores"] = cores
+    notes += [f"block {b}: {text}" for b, texts in moved.items() for text in texts]
+    view = replace(
+        plan, points=after, blocks=with_notes(_normalised_blocks(plan.blocks), moved), layers=layers
+    )
     _rewrite_outputs(view, plan_dir)
     return MarkResult(stored, after, notes)
 

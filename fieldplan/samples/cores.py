@@ -7,8 +7,10 @@ Two layouts:
   at radius ``R*sqrt((k + 1/2)/n)`` and angle ``k`` times the golden angle, turned
   by a random rotation per composite. Each core then stands for an equal share
   of the disc. Cores that fall outside the allowed area are re-drawn uniformly
-  in the disc; the few still outside after that are moved to the nearest spot
-  inside, so every composite keeps exactly ``n`` cores.
+  in the disc; the few still outside after that are moved to the nearest
+  allowed spot of the disc, so every composite keeps exactly ``n`` cores, all
+  within ``R`` of its centre. A plan point in the buffer strip moves (with its
+  disc) to the nearest spot well inside the allowed area (:func:`disc_composites`).
 * **zone composites** (:func:`zigzag_cores`): ``n`` cores evenly spaced along a
   zig-zag traverse that runs the length of the zone's long axis (from its
   minimum rotated rectangle), so the composite represents the whole zone.
@@ -24,6 +26,7 @@ composites with numpy and shapely 2.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 import shapely
@@ -41,6 +44,8 @@ __all__ = [
     "usable_core_area",
     "sunflower_offsets",
     "disc_cores",
+    "disc_composites",
+    "DiscComposites",
     "long_axis",
     "zigzag_cores",
 ]
@@ -150,7 +155,8 @@ def disc_cores(
     n : int, keyword-only
         Cores per composite.
     radius : float, keyword-only
-        Metres; cores lie within this distance of their (possibly moved) centre.
+        Metres; cores lie within this distance of their (possibly moved) centre,
+        see :func:`disc_composites` for the centres.
     area : shapely geometry, keyword-only
         Allowed area (see :func:`usable_core_area`).
     rng : numpy.random.Generator, keyword-only
@@ -159,22 +165,65 @@ def disc_cores(
     -------
     xy : ndarray, shape (m, n, 2)
     moved : ndarray of int, shape (m,)
-        Cores per composite that had to be moved to the nearest spot inside
-        (0 for almost all composites).
+        Cores per composite that had to be moved to the nearest allowed spot
+        of their disc (0 for almost all composites).
+    """
+    out = disc_composites(centres, n=n, radius=radius, area=area, rng=rng)
+    return out.xy, out.moved.sum(axis=1).astype(int)
+
+
+@dataclass(frozen=True)
+class DiscComposites:
+    """Cores of cell composites and the centres they surround.
+
+    Attributes
+    ----------
+    xy : ndarray, shape (m, n, 2)
+        Cores, each within ``radius`` of its composite's ``centre``.
+    moved : ndarray of bool, shape (m, n)
+        Cores moved to the nearest allowed spot of their disc (no random spot was allowed).
+    centres : ndarray, shape (m, 2)
+        Where the crew goes: the point itself, or, for a point in the buffer strip,
+        the nearest spot well inside the allowed area.
+    shift_m : ndarray, shape (m,)
+        How far each centre moved from the point given (0 for most).
+    """
+
+    xy: np.ndarray
+    moved: np.ndarray
+    centres: np.ndarray
+    shift_m: np.ndarray
+
+
+def disc_composites(
+    centres: np.ndarray,
+    *,
+    n: int = DEFAULT_CORES,
+    radius: float = DEFAULT_CORE_RADIUS_M,
+    area,
+    rng: np.random.Generator,
+) -> DiscComposites:
+    """Cores of cell composites, each within ``radius`` of its (possibly moved) centre.
+
+    A centre outside ``area`` (in the buffer strip) would leave most of its disc
+    outside, so it moves to the nearest spot at least half a radius inside (or
+    just inside where the area is too narrow) and its cores go round the new
+    centre: the point the crew walks to moves with its cores. A core outside
+    ``area`` is re-drawn uniformly in the disc; one still outside after that goes
+    to the nearest spot of the disc that is inside ``area``, so no core is ever
+    further than ``radius`` from its centre.
     """
     if not radius > 0:
         raise OptionError(f"--core-radius must be positive metres, got {radius}")
-    centres = np.asarray(centres, dtype=float).reshape(-1, 2)
-    m = len(centres)
+    given = np.asarray(centres, dtype=float).reshape(-1, 2)
+    m = len(given)
     if m == 0:
-        return np.empty((0, n, 2)), np.zeros(0, dtype=int)
+        return DiscComposites(np.empty((0, n, 2)), np.zeros((0, n), bool), given.copy(), np.zeros(0))
     shapely.prepare(area)
-    # A centre inside the buffer strip would leave most of its disc outside:
-    # shift it to the nearest spot at least half a radius inside, where there is one.
+    centres = given.copy()
     outside = ~shapely.contains_xy(area, centres[:, 0], centres[:, 1])
     if outside.any():
         deep = shapely.buffer(area, -radius / 2)
-        centres = centres.copy()
         centres[outside] = _nearest_inside(centres[outside], area if shapely.is_empty(deep) else deep)
     rotation = rng.uniform(0.0, 2.0 * math.pi, size=m)
     xy = centres[:, None, :] + radius * sunflower_offsets(n, rotation)
@@ -188,11 +237,29 @@ def disc_cores(
         owner = centres[bad // n]
         flat[bad] = owner + np.column_stack([r * np.cos(theta), r * np.sin(theta)])
         bad = bad[~shapely.contains_xy(area, flat[bad, 0], flat[bad, 1])]
-    moved = np.zeros(m, dtype=int)
+    moved = np.zeros(m * n, dtype=bool)
     if len(bad):
-        flat[bad] = _nearest_inside(flat[bad], area)
-        np.add.at(moved, bad // n, 1)
-    return flat.reshape(m, n, 2), moved
+        owners = np.unique(bad // n)
+        # The allowed part of each disc (a little inside it, so the core stays within the radius).
+        discs = shapely.buffer(shapely.points(centres[owners]), radius - _INSET_M, quad_segs=_QUAD_SEGS)
+        allowed = shapely.intersection(discs, area)
+        target = allowed[np.searchsorted(owners, bad // n)]
+        flat[bad] = _nearest_in_each(flat[bad], target, centres[bad // n])
+        moved[bad] = True
+    shift = np.hypot(*(centres - given).T)
+    return DiscComposites(flat.reshape(m, n, 2), moved.reshape(m, n), centres, shift)
+
+
+def _nearest_in_each(xy: np.ndarray, targets: np.ndarray, fallback: np.ndarray) -> np.ndarray:
+    """Nearest spot of ``targets[i]`` to ``xy[i]`` (inset a little); ``fallback[i]`` if it is empty."""
+    inner = shapely.buffer(targets, -_INSET_M)
+    use = np.where(shapely.is_empty(inner), targets, inner)
+    out = fallback.astype(float).copy()
+    ok = ~shapely.is_empty(use)
+    if ok.any():
+        lines = shapely.shortest_line(shapely.points(xy[ok]), use[ok])
+        out[ok] = shapely.get_coordinates(lines).reshape(-1, 2, 2)[:, 1, :]
+    return out
 
 
 def long_axis(geom) -> tuple[np.ndarray, np.ndarray, float, float]:

@@ -23,14 +23,24 @@ from fieldplan.samples.cores import (
     DEFAULT_CORE_RADIUS_M,
     DEFAULT_CORES,
     DEFAULT_DEPTH_CM,
-    disc_cores,
+    disc_composites,
     usable_core_area,
     zigzag_cores,
 )
 from fieldplan.samples.ids import make_sample_ids, plan_code
 from fieldplan.samples.profiles import load_profile
 
-__all__ = ["PURPOSES", "COMPOSITES", "DEFAULT_PROFILE", "apply_purpose", "resolve_purpose", "parse_depth"]
+__all__ = [
+    "PURPOSES",
+    "COMPOSITES",
+    "DEFAULT_PROFILE",
+    "apply_purpose",
+    "core_status",
+    "field_cores",
+    "with_notes",
+    "resolve_purpose",
+    "parse_depth",
+]
 
 PURPOSES = ("general", "soil", "ripeness")
 COMPOSITES = ("cell", "zone")
@@ -50,7 +60,7 @@ _OWN_PARAMS = (
 )
 # A design's own ``units`` column (clusters) is left alone. ``instructions`` is
 # this stage's: make_plan puts a design's instructions back in front of it.
-_OWN_COLUMNS = ("purpose", "depth_cm", "sample_id", "per_sample", "instructions")
+_OWN_COLUMNS = ("purpose", "depth_cm", "sample_id", "per_sample", "instructions", "moved_m")
 
 
 def parse_depth(text: str | None) -> str:
@@ -84,74 +94,242 @@ def _exclusion_geoms(plan) -> np.ndarray:
     return np.asarray(ex.geometry.values, dtype=object) if ex is not None and len(ex) else np.empty(0, object)
 
 
+_CORE_COLUMNS = ["core_id", "sample_id", "core", "block", "point_id", "composite", "depth_cm", "moved"]
+#: Point statuses whose cores are taken (fieldplan.field.mark); the others' cores are kept, not used.
+_ACTIVE = ("selected", "replacement", "substitute")
+#: Substitute cores are numbered S01, S02, ... after their sample id, apart from the retired ones.
+_SUBSTITUTE_CORE = "/S"
+
+
+def _block_core_area(block: str, geom, exclusions: np.ndarray, buffer_m: float):
+    """Allowed area for a block's cores and the buffer actually used."""
+    # Only exclusions within reach of this block can cut its allowed area.
+    near = exclusions[shapely.dwithin(exclusions, geom, 1.01 * buffer_m + 1.0)]
+    try:
+        return usable_core_area(geom, near, buffer_m=buffer_m)
+    except DesignError as err:
+        raise DesignError(f"block {block}: {err}") from None
+
+
+def _ids_text(ids) -> str:
+    # Every moved point is named: the crew and the lab need to know which ones.
+    return ", ".join(ids)
+
+
+def _move_notes(
+    point_ids: np.ndarray, shift: np.ndarray, moved_cores: np.ndarray, radius: float
+) -> list[str]:
+    """Block flags for points moved into the allowed area and cores moved within their disc."""
+    notes = []
+    far = shift > 0.005
+    if far.any():
+        notes.append(
+            f"cores: {int(far.sum())} point(s) moved into the core area (buffer strip) with their cores, "
+            f"up to {shift[far].max():.1f} m: "
+            + _ids_text(f"{p} {d:.1f} m" for p, d in zip(point_ids[far], shift[far], strict=True))
+        )
+    if moved_cores.any():
+        per_point = moved_cores.sum(axis=1)
+        hit = per_point > 0
+        notes.append(
+            f"cores: {int(per_point.sum())} core(s) moved to the nearest allowed spot within {radius:g} m "
+            "of their point: "
+            + _ids_text(f"{p} ({k})" for p, k in zip(point_ids[hit], per_point[hit], strict=True))
+        )
+    return notes
+
+
+def _cores_frame(sample, core, block, point, composite, depth, xy, moved, crs, *, prefix: str = "/"):
+    table = pd.DataFrame(
+        {
+            "sample_id": sample,
+            "core": core,
+            "block": block,
+            "point_id": point,
+            "composite": composite,
+            "depth_cm": depth,
+            "moved": np.asarray(moved, dtype=np.int64),
+        }
+    )
+    table["core_id"] = (
+        table["sample_id"].astype(str) + prefix + table["core"].astype(int).astype(str).str.zfill(2)
+    )
+    return gpd.GeoDataFrame(
+        table[_CORE_COLUMNS],
+        geometry=shapely.points(np.asarray(xy[:, 0], float), np.asarray(xy[:, 1], float)),
+        crs=crs,
+    )
+
+
+def core_status(cores: gpd.GeoDataFrame, points: pd.DataFrame) -> gpd.GeoDataFrame:
+    """Give each cell core the ``status`` of its point's sample: active, spare or retired.
+
+    Cores of a point marked inaccessible are ``retired`` (kept, never taken);
+    those of an unused spare are ``spare``. Without a point ``status`` column
+    (a plan nobody marked, without spares) the cores get none.
+    """
+    cores = cores.drop(columns=[c for c in ("status",) if c in cores.columns])
+    if "status" not in points.columns or not len(cores):
+        return cores
+    status = dict(
+        zip(points["point_id"].astype(str), points["status"].fillna("selected").astype(str), strict=True)
+    )
+    own = cores["point_id"].astype(str).map(status).fillna("")
+    out = np.where(
+        own.isin(_ACTIVE) | (cores["point_id"].astype(str) == ""),
+        "active",
+        np.where(own == "spare", "spare", "retired"),
+    )
+    cores = cores.copy()
+    cores.insert(len(_CORE_COLUMNS), "status", out.astype(object))
+    return cores
+
+
 def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
-    """Cores layer and per-block notes for a soil plan."""
+    """Cores layer, points (moved where their cores needed it) and per-block notes for a soil plan."""
     seed = plan.seed
     exclusions = _exclusion_geoms(plan)
     frames, notes = [], {}
+    xy_all = shapely.get_coordinates(points.geometry.values).copy()
+    shift_all = np.zeros(len(points))
     groups = points.groupby(points["block"].astype(str), sort=False).indices
     for row in plan.blocks.itertuples(index=False):
         block = str(row.block)
         if block not in groups:
             continue
-        # Only exclusions within reach of this block can cut its allowed area.
-        near = exclusions[shapely.dwithin(exclusions, row.geometry, 1.01 * buffer_m + 1.0)]
-        try:
-            area, used = usable_core_area(row.geometry, near, buffer_m=buffer_m)
-        except DesignError as err:
-            raise DesignError(f"block {block}: {err}") from None
+        area, used = _block_core_area(block, row.geometry, exclusions, buffer_m)
         block_notes = []
         if used < buffer_m:
             block_notes.append(f"cores: edge buffer cut to {used:g} m (block too small for {buffer_m:g} m)")
-        pts = points.iloc[groups[block]]
+        idx = groups[block]
+        pts = points.iloc[idx]
         if composite == "cell":
-            centres = shapely.get_coordinates(pts.geometry.values)
-            xy, moved = disc_cores(centres, n=n, radius=radius, area=area, rng=stream(seed, "cores", block))
-            if moved.any():
-                block_notes.append(f"cores: {int(moved.sum())} moved to the nearest allowed spot")
-            sample = np.repeat(pts["sample_id"].to_numpy(), n)
-            point = np.repeat(pts["point_id"].to_numpy(), n)
-            xy = xy.reshape(-1, 2)
-            core = np.tile(np.arange(1, n + 1), len(pts))
+            out = disc_composites(
+                xy_all[idx], n=n, radius=radius, area=area, rng=stream(seed, "cores", block)
+            )
+            xy_all[idx], shift_all[idx] = out.centres, out.shift_m
+            ids = pts["point_id"].astype(str).to_numpy()
+            block_notes += _move_notes(ids, out.shift_m, out.moved, radius)
+            frames.append(
+                _cores_frame(
+                    np.repeat(pts["sample_id"].to_numpy(), n),
+                    np.tile(np.arange(1, n + 1), len(pts)),
+                    block,
+                    np.repeat(pts["point_id"].to_numpy(), n),
+                    composite,
+                    depth,
+                    out.xy.reshape(-1, 2),
+                    out.moved.reshape(-1),
+                    plan.crs,
+                )
+            )
         else:
             xy = zigzag_cores(row.geometry, n=n, area=area, rng=stream(seed, "zone-cores", block))
-            sample = np.repeat(pts["sample_id"].iloc[0], n)
-            point = np.repeat("", n)
-            core = np.arange(1, n + 1)
-        frames.append(
-            pd.DataFrame(
-                {
-                    "sample_id": sample,
-                    "core": core,
-                    "block": block,
-                    "point_id": point,
-                    "composite": composite,
-                    "depth_cm": depth,
-                    "x": xy[:, 0],
-                    "y": xy[:, 1],
-                }
+            frames.append(
+                _cores_frame(
+                    np.repeat(pts["sample_id"].iloc[0], n),
+                    np.arange(1, n + 1),
+                    block,
+                    np.repeat("", n),
+                    composite,
+                    depth,
+                    xy,
+                    np.zeros(n),
+                    plan.crs,
+                )
             )
-        )
         if block_notes:
             notes[block] = block_notes
-    table = (
-        pd.concat(frames, ignore_index=True)
-        if frames
-        else pd.DataFrame(
-            columns=["sample_id", "core", "block", "point_id", "composite", "depth_cm", "x", "y"]
-        )
-    )
-    table["core_id"] = (
-        table["sample_id"].astype(str) + "/" + table["core"].astype(int).astype(str).str.zfill(2)
-    )
-    cores = gpd.GeoDataFrame(
-        table.drop(columns=["x", "y"])[
-            ["core_id", "sample_id", "core", "block", "point_id", "composite", "depth_cm"]
-        ],
-        geometry=shapely.points(table["x"].to_numpy(float), table["y"].to_numpy(float)),
-        crs=plan.crs,
-    )
-    return cores, notes
+    if frames:
+        cores = pd.concat(frames, ignore_index=True)
+        cores = gpd.GeoDataFrame(cores, geometry="geometry", crs=plan.crs)
+    else:
+        cores = _cores_frame([], [], [], [], [], [], np.empty((0, 2)), [], plan.crs)
+    if composite == "cell":
+        points = points.copy()
+        if shift_all.any():
+            points[points.geometry.name] = gpd.array.from_shapely(
+                shapely.points(xy_all[:, 0], xy_all[:, 1]), crs=points.crs
+            )
+        # Metres the point moved so its cores fit in the allowed area (0 for most).
+        points["moved_m"] = np.round(shift_all, 2)
+    return core_status(cores, points), points, notes
+
+
+def field_cores(
+    plan, points: gpd.GeoDataFrame
+) -> tuple[gpd.GeoDataFrame | None, gpd.GeoDataFrame, list[str]]:
+    """Cores for the points now to be sampled, after field changes (``fieldplan mark``).
+
+    A within-cell substitute in use gets its own cores around it, drawn as at
+    planning time (the substitute moves, like a plan point, when it lies in the
+    buffer strip); cores of points marked inaccessible are kept with ``status``
+    ``retired``. The result depends only on the plan and the current points, so
+    restoring every point gives back the cores as planned.
+
+    Returns
+    -------
+    cores : GeoDataFrame or None
+        The new cores layer (None when the plan has none).
+    points : GeoDataFrame
+        ``points`` with moved substitutes.
+    notes : dict
+        Per block, a line for each substitute (or core of one) that had to move.
+    """
+    cores = plan.layers.get("cores")
+    params = plan.params
+    if cores is None or params.get("purpose") != "soil" or params.get("composite", "cell") != "cell":
+        return cores, points, {}
+    base = cores[~cores["core_id"].astype(str).str.contains(_SUBSTITUTE_CORE, regex=False)]
+    base = base.drop(columns=[c for c in ("status",) if c in base.columns])
+    status = points["status"].astype(str) if "status" in points.columns else pd.Series("", index=points.index)
+    has_cores = points["point_id"].astype(str).isin(set(base["point_id"].astype(str)))
+    need = np.flatnonzero(((status == "substitute") & ~has_cores).to_numpy())
+    frames: list = [base]
+    notes: dict[str, list[str]] = {}
+    if need.size:
+        n, radius = int(params["cores"]), float(params["core_radius_m"])
+        buffer_m, depth = float(params["core_buffer_m"]), params.get("depth_cm", "")
+        exclusions = _exclusion_geoms(plan)
+        geoms = dict(zip(plan.blocks["block"].astype(str), plan.blocks.geometry.values, strict=True))
+        points = points.copy()
+        xy = shapely.get_coordinates(points.geometry.values[need]).reshape(-1, 2)
+        new_xy = xy.copy()
+        if "moved_m" in points.columns:
+            points["moved_m"] = points["moved_m"].astype(float)
+        # Substitutes are few (one per point given up): one stream per substitute id.
+        for j, i in enumerate(need):
+            row = points.iloc[i]
+            pid, block = str(row["point_id"]), str(row["block"])
+            area, _ = _block_core_area(block, geoms[block], exclusions, buffer_m)
+            out = disc_composites(
+                xy[j : j + 1], n=n, radius=radius, area=area, rng=stream(plan.seed, "substitute-cores", pid)
+            )
+            new_xy[j] = out.centres[0]
+            moved_notes = _move_notes(np.array([pid]), out.shift_m, out.moved, radius)
+            if moved_notes:
+                notes.setdefault(block, []).extend(moved_notes)
+            if "moved_m" in points.columns:
+                points.iloc[i, points.columns.get_loc("moved_m")] = round(float(out.shift_m[0]), 2)
+            frames.append(
+                _cores_frame(
+                    np.repeat(row["sample_id"], n),
+                    np.arange(1, n + 1),
+                    block,
+                    np.repeat(pid, n),
+                    "cell",
+                    depth,
+                    out.xy[0],
+                    out.moved[0],
+                    plan.crs,
+                    prefix=_SUBSTITUTE_CORE,
+                )
+            )
+        geom = np.asarray(points.geometry.values, dtype=object).copy()
+        geom[need] = shapely.points(new_xy[:, 0], new_xy[:, 1])
+        points[points.geometry.name] = gpd.array.from_shapely(geom, crs=points.crs)
+    layer = gpd.GeoDataFrame(pd.concat(frames, ignore_index=True), geometry="geometry", crs=cores.crs)
+    return core_status(layer, points), points, notes
 
 
 def _edge_notes(plan, points, profile) -> dict[str, list[str]]:
@@ -221,7 +399,7 @@ def _profile_instructions(plan, points, profile) -> tuple[np.ndarray, list[str]]
     return texts[which.reshape(-1)] if len(points) else np.empty(0, dtype=object), notes
 
 
-def _with_notes(blocks: gpd.GeoDataFrame, notes: dict[str, list[str]]) -> gpd.GeoDataFrame:
+def with_notes(blocks: gpd.GeoDataFrame, notes: dict[str, list[str]]) -> gpd.GeoDataFrame:
     if not notes:
         return blocks
     out = blocks.copy()
@@ -360,15 +538,15 @@ def apply_purpose(
     layers = dict(plan.layers)
     blocks = plan.blocks
     if purpose == "soil":
-        layers["cores"], notes = _soil_cores(
+        layers["cores"], points, notes = _soil_cores(
             plan, points, n=n, radius=radius, composite=composite, buffer_m=buffer_m, depth=depth_text
         )
-        blocks = _with_notes(plan.blocks, notes)
+        blocks = with_notes(plan.blocks, notes)
     else:
         layers.pop("cores", None)
     if profile is not None and plan.params.get("design") != "clusters":
         # The clusters design skips border rows and row ends itself (its own options).
-        blocks = _with_notes(blocks, _edge_notes(plan, points, profile))
+        blocks = with_notes(blocks, _edge_notes(plan, points, profile))
     meta = dict(plan.meta)
     if profile_notes:
         meta["notes"] = [*meta.get("notes", []), *profile_notes]
