@@ -106,7 +106,9 @@ def test_bearer_requests_need_no_csrf(workspace):
     app = create_app(workspace, token=TOKEN, public=True)
     client = TestClient(app, base_url="http://192.0.2.10:8750")
     r = client.post(
-        "/api/plans/x/marks", json={"point_ids": ["a"], "reason": "r"}, headers={"Authorization": f"Bearer {TOKEN}"}
+        "/api/plans/x/marks",
+        json={"point_ids": ["a"], "reason": "r"},
+        headers={"Authorization": f"Bearer {TOKEN}"},
     )
     assert r.status_code == 404  # past the guard, no such plan
 

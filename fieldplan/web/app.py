@@ -97,7 +97,7 @@ def create_app(
     app.state.public = bool(public)
     app.state.max_upload_bytes = int(max_upload_mb * 1_000_000)
     app.state.executor = ThreadPoolExecutor(max_workers=max(1, workers), thread_name_prefix="fieldplan-job")
-    app.state.jobs = Jobs(app.state.executor)
+    app.state.jobs = Jobs(app.state.executor, workspace=workspace)
     app.state.uploads = Uploads(max_bytes=app.state.max_upload_bytes)
 
     install_error_handlers(app)

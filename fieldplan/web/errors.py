@@ -4,9 +4,19 @@ from __future__ import annotations
 
 import re
 
-__all__ = ["install_error_handlers", "error_payload", "guess_parameter"]
+__all__ = ["install_error_handlers", "error_payload", "guess_parameter", "scrub"]
 
 _OPTION = re.compile(r"--([a-z][a-z0-9-]*)")
+# Private upload folders (uploads.py, api.py): the sender knows the file by its own name only.
+_STAGED = re.compile(r"/(?:[^\s'\"]*/)?fieldplan-(?:upload|results)-[A-Za-z0-9_]+/")
+
+
+def scrub(message: str, workspace=None) -> str:
+    """Drop server paths from a message: staged uploads keep their file name, plans their name."""
+    text = _STAGED.sub("", str(message))
+    if workspace is not None:
+        text = text.replace(f"{workspace}/", "").replace(str(workspace), "workspace")
+    return text
 
 
 def guess_parameter(message: str) -> str | None:
@@ -29,6 +39,7 @@ def install_error_handlers(app) -> None:
     from fieldplan.web.workspace import WebError
 
     def respond(request, status: int, message: str, parameter: str | None, **extra):
+        message = scrub(message, request.app.state.workspace)
         payload = error_payload(status, message, parameter, **extra)
         if request.url.path.startswith("/api/") or "application/json" in request.headers.get("accept", ""):
             return JSONResponse(payload, status_code=status)

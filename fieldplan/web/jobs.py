@@ -51,8 +51,9 @@ class Job:
 class Jobs:
     """Submit callables taking a ``progress`` callback; look them up by id."""
 
-    def __init__(self, executor) -> None:
+    def __init__(self, executor, *, workspace=None) -> None:
         self.executor = executor
+        self.workspace = workspace
         self._jobs: OrderedDict[str, Job] = OrderedDict()
         self._lock = threading.Lock()
 
@@ -64,7 +65,7 @@ class Jobs:
                 self._jobs.popitem(last=False)
 
         def run():
-            from fieldplan.web.errors import error_payload, guess_parameter
+            from fieldplan.web.errors import error_payload, guess_parameter, scrub
 
             job.status = "running"
             try:
@@ -75,9 +76,9 @@ class Jobs:
                 from fieldplan.web.workspace import WebError
 
                 if isinstance(err, WebError):
-                    job.error = error_payload(err.status, str(err), err.parameter)
+                    job.error = error_payload(err.status, scrub(str(err), self.workspace), err.parameter)
                 elif isinstance(err, FieldplanError):
-                    job.error = error_payload(400, str(err), guess_parameter(str(err)))
+                    job.error = error_payload(400, scrub(str(err), self.workspace), guess_parameter(str(err)))
                 else:
                     import logging
 

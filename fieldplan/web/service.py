@@ -1,0 +1,433 @@
+"""What the web workspace does to plan folders: the same library calls as the CLI commands.
+
+Each function mirrors one subcommand (named beside it) and runs under the plan's
+lock (:func:`fieldplan.web.workspace.plan_lock`), so two browsers changing one plan
+queue rather than overwrite each other. Nothing here knows about HTTP.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from fieldplan.web.workspace import WebError, plan_lock
+
+__all__ = [
+    "READINESS_COLOURS",
+    "READINESS_BREAKS",
+    "load",
+    "plan_detail",
+    "plan_files",
+    "assign_crews",
+    "import_results",
+    "mark",
+    "estimates",
+    "coverage",
+    "make_labels",
+    "make_lab_sheet",
+    "readiness_class",
+    "records",
+]
+
+# ColorBrewer YlGnBu, 5 classes (Brewer & Harrower 2003, colorbrewer2.org, flagged colour-blind
+# safe): light = unlikely to have reached the target, dark = likely. Sequential in lightness, so
+# it also reads in greyscale.
+READINESS_COLOURS = ("#ffffcc", "#a1dab4", "#41b6c4", "#2c7fb8", "#253494")
+READINESS_BREAKS = (0.2, 0.4, 0.6, 0.8)
+NO_ESTIMATE_COLOUR = "#e0e0e0"
+
+_CACHE: dict[str, tuple[tuple, Any]] = {}
+
+
+def _now_utc() -> str:
+    # SOURCE_DATE_EPOCH keeps stored rounds reproducible, as the CLI does.
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    when = datetime.fromtimestamp(int(epoch), UTC) if epoch else datetime.now(UTC)
+    return when.strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def _stamp(folder: Path) -> tuple:
+    out = []
+    for name in ("plan.gpkg", "manifest.json", "points.geojson"):
+        try:
+            st = (folder / name).stat()
+            out.append((st.st_mtime_ns, st.st_size, st.st_ino))
+        except OSError:
+            out.append(None)
+    return tuple(out)
+
+
+def load(folder: Path):
+    """The plan in ``folder`` (``fieldplan.store.load_plan``), cached until its files change.
+
+    Callers must not modify the returned plan.
+    """
+    from fieldplan.store import load_plan
+
+    key = str(folder)
+    stamp = _stamp(folder)
+    hit = _CACHE.get(key)
+    if hit is not None and hit[0] == stamp:
+        return hit[1]
+    plan = load_plan(folder)
+    _CACHE[key] = (stamp, plan)
+    return plan
+
+
+def _jsonable(value):
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, pd.Timestamp | datetime):
+        return None if pd.isna(value) else value.strftime("%Y-%m-%d")
+    if value is pd.NaT:
+        return None
+    try:
+        if (
+            value is not None
+            and not isinstance(value, str | int | float | bool | list | dict)
+            and pd.isna(value)
+        ):
+            return None
+    except (TypeError, ValueError):
+        pass
+    return value
+
+
+def records(frame: pd.DataFrame) -> list[dict]:
+    """Rows of a table as JSON-ready dicts (NaN -> null, dates -> YYYY-MM-DD)."""
+    frame = pd.DataFrame(frame).drop(columns="geometry", errors="ignore")
+    return [{str(k): _jsonable(v) for k, v in row.items()} for row in frame.to_dict("records")]
+
+
+#: Files a plan page offers for download, in the order shown, with what they are.
+DOWNLOADS: tuple[tuple[str, str], ...] = (
+    ("points.gpx", "GPX waypoints (and routes) for GPS receivers"),
+    ("points.kml", "KML placemarks and block outlines"),
+    ("points.csv", "Points table (CSV)"),
+    ("points.geojson", "Points (GeoJSON)"),
+    ("crew_sheets.html", "Printable crew sheets"),
+    ("labels.pdf", "Bag labels (PDF)"),
+    ("lab_submission.csv", "Lab submission sheet"),
+    ("results_template.csv", "Results template to fill in"),
+    ("crews.csv", "Crews: points, km, hours"),
+    ("estimates.csv", "Last estimates table"),
+    ("coverage.csv", "Coverage check"),
+    ("summary.csv", "Blocks summary"),
+    ("positions.csv", "Recorded positions against the plan"),
+    ("plan.png", "Printable plan page (PNG)"),
+    ("map.html", "Offline map (open from disk)"),
+    ("plan.gpkg", "GeoPackage with every layer"),
+    ("manifest.json", "Parameters, input checksum"),
+    ("README.txt", "Read-me with the field cautions"),
+)
+
+
+def plan_files(folder: Path) -> list[dict]:
+    """Downloadable files of a plan folder: regular files at its top level, no hidden ones, no links."""
+    known = dict(DOWNLOADS)
+    present = {}
+    with os.scandir(folder) as entries:
+        for entry in entries:
+            if entry.name.startswith(".") or not entry.is_file(follow_symlinks=False):
+                continue
+            present[entry.name] = entry.stat(follow_symlinks=False).st_size
+    order = [n for n, _ in DOWNLOADS if n in present]
+    order += sorted(n for n in present if n not in known)
+    return [{"name": n, "bytes": present[n], "what": known.get(n, _describe(n))} for n in order]
+
+
+def _describe(name: str) -> str:
+    if name.startswith("crew_") and name.endswith(".gpx"):
+        return f"GPX for crew {name[5:-4].lstrip('0') or '0'}"
+    if name.startswith("labels") and name.endswith(".pdf"):
+        return "Bag labels (PDF)"
+    return ""
+
+
+def plan_detail(folder: Path) -> dict:
+    """Everything the plan page shows at first: summary, parameters, map layers, files, crews."""
+    from fieldplan.web.workspace import plan_summary
+    from fieldplan.write.html_map import map_data
+
+    plan = load(folder)
+    data = map_data(plan, markers="dom")
+    from fieldplan.results import stored_results
+
+    results = stored_results(plan.layers)
+    variables = sorted(results["variable"].astype(str).unique().tolist()) if len(results) else []
+    crews = []
+    crews_csv = folder / "crews.csv"
+    if crews_csv.is_file():
+        crews = records(pd.read_csv(crews_csv))
+    block_columns = [c for c in plan.blocks.columns if c not in ("geometry",)]
+    status_counts = {}
+    if "status" in plan.points.columns:
+        status_counts = {str(k): int(v) for k, v in plan.points["status"].astype(str).value_counts().items()}
+    return {
+        "plan": plan_summary(folder),
+        "parameters": {k: _jsonable(v) for k, v in plan.params.items()},
+        "notes": list(plan.meta.get("notes", [])) if isinstance(plan.meta, dict) else [],
+        "map": data,
+        "files": plan_files(folder),
+        "crews": crews,
+        "variables": variables,
+        "rounds": int(results["round"].max()) if len(results) else 0,
+        "status_counts": status_counts,
+        "block_columns": block_columns,
+        "readiness_scale": {
+            "colours": list(READINESS_COLOURS),
+            "breaks": list(READINESS_BREAKS),
+            "none": NO_ESTIMATE_COLOUR,
+        },
+    }
+
+
+# --- crews (fieldplan crews) -------------------------------------------------------------
+
+
+def assign_crews(
+    folder: Path,
+    *,
+    crews: int,
+    start: tuple[float, float] | None = None,
+    walk_speed: float = 4.0,
+    minutes_per_point: float = 5.0,
+    max_hours: float | None = None,
+    return_to_start: bool = False,
+    across_rows: float = 1.5,
+    force: bool = False,
+) -> dict:
+    """``fieldplan crews``: split the points among crews, route each, write the crew files."""
+    from fieldplan.route.folder import plan_crews, refuse_existing, write_crews
+    from fieldplan.store import load_plan
+
+    if start is not None:
+        lon, lat = (float(v) for v in start)
+        if not (-180 <= lon <= 180 and -90 <= lat <= 90):
+            raise WebError(422, f"start {start!r} is not a longitude,latitude pair", parameter="start")
+    with plan_lock(folder):
+        plan = load_plan(folder)
+        refuse_existing(plan, folder, force=force)
+        run = plan_crews(
+            plan,
+            n_crews=int(crews),
+            start_lonlat=tuple(start) if start is not None else None,
+            walk_kmh=walk_speed,
+            minutes_per_point=minutes_per_point,
+            max_hours=max_hours,
+            return_to_start=return_to_start,
+            across_factor=across_rows,
+        )
+        write_crews(folder, run)
+    start_lonlat = None
+    if run.start_xy is not None:
+        from pyproj import Transformer
+
+        lon, lat = Transformer.from_crs(plan.crs, "EPSG:4326", always_xy=True).transform(*run.start_xy)
+        start_lonlat = [round(lon, 7), round(lat, 7)]
+    return {
+        "crews": records(run.table),
+        "unfitted": list(run.unfitted_ids),
+        "start": start_lonlat,
+        "start_source": run.start_source,
+    }
+
+
+# --- results (fieldplan results) ------------------------------------------------------------
+
+
+def import_results(
+    folder: Path,
+    file: Path,
+    *,
+    value: list[str] | None = None,
+    allow_duplicate: bool = False,
+    max_offset: float | None = None,
+) -> dict:
+    """``fieldplan results``: check the table row by row, store it as the next round."""
+    from fieldplan.field.positions import default_max_offset, positions_from_csv
+    from fieldplan.field.record import record_positions
+    from fieldplan.results import append_round, read_results, refuse_duplicate, stored_results
+    from fieldplan.store import load_plan
+
+    with plan_lock(folder):
+        plan = load_plan(folder)
+        table = read_results(file, point_ids=plan.points["point_id"].astype(str), value_columns=value or None)
+        existing = stored_results(plan.layers)
+        refuse_duplicate(table, existing, allow_duplicate=allow_duplicate)
+        problems = records(table.problems)
+        round_no = append_round(
+            folder, table, existing=existing, imported_utc=_now_utc(), allow_duplicate=allow_duplicate
+        )
+        positions = None
+        actual = positions_from_csv(file)
+        if actual is not None:
+            limit = default_max_offset(plan.params) if max_offset is None else float(max_offset)
+            report = record_positions(
+                folder, actual, max_offset=limit, round_no=round_no, recorded_utc=_now_utc()
+            )
+            far = report[report["beyond_max_offset"]]
+            positions = {"recorded": int(len(report)), "beyond": records(far.head(200)), "limit_m": limit}
+    return {
+        "round": int(round_no),
+        "matched": int(table.data["point_id"].nunique()),
+        "points": int(len(plan.points)),
+        "values": list(table.value_columns),
+        "problems": problems,
+        "positions": positions,
+    }
+
+
+# --- marks (fieldplan mark) ------------------------------------------------------------------
+
+
+def mark(folder: Path, point_ids: list[str], *, action: str, reason: str = "", by: str | None = None) -> dict:
+    """``fieldplan mark``: mark points inaccessible (spares step in) or restore them."""
+    from fieldplan.errors import OptionError
+    from fieldplan.field.events import INACCESSIBLE
+    from fieldplan.field.mark import mark_points
+
+    if action == INACCESSIBLE and not str(reason).strip():
+        raise OptionError("marking a point inaccessible needs a reason (it goes in the audit trail)")
+    with plan_lock(folder):
+        result = mark_points(folder, list(point_ids), action=action, reason=str(reason), by=by or None)
+    notes = list(result.notes)
+    if (folder / "crews.csv").exists():
+        notes.append("crew routes were made before this change; assign crews again")
+    return {"events": records(result.events), "notes": notes}
+
+
+# --- estimates (fieldplan estimate) --------------------------------------------------------
+
+
+def estimates(
+    folder: Path,
+    *,
+    value: str,
+    by: str = "block",
+    confidence: float = 0.95,
+    target: float | None = None,
+    local_variance: bool = False,
+) -> dict:
+    """``fieldplan estimate`` without writing estimates.csv: the table, and readiness per block."""
+    from fieldplan.estimate.table import estimate_table
+    from fieldplan.field.mark import substitution_notes
+    from fieldplan.results import normalise_column, stored_results
+
+    plan = load(folder)
+    design = str(plan.params.get("design", "grid"))
+    results = stored_results(plan.layers)
+    if results.empty:
+        raise WebError(409, "this plan has no results yet; upload a results file first", parameter="value")
+    table = estimate_table(
+        plan.points,
+        plan.blocks,
+        results,
+        value=normalise_column(value),
+        design=design,
+        by=by,
+        confidence=confidence,
+        target=target,
+        local_variance=local_variance,
+    )
+    rows = records(table)
+    if target is not None and "p_reached" in table:
+        for row in rows:
+            row["readiness_class"] = readiness_class(row.get("p_reached"))
+    notes = list(substitution_notes(plan))
+    if design in ("grid", "balanced") and not local_variance:
+        notes.append(
+            "grid/balanced points are treated as a simple random sample, which is conservative on patchy "
+            "fields; the local-difference estimate adds a second, usually narrower interval"
+        )
+    return {
+        "value": normalise_column(value),
+        "by": by,
+        "confidence": confidence,
+        "target": target,
+        "design": design,
+        "round": int(table["round"].iloc[0]) if len(table) else None,
+        "rows": rows,
+        "notes": notes,
+    }
+
+
+def readiness_class(p) -> int | None:
+    """Index into :data:`READINESS_COLOURS` of a probability of having reached the target."""
+    if p is None or (isinstance(p, float) and not math.isfinite(p)):
+        return None
+    return int(np.searchsorted(READINESS_BREAKS, float(p), side="right"))
+
+
+# --- coverage (fieldplan check) -------------------------------------------------------------
+
+
+def coverage(
+    folder: Path, *, min_per_block: int = 1, max_gap: float | None = None, proportional: bool = False
+) -> dict:
+    """``fieldplan check`` without writing coverage.csv: the table per block and the misplaced points."""
+    from fieldplan.check import coverage as check_coverage
+    from fieldplan.check import points_to_check
+    from fieldplan.field.mark import replacement_warnings
+
+    plan = load(folder)
+    points, source = points_to_check(folder, plan)
+    report = check_coverage(
+        plan,
+        points=points,
+        source=source,
+        min_per_block=min_per_block,
+        max_gap_m=max_gap,
+        proportional=proportional,
+    )
+    return {
+        "ok": bool(report.ok),
+        "source": source,
+        "blocks": records(report.table),
+        "problems": records(report.problems.head(200)),
+        "failures": list(report.failures),
+        "warnings": list(replacement_warnings(plan)),
+    }
+
+
+# --- labels and lab sheet (fieldplan labels / lab-sheet) ---------------------------------------
+
+
+def make_labels(folder: Path, *, layout: str = "a4-3x8", date: str | None = None, skip: int = 0) -> dict:
+    """``fieldplan labels``: labels.pdf in the plan folder."""
+    from datetime import date as _date
+
+    from fieldplan.errors import OptionError
+    from fieldplan.samples.labels import label_records, labels_pdf, parse_layout
+    from fieldplan.write.safe import atomic_write_bytes
+
+    if date:
+        try:
+            date = _date.fromisoformat(date).isoformat()
+        except ValueError:
+            raise OptionError(f"--date takes YYYY-MM-DD, e.g. 2027-03-01; got {date!r}") from None
+    sheet = parse_layout(layout)
+    with plan_lock(folder):
+        plan = load(folder)
+        recs = label_records(plan.points, plan_id=plan.params.get("plan_id", ""), round_no=1)
+        atomic_write_bytes(folder / "labels.pdf", labels_pdf(recs, sheet, date=date or None, skip=int(skip)))
+    return {"file": "labels.pdf", "labels": len(recs), "layout": sheet.name}
+
+
+def make_lab_sheet(folder: Path, *, analyses: str) -> dict:
+    """``fieldplan lab-sheet``: lab_submission.csv and results_template.csv."""
+    from fieldplan.samples.lab import parse_analyses, write_lab_sheet
+
+    names = parse_analyses(analyses)
+    with plan_lock(folder):
+        plan = load(folder)
+        paths = write_lab_sheet(plan, folder, analyses=names, round_no=1)
+    return {"files": [Path(p).name for p in paths], "analyses": names}
