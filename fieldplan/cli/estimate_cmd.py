@@ -39,7 +39,8 @@ def format_estimates(table, *, confidence: float) -> str:
     if has_icc:
         head += ["ICC", "deff"]
     if has_p:
-        head.append("P(≥ target)")
+        below = "direction" in table and (table["direction"] == "below").any()
+        head.append("P(≤ target)" if below else "P(≥ target)")
     if has_date:
         head.append("target date (range)")
     head.append("note")
@@ -61,8 +62,9 @@ def format_estimates(table, *, confidence: float) -> str:
                 note = r.get("trend_note")
                 cells.append(note if isinstance(note, str) and note else "—")
             else:
+                # Full dates with years: a range can cross the new year (southern harvests, late rounds).
                 cells.append(
-                    f"{r['target_date']:%Y-%m-%d} ({r['date_lower']:%m-%d} – {r['date_upper']:%m-%d})"
+                    f"{r['target_date']:%Y-%m-%d} ({r['date_lower']:%Y-%m-%d} – {r['date_upper']:%Y-%m-%d})"
                 )
         cells.append(str(r.get("note") or ""))
         lines.append(cells)
@@ -82,6 +84,18 @@ def estimate(
         float | None,
         typer.Option("--target", help="Target value: adds P(mean ≥ target) and a projected date."),
     ] = None,
+    target_below: Annotated[
+        bool | None,
+        typer.Option(
+            "--target-below/--target-above",
+            help="The target is reached from above (falling, e.g. titratable acidity) or from below "
+            "(rising, e.g. Brix). Default: from above for acidity, from below otherwise.",
+        ),
+    ] = None,
+    round_no: Annotated[
+        int | None,
+        typer.Option("--round", min=1, help="Round to report (default the latest); later rounds are ignored."),
+    ] = None,
     local_variance: Annotated[
         bool,
         typer.Option(
@@ -95,6 +109,7 @@ def estimate(
 
     Writes estimates.csv in the plan folder and prints the table.
     """
+    from fieldplan.estimate.readiness import target_direction
     from fieldplan.estimate.table import estimate_table
     from fieldplan.results import normalise_column, stored_results
     from fieldplan.store import load_plan
@@ -103,6 +118,7 @@ def estimate(
     plan = load_plan(plan_dir)
     design = str(plan.params.get("design", "grid"))
     results = stored_results(plan.layers)
+    direction, why = target_direction(normalise_column(value), below=target_below)
     table = estimate_table(
         plan.points,
         plan.blocks,
@@ -113,6 +129,8 @@ def estimate(
         confidence=confidence,
         target=target,
         local_variance=local_variance,
+        round_no=round_no,
+        direction=direction,
     )
     out = table.copy()
     out.insert(0, "variable", normalise_column(value))
@@ -132,7 +150,11 @@ def estimate(
             .drop_duplicates()
             .itertuples(index=False)
         )
-        typer.echo(f"{normalise_column(value)}, round {rnd}, design {design} ({methods})")
+        when = table["date"].iloc[0]
+        on = "" if when is None or when != when else f" of {when:%Y-%m-%d}"
+        typer.echo(f"{normalise_column(value)}, round {rnd}{on}, design {design} ({methods})")
+        if target is not None and why:
+            typer.echo(f"note: {why} (--target-above to change)")
         typer.echo(format_estimates(table, confidence=confidence))
         from fieldplan.field.mark import substitution_notes
 

@@ -25,7 +25,7 @@ import pandas as pd
 from fieldplan.errors import InputError, OptionError
 from fieldplan.estimate.cluster import icc_anova, ratio_mean, stratified_ratio_mean
 from fieldplan.estimate.intervals import check_confidence, t_interval
-from fieldplan.estimate.readiness import prob_reached, project_blocks
+from fieldplan.estimate.readiness import check_target, prob_reached, project_blocks
 from fieldplan.estimate.stratified import ONE_POINT_NOTE, stratified_mean
 from fieldplan.estimate.systematic import successive_difference_se, systematic_mean
 
@@ -215,8 +215,10 @@ def estimate_table(
     confidence: float = 0.95,
     target: float | None = None,
     local_variance: bool = False,
+    round_no: int | None = None,
+    direction: str = "above",
 ) -> pd.DataFrame:
-    """Estimates for the latest round, one row per group plus an ``all`` row.
+    """Estimates for one round (the latest by default), one row per group plus an ``all`` row.
 
     Parameters
     ----------
@@ -231,10 +233,17 @@ def estimate_table(
     by : {"block", "stratum", "variety", "farm"}, keyword-only
     confidence : float, keyword-only
     target : float, optional, keyword-only
-        Adds ``p_reached`` and, with two or more dated rounds, the projected
-        date the group mean reaches it.
+        Adds ``p_reached`` and, with two or more dated rounds up to the chosen
+        one, the projected date the group mean reaches it. A target far
+        outside the round's values is refused (:func:`check_target`).
     local_variance : bool, keyword-only
         Adds the successive-difference standard error and interval.
+    round_no : int, optional, keyword-only
+        Round to report (default the latest); later rounds are ignored, also
+        by the trend.
+    direction : {"above", "below"}, keyword-only
+        Whether the target is reached by rising to it (Brix) or falling to it
+        (titratable acidity): ``p_reached`` is ``P(μ ≥ target)`` or ``P(μ ≤ target)``.
     """
     c = check_confidence(confidence)
     if by not in GROUPINGS:
@@ -242,7 +251,18 @@ def estimate_table(
     d = point_values(points, blocks, results, value=value)
     if by == "farm" and "farm" not in blocks:
         raise OptionError("--by farm needs a 'farm' column in the blocks; use block or stratum")
-    latest = int(d["round"].max())
+    stored = sorted(int(r) for r in d["round"].unique())
+    if round_no is None:
+        latest = stored[-1]
+    elif int(round_no) in stored:
+        latest = int(round_no)
+        d = d[d["round"] <= latest]
+    else:
+        raise OptionError(
+            f"no results round {round_no} for {value!r}; stored rounds: {', '.join(map(str, stored))}"
+        )
+    if target is not None:
+        check_target(d.loc[d["round"] == latest, "value"], float(target), value=value, round_no=latest)
     rows = []
     # One estimate per (round, group): a handful of groups, not a loop over points.
     for rnd, dr in d.groupby("round", sort=True):
@@ -256,10 +276,11 @@ def estimate_table(
     allrounds = pd.DataFrame(rows)
     out = allrounds[allrounds["round"] == latest].reset_index(drop=True)
     if target is not None:
-        out["p_reached"] = prob_reached(out["mean"], out["se"], out["df"], float(target))
+        out["p_reached"] = prob_reached(out["mean"], out["se"], out["df"], float(target), direction=direction)
+        out["direction"] = direction
         dated = allrounds.dropna(subset=["date"])
         if dated["round"].nunique() >= 2:
-            proj = project_blocks(dated, float(target), confidence=c)
+            proj = project_blocks(dated, float(target), confidence=c, direction=direction)
             proj = proj.rename(columns={"note": "trend_note"})
             out = out.merge(
                 proj[["group", "rounds", "target_date", "date_lower", "date_upper", "trend_note"]],
