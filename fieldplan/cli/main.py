@@ -45,10 +45,12 @@ from fieldplan.cli import (  # noqa: E402
     schedule_cmd,
     serve_cmd,
     size_cmd,
+    zones_cmd,
 )
 
 # The order here is the order of `fieldplan --help`: the working day from plan to estimate.
 for _command in (
+    zones_cmd,
     plan_cmd,
     demo_cmd,
     size_cmd,
