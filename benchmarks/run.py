@@ -43,6 +43,7 @@ STUDIES: dict[str, Callable[..., list[Result]]] = {
     "plan": _study("bench_plan", "study_floor"),
     "scaling": _study("bench_plan", "study_scaling"),
     "dask": _study("bench_dask"),
+    "process": _study("bench_process"),
 }
 
 #: Studies kept in other modules; run through their ``main(argv)`` when present.

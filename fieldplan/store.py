@@ -2,16 +2,12 @@
 
 from __future__ import annotations
 
+import importlib
 from collections.abc import Callable
 from pathlib import Path
 
 from fieldplan.errors import OptionError, PlanDirError
-from fieldplan.samples.outputs import write_cores_geojson
 from fieldplan.write.gpkg import GPKG_NAME, read_info, write_gpkg
-from fieldplan.write.gpx import gpx_writer
-from fieldplan.write.html_map import map_writer
-from fieldplan.write.kml import kml_writer
-from fieldplan.write.png import png_writer
 from fieldplan.write.safe import staged_folder
 from fieldplan.write.tables import (
     shared_lonlat,
@@ -34,6 +30,24 @@ __all__ = [
 ]
 
 CORE_LAYERS = ("blocks", "points", "exclusions", "plan_info")
+
+
+def _deferred(module: str, name: str) -> Callable:
+    """A writer that imports its module when called: a ``--formats core`` plan never loads
+    matplotlib, the map template or the XML writers."""
+
+    def writer(plan, folder):
+        return getattr(importlib.import_module(module), name)(plan, folder)
+
+    writer.__name__ = writer.__qualname__ = name
+    return writer
+
+
+write_cores_geojson = _deferred("fieldplan.samples.outputs", "write_cores_geojson")
+map_writer = _deferred("fieldplan.write.html_map", "map_writer")
+gpx_writer = _deferred("fieldplan.write.gpx", "gpx_writer")
+kml_writer = _deferred("fieldplan.write.kml", "kml_writer")
+png_writer = _deferred("fieldplan.write.png", "png_writer")
 
 #: Every writer takes ``(plan, folder)`` and writes its file(s) into ``folder``.
 WRITERS: list[Callable] = [

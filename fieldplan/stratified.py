@@ -358,7 +358,9 @@ def _stratified(
     exact, counts = _sizes(design, blocks, members, stratum_ha, capacity, opts, seed, active)
     units_per = int(opts["units_per_cluster"] or 1)
 
-    frames = []
+    # One list of column arrays per stratum, joined once: a DataFrame per stratum costs more than
+    # the draw itself when every block is a stratum.
+    parts: list[dict[str, np.ndarray]] = []
     for h, stratum in enumerate(strata):
         n_h = int(counts[h])
         if n_h > capacity[h]:
@@ -400,20 +402,25 @@ def _stratified(
                 xy = balanced_points(poly, n_h, rng=rng, candidates=int(cand)).points
             x, y = xy[:, 0], xy[:, 1]
             owner = m[_owner_blocks(x, y, use[m])] if m.size > 1 else np.full(n_h, m[0])
-        frame = pd.DataFrame({"_order": owner, "block": blocks["block"].to_numpy()[owner], "x": x, "y": y})
-        for key, value in extra.items():
-            frame[key] = value
+        part = {"_order": np.asarray(owner), "x": np.asarray(x), "y": np.asarray(y), **extra}
         if n_spares:
             use_order, status, rank = order_draw(design, np.column_stack([x, y]), n_sel, rng=rng)
-            frame = frame.iloc[use_order].reset_index(drop=True)
-            frame["status"], frame["spare_rank"] = status, rank
-        frames.append(frame)
+            part = {key: np.asarray(value)[use_order] for key, value in part.items()}
+            part["status"], part["spare_rank"] = np.asarray(status), np.asarray(rank)
+        parts.append(part)
         if progress is not None:
             progress(h + 1, len(strata))
-    columns = ["_order", "block", "x", "y"] + (["row", "plant", "units"] if design == "clusters" else [])
+    columns = ["_order", "x", "y"] + (["row", "plant", "units"] if design == "clusters" else [])
     columns += ["status", "spare_rank"] if n_spares else []
-    table = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=columns)
-    table = table.sort_values("_order", kind="stable").drop(columns="_order").reset_index(drop=True)
+    if parts:
+        joined = {key: np.concatenate([part[key] for part in parts]) for key in columns}
+        order = np.argsort(joined.pop("_order"), kind="stable")
+        owner_all = np.concatenate([part["_order"] for part in parts])[order]
+        table = pd.DataFrame(
+            {"block": blocks["block"].to_numpy()[owner_all], **{k: v[order] for k, v in joined.items()}}
+        )
+    else:
+        table = pd.DataFrame(columns=["block", *columns[1:]])
     table["block"] = table["block"].astype(str)
     if design == "clusters":
         for key in ("row", "plant", "units"):

@@ -36,7 +36,6 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 from numpy.typing import ArrayLike
-from scipy.spatial import cKDTree
 from shapely.geometry.base import BaseGeometry
 
 from fieldplan.design.pivotal import BUILT_AT, COUNT, DONE, NEED_DRAWS, pivotal_steps
@@ -162,6 +161,8 @@ def local_pivotal(coords: ArrayLike, prob: ArrayLike, *, rng: np.random.Generato
         count = int(state[COUNT])
         members = alive[:count].copy()
         k = min(_K + 1, count)
+        from scipy.spatial import cKDTree  # imported here: a grid plan never needs scipy
+
         dist, idx = cKDTree(xy[members]).query(xy[members], k=k)
         dist = np.ascontiguousarray(dist.reshape(count, k)[:, 1:], dtype=float)
         idx = np.ascontiguousarray(members[idx.reshape(count, k)[:, 1:]], dtype=np.int64)
@@ -260,6 +261,8 @@ def voronoi_balance(candidates: ArrayLike, prob: ArrayLike, selected: ArrayLike)
     xy = np.asarray(candidates, dtype=float)
     p = np.asarray(prob, dtype=float)
     sel = np.asarray(selected, dtype=np.int64)
+    from scipy.spatial import cKDTree
+
     _, cell = cKDTree(xy[sel]).query(xy, k=1)
     v = np.bincount(cell, weights=p, minlength=sel.size)
     return float(np.mean((v - 1.0) ** 2))

@@ -11,7 +11,8 @@ microsecond or two per candidate, compiled some tens of nanoseconds.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+
+from fieldplan.design.jit import kernel
 
 __all__ = ["DONE", "NEED_DRAWS", "NEED_REBUILD", "pivotal_steps"]
 
@@ -21,7 +22,7 @@ DONE, NEED_DRAWS, NEED_REBUILD = 0, 1, 2
 COUNT, STEP, BUILT_AT, PENDING = 0, 1, 2, 3
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def _fight(p: np.ndarray, i: int, j: int, u: float) -> None:
     """Update the pair (i, j) as in Grafström et al. (2012), section 2."""
     pi, pj = p[i], p[j]
@@ -38,7 +39,7 @@ def _fight(p: np.ndarray, i: int, j: int, u: float) -> None:
             p[i], p[j] = s - 1, 1.0
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def _remove(i: int, alive: np.ndarray, pos: np.ndarray, state: np.ndarray) -> None:
     # alive[pos[i]] == i for undecided i: O(1) removal by swapping with the last.
     count = state[COUNT]
@@ -50,7 +51,7 @@ def _remove(i: int, alive: np.ndarray, pos: np.ndarray, state: np.ndarray) -> No
     state[COUNT] = count - 1
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def _settle(p: np.ndarray, i: int, j: int, u: float, alive, pos, state, eps: float) -> None:
     _fight(p, i, j, u)
     for unit in (i, j):
@@ -58,7 +59,7 @@ def _settle(p: np.ndarray, i: int, j: int, u: float, alive, pos, state, eps: flo
             _remove(unit, alive, pos, state)
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def pivotal_steps(
     xy: np.ndarray,
     p: np.ndarray,

@@ -28,8 +28,7 @@ import math
 from dataclasses import asdict, dataclass
 from typing import Any, Literal
 
-from scipy import stats
-
+from fieldplan.design.quantiles import norm_ppf, t_ppf
 from fieldplan.errors import OptionError
 
 __all__ = ["SampleSize", "design_effect", "n_clusters", "sample_size"]
@@ -198,17 +197,17 @@ def sample_size(
     def needed(q: float) -> float:
         return _apply_fpc((q * ratio) ** 2, population, fpc)
 
-    q = float(stats.norm.ppf(tail))
+    q = norm_ppf(tail)
     iterations = 0
     n = _ceil(needed(q))
     if distribution == "t":
         n = max(n, 2)
 
         def meets(k: int) -> bool:
-            return k >= _ceil(needed(float(stats.t.ppf(tail, k - 1))))
+            return k >= _ceil(needed(t_ppf(tail, k - 1)))
 
         for iterations in range(1, 51):  # noqa: B007 - the count is reported
-            new = max(2, _ceil(needed(float(stats.t.ppf(tail, n - 1)))))
+            new = max(2, _ceil(needed(t_ppf(tail, n - 1))))
             if new == n:
                 break
             n = new
@@ -219,7 +218,7 @@ def sample_size(
             n -= 1
         while not meets(n):
             n += 1
-        q = float(stats.t.ppf(tail, n - 1))
+        q = t_ppf(tail, n - 1)
     if population is not None:
         n = min(n, int(population))
     n0 = (q * ratio) ** 2

@@ -13,7 +13,8 @@ in the block's row frame (``u`` along the rows, ``v`` across).
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+
+from fieldplan.design.jit import kernel
 
 __all__ = [
     "clip_pieces",
@@ -32,7 +33,7 @@ __all__ = [
 LEN_TOL = 1e-9
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def _below(value: float, first: float, spacing: float, count: int) -> int:
     """Rows with an offset strictly below ``value``.
 
@@ -49,7 +50,7 @@ def _below(value: float, first: float, spacing: float, count: int) -> int:
     return k
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def row_pieces(
     pu: np.ndarray, pv: np.ndarray, ring: np.ndarray, first: float, spacing: float, count: int
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -136,7 +137,7 @@ def row_pieces(
     return row[:keep], start[:keep], end[:keep]
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def frame_coordinates(xy: np.ndarray, u: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """``(xy @ u, xy @ v)``: coordinates along and across the rows."""
     n = xy.shape[0]
@@ -149,7 +150,7 @@ def frame_coordinates(xy: np.ndarray, u: np.ndarray, v: np.ndarray) -> tuple[np.
     return pu, pv
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def row_span(pv: np.ndarray, spacing: float) -> tuple[float, int]:
     """First row offset (half a spacing in from the lowest ``v``) and the number of rows."""
     lo, hi = pv.min(), pv.max()
@@ -157,7 +158,7 @@ def row_span(pv: np.ndarray, spacing: float) -> tuple[float, int]:
     return first, max(int(np.ceil((hi - first) / spacing)), 0)
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def plant_layout(
     row: np.ndarray,
     start: np.ndarray,
@@ -198,7 +199,7 @@ def plant_layout(
     return length, plants, first_plant, offset, ends
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def segment_ends(across: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.ndarray, v: np.ndarray):
     """``(k, 2, 2)`` start and end points of pieces at ``v = across`` from ``u = start`` to ``end``."""
     k = across.size
@@ -210,7 +211,7 @@ def segment_ends(across: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.n
     return ends
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def row_model(
     xy: np.ndarray, ring: np.ndarray, u: np.ndarray, v: np.ndarray, spacing: float, plant_spacing: float
 ):
@@ -234,7 +235,7 @@ def row_model(
     return row, start, length, plants, first_plant, offset, ends, first, count
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def clip_pieces(
     xy: np.ndarray, ring: np.ndarray, u: np.ndarray, v: np.ndarray, first: float, spacing: float, count: int
 ):
@@ -243,7 +244,7 @@ def clip_pieces(
     return row_pieces(pu, pv, ring, first, spacing, count)
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def first_distinct(values: np.ndarray, n: int) -> np.ndarray:
     """The first ``n`` distinct values in order of first occurrence (fewer if there are not ``n``)."""
     order = np.argsort(values, kind="mergesort")
@@ -263,7 +264,7 @@ def first_distinct(values: np.ndarray, n: int) -> np.ndarray:
     return out[:m]
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def locate_ranks(eligible: np.ndarray, ranks: np.ndarray, skip: int) -> tuple[np.ndarray, np.ndarray]:
     """Segment and 0-based plant index along it of each drawn rank.
 
@@ -280,7 +281,7 @@ def locate_ranks(eligible: np.ndarray, ranks: np.ndarray, skip: int) -> tuple[np
     return seg, within
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def straight_points(seg: np.ndarray, dist: np.ndarray, ends: np.ndarray, length: np.ndarray) -> np.ndarray:
     """``(n, 2)`` points ``dist`` metres along straight segments ``seg`` (given by their ends)."""
     xy = np.empty((seg.size, 2))

@@ -1,0 +1,59 @@
+"""Import budget: each command loads only what it uses (no timing is asserted here).
+
+Each case runs a command in a fresh interpreter, in process, and lists which heavy modules are
+in ``sys.modules`` afterwards. The whole-process timings live in ``benchmarks/bench_process.py``.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+DEMO = Path(__file__).resolve().parents[1] / "demo_plots" / "estate_blocks.geojson"
+
+_PROBE = """
+import json, sys
+from fieldplan.cli.main import app
+try:
+    app(args=json.loads(sys.argv[1]), standalone_mode=False)
+except SystemExit:
+    pass
+print(json.dumps(sorted(sys.modules)))
+"""
+
+
+def _loaded(args: list[str]) -> set[str]:
+    out = subprocess.run(
+        [sys.executable, "-c", _PROBE, json.dumps(args)], capture_output=True, text=True, check=True
+    )
+    return set(json.loads(out.stdout.strip().splitlines()[-1]))
+
+
+def _heavy(loaded: set[str], names: tuple[str, ...]) -> list[str]:
+    return [n for n in names if n in loaded]
+
+
+def test_version_loads_no_science_stack():
+    loaded = _loaded(["--version"])
+    assert _heavy(loaded, ("numpy", "pandas", "geopandas", "shapely", "scipy", "numba", "matplotlib")) == []
+
+
+def test_size_loads_no_geometry_and_no_scipy():
+    loaded = _loaded(["size", "--cv", "25", "--margin", "10"])
+    assert _heavy(loaded, ("geopandas", "shapely", "pyproj", "pyogrio", "pandas", "scipy", "numba")) == []
+
+
+@pytest.mark.parametrize("design", [["--spacing", "40"], ["--design", "random", "--per-block", "3"]])
+def test_core_plan_loads_no_plotting_compiler_or_statistics(tmp_path, design):
+    loaded = _loaded(
+        ["plan", str(DEMO), *design, "--seed", "7", "--formats", "core", "--out", str(tmp_path / "p"), "-q"]
+    )
+    assert (tmp_path / "p" / "points.csv").exists()
+    assert _heavy(
+        loaded,
+        ("matplotlib", "numba", "scipy.stats", "scipy.spatial", "reportlab", "segno", "sklearn"),
+    ) == []
