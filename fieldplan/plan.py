@@ -442,6 +442,10 @@ def make_plan(
     # The plan's code (in every sample id) comes from what decides the points only,
     # so the engine or the output formats never change the ids.
     identity = {**spec.identity(), "seed": int(seed)}
+    if blocks.attrs.get("renamed_columns"):
+        meta["renamed_columns"] = dict(blocks.attrs["renamed_columns"])
+    if blocks.attrs.get("source_crs"):
+        meta["input_crs"] = blocks.attrs["source_crs"]
     plan = Plan(out_blocks, points, exclusions, crs, identity, meta)
     # Purpose stage: sample ids, depth, soil cores or ripeness instructions.
     from fieldplan.samples.purpose import apply_purpose

@@ -1,12 +1,20 @@
 """Read block boundaries (and exclusion areas) into a validated GeoDataFrame in metres.
 
-Accepted: GeoJSON, GeoPackage (``layer``), Shapefile, and a Shapefile inside a
-``.zip``. Every problem is reported as one :class:`~fieldplan.errors.InputError`
-naming the file, the feature and the fix.
+Accepted: GeoJSON, GeoPackage (``layer``), Shapefile, a Shapefile inside a
+``.zip``, and KML/KMZ (placemark name -> block id). Every problem is reported as
+one :class:`~fieldplan.errors.InputError` naming the file, the feature and the fix.
+
+Real exports name their fields their own way (``RowSpacing``, ``BLOCK_NAME``) and
+often give spacings in feet: ``columns`` maps a role to the file's field and
+``length_unit`` says the spacings' unit. Z coordinates are dropped (with one
+note), non-polygon features (a gate pin, a track) are skipped (with one note),
+and a field whose name the plan uses itself (``area_ha``, ``AREA_HA``, ``flags``)
+is kept under a ``src_`` name so the outputs never hold two columns of one name.
 """
 
 from __future__ import annotations
 
+import difflib
 import hashlib
 import importlib.util
 import json
@@ -34,12 +42,54 @@ __all__ = [
     "read_frame",
     "check_row_attributes",
     "ROW_LIMITS",
+    "COLUMN_ROLES",
+    "LENGTH_UNITS",
+    "PLAN_COLUMNS",
+    "check_columns",
+    "check_length_unit",
+    "check_spacing_profiles",
+    "row_fields_hint",
 ]
 
-ID_CANDIDATES = ("block", "block_id", "id", "name")
+ID_CANDIDATES = ("block", "block_id", "block_name", "id", "name")
 ROW_FIELDS = ("row_spacing_m", "plant_spacing_m", "row_bearing_deg")
 _POLYGONAL = {"Polygon", "MultiPolygon"}
-_SUFFIXES = {".geojson", ".json", ".gpkg", ".shp", ".zip"}
+_SUFFIXES = {".geojson", ".json", ".gpkg", ".shp", ".zip", ".kml", ".kmz"}
+# Roles a file's field can play (``--column ROLE=SOURCE``) and the column each one becomes.
+COLUMN_ROLES: dict[str, str] = {
+    "block": "block",
+    "variety": "variety",
+    "row_spacing": "row_spacing_m",
+    "plant_spacing": "plant_spacing_m",
+    "row_bearing": "row_bearing_deg",
+    "crop": "crop",
+    "stratum": "stratum",
+}
+# Metres per unit of the spacing attributes: exact by definition (international yard and
+# pound agreement, 1959: 1 ft = 0.3048 m, 1 yd = 0.9144 m; US survey foot = 1200/3937 m).
+LENGTH_UNITS: dict[str, float] = {"m": 1.0, "ft": 0.3048, "yd": 0.9144, "us-ft": 1200.0 / 3937.0}
+# Columns the plan writes on its blocks layer (and GeoPackage's own "fid"). A file's field
+# with one of these names, in any case, would collide with them: GeoPackage column names
+# are case-insensitive, so AREA_HA and area_ha cannot both be written.
+PLAN_COLUMNS = (
+    "fid",
+    "geometry",
+    "block",
+    "stratum",
+    "variety",
+    "crop",
+    "row_spacing_m",
+    "plant_spacing_m",
+    "row_bearing_deg",
+    "area_ha",
+    "sampled_area_ha",
+    "n_points",
+    "n_spares",
+    "n_target_exact",
+    "n_allocated",
+    "flags",
+)
+RENAME_PREFIX = "src_"
 # A feature this far from the others is more likely a digitising slip than a real block.
 _FAR_KM = 1000.0
 _MAX_COORD = 1e8
@@ -86,7 +136,7 @@ def _check_file(path: Path) -> None:
     if suffix not in _SUFFIXES:
         raise InputError(
             f"{path}: unsupported file type '{suffix}'; use GeoJSON (.geojson), "
-            "GeoPackage (.gpkg), Shapefile (.shp) or a zipped Shapefile (.zip)"
+            "GeoPackage (.gpkg), Shapefile (.shp), a zipped Shapefile (.zip) or KML (.kml, .kmz)"
         )
     if suffix in (".geojson", ".json"):
         with path.open("rb") as handle:
@@ -165,20 +215,23 @@ _HAS_ARROW = importlib.util.find_spec("pyarrow") is not None
 
 
 def read_frame(path: Path, *, layer: str | None = None) -> gpd.GeoDataFrame:
-    """Read any supported vector file into a GeoDataFrame, turning library errors into InputError."""
+    """Read any supported vector file into a GeoDataFrame, turning library errors into InputError.
+
+    Z (and M) coordinates are dropped: every distance and area fieldplan uses is on
+    the ground plane, and the writers draw 2D shapes. ``attrs["notes"]`` says so once.
+    """
     path = Path(path)
     _check_file(path)
-    geojson = path.suffix.lower() in (".geojson", ".json")
-    if path.suffix.lower() == ".gpkg" and layer is None:
-        import pyogrio
+    suffix = path.suffix.lower()
+    notes: list[str] = []
+    if suffix in (".kml", ".kmz"):
+        from fieldplan.read_kml import read_kml
 
-        layers = [row[0] for row in pyogrio.list_layers(path)]
-        if len(layers) > 1 and "blocks" not in layers:
-            raise InputError(
-                f"{path}: GeoPackage has several layers ({', '.join(layers)}); choose one with --layer"
-            )
-        if "blocks" in layers:
-            layer = "blocks"
+        frame, notes = read_kml(path)
+        return _drop_z(frame, path, notes)
+    geojson = suffix in (".geojson", ".json")
+    if suffix == ".gpkg":
+        layer = _gpkg_layer(path, layer)
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -202,6 +255,52 @@ def read_frame(path: Path, *, layer: str | None = None) -> gpd.GeoDataFrame:
         _check_geojson_text(path)
     if not isinstance(frame, gpd.GeoDataFrame) or "geometry" not in frame:
         raise InputError(f"{path}: holds no geometries; export the block boundaries as polygons")
+    return _drop_z(frame, path, notes)
+
+
+def _gpkg_layer(path: Path, layer: str | None) -> str | None:
+    """The GeoPackage layer to read: the one asked for (any case), else ``blocks``, else the only one."""
+    import pyogrio
+
+    try:
+        listed = pyogrio.list_layers(path)
+    except Exception as err:  # pyogrio raises several unrelated types
+        first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
+        raise InputError(f"{path}: cannot read as a GeoPackage ({first}); check the file") from None
+    layers = [str(row[0]) for row in listed]
+    described = ", ".join(
+        f"{name} ({kind})" if kind else f"{name} (table)"
+        for name, kind in ((str(r[0]), r[1]) for r in listed)
+    )
+    if layer is not None:
+        if layer in layers:
+            return layer
+        same = [name for name in layers if name.casefold() == layer.casefold()]
+        if len(same) == 1:
+            return same[0]
+        raise InputError(
+            f"{path}: no layer {layer!r}; the GeoPackage's layers are: {described or 'none'}; "
+            "choose one with --layer"
+        )
+    if "blocks" in layers:
+        return "blocks"
+    if len(layers) > 1:
+        raise InputError(f"{path}: GeoPackage has several layers ({described}); choose one with --layer")
+    return None
+
+
+def _drop_z(frame: gpd.GeoDataFrame, path: Path, notes: list[str]) -> gpd.GeoDataFrame:
+    geoms = np.asarray(frame.geometry.values)
+    has_z = shapely.has_z(geoms)
+    if has_z.any():
+        flat = gpd.GeoSeries(shapely.force_2d(geoms), crs=frame.crs, index=frame.index)
+        frame = frame.set_geometry(flat)
+        notes = [
+            *notes,
+            f"{path}: dropped the Z (height) coordinates of {int(has_z.sum())} feature(s); "
+            "fieldplan works on the ground plane",
+        ]
+    frame.attrs["notes"] = notes
     return frame
 
 
@@ -211,21 +310,43 @@ def _feature_label(frame: pd.DataFrame, index: int, id_field: str | None) -> str
     return f"feature {index + 1}"
 
 
+def _did_you_mean(name: str, columns: list[str]) -> str:
+    close = difflib.get_close_matches(name.casefold(), [c.casefold() for c in columns], n=1, cutoff=0.6)
+    if not close:
+        return ""
+    match = next(c for c in columns if c.casefold() == close[0])
+    return f"did you mean {match!r}? "
+
+
+def _match_field(frame: pd.DataFrame, path: Path, name: str, option: str) -> str:
+    """The file's field called ``name``: exactly, else in another case; else a clear error."""
+    columns = [str(c) for c in frame.columns if c != "geometry"]
+    if name in columns:
+        return name
+    same = [c for c in columns if c.casefold() == name.casefold()]
+    if len(same) == 1:
+        return same[0]
+    if len(same) > 1:
+        raise InvalidBlocksError(
+            f"{path}: {option}: fields {', '.join(same)} differ only in case; name one exactly"
+        )
+    raise InvalidBlocksError(
+        f"{path}: {option}: no field {name!r}; {_did_you_mean(name, columns)}"
+        f"fields are: {', '.join(columns) or 'none'}"
+    )
+
+
 def _pick_id_field(frame: gpd.GeoDataFrame, path: Path, id_field: str | None) -> str:
     columns = [c for c in frame.columns if c != "geometry"]
     if id_field is not None:
-        if id_field not in columns:
-            raise InvalidBlocksError(
-                f"{path}: no field '{id_field}' for block ids; fields are: {', '.join(columns) or 'none'}"
-            )
-        return id_field
+        return _match_field(frame, path, id_field, f"--id-field {id_field}")
     lower = {c.lower(): c for c in columns}
     for candidate in ID_CANDIDATES:
         if candidate in lower:
             return lower[candidate]
     raise InvalidBlocksError(
         f"{path}: no block id field (looked for {', '.join(ID_CANDIDATES)}); "
-        f"name one with --id-field (fields are: {', '.join(columns) or 'none'})"
+        f"name one with --id-field or --column block=FIELD (fields are: {', '.join(columns) or 'none'})"
     )
 
 
@@ -291,10 +412,48 @@ def _check_far_features(frame_wgs: gpd.GeoDataFrame, path: Path, id_field: str) 
         )
 
 
+def _keep_polygons(
+    frame: gpd.GeoDataFrame, geoms: np.ndarray, path: Path, id_field: str, notes: list[str]
+) -> tuple[gpd.GeoDataFrame, np.ndarray]:
+    """Skip features that are not polygons (a gate pin, a track) with one note; refuse a file of none.
+
+    A collection keeps its polygonal part, if it has one.
+    """
+    kinds = frame.geometry.geom_type.to_numpy(dtype=object)
+    collections = np.flatnonzero(kinds == "GeometryCollection")
+    if len(collections):
+        parts = np.array([_polygonal_part(geoms[i]) for i in collections], dtype=object)
+        keep_part = ~shapely.is_empty(parts)
+        geoms = geoms.copy()
+        geoms[collections[keep_part]] = parts[keep_part]
+        kinds = kinds.copy()
+        kinds[collections[keep_part]] = [g.geom_type for g in parts[keep_part]]
+    polygonal = np.isin(kinds, list(_POLYGONAL))
+    if not polygonal.any():
+        found = ", ".join(sorted(set(kinds)))
+        raise InvalidBlocksError(
+            f"{path}: no polygons (found {found}); blocks must be drawn as polygons, not points or lines"
+        )
+    skipped = np.flatnonzero(~polygonal)
+    if len(skipped):
+        listed = ", ".join(f"{_feature_label(frame, int(i), id_field)} ({kinds[i]})" for i in skipped[:5])
+        more = ", ..." if len(skipped) > 5 else ""
+        notes.append(
+            f"{path}: skipped {len(skipped)} feature(s) that are not polygons: {listed}{more}; "
+            "blocks are the polygons"
+        )
+    if len(skipped) or len(collections):
+        keep = np.flatnonzero(polygonal)
+        frame = frame.iloc[keep].reset_index(drop=True)
+        geoms = geoms[keep]
+        frame = frame.set_geometry(gpd.GeoSeries(geoms, crs=frame.crs, index=frame.index))
+    return frame, geoms
+
+
 def _check_geometries(
-    frame: gpd.GeoDataFrame, path: Path, id_field: str, repair: bool
+    frame: gpd.GeoDataFrame, path: Path, id_field: str, repair: bool, notes: list[str]
 ) -> tuple[gpd.GeoDataFrame, dict[int, object]]:
-    """Refuse empty, non-polygonal, flat and (unless ``repair``) invalid features.
+    """Refuse empty, flat and (unless ``repair``) invalid features; skip non-polygons with a note.
 
     Returns the frame (repaired where asked) and the repaired features' original geometries.
     """
@@ -308,19 +467,7 @@ def _check_geometries(
             f"{path}: {_feature_label(frame, int(missing[0]), id_field)} has an empty geometry; "
             "delete it or redraw the block"
         )
-    kinds = frame.geometry.geom_type
-    if not kinds.isin(list(_POLYGONAL)).any():
-        found = ", ".join(sorted(set(kinds)))
-        raise InvalidBlocksError(
-            f"{path}: no polygons (found {found}); blocks must be drawn as polygons, not points or lines"
-        )
-    not_poly = np.flatnonzero(~kinds.isin(list(_POLYGONAL)).to_numpy())
-    if len(not_poly):
-        i = int(not_poly[0])
-        raise InvalidBlocksError(
-            f"{path}: {_feature_label(frame, i, id_field)} is a {kinds.iloc[i]}, not a polygon; "
-            "redraw it as a polygon or remove it"
-        )
+    frame, geoms = _keep_polygons(frame, geoms, path, id_field, notes)
     _check_coordinates(frame, geoms, path, id_field)
     valid = shapely.is_valid(geoms)
     flat = np.flatnonzero(_zero_area(geoms, valid))
@@ -448,23 +595,125 @@ def _find_column(frame: pd.DataFrame, name: str) -> str | None:
     return lower.get(name[:10])
 
 
-def _numeric_column(frame: gpd.GeoDataFrame, name: str, path: Path, id_field: str) -> np.ndarray:
-    column = _find_column(frame, name)
+def _numeric_column(
+    frame: gpd.GeoDataFrame, column: str | None, name: str, path: Path, id_field: str
+) -> np.ndarray:
     if column is None:
         return np.full(len(frame), np.nan)
-    lower = {name: column}
-    values = pd.to_numeric(frame[lower[name]], errors="coerce").to_numpy(dtype=float)
-    raw = frame[lower[name]]
+    raw = frame[column]
+    values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
     bad = np.flatnonzero(
         np.isnan(values) & raw.notna().to_numpy() & (raw.astype(str).str.strip() != "").to_numpy()
     )
     if len(bad):
         i = int(bad[0])
+        shown = name if column == name else f"{name} (field {column})"
         raise InvalidBlocksError(
-            f"{path}: {_feature_label(frame, i, id_field)} has {name}={raw.iloc[i]!r}, not a number; "
+            f"{path}: {_feature_label(frame, i, id_field)} has {shown}={raw.iloc[i]!r}, not a number; "
             "fix the value or leave it empty"
         )
     return values
+
+
+def check_columns(columns: dict[str, str] | None) -> dict[str, str]:
+    """Validate a role -> field mapping (``--column ROLE=SOURCE``); return it with roles in lower case.
+
+    A role in :data:`COLUMN_ROLES` fills that plan column; any other role is a name
+    (letters, digits, underscores) the field is read under, e.g. ``zone=MgmtZone``
+    for ``--strata-by zone``.
+
+    Raises
+    ------
+    OptionError
+        Naming the ``columns`` parameter (``--column``) for a malformed role, a role
+        named like a column the plan writes itself, an empty field name, or one field
+        given two roles.
+    """
+    if columns is None:
+        return {}
+    if not isinstance(columns, dict):
+        raise OptionError(f"--column (columns): expected ROLE=FIELD pairs, got {columns!r}")
+    reserved = {c for c in PLAN_COLUMNS if c not in COLUMN_ROLES.values()}
+    out: dict[str, str] = {}
+    for role, source in columns.items():
+        key = str(role).strip().lower().replace("-", "_")
+        if not re.fullmatch(r"[a-z][a-z0-9_]*", key):
+            raise OptionError(
+                f"--column (columns): role {role!r} is not a name; roles are: {', '.join(COLUMN_ROLES)}, "
+                "or a name of letters, digits and underscores"
+            )
+        if key in reserved:
+            raise OptionError(
+                f"--column (columns): {key!r} is a column the plan writes itself; choose another name"
+            )
+        if not isinstance(source, str) or not source.strip():
+            raise OptionError(f"--column (columns): role {key!r} needs a field name, got {source!r}")
+        if key in out:
+            raise OptionError(f"--column (columns): role {key!r} is given twice")
+        out[key] = source.strip()
+    fields = [f.casefold() for f in out.values()]
+    twice = sorted({f for f in fields if fields.count(f) > 1})
+    if twice:
+        raise OptionError(f"--column (columns): field {twice[0]!r} is given more than one role")
+    return out
+
+
+def check_length_unit(length_unit: str) -> str:
+    """Validate the unit of the spacing attributes (``--length-unit``); return its key."""
+    unit = str(length_unit).strip().lower()
+    aliases = {"metre": "m", "meter": "m", "feet": "ft", "foot": "ft", "yard": "yd", "yards": "yd"}
+    unit = aliases.get(unit, unit)
+    if unit not in LENGTH_UNITS:
+        raise OptionError(
+            f"--length-unit (length_unit): {length_unit!r} is not a unit; use one of {', '.join(LENGTH_UNITS)}"
+        )
+    return unit
+
+
+def _role_sources(
+    frame: gpd.GeoDataFrame, path: Path, columns: dict[str, str], id_field: str | None
+) -> dict[str, str | None]:
+    """The file's field for each role: as mapped, else found by its usual name."""
+    if id_field is not None and "block" in columns and columns["block"].casefold() != id_field.casefold():
+        raise OptionError(
+            f"--id-field {id_field!r} and --column block={columns['block']} name different fields; give one"
+        )
+    sources: dict[str, str | None] = {}
+    for role in columns:
+        if role not in COLUMN_ROLES:
+            sources[role] = _match_field(frame, path, columns[role], f"--column {role}={columns[role]}")
+    for role, target in COLUMN_ROLES.items():
+        if role in columns:
+            sources[role] = _match_field(frame, path, columns[role], f"--column {role}={columns[role]}")
+        elif role == "block":
+            sources[role] = _pick_id_field(frame, path, id_field)
+        else:
+            sources[role] = _find_column(frame, target)
+    return sources
+
+
+def _carry_columns(out: gpd.GeoDataFrame, frame: gpd.GeoDataFrame, used: set[str]) -> dict[str, str]:
+    """Copy the file's other fields onto ``out``; rename those whose name the plan uses.
+
+    Names are compared case-insensitively (GeoPackage and Shapefile field names
+    are). Returns ``{file field: new name}`` for the renamed ones.
+    """
+    reserved = {c.casefold() for c in PLAN_COLUMNS}
+    taken = {str(c).casefold() for c in out.columns}
+    renamed: dict[str, str] = {}
+    for column in frame.columns:
+        if column == frame.geometry.name or column in used:
+            continue
+        name = str(column)
+        if name.casefold() in reserved or name.casefold() in taken:
+            new, k = RENAME_PREFIX + name, 2
+            while new.casefold() in reserved or new.casefold() in taken:
+                new, k = f"{RENAME_PREFIX}{k}_{name}", k + 1
+            renamed[name] = new
+            name = new
+        out[name] = frame[column].to_numpy()
+        taken.add(name.casefold())
+    return renamed
 
 
 def read_blocks(
@@ -474,37 +723,70 @@ def read_blocks(
     id_field: str | None = None,
     repair: bool = False,
     crs: CRS | None = None,
+    columns: dict[str, str] | None = None,
+    length_unit: str = "m",
+    crop_profile: str | None = None,
 ) -> gpd.GeoDataFrame:
     """Read block boundaries into a GeoDataFrame in a local metric CRS.
 
     Parameters
     ----------
     path : str or Path
-        GeoJSON, GeoPackage, Shapefile or zipped Shapefile.
+        GeoJSON, GeoPackage, Shapefile, zipped Shapefile, KML or KMZ.
     layer : str, optional
         GeoPackage layer; needed when the file holds several and none is ``blocks``.
+        Matched case-insensitively; a missing layer's error lists the layers.
     id_field : str, optional
         Field holding block ids; default: the first of ``block, block_id, id, name``.
+        Matched case-insensitively.
     repair : bool
         Repair invalid polygons with :func:`shapely.make_valid` instead of stopping.
     crs : pyproj.CRS, optional
         Metric CRS to use; default: the UTM zone of the blocks' centre.
+    columns : dict, optional
+        The file's field for a role, ``{role: field}``; roles are the keys of
+        :data:`COLUMN_ROLES` (``block, variety, row_spacing, plant_spacing,
+        row_bearing, crop, stratum``). Unmapped roles are found by their usual names.
+    length_unit : {"m", "ft", "yd", "us-ft"}
+        Unit of the row and plant spacing fields; converted to metres.
+    crop_profile : str, optional
+        Crop profile (shipped name or TOML file) whose spacing range checks blocks
+        without a ``crop`` value matching a profile.
 
     Returns
     -------
     geopandas.GeoDataFrame
         Columns ``block, variety, row_spacing_m, plant_spacing_m, row_bearing_deg, geometry``
-        plus the file's other attributes; ``attrs`` holds ``source``, ``sha256``, ``notes``
-        (warnings for the user) and ``id_field``.
+        (and ``crop``, ``stratum`` when the file has them) plus the file's other attributes,
+        in natural order of block id. ``attrs`` holds ``source``, ``sha256``, ``notes``
+        (for the user), ``id_field``, ``source_fields``, ``source_crs``,
+        ``renamed_columns`` and ``read_params`` (the non-default ``columns`` and
+        ``length_unit``, for the plan's parameters).
+
+    Raises
+    ------
+    InvalidBlocksError
+        For any problem of the file, naming the feature and the fix; among them a
+        row or plant spacing outside the plausible range of the block's crop profile.
+    OptionError
+        For a bad ``columns`` or ``length_unit`` (the message names the parameter).
     """
+    from fieldplan.sorting import natural_order
+
     path = Path(path)
+    columns = check_columns(columns)
+    unit = check_length_unit(length_unit)
     frame = read_frame(path, layer=layer)
+    notes: list[str] = list(frame.attrs.get("notes", []))
     if len(frame) == 0:
         raise InvalidBlocksError(f"{path}: holds no features; export the block boundaries again")
-    id_name = _pick_id_field(frame, path, id_field)
-    frame, repaired = _check_geometries(frame, path, id_name, repair)
+    source_fields = [str(c) for c in frame.columns if c != frame.geometry.name]
+    sources = _role_sources(frame, path, columns, id_field)
+    id_name = sources["block"]
+    frame, repaired = _check_geometries(frame, path, id_name, repair, notes)
     file_crs = frame.crs if frame.crs is not None else WGS84
-    frame, notes = _resolve_crs(frame, path, id_name)
+    frame, crs_notes = _resolve_crs(frame, path, id_name)
+    notes.extend(crs_notes)
     ids = _check_ids(frame, path, id_name)
 
     wgs = frame if CRS.from_user_input(frame.crs).is_geographic else frame.to_crs(WGS84)
@@ -522,25 +804,122 @@ def read_blocks(
             f"{path}: {_feature_label(frame, int(tiny[0]), id_name)} has zero area; redraw it or remove it"
         )
 
-    out = gpd.GeoDataFrame(
-        {
-            "block": ids.to_numpy(dtype=object),
-            "variety": _text_column(frame, "variety"),
-            "row_spacing_m": _numeric_column(frame, "row_spacing_m", path, id_name),
-            "plant_spacing_m": _numeric_column(frame, "plant_spacing_m", path, id_name),
-            "row_bearing_deg": _numeric_column(frame, "row_bearing_deg", path, id_name),
-        },
-        geometry=local.geometry.values,
-        crs=crs,
-    )
-    used = {id_name} | {_find_column(frame, c) for c in out.columns}
-    for column in frame.columns:
-        if column != "geometry" and column not in used and column.lower() not in set(out.columns):
-            out[column] = frame[column].to_numpy()
-    out = out.sort_values("block", kind="stable").reset_index(drop=True)
+    factor = LENGTH_UNITS[unit]
+    data: dict[str, np.ndarray] = {
+        "block": ids.to_numpy(dtype=object),
+        "variety": _text_column(frame, sources["variety"]),
+        "row_spacing_m": _numeric_column(frame, sources["row_spacing"], "row_spacing_m", path, id_name)
+        * factor,
+        "plant_spacing_m": _numeric_column(frame, sources["plant_spacing"], "plant_spacing_m", path, id_name)
+        * factor,
+        "row_bearing_deg": _numeric_column(frame, sources["row_bearing"], "row_bearing_deg", path, id_name),
+    }
+    for role in ("crop", "stratum"):
+        if sources[role] is not None:
+            data[role] = _text_column(frame, sources[role])
+    for role in columns:
+        if role not in COLUMN_ROLES:  # a field renamed for --strata-by and the like
+            data[role] = frame[sources[role]].to_numpy()
+    if "stratum" in data:
+        blank = np.flatnonzero(pd.isna(pd.Series(data["stratum"], dtype=object)).to_numpy())
+        if len(blank):
+            raise InvalidBlocksError(
+                f"{path}: {_feature_label(frame, int(blank[0]), id_name)} has no stratum in field "
+                f"{sources['stratum']!r}; fill it in or map another field with --column stratum=FIELD"
+            )
+    out = gpd.GeoDataFrame(data, geometry=local.geometry.values, crs=crs)
+    used = {s for s in sources.values() if s is not None}
+    renamed = _carry_columns(out, frame, used)
+    if renamed:
+        listed = ", ".join(f"{old} -> {new}" for old, new in renamed.items())
+        notes.append(f"{path}: kept field(s) whose names the plan uses itself under new names: {listed}")
+    out = out.iloc[natural_order(out["block"].tolist())].reset_index(drop=True)
+    mapped = {role: sources[role] for role in columns}
+    if unit != "m" and (sources["row_spacing"] or sources["plant_spacing"]):
+        notes.append(
+            f"{path}: row and plant spacings read in {unit} and converted to metres "
+            f"(1 {unit} = {factor:.10g} m)"
+        )
+    check_spacing_profiles(out, path, crop_profile=crop_profile, sources=sources, length_unit=unit)
     notes.extend(check_row_attributes(out, path, needed=False, fields=tuple(ROW_LIMITS)))
-    out.attrs.update(source=str(path), sha256=file_sha256(path), notes=notes, id_field=id_name)
+    read_params: dict = {}
+    if mapped:
+        read_params["columns"] = dict(sorted(mapped.items()))
+    if unit != "m":
+        read_params["length_unit"] = unit
+    source_crs = CRS.from_user_input(file_crs)
+    out.attrs.update(
+        source=str(path),
+        sha256=file_sha256(path),
+        notes=notes,
+        id_field=id_name,
+        source_fields=source_fields,
+        source_crs=source_crs.to_string() if source_crs.is_projected else None,
+        renamed_columns=renamed,
+        read_params=read_params,
+    )
     return out
+
+
+def check_spacing_profiles(
+    blocks: pd.DataFrame,
+    path: str | Path | None = None,
+    *,
+    crop_profile: str | None = None,
+    sources: dict[str, str | None] | None = None,
+    length_unit: str = "m",
+) -> None:
+    """Refuse a row or plant spacing outside the plausible range of the block's crop profile.
+
+    A block's profile is the shipped profile whose ``crops`` list holds its ``crop``
+    value (case-insensitive), else ``crop_profile``; blocks with neither are checked
+    only against the wide :data:`ROW_LIMITS`. The message names the block, the
+    value, the range and its source, and suggests ``--length-unit ft`` when the
+    value reads as a plausible spacing in feet.
+    """
+    from fieldplan.samples.profiles import load_profile, shipped_profiles
+
+    source = path if path is not None else blocks.attrs.get("source", "blocks")
+    profiles = [load_profile(name) for name in shipped_profiles()]
+    by_crop = {crop.casefold(): p for p in profiles for crop in p.crops}
+    fallback = load_profile(crop_profile) if crop_profile is not None else None
+    n = len(blocks)
+    crops = (
+        blocks["crop"].to_numpy(dtype=object) if "crop" in blocks.columns else np.full(n, None, dtype=object)
+    )
+    chosen = [by_crop.get(str(c).strip().casefold(), fallback) if c is not None else fallback for c in crops]
+    names = blocks["block"].astype(str).to_numpy()
+    for name, role in (("row_spacing_m", "row_spacing"), ("plant_spacing_m", "plant_spacing")):
+        if name not in blocks.columns:
+            continue
+        values = pd.to_numeric(blocks[name], errors="coerce").to_numpy(dtype=float)
+        for i in np.flatnonzero(np.isfinite(values) & (values > 0)):
+            profile = chosen[i]
+            limits = getattr(profile, name, None) if profile is not None else None
+            if not limits:
+                continue
+            low, high = limits
+            value = float(values[i])
+            if low <= value <= high:
+                continue
+            field = (sources or {}).get(role)
+            origin = f" (field {field}" + (f", read in {length_unit}" if length_unit != "m" else "") + ")"
+            origin = origin if field and (field != name or length_unit != "m") else ""
+            raise InvalidBlocksError(
+                f"{source}: block {names[i]!r} has {name}={value:.4g}{origin}, outside {low:g} to {high:g} m "
+                f"for {profile.name} ({profile.spacing_basis}); {_unit_hint(value, low, high, length_unit)}"
+            )
+
+
+def _unit_hint(value: float, low: float, high: float, length_unit: str) -> str:
+    metres = LENGTH_UNITS[length_unit]
+    if length_unit == "m" and low <= value * LENGTH_UNITS["ft"] <= high:
+        return "the file probably gives feet: pass --length-unit ft, or fix the value"
+    if length_unit == "m" and low <= value * LENGTH_UNITS["yd"] <= high:
+        return "the file probably gives yards: pass --length-unit yd, or fix the value"
+    if length_unit != "m" and low <= value / metres <= high:
+        return "the file probably gives metres: drop --length-unit, or fix the value"
+    return "fix the value in the file or check its unit (--length-unit)"
 
 
 def check_row_attributes(
@@ -606,6 +985,7 @@ def check_row_attributes(
                     raise InvalidBlocksError(
                         f"{source}: block {names[i]!r}{more} "
                         + _row_problem(kind, name, values[i], low, high, unit)
+                        + (_fields_hint(blocks, name) if kind == "missing" else "")
                     )
             continue
         bad = np.flatnonzero(not_positive | outside)
@@ -619,6 +999,30 @@ def check_row_attributes(
     return notes
 
 
+_ROLE_OF = {target: role for role, target in COLUMN_ROLES.items()}
+
+
+def _fields_hint(blocks: pd.DataFrame, name: str) -> str:
+    """Where the file names the value otherwise: its fields, and the option that maps one."""
+    fields = blocks.attrs.get("source_fields")
+    if fields is None:
+        fields = [str(c) for c in blocks.columns if c != "geometry"]
+    role = _ROLE_OF.get(name)
+    mapping = f", or map the file's field with --column {role}=FIELD" if role else ""
+    return f"{mapping} (the file's fields: {', '.join(fields) or 'none'})"
+
+
+def row_fields_hint(blocks: pd.DataFrame) -> str:
+    """``"; map the file's fields with --column ... (the file's fields: ...)"`` for a missing row layout."""
+    fields = blocks.attrs.get("source_fields")
+    if fields is None:
+        fields = [str(c) for c in blocks.columns if c != "geometry"]
+    return (
+        "; map the file's fields with --column row_spacing=FIELD --column plant_spacing=FIELD "
+        f"--column row_bearing=FIELD (the file's fields: {', '.join(fields) or 'none'})"
+    )
+
+
 def _row_problem(kind: str, name: str, value: float, low: float, high: float, unit: str) -> str:
     if kind == "missing":
         return f"has no {name}; add it ({unit}) to every block this design samples"
@@ -627,8 +1031,7 @@ def _row_problem(kind: str, name: str, value: float, low: float, high: float, un
     return f"has {name}={value:g}, outside the usual {low:g} to {high:g} {unit}; fix the value in the file"
 
 
-def _text_column(frame: gpd.GeoDataFrame, name: str) -> np.ndarray:
-    column = _find_column(frame, name)
+def _text_column(frame: gpd.GeoDataFrame, column: str | None) -> np.ndarray:
     if column is None:
         return np.full(len(frame), None, dtype=object)
     values = frame[column]

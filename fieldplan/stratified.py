@@ -351,9 +351,11 @@ def _stratified(
                 "no block has a whole eligible plant left after the exclusions and the plants and rows "
                 "skipped; lower --skip-row-ends/--skip-border-rows or check the row spacings"
             )
+        from fieldplan.read import row_fields_hint
+
         raise DesignError(
             "no block has a row layout (row_spacing_m, plant_spacing_m, row_bearing_deg) "
-            "or mapped rows (--rows); clusters need plants to draw from"
+            "or mapped rows (--rows); clusters need plants to draw from" + row_fields_hint(blocks)
         )
     exact, counts = _sizes(design, blocks, members, stratum_ha, capacity, opts, seed, active)
     units_per = int(opts["units_per_cluster"] or 1)

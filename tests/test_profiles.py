@@ -66,7 +66,10 @@ def test_user_file_is_loaded(tmp_path):
     path.write_text(text)
     p = load_profile(path)
     assert p.name == "my-pinot" and p.per_sample == (150, 150) and p.units_text == "150 berries"
-    assert set(data) == set(tomllib.loads(text))
+    # The shipped profile has every required key, plus the optional row layout keys.
+    optional = {"crops", "row_spacing_m", "plant_spacing_m", "spacing_basis"}
+    assert set(data) - optional == set(tomllib.loads(text))
+    assert p.row_spacing_m is None and p.crops == ()
 
 
 @pytest.mark.parametrize(

@@ -79,11 +79,6 @@ def _lines_only(tmp):
     return write_geojson(frame, tmp / "lines.geojson"), []
 
 
-def _mixed(tmp):
-    frame = blocks_frame({"A": square, "P": shapely.Point(E0, N0)})
-    return write_geojson(frame, tmp / "mixed.geojson"), []
-
-
 def _one_empty(tmp):
     return _feature_collection(
         tmp / "nullgeom.geojson", [({"block": "A"}, None), ({"block": "B"}, _SQUARE_LONLAT)]
@@ -296,7 +291,6 @@ CASES = [
     ),
     Case("points_only", "points only", _points_only, ["no polygons (found Point)"]),
     Case("lines_only", "lines only", _lines_only, ["no polygons (found LineString)"]),
-    Case("mixed_point", "a point among polygons", _mixed, ["feature 2 (block='P') is a Point"]),
     Case("empty_geometry", "one empty geometry", _one_empty, ["feature 1 (block='A') has an empty geometry"]),
     Case("all_empty", "every geometry empty", _all_empty, ["every geometry is empty"]),
     Case("zero_area", "zero-area polygon", _zero_area, ["feature 1 (block='Z') has zero area"]),

@@ -16,7 +16,7 @@ __all__ = ["register", "plan", "run_plan"]
 @handle_errors
 def plan(
     blocks_file: Annotated[
-        Path, typer.Argument(help="Block boundaries: GeoJSON, GeoPackage, Shapefile or zipped Shapefile.")
+        Path, typer.Argument(help="Block boundaries: GeoJSON, GeoPackage, Shapefile (or zipped), KML or KMZ.")
     ],
     out: Annotated[Path, typer.Option("--out", "-o", help="Folder to write the plan into.")],
     spacing: Annotated[float | None, typer.Option(help="Grid spacing in metres.")] = None,
@@ -50,6 +50,18 @@ def plan(
         str | None,
         typer.Option("--id-field", help="Field with block ids (default: block, block_id, id or name)."),
     ] = None,
+    column: Annotated[
+        list[str] | None,
+        typer.Option(
+            "--column",
+            help="The file's field for a role, ROLE=FIELD (repeatable), e.g. row_spacing=RowSpacing; roles: "
+            "block, variety, row_spacing, plant_spacing, row_bearing, crop, stratum, or a name for --strata-by.",
+        ),
+    ] = None,
+    length_unit: Annotated[
+        str,
+        typer.Option("--length-unit", help="Unit of the row and plant spacing fields: m, ft or yd."),
+    ] = "m",
     repair: Annotated[
         bool, typer.Option(help="Repair invalid (self-intersecting) polygons instead of stopping.")
     ] = False,
@@ -203,6 +215,8 @@ def plan(
         "select": select,
         "id_field": id_field,
         "repair": repair,
+        "columns": column or (),
+        "length_unit": length_unit,
         "max_points": max_points,
         "purpose": purpose,
         "cores": cores,
@@ -269,7 +283,7 @@ def run_plan(blocks_file: Path, spec, *, out: Path, seed: int, force: bool, quie
         core_buffer=samples.core_buffer,
     )
     check_engine(spec.scale.engine, spec.scale.scheduler)  # a missing dask fails before any work
-    blocks = read_blocks(blocks_file, **spec.input.read_options())
+    blocks = read_blocks(blocks_file, **spec.input.read_options(), crop_profile=samples.crop_profile)
     if spec.input.select is not None:
         blocks = select_blocks(blocks, spec.input.select)
     exclusions = read_exclusions(spec.input.exclude, crs=blocks.crs) if spec.input.exclude else None

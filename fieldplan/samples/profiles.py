@@ -26,6 +26,16 @@ handling : str
     How to keep the sample until it reaches the lab.
 steps : list of str
     Instructions for the crew, one sentence each.
+
+Optional keys (the row layout check of block attributes):
+
+crops : list of str
+    Values of a block's ``crop`` field this profile applies to (case-insensitive).
+row_spacing_m, plant_spacing_m : [float, float]
+    Plausible range of the crop's row and plant spacing in metres; a block value
+    outside it is refused (feet read as metres must not pass).
+spacing_basis : str
+    Where the ranges come from (or ``common practice, no source``).
 """
 
 from __future__ import annotations
@@ -44,6 +54,7 @@ _RANGES = {"per_sample", "per_plant"}
 _COUNTS = {"skip_end_plants", "skip_border_rows"}
 _LISTS = {"exposure", "heights", "steps"}
 _KEYS = {"schema", "sides"} | _TEXT | _RANGES | _COUNTS | _LISTS
+_OPTIONAL = {"crops", "row_spacing_m", "plant_spacing_m", "spacing_basis"}
 SIDES = ("both", "one")
 
 
@@ -65,6 +76,10 @@ class CropProfile:
     handling: str
     steps: tuple[str, ...]
     source: str = "<profile>"
+    crops: tuple[str, ...] = ()
+    row_spacing_m: tuple[float, float] | None = None
+    plant_spacing_m: tuple[float, float] | None = None
+    spacing_basis: str = ""
 
     @property
     def units_text(self) -> str:
@@ -188,9 +203,10 @@ def _fail(source: str, message: str) -> InputError:
 
 def parse_profile(data: dict, *, source: str = "<profile>") -> CropProfile:
     """Validate a profile read from TOML; raise :class:`InputError` naming the key and the fix."""
-    unknown = sorted(set(data) - _KEYS)
+    unknown = sorted(set(data) - _KEYS - _OPTIONAL)
     if unknown:
-        raise _fail(source, f"unknown key(s) {unknown}; valid keys are {sorted(_KEYS)}")
+        raise _fail(source, f"unknown key(s) {unknown}; valid keys are {sorted(_KEYS | _OPTIONAL)}")
+    spacing = _spacing_keys(data, source)
     missing = sorted(_KEYS - set(data))
     if missing:
         raise _fail(source, f"missing key(s) {missing}; see a shipped profile for an example")
@@ -241,7 +257,38 @@ def parse_profile(data: dict, *, source: str = "<profile>") -> CropProfile:
         handling=data["handling"].strip(),
         steps=tuple(v.strip() for v in data["steps"]),
         source=source,
+        **spacing,
     )
+
+
+def _spacing_keys(data: dict, source: str) -> dict:
+    """The optional row layout keys, checked."""
+    out: dict = {}
+    crops = data.get("crops", [])
+    if not isinstance(crops, list) or not all(isinstance(v, str) and v.strip() for v in crops):
+        raise _fail(source, f"crops must be a list of texts, got {crops!r}")
+    out["crops"] = tuple(v.strip() for v in crops)
+    for key in ("row_spacing_m", "plant_spacing_m"):
+        if key not in data:
+            continue
+        value = data[key]
+        if (
+            not isinstance(value, list)
+            or len(value) != 2
+            or not all(isinstance(v, int | float) and not isinstance(v, bool) for v in value)
+            or not 0 < value[0] <= value[1]
+        ):
+            raise _fail(
+                source, f"{key} must be [lowest, highest] metres with 0 < lowest <= highest, got {value!r}"
+            )
+        out[key] = (float(value[0]), float(value[1]))
+    basis = data.get("spacing_basis", "")
+    if ("row_spacing_m" in out or "plant_spacing_m" in out) and (
+        not isinstance(basis, str) or not basis.strip()
+    ):
+        raise _fail(source, "spacing_basis must say where the spacing ranges come from")
+    out["spacing_basis"] = basis.strip() if isinstance(basis, str) else ""
+    return out
 
 
 def load_profile(name_or_path: str | Path) -> CropProfile:

@@ -26,6 +26,7 @@ __all__ = [
     "write_summary_csv",
     "write_manifest",
     "write_readme",
+    "csv_xy_crs",
     "LONLAT_DECIMALS",
 ]
 
@@ -172,18 +173,45 @@ def write_points_geojson(plan, folder: Path) -> None:
     atomic_write_text(folder / "points.geojson", _geojson_text(plan.points, lonlat))
 
 
+def csv_xy_crs(plan) -> CRS:
+    """The CRS of ``points.csv`` x/y: the input file's projected CRS when it had one, else the plan's.
+
+    A farm's own GIS works in its projected CRS (a State Plane or national grid);
+    x/y in that CRS drop straight onto its layers. A file in longitude/latitude gets
+    the plan's local UTM metres.
+    """
+    source = plan.meta.get("input_crs")
+    if source:
+        try:
+            crs = CRS.from_user_input(source)
+        except Exception:  # a CRS this pyproj cannot build: fall back to the plan's own
+            return plan.crs
+        if crs.is_projected:
+            return crs
+    return plan.crs
+
+
+@lru_cache(maxsize=8)
+def _between(source, target) -> Transformer:
+    return Transformer.from_crs(source, target, always_xy=True)
+
+
 def write_points_csv(plan, folder: Path) -> None:
-    """``points.csv``: ids, lon/lat (WGS84) and x/y in the local metric CRS named in ``crs``."""
+    """``points.csv``: ids, lon/lat (WGS84) and x/y in the CRS named in ``crs`` (see :func:`csv_xy_crs`)."""
     pts = plan.points
     lonlat = points_lonlat(pts)
-    xy = np.round(shapely.get_coordinates(pts.geometry.values), 3) if len(pts) else np.empty((0, 2))
+    xy_crs = csv_xy_crs(plan)
+    xy = shapely.get_coordinates(pts.geometry.values) if len(pts) else np.empty((0, 2))
+    if len(pts) and not xy_crs.equals(plan.crs):
+        xy = np.column_stack(_between(plan.crs, xy_crs).transform(xy[:, 0], xy[:, 1]))
+    xy = np.round(xy, 3)
     base = ["point_id", "block", "stratum", "design"]
     table = pd.DataFrame({c: pts[c].to_numpy() for c in base})
     table["lon"] = lonlat[:, 0]
     table["lat"] = lonlat[:, 1]
     table["x"] = xy[:, 0]
     table["y"] = xy[:, 1]
-    table["crs"] = plan.crs.to_string()
+    table["crs"] = xy_crs.to_string()
     for column in pts.columns:
         if column not in base and column != "geometry":
             table[column] = pts[column].to_numpy()
@@ -269,9 +297,17 @@ def write_summary_csv(plan, folder: Path) -> None:
 def write_manifest(plan, folder: Path) -> None:
     """``manifest.json``: what is needed to reproduce and audit the plan."""
     manifest = {**plan.meta, "parameters": plan.params}
+    if plan.points is not None:
+        xy_crs = csv_xy_crs(plan)
+        manifest["points_csv_crs"] = {"crs": xy_crs.to_string(), "name": xy_crs.name, "unit": _unit(xy_crs)}
     atomic_write_text(
         folder / "manifest.json", json.dumps(manifest, indent=2, sort_keys=True, default=str) + "\n"
     )
+
+
+def _unit(crs: CRS) -> str:
+    axes = crs.axis_info
+    return axes[0].unit_name if axes else ""
 
 
 def write_readme(plan, folder: Path) -> None:
