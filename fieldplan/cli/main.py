@@ -41,6 +41,7 @@ from fieldplan.cli import (  # noqa: E402
     labels_cmd,
     mark_cmd,
     plan_cmd,
+    recipe_cmd,
     results_cmd,
     schedule_cmd,
     serve_cmd,
@@ -52,6 +53,7 @@ from fieldplan.cli import (  # noqa: E402
 for _command in (
     zones_cmd,
     plan_cmd,
+    recipe_cmd,
     demo_cmd,
     size_cmd,
     check_cmd,

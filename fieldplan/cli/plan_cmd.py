@@ -15,6 +15,7 @@ __all__ = ["register", "plan", "run_plan"]
 
 @handle_errors
 def plan(
+    ctx: typer.Context,
     blocks_file: Annotated[
         Path, typer.Argument(help="Block boundaries: GeoJSON, GeoPackage, Shapefile (or zipped), KML or KMZ.")
     ],
@@ -184,6 +185,20 @@ def plan(
             "gpx, kml, png. manifest.json, plan.gpkg and README.txt are always written.",
         ),
     ] = "all",
+    recipe: Annotated[
+        Path | None,
+        typer.Option(
+            "--recipe",
+            help="TOML recipe with the plan's parameters (see 'fieldplan recipe'); flags given here win.",
+        ),
+    ] = None,
+    like: Annotated[
+        Path | None,
+        typer.Option(
+            "--like",
+            help="Plan like an earlier plan folder: its parameters, a new seed unless --seed is given.",
+        ),
+    ] = None,
     seed: Seed = 0,
     force: Force = False,
     quiet: Quiet = False,
@@ -192,6 +207,7 @@ def plan(
 
     Example: fieldplan plan blocks.geojson --spacing 40 --edge-buffer 8 --seed 7 --out plan-2027-soil
     """
+    old_cluster_flag = units_per_cluster_old is not None
     if units_per_cluster_old is not None:
         # The old name read as "berries per grape cluster"; kept hidden for one release.
         if units_per_cluster is not None and units_per_cluster != units_per_cluster_old:
@@ -200,7 +216,7 @@ def plan(
             raise OptionError("give --plants-per-cluster only (--units-per-cluster is its old name)")
         echo_err("note: --units-per-cluster is now --plants-per-cluster; the old name goes in the next release")
         units_per_cluster = units_per_cluster_old
-    from fieldplan.spec import PlanSpec, SpecError, flag_of
+    from fieldplan.spec import SpecError, flag_of
 
     values = {
         "design": design,
@@ -246,14 +262,54 @@ def plan(
         "substitute": substitute,
         "formats": formats,
     }
+    # Only what was typed overrides a recipe; the spec's defaults fill the rest.
+    python_name = {"n": "n_total", "plants_per_cluster": "units_per_cluster"}
+    given = {
+        k: str(v) if isinstance(v, Path) else v
+        for k, v in values.items()
+        if _typed(ctx, python_name.get(k, k)) or (k == "plants_per_cluster" and old_cluster_flag)
+    }
     try:
-        spec = PlanSpec.from_dict({k: str(v) if isinstance(v, Path) else v for k, v in values.items()})
+        spec, seed = _spec_and_seed(given, recipe=recipe, like=like, seed=seed if _typed(ctx, "seed") else None)
         run_plan(blocks_file, spec, out=out, seed=seed, force=force, quiet=quiet)
     except SpecError as err:
         # The library names parameters; here they are flags.
         from fieldplan.errors import OptionError
 
         raise OptionError(err.render(flag_of)) from None
+
+
+def _typed(ctx: typer.Context, name: str) -> bool:
+    """Whether option ``name`` was given on the command line (or in the environment)."""
+    # By name: typer may carry its own copy of click's ParameterSource enum.
+    source = ctx.get_parameter_source(name)
+    return getattr(source, "name", None) in ("COMMANDLINE", "ENVIRONMENT")
+
+
+def _spec_and_seed(given: dict, *, recipe: Path | None, like: Path | None, seed: int | None):
+    """The spec from a recipe or earlier plan overridden by the flags given, and the seed to use."""
+    from fieldplan.errors import OptionError
+    from fieldplan.recipe import merge, plan_recipe, read_recipe
+    from fieldplan.spec import PlanSpec
+
+    if recipe is not None and like is not None:
+        raise OptionError("give --recipe or --like, not both")
+    base: dict = {}
+    base_seed = None
+    if recipe is not None:
+        base, base_seed = read_recipe(recipe)
+    elif like is not None:
+        base, _ = plan_recipe(like)
+    spec = PlanSpec.from_dict(merge(base, given))
+    if seed is None:
+        seed = base_seed
+    if seed is None and like is not None:
+        import secrets
+
+        # A plan like another is a new draw: same design, different points.
+        seed = secrets.randbelow(1_000_000)
+        echo_err(f"note: new seed {seed} (give --seed to choose one)")
+    return spec, (0 if seed is None else seed)
 
 
 def run_plan(blocks_file: Path, spec, *, out: Path, seed: int, force: bool, quiet: bool):
