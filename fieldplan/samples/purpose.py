@@ -278,8 +278,18 @@ def field_cores(
     """
     cores = plan.layers.get("cores")
     params = plan.params
-    if cores is None or params.get("purpose") != "soil" or params.get("composite", "cell") != "cell":
+    if cores is None or params.get("purpose") != "soil" or (params.get("composite") or "cell") != "cell":
         return cores, points, {}
+    # Plans keep the options as given (fieldplan.spec, None for a default); older plans the
+    # resolved values under *_m names. Either way, resolve them as planning did.
+    soil = resolve_purpose(
+        purpose="soil",
+        cores=params.get("cores"),
+        core_radius=params.get("core_radius_m", params.get("core_radius")),
+        composite="cell",
+        depth=params.get("depth_cm", params.get("depth")),
+        core_buffer=params.get("core_buffer_m", params.get("core_buffer")),
+    )
     base = cores[~cores["core_id"].astype(str).str.contains(_SUBSTITUTE_CORE, regex=False)]
     base = base.drop(columns=[c for c in ("status",) if c in base.columns])
     status = points["status"].astype(str) if "status" in points.columns else pd.Series("", index=points.index)
@@ -288,8 +298,8 @@ def field_cores(
     frames: list = [base]
     notes: dict[str, list[str]] = {}
     if need.size:
-        n, radius = int(params["cores"]), float(params["core_radius_m"])
-        buffer_m, depth = float(params["core_buffer_m"]), params.get("depth_cm", "")
+        n, radius = int(soil["cores"]), float(soil["core_radius_m"])
+        buffer_m, depth = float(soil["core_buffer_m"]), soil["depth_cm"]
         exclusions = _exclusion_geoms(plan)
         geoms = dict(zip(plan.blocks["block"].astype(str), plan.blocks.geometry.values, strict=True))
         points = points.copy()
