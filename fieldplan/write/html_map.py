@@ -221,11 +221,14 @@ def _point_columns(gdf, columns, *, decimals: int = COORD_DECIMALS) -> dict:
             continue
         values = wgs[column]
         if values.dtype.kind == "f":
-            props[column] = [None if not math.isfinite(v) else _json_value(v) for v in values.tolist()]
+            props[column] = [
+                None if not math.isfinite(v) else (int(v) if v.is_integer() else v) for v in values.tolist()
+            ]
         elif values.dtype.kind in "iub":
             props[column] = values.tolist()
         else:
-            props[column] = [_json_value(v) for v in values.astype(object).tolist()]
+            # Text columns are almost all plain str: skip the general conversion for those.
+            props[column] = [v if type(v) is str else _json_value(v) for v in values.astype(object).tolist()]
     return {
         "n": int(len(lonlat)),
         "lon": lonlat[:, 0].tolist(),
