@@ -184,10 +184,12 @@
   }
   function onFix(pos) { state.fix = pos; drawMe(); update(); }
   function freshFix() {
+    // The watch keeps the fix current while the page is open; ask again only if it is stale.
+    if (state.fix && Date.now() - state.fix.timestamp < 5000) return Promise.resolve(state.fix);
     return new Promise(function (resolve) {
       if (!navigator.geolocation) return resolve(state.fix);
       navigator.geolocation.getCurrentPosition(function (p) { onFix(p); resolve(p); },
-        function () { resolve(state.fix); }, { enableHighAccuracy: true, maximumAge: 0, timeout: 8000 });
+        function () { resolve(state.fix); }, { enableHighAccuracy: true, maximumAge: 2000, timeout: 5000 });
     });
   }
 
