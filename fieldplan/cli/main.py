@@ -37,6 +37,7 @@ from fieldplan.cli import (  # noqa: E402
     crews_cmd,
     demo_cmd,
     estimate_cmd,
+    field_records_cmd,
     lab_cmd,
     labels_cmd,
     mark_cmd,
@@ -63,6 +64,7 @@ for _command in (
     labels_cmd,
     lab_cmd,
     results_cmd,
+    field_records_cmd,
     estimate_cmd,
     serve_cmd,
 ):

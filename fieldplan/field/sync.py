@@ -225,7 +225,7 @@ def check_sample_id(typed: str, planned: str) -> str:
     return ""
 
 
-def _plan_problem(record: Mapping, points: pd.DataFrame, variables: set[str] | None = None) -> str:
+def _plan_problem(record: Mapping, points: pd.DataFrame) -> str:
     """Why the plan cannot take ``record`` ('' when it can)."""
     from fieldplan.results import plausible_range
 
@@ -382,6 +382,7 @@ def apply_records(
         points = _points_table(plan)
         entries = read_journal(plan_dir)
         known = {r["id"]: r for r in journal_records(entries)}
+        applied = {rid for e in entries if e.get("type") == "applied" for rid in e.get("ids", [])}
         new_entries = []
         for record in checked:
             old = known.get(record["id"])
@@ -390,6 +391,8 @@ def apply_records(
                     report.refused[record["id"]] = (
                         "this record id was already used for a different record; the first one is kept"
                     )
+                elif old.get("problem"):
+                    report.refused[record["id"]] = old["problem"]
                 else:
                     report.duplicates.append(record["id"])
                 continue
@@ -404,8 +407,15 @@ def apply_records(
             new_entries.append(entry)
         # The journal first: from here on the records are safe whatever happens to the plan.
         _append_journal(plan_dir, new_entries)
-        all_records = list(known.values())
-        _apply_pending(plan_dir, plan, all_records, report, received, max_offset=max_offset)
+        pending = [r for r in known.values() if r["id"] not in applied and not r.get("problem")]
+        if pending:
+            _apply_pending(
+                plan_dir, plan, list(known.values()), pending, report, received, max_offset=max_offset
+            )
+            # Only now is the plan known to hold them; a crash before this line is finished next time.
+            _append_journal(
+                plan_dir, [{"type": "applied", "ids": [r["id"] for r in pending], "utc": received}]
+            )
     report.conflicts = field_conflicts(plan_dir)
     return report
 
@@ -416,9 +426,20 @@ def _applied_record_ids(events: pd.DataFrame) -> set[str]:
 
 
 def _apply_pending(
-    plan_dir: Path, plan, records: list[dict], report: SyncReport, received: str, *, max_offset
+    plan_dir: Path,
+    plan,
+    records: list[dict],
+    pending: list[dict],
+    report: SyncReport,
+    received: str,
+    *,
+    max_offset,
 ):
-    """Bring the plan up to date with every usable record of the journal."""
+    """Bring the plan up to date with the journal's ``pending`` records.
+
+    Each step first reads from the plan whether it was done (an event tagged with the
+    record, a round with the day's digest), so running it twice changes nothing.
+    """
     from fieldplan.field.events import read_events
     from fieldplan.field.mark import inaccessible_set, mark_points
     from fieldplan.field.record import record_positions
@@ -431,7 +452,7 @@ def _apply_pending(
     done = _applied_record_ids(events)
     off = set(inaccessible_set(events))
     changed = False
-    for record in sorted((r for r in usable if r["kind"] == UNREACHABLE), key=lambda r: r["time_utc"]):
+    for record in sorted((r for r in pending if r["kind"] == UNREACHABLE), key=lambda r: r["time_utc"]):
         if record["id"] in done:
             continue
         pid = record["point_id"]
@@ -465,8 +486,7 @@ def _apply_pending(
         plan = load_plan(plan_dir)
     existing = stored_results(plan.layers)
     digests = set(existing["sha256"]) if "sha256" in existing.columns else set()
-    new_ids = set(report.stored)
-    days = sorted({r["date"] for r in usable if r["kind"] == TAKEN and r["value"] is not None and r["date"]})
+    days = sorted({r["date"] for r in pending if r["kind"] == TAKEN and r["value"] is not None and r["date"]})
     known_ids = set(plan.points["point_id"].astype(str))
     for day in days:
         frame, variables, digest = _day_table(usable, day)
@@ -487,11 +507,7 @@ def _apply_pending(
         plan = load_plan(plan_dir)
         existing = stored_results(plan.layers)
 
-    taken = [
-        r
-        for r in usable
-        if r["kind"] == TAKEN and r["id"] in new_ids and r["lon"] is not None and r["lat"] is not None
-    ]
+    taken = [r for r in pending if r["kind"] == TAKEN and r["lon"] is not None and r["lat"] is not None]
     if taken:
         taken.sort(key=lambda r: (r["time_utc"], r["id"]))
         actual = pd.DataFrame(
