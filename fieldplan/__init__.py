@@ -25,6 +25,8 @@ _LAZY = {
     "load_plan": "fieldplan.store",
     "FieldplanError": "fieldplan.errors",
     "PlanSpec": "fieldplan.spec",
+    "sample_points": "fieldplan.notebook",
+    "prepare_blocks": "fieldplan.notebook",
     "SpecError": "fieldplan.spec",
     "spec_schema": "fieldplan.spec",
 }

@@ -345,8 +345,16 @@ def make_plan(
         ``params`` holds ``spec.to_dict()`` with the ``seed``, the plan's code
         ``plan_id`` and, for grids, the spacing used ``spacing_m``.
     """
+    from fieldplan.notebook import check_plannable
+
+    check_plannable(blocks)  # degrees or unnamed blocks would give a plan that only looks right
     spec, legacy_rows = _as_spec(spec, options)
     rows = rows if rows is not None else legacy_rows
+    read = blocks.attrs.get("read_params") or {}
+    if read and not spec.input.columns and spec.input.length_unit == "m":
+        # Blocks read with a column mapping or unit: the plan's parameters (and a
+        # recipe made from them) carry it, so next season reads the file the same way.
+        spec = spec.replace(**read)
     if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
         raise SpecError("seed", f"{{seed}} must be a non-negative integer, got {seed!r}")
     if len(blocks) == 0:

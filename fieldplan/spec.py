@@ -707,9 +707,9 @@ class InputSpec(_Section):
     length_unit: str = _param(
         "m",
         kind="choice",
-        choices=("m", "ft", "yd"),
+        choices=("m", "ft", "yd", "us-ft"),
         panel="input",
-        help="Unit of the row and plant spacing attributes.",
+        help="Unit of the row and plant spacing fields: m, ft, yd or us-ft (US survey foot).",
     )
     exclude: str | None = _param(
         kind="path",
@@ -1068,6 +1068,11 @@ def _legacy(flat: dict[str, Any]) -> dict[str, Any]:
     if "depth" in out and out["depth"] == "":
         out["depth"] = None
     return out
+
+
+def _param_meta(name: str) -> Mapping:
+    """The metadata of parameter ``name`` (for checking a value the way the spec does)."""
+    return _FIELD_META[name]
 
 
 def _close_names(name: str) -> str:

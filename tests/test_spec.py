@@ -147,7 +147,9 @@ def test_schema_describes_every_parameter_for_forms():
     assert by["spacing"]["unit"] == "m" and by["spacing"]["designs"] == ["grid"]
     assert by["design"]["choices"] == list(DESIGNS)
     assert by["cores"]["effective_default"] == 16  # common practice, no source: 15-20 cores per composite
-    assert by["length_unit"]["choices"] == ["m", "ft", "yd"]
+    from fieldplan.read import LENGTH_UNITS
+
+    assert by["length_unit"]["choices"] == list(LENGTH_UNITS)
     assert by["columns"]["flag"] == "--column"
     for field in schema["fields"]:
         assert field["help"] and field["panel"] in {p["id"] for p in schema["panels"]}

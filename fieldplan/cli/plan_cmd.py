@@ -263,7 +263,7 @@ def plan(
         "formats": formats,
     }
     # Only what was typed overrides a recipe; the spec's defaults fill the rest.
-    python_name = {"n": "n_total", "plants_per_cluster": "units_per_cluster"}
+    python_name = {"n": "n_total", "plants_per_cluster": "units_per_cluster", "columns": "column"}
     given = {
         k: str(v) if isinstance(v, Path) else v
         for k, v in values.items()
