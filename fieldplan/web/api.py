@@ -237,3 +237,256 @@ def get_job(request: Request, job_id: str) -> dict:
 @router.get("/plans/{name}/summary", summary="The plan's line on the home page", include_in_schema=False)
 def get_summary(request: Request, name: str) -> dict:
     return plan_summary(_folder(request, name))
+
+
+# --- new plans ----------------------------------------------------------------------------------
+
+
+@router.get("/spec", summary="Plan parameters: choices, defaults, units, help (the CLI's own)")
+def get_spec() -> dict:
+    from fieldplan.web.newplan import form_schema
+
+    return form_schema()
+
+
+@router.post(
+    "/uploads", status_code=201, summary="Upload a block file (GeoJSON, GeoPackage, zipped Shapefile, KML)"
+)
+def post_upload(
+    request: Request,
+    file: Annotated[UploadFile, File(description="Block boundaries or exclusion polygons.")],
+    layer: Annotated[str | None, Form(max_length=200, description="GeoPackage layer.")] = None,
+) -> dict:
+    from fieldplan.web.newplan import describe_upload
+
+    uploads = request.app.state.uploads
+    data = read_capped(file.file, request.app.state.max_upload_bytes)
+    staged = uploads.stage_blocks(data, file.filename or "")
+    try:
+        return describe_upload(staged, layer=layer or None)
+    except Exception:
+        uploads.discard(staged.id)
+        raise
+
+
+@router.get("/uploads/{upload}", summary="An upload again, e.g. another GeoPackage layer")
+def get_upload(
+    request: Request, upload: str, layer: Annotated[str | None, Query(max_length=200)] = None
+) -> dict:
+    from fieldplan.web.newplan import describe_upload
+
+    return describe_upload(request.app.state.uploads.get(upload), layer=layer or None)
+
+
+class PlanRequest(BaseModel):
+    """A plan from an earlier upload: the spec's parameters (flat, as ``GET /api/spec`` lists them)."""
+
+    upload: str = Field(min_length=1, max_length=64, description="Id from POST /api/uploads.")
+    exclusions: str | None = Field(
+        default=None, max_length=64, description="Upload id of exclusion polygons."
+    )
+    params: dict = Field(default_factory=dict, description="Plan parameters (design, spacing, per_block...).")
+    seed: int = Field(default=0, ge=0, description="Seed; same file, parameters and seed give the same plan.")
+    name: str | None = Field(default=None, max_length=64, description="Plan folder name (saving only).")
+
+
+def _previews(request: Request) -> dict:
+    state = request.app.state
+    if not hasattr(state, "previews"):
+        state.previews = {}
+    return state.previews
+
+
+def _planned(request: Request, body: PlanRequest, progress):
+    """Plan for ``body``, reusing the preview of the same upload, parameters and seed."""
+    from fieldplan.web.newplan import params_hash, plan_from_upload
+
+    uploads = request.app.state.uploads
+    staged = uploads.get(body.upload)
+    excl = uploads.get(body.exclusions, parameter="exclusions") if body.exclusions else None
+    key = params_hash(body.params, body.seed, body.upload, body.exclusions)
+    cache = _previews(request)
+    plan = cache.get(key)
+    if plan is None:
+        plan = plan_from_upload(staged, body.params, seed=body.seed, exclusions=excl, progress=progress)
+        cache[key] = plan
+        while len(cache) > 4:
+            cache.pop(next(iter(cache)))
+    return plan
+
+
+@router.post("/previews", status_code=202, summary="Preview a plan (runs in the background; poll the job)")
+def post_preview(request: Request, body: PlanRequest) -> dict:
+    from fieldplan.web.newplan import build_spec, preview_payload
+
+    build_spec(body.params)  # parameter errors answer at once, naming the parameter
+    request.app.state.uploads.get(body.upload)
+
+    def run(progress):
+        return preview_payload(_planned(request, body, progress))
+
+    job = request.app.state.jobs.submit("preview", run)
+    return {"job": job.id, "status_url": f"/api/jobs/{job.id}"}
+
+
+@router.post(
+    "/plans",
+    status_code=202,
+    summary="Make and save a plan (JSON with an upload id, or multipart with the file)",
+    openapi_extra={
+        "requestBody": {
+            "content": {
+                "application/json": {"schema": PlanRequest.model_json_schema()},
+                "multipart/form-data": {
+                    "schema": {
+                        "type": "object",
+                        "required": ["file", "name"],
+                        "properties": {
+                            "file": {
+                                "type": "string",
+                                "format": "binary",
+                                "description": "Block boundaries.",
+                            },
+                            "exclusions_file": {"type": "string", "format": "binary"},
+                            "name": {"type": "string"},
+                            "params": {"type": "string", "description": "Plan parameters as a JSON object."},
+                            "seed": {"type": "integer"},
+                        },
+                    }
+                },
+            }
+        }
+    },
+)
+async def post_plan(
+    request: Request, wait: Annotated[bool, Query(description="Answer when saved (201).")] = False
+):
+    from fieldplan.web.newplan import as_params, build_spec, save_plan, spec_formats
+    from fieldplan.web.workspace import check_plan_name, plan_dir
+
+    ctype = request.headers.get("content-type", "")
+    uploads = request.app.state.uploads
+    staged_here: list[str] = []
+    if ctype.startswith("multipart/form-data"):
+        form = await request.form(max_files=2, max_fields=20)
+        upload = form.get("file")
+        if upload is None or isinstance(upload, str):
+            raise WebError(422, "file: the block file is missing", parameter="file")
+        data = await run_in_threadpool(read_capped, upload.file, request.app.state.max_upload_bytes)
+        staged = await run_in_threadpool(uploads.stage_blocks, data, upload.filename or "")
+        staged_here.append(staged.id)
+        excl_id = None
+        excl = form.get("exclusions_file")
+        if excl is not None and not isinstance(excl, str) and excl.filename:
+            edata = await run_in_threadpool(
+                read_capped, excl.file, request.app.state.max_upload_bytes, parameter="exclusions_file"
+            )
+            estaged = await run_in_threadpool(
+                uploads.stage_blocks, edata, excl.filename, parameter="exclusions_file"
+            )
+            staged_here.append(estaged.id)
+            excl_id = estaged.id
+        try:
+            seed = int(form.get("seed") or 0)
+        except ValueError:
+            raise WebError(422, "seed must be a whole number", parameter="seed") from None
+        body = PlanRequest(
+            upload=staged.id, exclusions=excl_id, params=as_params(form.get("params") or "{}"),
+            seed=seed, name=str(form.get("name") or ""),
+        )  # fmt: skip
+    else:
+        try:
+            raw = await request.json()
+        except ValueError:
+            raise WebError(
+                422, "send JSON (upload id and params) or multipart/form-data with the file", parameter="body"
+            ) from None
+        from pydantic import ValidationError
+
+        try:
+            body = PlanRequest.model_validate(raw)
+        except ValidationError as err:
+            e = err.errors()[0]
+            loc = ".".join(str(p) for p in e.get("loc", ()))
+            raise WebError(422, f"{loc}: {e.get('msg')}", parameter=loc or None) from None
+    try:
+        name = check_plan_name(body.name or "", parameter="name")
+        folder = plan_dir(request.app.state.workspace, name)
+        if folder.exists() and any(folder.iterdir()):
+            raise WebError(
+                409, f"a plan named {name!r} exists already; choose another name", parameter="name"
+            )
+        build_spec(body.params)
+        formats = spec_formats(body.params)
+        uploads.get(body.upload)
+    except BaseException:
+        for sid in staged_here:
+            uploads.discard(sid)
+        raise
+
+    def run(progress):
+        try:
+            plan = _planned(request, body, progress)
+            folder = save_plan(plan, request.app.state.workspace, name, formats=formats)
+        finally:
+            for sid in staged_here:
+                uploads.discard(sid)
+        n_spare = int(plan.points["status"].eq("spare").sum()) if "status" in plan.points.columns else 0
+        return {
+            "name": folder.name,
+            "url": f"/plans/{folder.name}",
+            "points": int(len(plan.points) - n_spare),
+            "spares": n_spare,
+            "blocks": int(len(plan.blocks)),
+        }
+
+    job = request.app.state.jobs.submit("save", run)
+    if wait:
+        from fastapi.responses import JSONResponse
+
+        await run_in_threadpool(job.future.result)
+        if job.status == "failed":
+            return JSONResponse(job.error, status_code=job.error.get("status", 500))
+        return JSONResponse(job.result, status_code=201)
+    return {"job": job.id, "status_url": f"/api/jobs/{job.id}"}
+
+
+@router.get("/size", summary="Sample size for a margin of error (fieldplan size), with its formula")
+def get_size(
+    cv: Annotated[float | None, Query(gt=0, description="Coefficient of variation, percent.")] = None,
+    margin: Annotated[float | None, Query(gt=0, description="Margin, percent of the mean (with cv).")] = None,
+    sd: Annotated[float | None, Query(gt=0, description="Standard deviation (with margin_abs).")] = None,
+    margin_abs: Annotated[float | None, Query(gt=0, description="Margin in the measurement's units.")] = None,
+    confidence: Annotated[float, Query(gt=0, lt=1)] = 0.95,
+    population: Annotated[int | None, Query(ge=1)] = None,
+    units_per_cluster: Annotated[int | None, Query(ge=1)] = None,
+    icc: Annotated[float | None, Query(ge=0, le=1)] = None,
+    normal: Annotated[bool, Query(description="Normal quantile z instead of Student's t.")] = False,
+) -> dict:
+    from fieldplan.design.samplesize import sample_size
+
+    relative = cv is not None or margin is not None
+    absolute = sd is not None or margin_abs is not None
+    if relative == absolute:
+        raise WebError(
+            422, "give cv with margin (percent of the mean), or sd with margin_abs", parameter="cv"
+        )
+    if relative and (cv is None or margin is None):
+        raise WebError(
+            422, "cv and margin go together (both in percent)", parameter="margin" if margin is None else "cv"
+        )
+    if absolute and (sd is None or margin_abs is None):
+        raise WebError(
+            422, "sd and margin_abs go together", parameter="margin_abs" if margin_abs is None else "sd"
+        )
+    result = sample_size(
+        margin=margin if relative else margin_abs,
+        cv=cv,
+        sd=sd,
+        confidence=confidence,
+        population=population,
+        distribution="z" if normal else "t",
+        units_per_cluster=units_per_cluster,
+        icc=icc,
+    )
+    return result.to_dict()

@@ -55,7 +55,7 @@ def install_error_handlers(app) -> None:
     async def _library(request, err: FieldplanError):
         status = 409 if isinstance(err, OutputExistsError) else 404 if isinstance(err, PlanDirError) else 400
         message = str(err)
-        parameter = getattr(err, "parameter", None) or guess_parameter(message)
+        parameter = getattr(err, "parameter", None) or getattr(err, "param", None) or guess_parameter(message)
         return respond(request, status, message, parameter)
 
     @app.exception_handler(RequestValidationError)

@@ -78,7 +78,11 @@ class Jobs:
                 if isinstance(err, WebError):
                     job.error = error_payload(err.status, scrub(str(err), self.workspace), err.parameter)
                 elif isinstance(err, FieldplanError):
-                    job.error = error_payload(400, scrub(str(err), self.workspace), guess_parameter(str(err)))
+                    job.error = error_payload(
+                        400,
+                        scrub(str(err), self.workspace),
+                        getattr(err, "param", None) or guess_parameter(str(err)),
+                    )
                 else:
                     import logging
 
