@@ -250,6 +250,15 @@ def plan_from_upload(
         core_buffer=samples.core_buffer,
     )
     check_engine(spec.scale.engine, spec.scale.scheduler)
+    if exclusions is not None:
+        # The plan records its exclusions file as the CLI does (by the name it was given), so the
+        # plan code, and with it every sample id, matches `fieldplan plan --exclude NAME` run
+        # beside that file.
+        from fieldplan.write.safe import safe_filename
+
+        spec = spec.replace(
+            exclude=safe_filename(Path(exclusions.original_name).name, default="exclusions.geojson")
+        )
     blocks, excl = _read(staged, spec, exclusions)
     plan = make_plan(
         blocks,
