@@ -416,3 +416,46 @@ def save_screenshot(out: Path) -> Path:
 if __name__ == "__main__":
     target = Path(sys.argv[1]) if len(sys.argv) > 1 else Path(__file__).parents[1] / "docs" / "crew_page.png"
     print(save_screenshot(target))
+
+
+def test_crew_sheet_carries_the_crew_link_as_a_qr_code(tmp_path):
+    """`fieldplan crews --link-base` prints each crew's link on its sheet; the QR code decodes to it."""
+    import io
+
+    import zxingcpp
+    from PIL import Image
+    from playwright.sync_api import sync_playwright
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import app as cli
+    from fieldplan.field.links import check_crew_token, workspace_secret
+
+    if not CHROMIUM.exists():
+        pytest.skip("needs Debian's chromium at /usr/bin/chromium")
+    workspace = make_workspace(tmp_path / "workspace")
+    plan = workspace / "vintage"
+    base = "http://192.168.7.20:8750"
+    result = CliRunner().invoke(
+        cli, ["crews", str(plan), "--crews", "2", "--force", "--link-base", base, "-q"]
+    )
+    assert result.exit_code == 0, result.output
+    sheet = plan / "crew_sheets.html"
+    secret = workspace_secret(workspace)
+    with sync_playwright() as pw:
+        browser = pw.chromium.launch(executable_path=str(CHROMIUM), headless=True, args=ARGS)
+        page = browser.new_page(viewport={"width": 900, "height": 1200})
+        page.route("**/*", lambda r: r.continue_() if r.request.url.startswith("file://") else r.abort())
+        page.goto(sheet.resolve().as_uri())
+        found = []
+        for k, code in enumerate(page.locator("div.link svg").all(), start=1):
+            image = Image.open(io.BytesIO(code.screenshot())).convert("L")
+            # reference: zxing-cpp decodes the QR code as a phone camera app would
+            texts = [b.text for b in zxingcpp.read_barcodes(image)]
+            assert len(texts) == 1
+            found.append(texts[0])
+            assert f"/field/vintage/{k}/?t=" in texts[0] and texts[0].startswith(base)
+            token = texts[0].rsplit("?t=", 1)[1]
+            assert check_crew_token(secret, "vintage", k, token)
+            assert not check_crew_token(secret, "vintage", 3 - k, token)
+        browser.close()
+    assert len(found) == 2

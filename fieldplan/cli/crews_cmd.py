@@ -46,6 +46,16 @@ def crews(
             "--across-rows", min=1.0, help="How much slower crossing rows is than walking along them."
         ),
     ] = 1.5,
+    link_base: Annotated[
+        str | None,
+        typer.Option(
+            "--link-base",
+            help=(
+                "Address the crews' phones reach 'fieldplan serve' at, e.g. http://192.168.1.20:8750: "
+                "each crew sheet then carries its crew page link as a QR code."
+            ),
+        ),
+    ] = None,
     force: Force = False,
     quiet: Quiet = False,
 ) -> None:
@@ -71,7 +81,7 @@ def crews(
         return_to_start=return_to_start,
         across_factor=across_factor,
     )
-    write_crews(plan_dir, run)
+    write_crews(plan_dir, run, links=_links(plan_dir, run, link_base))
     if run.unfitted_ids:
         shown = ", ".join(run.unfitted_ids[:10]) + (" ..." if len(run.unfitted_ids) > 10 else "")
         echo_err(
@@ -83,6 +93,20 @@ def crews(
             typer.echo(_start_line(run, plan.crs))
         typer.echo(run.table.to_string(index=False))
         typer.echo(f"Crews written to {Path(plan_dir)} (crews.csv, crew_NN.gpx, crew_sheets.html)")
+
+
+def _links(plan_dir: Path, run, base: str | None) -> dict | None:
+    """Crew links signed with the workspace's secret (the plan folder's parent is the workspace)."""
+    if not base:
+        return None
+    from fieldplan.errors import OptionError
+    from fieldplan.field.links import crew_link, workspace_secret
+
+    if not base.startswith(("http://", "https://")):
+        raise OptionError(f"--link-base {base!r} must start with http:// or https://")
+    folder = Path(plan_dir).resolve()
+    secret = workspace_secret(folder.parent)
+    return {int(k): crew_link(base, secret, folder.name, int(k)) for k in run.table["crew"].tolist()}
 
 
 def _start_line(run, crs) -> str:

@@ -215,8 +215,13 @@ def _cautions(plan) -> list[str]:
     return list(pick(plan)) if pick else list(safety.CAUTIONS)
 
 
-def write_crews(plan_dir: str | Path, run: CrewRun, *, title: str | None = None) -> list[Path]:
-    """Write every crew output into ``plan_dir`` (each file atomically); return the paths."""
+def write_crews(
+    plan_dir: str | Path, run: CrewRun, *, title: str | None = None, links: dict | None = None
+) -> list[Path]:
+    """Write every crew output into ``plan_dir`` (each file atomically); return the paths.
+
+    ``links`` maps a crew number to its crew page address, printed on its sheet with a QR code.
+    """
     from fieldplan.route.sheets import CrewSheet, crew_sheets_html
     from fieldplan.write.gpx import gpx_bytes
     from fieldplan.write.html_map import plan_caption, write_map
@@ -273,6 +278,7 @@ def write_crews(plan_dir: str | Path, run: CrewRun, *, title: str | None = None)
                     f"about {row['hours']:.1f} h{start_note}"
                 ),
                 start_xy=run.start_xy,
+                link=str((links or {}).get(int(k), "")),
             )
         )
     columns = [

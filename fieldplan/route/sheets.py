@@ -40,6 +40,8 @@ class CrewSheet:
         One line: points, km, hours.
     start_xy : (2,) array, optional
         Drop-off point, metres.
+    link : str, optional
+        The crew page's address (a crew link); printed with a QR code to scan with the phone.
     """
 
     crew: int
@@ -48,6 +50,7 @@ class CrewSheet:
     rows: list[dict]
     summary: str
     start_xy: np.ndarray | None = None
+    link: str = ""
 
 
 def _fmt(v: float) -> str:
@@ -139,7 +142,21 @@ th, td { border: 1px solid #999; padding: 2px 4px; text-align: left; vertical-al
 th { background: #eee; }
 td.done { width: 2.5em; }
 ul.cautions { font-size: 9.5pt; border: 2px solid #D55E00; padding: .4em .4em .4em 1.6em; }
+div.link { display: flex; gap: .8em; align-items: center; margin: .4em 0; font-size: 9pt; }
+div.link code { word-break: break-all; }
 """
+
+
+def _link_html(link: str) -> str:
+    """The crew page's QR code (inline SVG, no image to fetch) and the address as text."""
+    import segno
+
+    qr = segno.make_qr(link, error="m")
+    svg = qr.svg_inline(scale=3, border=4, title=None)
+    return (
+        f'<div class="link">{svg}<div>Scan with the crew phone to open the crew page '
+        f"(works offline once opened):<br><code>{html.escape(link)}</code></div></div>"
+    )
 
 
 def crew_sheets_html(
@@ -180,6 +197,8 @@ def crew_sheets_html(
         out.append(f'<section class="crew" id="crew-{sheet.crew}">')
         out.append(f"<h1>{esc(title)} &mdash; Crew {sheet.crew}</h1>")
         out.append(f'<p class="summary">{esc(sheet.summary)}</p>')
+        if sheet.link:
+            out.append(_link_html(sheet.link))
         out.append(f'<ul class="cautions">{caution_html}</ul>')
         out.append(svg_route_map(sheet, blocks))
         out.append(f"<table><thead><tr><th>#</th>{head}<th>Done</th></tr></thead><tbody>")
