@@ -164,7 +164,7 @@ def test_size_command():
     assert "Result: 25 samples" in result.output
     result = runner.invoke(
         app,
-        ["size", "--sd", "3", "--margin-abs", "0.5", "--population", "500", "--units-per-cluster", "5",
+        ["size", "--sd", "3", "--margin-abs", "0.5", "--population", "500", "--plants-per-cluster", "5",
          "--icc", "0.1", "--json"],
     )  # fmt: skip
     data = json.loads(result.output)

@@ -172,3 +172,34 @@ def test_kish_deff_matches_samplics(m, rho):
     ref = samplics_sampling.SampleSize(param=PopParam.mean, method=SizeMethod.wald)
     # reference: samplics SampleSize.deff, Kish's 1 + (m - 1) rho
     assert design_effect(m, rho) == pytest.approx(ref.deff(m, rho))
+
+
+def _fewest_clusters(ratio, m, icc, conf):
+    """Direct search: the fewest k with k >= ceil(ceil((t_{k-1} ratio)^2) deff / m)."""
+    deff = 1 + (m - 1) * icc
+    tail = 1 - (1 - conf) / 2
+    for k in range(2, 10_000):
+        n_k = math.ceil((stats.t.ppf(tail, k - 1) * ratio) ** 2 - 1e-9)
+        if k >= math.ceil(n_k * deff / m - 1e-9):
+            return k
+    raise AssertionError("no k found")
+
+
+@pytest.mark.parametrize(("ratio", "m", "icc"), [(2.5, 10, 0.3), (1.2, 4, 0.5), (4.0, 8, 0.05), (0.9, 20, 0.6)])
+def test_clusters_take_degrees_of_freedom_from_clusters(ratio, m, icc):
+    r = sample_size(sd=ratio, margin=1.0, units_per_cluster=m, icc=icc)
+    # reference: a cluster sample's variance is estimated between its k clusters, so t has k - 1
+    # degrees of freedom (Cochran 1977, ch. 9, from memory); direct search over k as above
+    assert r.clusters == _fewest_clusters(ratio, m, icc, 0.95)
+    k, deff = r.clusters, 1 + (m - 1) * icc
+    # the margin is met with t on k - 1 df: t * S * sqrt(deff / (k m)) <= d
+    assert stats.t.ppf(0.975, k - 1) * ratio * math.sqrt(deff / (k * m)) <= 1.0 + 1e-9
+    assert f"t on {k - 1} degrees of freedom (clusters - 1)" in r.formula
+
+
+def test_few_large_clusters_need_more_than_unit_degrees_of_freedom_suggest():
+    # 10 plants per cluster with a strong ICC: few clusters, so t on clusters - 1 df is much
+    # larger than t on units - 1 df would be (reference: scipy.stats.t quantiles)
+    r = sample_size(sd=1.2, margin=1.0, units_per_cluster=10, icc=0.6)
+    units_df = math.ceil((stats.t.ppf(0.975, 40) * 1.2) ** 2 * r.deff / 10)
+    assert r.clusters > units_df

@@ -44,7 +44,11 @@ def size(
         ),
     ] = None,
     units_per_cluster: Annotated[
-        int | None, typer.Option("--units-per-cluster", help="Units taken at each cluster (with --icc).")
+        int | None,
+        typer.Option("--plants-per-cluster", help="Plants (units) in each cluster (with --icc)."),
+    ] = None,
+    units_per_cluster_old: Annotated[
+        int | None, typer.Option("--units-per-cluster", hidden=True, help="Old name of --plants-per-cluster.")
     ] = None,
     icc: Annotated[
         float | None, typer.Option("--icc", help="Intra-cluster correlation of the units in a cluster.")
@@ -61,19 +65,42 @@ def size(
 ) -> None:
     """Sample size for estimating a mean (Cochran), with clusters (Kish design effect).
 
-    Example: fieldplan size --cv 25 --margin 10 --population 4000 --units-per-cluster 5 --icc 0.1
+    With --from a plan with results, the spread (and for clusters the ICC and plants per
+    cluster) come from its last round; a cluster plan is sized in clusters, per block (or per
+    stratum), and the plan options that give that size are printed.
+
+    Example: fieldplan size --cv 25 --margin 10 --population 4000 --plants-per-cluster 5 --icc 0.1
     """
     from fieldplan.design.samplesize import sample_size
     from fieldplan.errors import OptionError
 
+    if units_per_cluster_old is not None:
+        if units_per_cluster is not None and units_per_cluster != units_per_cluster_old:
+            raise OptionError("give --plants-per-cluster only (--units-per-cluster is its old name)")
+        units_per_cluster = units_per_cluster_old
+    inputs = None
     if from_plan is not None:
         from fieldplan.estimate.nextplan import describe_for_sizing
 
-        cv, sd, icc, used = describe_for_sizing(
-            from_plan, value=value, cv=cv, sd=sd, icc=icc, relative=margin is not None
+        inputs = describe_for_sizing(
+            from_plan,
+            value=value,
+            cv=cv,
+            sd=sd,
+            icc=icc,
+            relative=margin is not None,
+            plants_per_cluster=units_per_cluster,
         )
+        cv, sd, icc = inputs.cv, inputs.sd, inputs.icc
+        if inputs.clusters and inputs.per_plant:
+            units_per_cluster = inputs.plants_per_cluster
+            icc = 0.0 if icc is None else icc
+        elif inputs.clusters:
+            # One composite value per cluster: its spread is between clusters already, so the
+            # sample size is a number of clusters with no design effect to add.
+            units_per_cluster, icc = None, None
         if not as_json:
-            typer.echo(used)
+            typer.echo(inputs.summary)
     relative = cv is not None or margin is not None
     absolute = sd is not None or margin_abs is not None
     if relative == absolute:
@@ -92,8 +119,19 @@ def size(
         units_per_cluster=units_per_cluster,
         icc=icc,
     )
+    extra = {}
+    if inputs is not None:
+        k = result.clusters if result.clusters is not None else result.n
+        from fieldplan.estimate.nextplan import plan_options
+
+        extra = {
+            "per": inputs.per,
+            "clusters_per_" + inputs.per: k if inputs.clusters else None,
+            "plants_per_cluster": inputs.plants_per_cluster,
+            "plan_options": plan_options(inputs, clusters=k if inputs.clusters else None, n=result.n),
+        }
     if as_json:
-        typer.echo(json.dumps(result.to_dict(), indent=2, sort_keys=True))
+        typer.echo(json.dumps({**result.to_dict(), **extra}, indent=2, sort_keys=True))
         return
     if relative:
         typer.echo(f"Inputs: CV {cv:g} %, margin {margin:g} % of the mean, confidence {confidence:g}")
@@ -102,12 +140,25 @@ def size(
     if population is not None:
         typer.echo(f"Population: {population} units")
     typer.echo(result.formula)
+    per = f" per {inputs.per}" if inputs is not None else ""
     if result.clusters is not None:
         typer.echo(
-            f"Result: {result.clusters} clusters of {units_per_cluster} units ({result.units_total} units)"
+            f"Result: {result.clusters} clusters of {units_per_cluster} plants{per} "
+            f"({result.units_total} plants; degrees of freedom from the clusters)"
+        )
+    elif inputs is not None and inputs.clusters:
+        typer.echo(
+            f"Result: {result.n} clusters{per} (each a composite of {inputs.plants_per_cluster} plants; "
+            "degrees of freedom from the clusters)"
         )
     else:
-        typer.echo(f"Result: {result.n} samples")
+        typer.echo(f"Result: {result.n} samples{per}")
+    if inputs is not None:
+        what = f"stratum ({inputs.strata_by})" if inputs.per == "stratum" else "block"
+        typer.echo(
+            f"This is per {what}: each {inputs.per}'s own mean within the margin "
+            f"({inputs.n_groups} {inputs.per}s in the plan). Plan options: {extra['plan_options']}"
+        )
     typer.echo(
         "The CV or SD is a guess from earlier seasons or a pilot; the margin holds only if it is right."
     )

@@ -19,7 +19,11 @@ Formulas (Cochran, *Sampling Techniques*, 3rd ed., 1977, chapter 4; Kish,
   ``n`` that meets the margin;
 * clusters of ``m`` units with intra-cluster correlation ``rho``: Kish's design
   effect ``deff = 1 + (m - 1) * rho``; the number of clusters is
-  ``ceil(n * deff / m)``.
+  ``ceil(n * deff / m)``. With Student's t the degrees of freedom are those
+  of the clusters, ``k - 1``: the variance of a cluster sample is estimated
+  from the spread between its ``k`` clusters, not between its units (Cochran
+  1977, ch. 9; Kish 1965, ch. 5 -- chapters from memory). The smallest ``k``
+  with ``k >= ceil(n_k * deff / m)``, ``n_k`` on ``t_{k-1}``, is taken.
 """
 
 from __future__ import annotations
@@ -200,6 +204,38 @@ def sample_size(
     q = norm_ppf(tail)
     iterations = 0
     n = _ceil(needed(q))
+    clustered = units_per_cluster is not None and icc is not None
+    if clustered:
+        deff = design_effect(units_per_cluster, icc)
+        m = int(units_per_cluster)
+
+        def clusters_for(q_k: float) -> int:
+            return _ceil(_ceil(needed(q_k)) * deff / m)
+
+        k = max(clusters_for(q), 2 if distribution == "t" else 1)
+        if distribution == "t":
+            # t on k - 1 degrees of freedom, k clusters: the same search as below, over clusters.
+            seen = {k}
+            for iterations in range(1, 51):  # noqa: B007 - the count is reported
+                new = max(2, clusters_for(float(stats.t.ppf(tail, k - 1))))
+                if new == k or new in seen:
+                    k = max(k, new)  # a two-cycle: the step search below settles it
+                    break
+                seen.add(new)
+                k = new
+            while k > 2 and k - 1 >= clusters_for(float(stats.t.ppf(tail, k - 2))):
+                k -= 1
+            while k < clusters_for(float(stats.t.ppf(tail, k - 1))):
+                k += 1
+            q = float(stats.t.ppf(tail, k - 1))
+        n = _ceil(needed(q))
+        if population is not None:
+            n = min(n, int(population))
+        return _result(
+            mode=mode, confidence=confidence, margin=margin, cv=cv, sd=sd, population=population,
+            distribution=distribution, fpc=fpc, q=q, iterations=iterations, ratio=ratio, spread=spread,
+            n_fpc=needed(q), n=n, units_per_cluster=m, icc=icc, deff=deff, clusters=k,
+        )  # fmt: skip
     if distribution == "t":
         n = max(n, 2)
 
@@ -221,9 +257,18 @@ def sample_size(
         q = t_ppf(tail, n - 1)
     if population is not None:
         n = min(n, int(population))
-    n0 = (q * ratio) ** 2
-    n_fpc = needed(q)
+    return _result(
+        mode=mode, confidence=confidence, margin=margin, cv=cv, sd=sd, population=population,
+        distribution=distribution, fpc=fpc, q=q, iterations=iterations, ratio=ratio, spread=spread,
+        n_fpc=needed(q), n=n, units_per_cluster=None, icc=None, deff=1.0, clusters=None,
+    )  # fmt: skip
 
+
+def _result(
+    *, mode, confidence, margin, cv, sd, population, distribution, fpc, q, iterations, ratio, spread,
+    n_fpc, n, units_per_cluster, icc, deff, clusters,
+) -> SampleSize:  # fmt: skip
+    n0 = (q * ratio) ** 2
     symbol = "t" if distribution == "t" else "z"
     lines = []
     if mode == "relative":
@@ -234,20 +279,20 @@ def sample_size(
         form = "n0 / (1 + n0 / N)" if fpc == "mean" else "n0 / (1 + (n0 - 1) / N)"
         lines.append(f"n = {form} = {n_fpc:.3f} with N = {population}")
     if distribution == "t":
-        lines.append(f"{symbol} on {n - 1} degrees of freedom after {iterations} iteration(s)")
+        if clusters is not None:
+            lines.append(f"{symbol} on {clusters - 1} degrees of freedom (clusters - 1) after {iterations} iteration(s)")
+        else:
+            lines.append(f"{symbol} on {n - 1} degrees of freedom after {iterations} iteration(s)")
     lines.append(f"n = {n} units")
-
-    deff = 1.0
-    clusters = None
     units_total = n
-    if units_per_cluster is not None and icc is not None:
-        deff = design_effect(units_per_cluster, icc)
-        clusters = _ceil(n * deff / units_per_cluster)
+    if clusters is not None:
         units_total = clusters * int(units_per_cluster)
         lines.append(f"deff = 1 + (m - 1) * rho = 1 + ({units_per_cluster} - 1) * {icc:g} = {deff:.4f}")
+        plain = _ceil(n * deff / units_per_cluster)
         lines.append(
-            f"clusters = ceil(n * deff / m) = ceil({n} * {deff:.4f} / {units_per_cluster})"
-            f" = {clusters} ({units_total} units)"
+            f"clusters = ceil(n * deff / m) = ceil({n} * {deff:.4f} / {units_per_cluster}) = {plain}"
+            + ("" if plain == clusters else f"; {clusters} are the fewest meeting the margin on their own df")
+            + f" ({units_total} units)"
         )
     return SampleSize(
         mode=mode,

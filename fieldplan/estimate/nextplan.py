@@ -17,7 +17,14 @@ from numpy.typing import ArrayLike
 from fieldplan.errors import InputError
 from fieldplan.estimate.cluster import icc_anova
 
-__all__ = ["Variability", "describe_for_sizing", "observed_variability", "plan_variability"]
+__all__ = [
+    "SizingInputs",
+    "Variability",
+    "describe_for_sizing",
+    "observed_variability",
+    "plan_variability",
+    "plan_options",
+]
 
 
 @dataclass(frozen=True)
@@ -72,7 +79,8 @@ def observed_variability(
     icc, mbar = float("nan"), float("nan")
     if clusters is not None:
         c = np.asarray(clusters, dtype=object)[ok]
-        icc = icc_anova(y[ok], c)
+        # Within groups: block differences are not likeness of plants within a cluster.
+        icc = icc_anova(y[ok], c, None if groups is None else g[ok])
         mbar = float(ok.sum() / max(len(set(map(str, c))), 1))
     return Variability(
         mean=mean,
@@ -86,7 +94,7 @@ def observed_variability(
 
 
 def plan_variability(
-    points: pd.DataFrame, blocks: pd.DataFrame, results: pd.DataFrame, *, value: str
+    points: pd.DataFrame, blocks: pd.DataFrame, results: pd.DataFrame, *, value: str, by: str = "block"
 ) -> tuple[Variability, int]:
     """Variability of ``value`` in a plan's latest results round.
 
@@ -102,10 +110,59 @@ def plan_variability(
     per_plant = (d["unit"].astype(str) != "").any() and d.duplicated("point_id").any()
     v = observed_variability(
         d["value"].to_numpy(dtype=float),
-        groups=d["block"].to_numpy(),
+        groups=d[by].to_numpy(),
         clusters=d["point_id"].to_numpy() if per_plant else None,
     )
     return v, latest
+
+
+@dataclass(frozen=True)
+class SizingInputs:
+    """What ``fieldplan size --from PLAN`` takes from a plan and its results.
+
+    ``clusters`` is true for cluster plans: the size is then a number of
+    clusters. ``per_plant`` says the results hold one value per plant (so an
+    ICC and Kish's design effect apply); otherwise each cluster is one
+    composite value and its spread is already the spread between clusters.
+    ``per`` is ``"block"`` or ``"stratum"``: what one sized sample covers.
+    """
+
+    cv: float | None
+    sd: float | None
+    icc: float | None
+    plants_per_cluster: int | None
+    clusters: bool
+    per_plant: bool
+    per: str
+    strata_by: str | None
+    n_groups: int
+    params: dict
+    summary: str
+
+
+def plan_options(inputs: SizingInputs, *, clusters: int | None, n: int) -> str:
+    """The ``fieldplan plan`` options that give ``clusters`` (or ``n`` points) per block or stratum."""
+    p = inputs.params
+    parts = ["fieldplan plan BLOCKS"]
+    if inputs.clusters:
+        parts.append("--design clusters")
+        m = inputs.plants_per_cluster or 1
+        k = int(clusters if clusters is not None else n)
+        if inputs.per == "stratum":
+            parts += [f"--strata-by {inputs.strata_by}", f"--target-units {k * m}", f"--plants-per-cluster {m}"]
+        else:
+            parts += [f"--per-block {k}", f"--plants-per-cluster {m}"]
+        for key, flag in (("skip_row_ends", "--skip-row-ends"), ("skip_border_rows", "--skip-border-rows")):
+            if p.get(key):
+                parts.append(f"{flag} {p[key]}")
+    else:
+        design = p.get("design", "random")
+        parts.append(f"--design {design if design in ('random', 'balanced') else 'random'}")
+        if inputs.per == "stratum":
+            parts.append(f"--strata-by {inputs.strata_by}")
+        parts.append(f"--per-block {n}" if inputs.per == "block" else f"--n {n * inputs.n_groups}")
+    parts.append("--out NEW_PLAN")
+    return " ".join(parts)
 
 
 def describe_for_sizing(
@@ -116,12 +173,17 @@ def describe_for_sizing(
     sd: float | None,
     icc: float | None,
     relative: bool,
-) -> tuple[float | None, float | None, float | None, str]:
+    plants_per_cluster: int | None = None,
+) -> SizingInputs:
     """Fill the sample-size inputs the user left out from a plan's results.
 
     Reads the plan folder (``plan.gpkg``); values given explicitly win.
     ``relative`` says the margin is in percent of the mean, so a CV (percent)
-    is filled, otherwise an SD. Returns ``(cv, sd, icc, summary line)``.
+    is filled, otherwise an SD. For a cluster plan the plants per cluster come
+    from the plan (or the results' mean cluster size) and, with one value per
+    plant, the ICC within blocks from the results; with one composite value per
+    cluster the spread between clusters is used as is and the size is in
+    clusters directly.
     """
     from fieldplan.errors import OptionError
     from fieldplan.results import normalise_column, stored_results
@@ -130,18 +192,38 @@ def describe_for_sizing(
     if not value:
         raise OptionError("--from needs --value naming the variable to size for, e.g. --value brix")
     plan = load_plan(plan_dir)
+    params = dict(plan.params)
+    name = normalise_column(value)
+    strata_by = params.get("strata_by")
     v, rnd = plan_variability(
-        plan.points, plan.blocks, stored_results(plan.layers), value=normalise_column(value)
+        plan.points, plan.blocks, stored_results(plan.layers), value=name, by="stratum" if strata_by else "block"
     )
+    is_clusters = params.get("design") == "clusters"
+    per_plant = bool(np.isfinite(v.icc))
     if relative and cv is None:
         cv = 100.0 * v.cv
     if not relative and sd is None:
         sd = v.sd
-    if icc is None and np.isfinite(v.icc):
+    m = None
+    if is_clusters:
+        m = plants_per_cluster or params.get("plants_per_cluster") or params.get("units_per_cluster")
+        if m is None and np.isfinite(v.mean_cluster_size):
+            m = int(round(v.mean_cluster_size))
+        m = int(m) if m else 1
+        if per_plant and icc is None:
+            icc = max(0.0, v.icc)
+    elif icc is None and np.isfinite(v.icc):
         icc = max(0.0, v.icc)
-    icc_text = f", ICC {v.icc:.3f}" if np.isfinite(v.icc) else ""
+    per = "stratum" if strata_by else "block"
+    n_groups = int(plan.blocks["stratum"].nunique()) if strata_by and "stratum" in plan.blocks else len(plan.blocks)
+    icc_text = f", ICC within {per}s {v.icc:.3f}" if np.isfinite(v.icc) else ""
+    spread = f"SD within {per}s" + (" between clusters (composite values)" if is_clusters and not per_plant else "")
     summary = (
-        f"From {plan_dir} round {rnd} ({v.n} values of {normalise_column(value)}): "
-        f"mean {v.mean:.4g}, SD within blocks {v.sd:.4g}, CV {100 * v.cv:.1f} %{icc_text}"
+        f"From {plan_dir} round {rnd} ({v.n} values of {name}): "
+        f"mean {v.mean:.4g}, {spread} {v.sd:.4g}, CV {100 * v.cv:.1f} %{icc_text}"
     )
-    return cv, sd, icc, summary
+    return SizingInputs(
+        cv=cv, sd=sd, icc=icc if (not is_clusters or per_plant) else None, plants_per_cluster=m,
+        clusters=is_clusters, per_plant=per_plant, per=per, strata_by=strata_by, n_groups=n_groups,
+        params=params, summary=summary,
+    )  # fmt: skip
