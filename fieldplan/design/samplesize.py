@@ -217,17 +217,17 @@ def sample_size(
             # t on k - 1 degrees of freedom, k clusters: the same search as below, over clusters.
             seen = {k}
             for iterations in range(1, 51):  # noqa: B007 - the count is reported
-                new = max(2, clusters_for(float(stats.t.ppf(tail, k - 1))))
+                new = max(2, clusters_for(t_ppf(tail, k - 1)))
                 if new == k or new in seen:
                     k = max(k, new)  # a two-cycle: the step search below settles it
                     break
                 seen.add(new)
                 k = new
-            while k > 2 and k - 1 >= clusters_for(float(stats.t.ppf(tail, k - 2))):
+            while k > 2 and k - 1 >= clusters_for(t_ppf(tail, k - 2)):
                 k -= 1
-            while k < clusters_for(float(stats.t.ppf(tail, k - 1))):
+            while k < clusters_for(t_ppf(tail, k - 1)):
                 k += 1
-            q = float(stats.t.ppf(tail, k - 1))
+            q = t_ppf(tail, k - 1)
         n = _ceil(needed(q))
         if population is not None:
             n = min(n, int(population))
