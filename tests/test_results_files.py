@@ -313,6 +313,15 @@ def test_duplicate_header_and_bad_positions_store_nothing(plan_dir, tmp_path):
     assert bad.exit_code == 2
     # common practice, no source: a failed import leaves the record as it was, and may be re-run
     assert (plan_dir / "plan.gpkg").read_bytes() == before
+    unknown = tmp_path / "unknown.gpx"
+    unknown.write_text(
+        '<?xml version="1.0"?><gpx version="1.1" creator="t" xmlns="http://www.topografix.com/GPX/1/1">'
+        '<wpt lat="47.001" lon="15.001"><name>NOT-A-POINT</name></wpt></gpx>',
+        encoding="utf-8",
+    )
+    stray = runner.invoke(app, ["results", str(plan_dir), str(good), "--positions", str(unknown)])
+    assert stray.exit_code == 2 and "NOT-A-POINT" in stray.stderr
+    assert (plan_dir / "plan.gpkg").read_bytes() == before
     again = runner.invoke(app, ["results", str(plan_dir), str(good)])
     assert again.exit_code == 0, again.output
 

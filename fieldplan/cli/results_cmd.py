@@ -142,6 +142,12 @@ def results(
     # A refused re-import prints the refusal alone, not the problems of a file already dealt with.
     refuse_duplicate(table, existing, allow_duplicate=allow_duplicate)
     actual = _read_positions(table, positions)
+    if actual is not None:
+        from fieldplan.field.positions import default_max_offset, position_report
+
+        # Unknown waypoint names or a bad --max-offset fail here, before the round is stored.
+        limit = default_max_offset(plan.params) if max_offset is None else max_offset
+        position_report(plan, actual, max_offset=limit)
     for note in table.notes:
         echo_err(f"note: {file.name}: {note}")
     if not table.problems.empty:
