@@ -19,7 +19,7 @@ With a cost per cell (walking distance from a track, say) the costed variant of 
 et al. (2012) adds a second Metropolis test on the change of total cost (in units of the
 mean cell cost), so that cheaper samples of similar quality are preferred.
 
-The annealing loop is one numba kernel with incremental counts and sums (a step costs
+The annealing loop is one numba kernel (compiled on first use) with incremental counts and sums (a step costs
 O(k^2), whatever the number of cells); all random numbers are drawn beforehand from the
 caller's ``rng``, so the same seed gives the same sample.
 """
@@ -29,8 +29,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit
 
+from fieldplan.design.jit import kernel
 from fieldplan.errors import DesignError, OptionError
 
 __all__ = ["ClhsSample", "clhs", "objective", "quantile_edges", "strata_of"]
@@ -124,7 +124,7 @@ def objective(
     return w1 * o1 + w2 * o2 + w3 * o3, (o1, o2, o3), (counts == 1).sum(axis=0)
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def _sample_corr_term(sx, sxx, sxy, n, pop_corr):
     k = sx.shape[0]
     total = 0.0
@@ -141,7 +141,7 @@ def _sample_corr_term(sx, sxx, sxy, n, pop_corr):
     return total
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def _o2(ccounts, kappa, n):
     t = 0.0
     for j in range(kappa.shape[0]):
@@ -151,7 +151,7 @@ def _o2(ccounts, kappa, n):
     return t
 
 
-@njit(cache=True, nogil=True)
+@kernel
 def _anneal(
     x, strata, cats, kappa, cost, pop_corr, start, u_kind, u_pick, u_cand, u_accept, u_accept_cost,
     w1, w2, w3, temp0, cooling, cycle, p_random, use_cost,
