@@ -44,10 +44,11 @@ STUDIES: dict[str, Callable[..., list[Result]]] = {
     "scaling": _study("bench_plan", "study_scaling"),
     "dask": _study("bench_dask"),
     "process": _study("bench_process"),
+    "zones": _study("zones_bench"),
 }
 
 #: Studies kept in other modules; run through their ``main(argv)`` when present.
-EXTERNAL: dict[str, str] = {"routes": "bench_routes", "validity": "validity"}
+EXTERNAL: dict[str, str] = {"routes": "bench_routes", "validity": "validity", "zones_validity": "zones_validity"}
 
 
 def run_studies(names: list[str], *, smoke: bool = False, log=print) -> tuple[list[Result], dict[str, float]]:

@@ -204,8 +204,12 @@ def cluster(
     """
     if method == "kmeans":
         from sklearn.cluster import KMeans
+        from threadpoolctl import threadpool_limits
 
-        km = KMeans(n_clusters=k, n_init=1, random_state=int(rng.integers(2**31 - 1))).fit(x)
+        # One thread: on a busy machine OpenMP threads spin and a small fit takes 100x longer,
+        # and one thread sums in one order, so the labels do not depend on the core count.
+        with threadpool_limits(1):
+            km = KMeans(n_clusters=k, n_init=1, random_state=int(rng.integers(2**31 - 1))).fit(x)
         return km.labels_.astype(np.int64), km.cluster_centers_, memberships(x, km.cluster_centers_, m)
     if method == "fuzzy":
         centres, u = fuzzy_kmeans(x, k, m=m, rng=rng)
@@ -239,6 +243,7 @@ def choose_k(
         K -> (labels, centres).
     """
     from sklearn.metrics import silhouette_score
+    from threadpoolctl import threadpool_limits
 
     if criterion not in CRITERIA:
         raise OptionError(f"--criterion must be one of {', '.join(CRITERIA)}, got {criterion!r}")
@@ -251,7 +256,10 @@ def choose_k(
         fits[k] = (labels, centres)
         if len(np.unique(labels)) > 1:
             sample = min(silhouette_sample, len(x))
-            sil = float(silhouette_score(x, labels, sample_size=sample, random_state=int(rng.integers(2**31 - 1))))
+            with threadpool_limits(1):
+                sil = float(
+                    silhouette_score(x, labels, sample_size=sample, random_state=int(rng.integers(2**31 - 1)))
+                )
         else:
             sil = float("nan")
         rows.append({"k": k, "fpi": fpi(u), "nce": nce(u), "silhouette": sil})
