@@ -20,6 +20,8 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from fieldplan.words import plural
+
 __all__ = [
     "CoverageReport",
     "max_gap",
@@ -203,7 +205,7 @@ def coverage(
         gone = status.eq("inaccessible").to_numpy()
         if spare.any() or gone.any():
             points = points[~(spare | gone)]
-            source = f"{source}; {int(spare.sum())} spare point(s) left out" + (
+            source = f"{source}; {plural(int(spare.sum()), 'spare point')} left out" + (
                 f", {int(gone.sum())} inaccessible" if gone.any() else ""
             )
     blocks = plan.blocks
@@ -260,8 +262,11 @@ def coverage(
         elif n < min_per_block:
             failed.append(f"{n} < --min-per-block {min_per_block}")
         off = n - expected[i]
+        # The note quotes the share exactly as the table holds it (two decimals), so the
+        # two never disagree in the last digit.
+        share = round(float(expected[i]), 2)
         if abs(off) > 1.0:
-            text = f"{n} vs {expected[i]:.1f} by area share"
+            text = f"{n} vs {share:.2f} by area share"
             (failed if proportional else notes).append(text)
         gap = gaps[i]
         if max_gap_m is not None and (not math.isfinite(gap) or gap > max_gap_m):
@@ -281,7 +286,7 @@ def coverage(
                 "area_ha": round(float(shapely.area(geoms[i])) / 10_000.0, 4),
                 "sampled_area_ha": round(float(share_area[i]), 4),
                 "n_points": n,
-                "expected_points": round(float(expected[i]), 2),
+                "expected_points": share,
                 "off_by": round(float(off), 2),
                 "max_gap_m": round(float(gap), 2) if math.isfinite(gap) else gap,
                 "outside": n_out,
@@ -292,10 +297,10 @@ def coverage(
         )
     unknown = int((~known).sum())
     if unknown:
-        failures.append(f"{unknown} point(s) name a block that is not in the plan")
+        failures.append(f"{plural(unknown, 'point')} name{'s' if unknown == 1 else ''} a block that is not in the plan")
     n_dup = int(duplicated.sum())
     if n_dup:
-        failures.append(f"{n_dup} point(s) share a point_id with another point")
+        failures.append(f"{plural(n_dup, 'point')} share a point_id with another point")
     return CoverageReport(pd.DataFrame(rows), problems, failures, source)
 
 

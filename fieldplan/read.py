@@ -31,6 +31,7 @@ from pyproj import CRS
 
 from fieldplan.crs import WGS84, utm_crs_for
 from fieldplan.errors import InputError, InvalidBlocksError, OptionError
+from fieldplan.words import plural
 
 __all__ = [
     "ID_CANDIDATES",
@@ -297,7 +298,7 @@ def _drop_z(frame: gpd.GeoDataFrame, path: Path, notes: list[str]) -> gpd.GeoDat
         frame = frame.set_geometry(flat)
         notes = [
             *notes,
-            f"{path}: dropped the Z (height) coordinates of {int(has_z.sum())} feature(s); "
+            f"{path}: dropped the Z (height) coordinates of {plural(int(has_z.sum()), 'feature')}; "
             "fieldplan works on the ground plane",
         ]
     frame.attrs["notes"] = notes
@@ -439,7 +440,8 @@ def _keep_polygons(
         listed = ", ".join(f"{_feature_label(frame, int(i), id_field)} ({kinds[i]})" for i in skipped[:5])
         more = ", ..." if len(skipped) > 5 else ""
         notes.append(
-            f"{path}: skipped {len(skipped)} feature(s) that are not polygons: {listed}{more}; "
+            f"{path}: skipped {plural(len(skipped), 'feature')} that {'is' if len(skipped) == 1 else 'are'} "
+            f"not a polygon: {listed}{more}; "
             "blocks are the polygons"
         )
     if len(skipped) or len(collections):
@@ -832,7 +834,10 @@ def read_blocks(
     renamed = _carry_columns(out, frame, used)
     if renamed:
         listed = ", ".join(f"{old} -> {new}" for old, new in renamed.items())
-        notes.append(f"{path}: kept field(s) whose names the plan uses itself under new names: {listed}")
+        notes.append(
+            f"{path}: kept {plural(len(renamed), 'field')} named like a column the plan writes itself "
+            f"under a new name: {listed}"
+        )
     out = out.iloc[natural_order(out["block"].tolist())].reset_index(drop=True)
     mapped = {role: sources[role] for role in columns}
     if unit != "m" and (sources["row_spacing"] or sources["plant_spacing"]):

@@ -23,6 +23,7 @@ import shapely
 
 from fieldplan.crs import WGS84
 from fieldplan.errors import InputError
+from fieldplan.words import plural
 
 __all__ = ["read_kml", "parse_kml", "KML_SUFFIXES"]
 
@@ -188,7 +189,7 @@ def parse_kml(data: bytes, *, source: str = "<kml>") -> tuple[gpd.GeoDataFrame, 
     notes = []
     if empty:
         listed = ", ".join(empty[:5]) + (", ..." if len(empty) > 5 else "")
-        notes.append(f"{source}: skipped {len(empty)} placemark(s) without a geometry ({listed})")
+        notes.append(f"{source}: skipped {plural(len(empty), 'placemark')} without a geometry ({listed})")
     columns: dict[str, list] = {"name": []}
     for row in rows:
         for key in row:

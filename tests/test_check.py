@@ -161,7 +161,7 @@ def test_spare_points_do_not_count_as_coverage(plan):
     row = report.table.set_index("block").loc[first]
     # common practice, no source: spares stand in only for planned points found inaccessible
     assert row["n_points"] == 0 and "not sampled" in row["notes"]
-    assert "spare point(s) left out" in report.source
+    assert "spare points left out" in report.source
 
 
 def test_unknown_block_and_duplicate_ids_are_reported(plan):

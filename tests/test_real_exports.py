@@ -302,7 +302,7 @@ def test_phone_geojson_with_z_and_a_gate_pin(tmp_path):
     assert sum("dropped the Z" in n for n in notes) == 1
     skipped = [n for n in notes if "skipped" in n]
     assert skipped == [
-        f"{path}: skipped 1 feature(s) that are not polygons: feature 3 (name='Gate') (Point); blocks are the polygons"
+        f"{path}: skipped 1 feature that is not a polygon: feature 3 (name='Gate') (Point); blocks are the polygons"
     ]
     for name, expected in geodesic_ha(rx.PHONE).items():
         got = blocks.loc[blocks["block"] == name].geometry.area.iloc[0] / 10_000
@@ -344,7 +344,7 @@ def test_kml_and_kmz_read_as_blocks(tmp_path, maker):
     assert blocks["variety"].tolist() == ["Pinotage", "Pinotage"]  # ExtendedData
     notes = blocks.attrs["notes"]
     assert any(
-        "skipped 2 feature(s) that are not polygons: feature 3 (name='Gate') (Point), "
+        "skipped 2 features that are not a polygon: feature 3 (name='Gate') (Point), "
         "feature 4 (name='Walk to creek') (LineString)" in n
         for n in notes
     )
@@ -465,3 +465,17 @@ def test_column_role_names_a_field_for_strata(tmp_path):
         "block": "BLOCK_NAME",
         "cultivar": "Variety",
     }
+
+
+def test_gpkg_layers_are_written_flat_without_a_warning(tmp_path):
+    from fieldplan.write.gpkg import write_layer
+
+    frame = rx.gpd.GeoDataFrame(
+        {"name": ["a"]}, geometry=[rx.shapely.Point(18.86, -33.86, 212.5)], crs="EPSG:4326"
+    )
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # GDAL's "contains geometries with Z" must not reach the user
+        write_layer(tmp_path / "t.gpkg", "positions", frame)
+    back = pyogrio.read_dataframe(tmp_path / "t.gpkg", layer="positions")
+    assert not back.geometry.has_z.any()
+    assert frame.geometry.has_z.all()  # the caller's frame is left as it was

@@ -91,7 +91,7 @@ def check(
                 if key == "max_gap_m":
                     value = "-" if not math.isfinite(value) else f"{value:.1f}"
                 elif key == "expected_points":
-                    value = f"{value:.1f}"
+                    value = f"{value:.2f}"  # as the table holds it, and as the notes quote it
                 cells.append(str(value))
             style = "bold red" if row["status"] == "FAIL" else None
             # Names come from input files: print them literally, never as rich markup.

@@ -14,6 +14,10 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # Plain click help: rich's option tables cut long option names ("--plants-per-cl…") in
+    # an 80-column terminal; click's formatter keeps every name whole and wraps the text.
+    rich_markup_mode=None,
+    context_settings={"max_content_width": 100},
 )
 
 

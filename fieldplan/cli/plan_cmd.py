@@ -364,6 +364,7 @@ def run_plan(blocks_file: Path, spec, *, out: Path, seed: int, force: bool, quie
 def report(result, out: Path) -> None:
     """Print what was planned, notes and flags, and the cautions."""
     from fieldplan.safety import cautions_text, plan_cautions
+    from fieldplan.words import plural
 
     for note in result.meta.get("notes", []):
         echo_err(f"note: {note}")
@@ -372,9 +373,9 @@ def report(result, out: Path) -> None:
         echo_err(f"note: block {row.block}: {row.flags}")
     n_spare = int(result.points["status"].eq("spare").sum()) if "status" in result.points.columns else 0
     typer.echo(
-        f"Planned {len(result.points) - n_spare} points"
-        + (f" and {n_spare} spares" if n_spare else "")
-        + f" in {len(result.blocks)} blocks "
+        f"Planned {plural(len(result.points) - n_spare, 'point')}"
+        + (f" and {plural(n_spare, 'spare')}" if n_spare else "")
+        + f" in {plural(len(result.blocks), 'block')} "
         f"({result.params.get('design')}, seed {result.params.get('seed')}) -> {out}"
     )
     if (out / "map.html").exists():

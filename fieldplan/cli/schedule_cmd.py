@@ -8,6 +8,7 @@ from typing import Annotated
 import typer
 
 from fieldplan.cli.options import Force, Quiet, echo_err, handle_errors
+from fieldplan.words import plural
 
 __all__ = ["register", "schedule"]
 
@@ -184,7 +185,7 @@ def schedule(
     if not quiet:
         n_days = rows[["date", "crew"]].drop_duplicates().shape[0] if len(rows) else 0
         typer.echo(
-            f"{len(jobs)} blocks, {rows['hours'].sum():.1f} crew-hours on {n_days} crew-days "
+            f"{plural(len(jobs), 'block')}, {rows['hours'].sum():.1f} crew-hours on {plural(n_days, 'crew-day')} "
             f"-> {plan_dir / 'schedule.ics'}, {plan_dir / 'schedule.csv'}"
         )
 

@@ -58,6 +58,7 @@ def write_layer(
 
     with _fixed_clock():
         if isinstance(frame, gpd.GeoDataFrame):
+            frame = _flat(frame)
             kwargs = {"geometry_type": geometry_type} if geometry_type else {}
             if len(frame) == 0 and not geometry_type:
                 kwargs["geometry_type"] = "Unknown"
@@ -66,6 +67,23 @@ def write_layer(
             pyogrio.write_dataframe(frame, path, layer=name, driver="GPKG", **kwargs)
         else:
             pyogrio.write_dataframe(pd.DataFrame(frame), path, layer=name, driver="GPKG")
+
+
+def _flat(frame: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
+    """Drop Z: layers are declared 2D, and GDAL warns on (and readers trip over) 3D shapes in them.
+
+    Blocks are flattened on read already; this covers layers other stages add (positions
+    from a GPS track with heights, say).
+    """
+    import numpy as np
+    import shapely
+
+    geoms = np.asarray(frame.geometry.values)
+    if not len(geoms) or not shapely.has_z(geoms).any():
+        return frame
+    out = frame.copy()
+    out[frame.geometry.name] = gpd.GeoSeries(shapely.force_2d(geoms), crs=frame.crs, index=frame.index)
+    return out
 
 
 def _arrow_ok(frame: gpd.GeoDataFrame, geometry_type: str | None) -> bool:

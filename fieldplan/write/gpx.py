@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from fieldplan.words import plural
 from fieldplan.write.html_map import optional_layer, plan_caption
 from fieldplan.write.safe import atomic_write_bytes
 from fieldplan.write.tables import LONLAT_DECIMALS, points_lonlat
@@ -211,7 +212,7 @@ def gpx_bytes(plan: Any, *, routes=None) -> bytes:
     metadata = ET.SubElement(root, "metadata")
     ET.SubElement(metadata, "name").text = xml_text(f"Sampling plan {caption['plan_id']}")
     ET.SubElement(metadata, "desc").text = xml_text(
-        f"seed {caption['seed']}; {caption['date']}; {len(plan.points)} points"
+        f"seed {caption['seed']}; {caption['date']}; {plural(len(plan.points), 'point')}"
     )
     marker, _ = _placeholder(root, root)
     ET.indent(root, space=" ")

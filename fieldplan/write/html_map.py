@@ -136,8 +136,10 @@ def optional_layer(plan: Any, name: str):
 
 
 def stratum_styles(strata) -> dict[str, dict[str, str]]:
-    """Colour and shape for each stratum, in sorted stratum order (stable across runs)."""
-    names = sorted({str(s) for s in strata})
+    """Colour and shape for each stratum, in natural stratum order (stable across runs)."""
+    from fieldplan.sorting import natural_sorted
+
+    names = natural_sorted({str(s) for s in strata})
     return {
         name: {"colour": PALETTE[i % len(PALETTE)], "shape": SHAPES[i % len(SHAPES)]}
         for i, name in enumerate(names)

@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from fieldplan.words import plural
 from fieldplan.write.gpx import point_description, spare_mask, text_column, xml_escape, xml_text
 from fieldplan.write.html_map import plan_caption, stratum_styles
 from fieldplan.write.safe import atomic_write_bytes
@@ -102,7 +103,7 @@ def kml_bytes(plan: Any) -> bytes:
     doc = ET.SubElement(root, "Document")
     ET.SubElement(doc, "name").text = xml_text(f"Sampling plan {caption['plan_id']}")
     ET.SubElement(doc, "description").text = xml_text(
-        f"Seed {caption['seed']}; {caption['date']}; {len(plan.points)} points.\n"
+        f"Seed {caption['seed']}; {caption['date']}; {plural(len(plan.points), 'point')}.\n"
         + cautions_text(plan_cautions(plan))
     )
     points = plan.points

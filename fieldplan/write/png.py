@@ -19,7 +19,8 @@ from typing import Any
 import numpy as np
 import shapely
 
-from fieldplan.write.html_map import plan_caption, stratum_styles
+from fieldplan.words import plural
+from fieldplan.write.html_map import PALETTE, plan_caption, stratum_styles
 from fieldplan.write.safe import atomic_write_bytes
 
 __all__ = [
@@ -28,6 +29,8 @@ __all__ = [
     "nice_length",
     "true_north_bearing",
     "plan_figure",
+    "legend_colours",
+    "page_styles",
     "plan_image_bytes",
     "write_png",
     "write_pdf",
@@ -48,6 +51,62 @@ MAX_LEGEND_STRATA = 24
 #: Above this many blocks the page carries no block labels: at A4 they overlap
 #: into an unreadable mass, and drawing them dominated the time to write a plan.
 MAX_LABELLED_BLOCKS = 200
+
+
+# Paul Tol (2021), "Colour Schemes", SRON/EPS/TN/09-002, the muted qualitative scheme
+# (from memory): more distinct colours after Okabe & Ito's seven, so a page legend of up
+# to 16 strata never shows one colour twice.
+TOL_MUTED: tuple[str, ...] = (
+    "#CC6677",
+    "#332288",
+    "#DDCC77",
+    "#117733",
+    "#88CCEE",
+    "#882255",
+    "#44AA99",
+    "#999933",
+    "#AA4499",
+)
+
+
+def legend_colours(n: int) -> list[str]:
+    """``n`` different colours: Okabe & Ito's, then Tol's muted, then evenly spaced hues."""
+    from matplotlib.colors import hsv_to_rgb, to_hex
+
+    colours = [*PALETTE, *TOL_MUTED][:n]
+    extra = n - len(colours)
+    if extra > 0:
+        # Hues spread evenly, alternating two lightness levels so neighbours differ twice.
+        hues = (np.arange(extra) / extra + 0.03) % 1.0
+        values = np.where(np.arange(extra) % 2 == 0, 0.85, 0.55)
+        rgb = hsv_to_rgb(np.column_stack([hues, np.full(extra, 0.75), values]))
+        taken = {c.lower() for c in colours}
+        for row in rgb:
+            colour = to_hex(row)
+            while colour.lower() in taken:  # never the same colour twice, however close
+                row = np.clip(row * 0.98, 0, 1)
+                colour = to_hex(row)
+            taken.add(colour.lower())
+            colours.append(colour)
+    return colours
+
+
+def page_styles(strata) -> dict[str, dict[str, str]]:
+    """Stratum styles for the printed page: the map's shapes, and no colour used twice.
+
+    The map repeats its seven colour-blind-safe colours with a different shape; on a
+    printed legend a repeated colour reads as "the same stratum", so the page gives
+    each of the strata it lists a colour of its own.
+    """
+    styles = stratum_styles(strata)
+    if len(styles) <= len(PALETTE):
+        return styles
+    shown = min(len(styles), MAX_LEGEND_STRATA)
+    colours = legend_colours(shown)
+    out = {}
+    for i, (name, style) in enumerate(styles.items()):
+        out[name] = {**style, "colour": colours[i]} if i < shown else dict(style)
+    return out
 
 
 def nice_length(span_m: float) -> float:
@@ -128,6 +187,64 @@ def _scatter_by_marker(ax, xy: np.ndarray, strata: np.ndarray, styles: dict, siz
         )
 
 
+# Where the north arrow may go, in axes fraction: its centre, tried in this order (the
+# scale bar holds the lower left). Each spot is a box of _ARROW_BOX around the centre.
+_ARROW_SPOTS = ((0.94, 0.88), (0.06, 0.88), (0.94, 0.14))
+_ARROW_BOX = (0.10, 0.20)
+
+
+def _north_arrow(fig, ax, north: float, occupied: np.ndarray, halo) -> None:
+    """Draw the north arrow in a map corner with no point or label under it, else beside the map.
+
+    ``occupied`` are data coordinates of points and block labels. The arrow and its
+    "N" carry ``gid="north-arrow"`` so tests can find them.
+    """
+    frac = ax.transAxes.inverted().transform(ax.transData.transform(occupied)) if len(occupied) else occupied
+    spot, transform, target = None, ax.transAxes, ax
+    half_w, half_h = _ARROW_BOX[0] / 2, _ARROW_BOX[1] / 2
+    for cx, cy in _ARROW_SPOTS:
+        if not len(frac) or not (
+            (np.abs(frac[:, 0] - cx) <= half_w) & (np.abs(frac[:, 1] - cy) <= half_h)
+        ).any():
+            spot = (cx, cy)
+            break
+    if spot is None:
+        # Every corner holds points: the arrow goes in the margin right of the map, below the legend.
+        box = ax.get_position()
+        spot, transform, target = (box.x1 + 0.03, box.y0 + 0.08), fig.transFigure, fig
+    cx, cy = spot
+    length = 0.08 if target is ax else 0.06
+    dx = length * math.sin(math.radians(north))
+    dy = length * math.cos(math.radians(north))
+    if target is fig:
+        # Figure fractions are not square on A4 landscape: keep the arrow's true direction.
+        width, height = fig.get_size_inches()
+        dx *= height / width
+    arrow = ax.annotate(
+        "",
+        xy=(cx + dx / 2, cy + dy / 2),
+        xytext=(cx - dx / 2, cy - dy / 2),
+        xycoords=transform,
+        annotation_clip=False,
+        arrowprops={"arrowstyle": "-|>,head_width=0.4,head_length=0.8", "color": "#111111", "linewidth": 2},
+    )
+    arrow.set_gid("north-arrow")
+    label = ax.text(
+        cx + 0.7 * dx,
+        cy + 0.7 * dy,
+        "N",
+        transform=transform,
+        ha="center",
+        va="center",
+        fontsize=11,
+        fontweight="bold",
+        path_effects=halo,
+        parse_math=False,
+        clip_on=False,
+    )
+    label.set_gid("north-arrow")
+
+
 def _text(ax, x, y, s, **kw):
     # parse_math=False: a '$' in a block or stratum name is text, not TeX.
     return ax.text(x, y, s, parse_math=False, **kw)
@@ -173,7 +290,7 @@ def plan_figure(plan: Any, *, title: str | None = None):
         )
 
     points = plan.points
-    styles = stratum_styles(points["stratum"].astype(str)) if len(points) else {}
+    styles = page_styles(points["stratum"].astype(str)) if len(points) else {}
     xy = shapely.get_coordinates(points.geometry.values) if len(points) else np.empty((0, 2))
     strata = points["stratum"].astype(str).to_numpy() if len(points) else np.array([])
     size = 28 if len(points) < 500 else (14 if len(points) < 5000 else 4)
@@ -263,28 +380,10 @@ def plan_figure(plan: Any, *, title: str | None = None):
     )
 
     north = true_north_bearing(plan.crs, (x0 + x1) / 2, (y0 + y1) / 2)
-    cx, cy, length = 0.94, 0.88, 0.08
-    dx = length * math.sin(math.radians(north))
-    dy = length * math.cos(math.radians(north))
-    ax.annotate(
-        "",
-        xy=(cx + dx / 2, cy + dy / 2),
-        xytext=(cx - dx / 2, cy - dy / 2),
-        xycoords="axes fraction",
-        arrowprops={"arrowstyle": "-|>,head_width=0.4,head_length=0.8", "color": "#111111", "linewidth": 2},
-    )
-    _text(
-        ax,
-        cx + 0.7 * dx,
-        cy + 0.7 * dy,
-        "N",
-        transform=ax.transAxes,
-        ha="center",
-        va="center",
-        fontsize=11,
-        fontweight="bold",
-        path_effects=halo,
-    )
+    occupied = xy
+    if labelled:
+        occupied = np.concatenate([xy, anchors]) if len(xy) else anchors
+    _north_arrow(fig, ax, north, occupied, halo)
 
     handles.append(Patch(facecolor="#fbfbf7", edgecolor="#333333", label="Block (id, variety)"))
     if exclusions is not None and len(exclusions):
@@ -313,7 +412,7 @@ def plan_figure(plan: Any, *, title: str | None = None):
     fig.text(0.03, 0.955, head, fontsize=13, fontweight="bold", parse_math=False)
     sub = (
         f"Seed {caption['seed']}   Date {caption['date'] or '-'}   Design {caption['design'] or '-'}"
-        f"   {len(points)} points in {len(blocks)} blocks   CRS {plan.crs.name}"
+        f"   {plural(len(points), 'point')} in {plural(len(blocks), 'block')}   CRS {plan.crs.name}"
     )
     if len(blocks) > MAX_LABELLED_BLOCKS:
         sub += f"   Block labels left out (over {MAX_LABELLED_BLOCKS} blocks): see map.html or points.csv"
