@@ -64,6 +64,9 @@ __all__ = [
     "REMOVED_LAYER",
     "DATE_FORMATS",
     "next_round",
+    "PreparedImport",
+    "prepare_import",
+    "active_point_ids",
 ]
 
 RESULTS_LAYER = "results"
@@ -1031,6 +1034,111 @@ def append_round(
         if tmp.exists():
             tmp.unlink()
     return round_no
+
+
+def active_point_ids(points: pd.DataFrame) -> set[str]:
+    """Points to be sampled now: not unused spares, not marked inaccessible."""
+    ids = points["point_id"].astype(str)
+    if "status" not in points.columns:
+        return set(ids)
+    status = points["status"].fillna("selected").astype(str)
+    # The statuses of fieldplan.field (spares: selected/spare; mark: replacement/substitute/inaccessible).
+    return set(ids[status.isin(["selected", "replacement", "substitute"])])
+
+
+@dataclass(frozen=True)
+class PreparedImport:
+    """A results file read and checked against a plan, ready to store; nothing written yet.
+
+    Attributes
+    ----------
+    table : ResultsTable
+    existing : pandas.DataFrame
+        The rounds stored so far.
+    round_no : int
+        The number the round will get.
+    suspects : pandas.DataFrame
+        :func:`outlier_suspects` of the table.
+    positions : pandas.DataFrame or None
+        Recorded positions (``point_id, lon, lat``) from the file or a GPX, checked against the plan.
+    max_offset : float or None
+        Metres before a recorded position is flagged (the plan's default when not given).
+    active : set of str
+        The plan's active point ids; ``matched`` of them have a row, ``inactive`` lists rows for others.
+    """
+
+    table: ResultsTable
+    existing: pd.DataFrame
+    round_no: int
+    suspects: pd.DataFrame
+    positions: pd.DataFrame | None
+    max_offset: float | None
+    active: frozenset
+    matched: int
+    inactive: tuple[str, ...]
+
+
+def prepare_import(
+    plan,
+    file: str | Path,
+    *,
+    value_columns: Iterable[str] | None = None,
+    sheet: str | None = None,
+    date_format: str | None = None,
+    allow_duplicate: bool = False,
+    positions: str | Path | None = None,
+    max_offset: float | None = None,
+) -> PreparedImport:
+    """Read and check everything a results import needs, writing nothing.
+
+    The file (:func:`read_results`, with the plan's point ids and label sample
+    ids), a repeated import (:func:`refuse_duplicate`), recorded positions
+    (``lon``/``lat`` columns or the GPX ``positions``, matched against the
+    plan) and the outlier check are all done here, so :func:`append_round`
+    runs only on input that has passed. ``plan`` is a loaded plan
+    (:func:`fieldplan.store.load_plan`).
+    """
+    from fieldplan.field.positions import (
+        default_max_offset,
+        position_report,
+        positions_from_table,
+        read_gpx_positions,
+    )
+
+    existing = stored_results(plan.layers)
+    round_no = next_round(plan.layers)
+    table = read_results(
+        file,
+        point_ids=plan.points["point_id"].astype(str),
+        value_columns=value_columns,
+        sample_ids=sample_id_map(plan.points, rounds=round_no + 2),
+        date_format=date_format,
+        sheet=sheet,
+    )
+    refuse_duplicate(table, existing, allow_duplicate=allow_duplicate)
+    actual = None
+    if positions is not None:
+        actual = read_gpx_positions(positions)
+    elif "lon" in table.data.columns or "lat" in table.data.columns:
+        cols = [c for c in ("point_id", "lon", "lat") if c in table.data.columns]
+        actual = positions_from_table(table.data[cols], source=table.source)
+    limit = None
+    if actual is not None:
+        limit = default_max_offset(plan.params) if max_offset is None else float(max_offset)
+        position_report(plan, actual, max_offset=limit)  # unknown waypoints, bad limits fail here
+    active = active_point_ids(plan.points)
+    matched = set(table.data["point_id"].astype(str))
+    return PreparedImport(
+        table=table,
+        existing=existing,
+        round_no=round_no,
+        suspects=outlier_suspects(table),
+        positions=actual,
+        max_offset=limit,
+        active=frozenset(active),
+        matched=len(matched & active),
+        inactive=tuple(sorted(matched - active)),
+    )
 
 
 def next_round(layers: Mapping[str, pd.DataFrame]) -> int:

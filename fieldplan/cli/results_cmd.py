@@ -22,18 +22,6 @@ def _now_utc() -> str:
     return when.strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
-def _active_ids(points) -> set[str]:
-    """Points to be sampled now: not unused spares, not marked inaccessible."""
-    from fieldplan.field.mark import REPLACEMENT, SUBSTITUTE
-    from fieldplan.field.spares import SELECTED
-
-    ids = points["point_id"].astype(str)
-    if "status" not in points.columns:
-        return set(ids)
-    status = points["status"].fillna(SELECTED).astype(str)
-    return set(ids[status.isin([SELECTED, REPLACEMENT, SUBSTITUTE])])
-
-
 @handle_errors
 def results(
     plan_dir: Annotated[Path, typer.Argument(help="Plan folder made by 'fieldplan plan'.")],
@@ -114,52 +102,33 @@ def results(
     if file is None:
         raise OptionError("give a results file to import (CSV or .xlsx), or --remove-round N")
 
-    from fieldplan.results import (
-        append_round,
-        format_outliers,
-        format_problems,
-        next_round,
-        outlier_suspects,
-        read_results,
-        refuse_duplicate,
-        sample_id_map,
-        stored_results,
-    )
+    from fieldplan.results import append_round, format_outliers, format_problems, prepare_import
     from fieldplan.store import load_plan
 
     # Read and check every input before the first write: a refused import stores nothing.
     plan = load_plan(plan_dir)
-    existing = stored_results(plan.layers)
-    round_no = next_round(plan.layers)
-    table = read_results(
+    ready = prepare_import(
+        plan,
         file,
-        point_ids=plan.points["point_id"].astype(str),
         value_columns=value,
-        sample_ids=sample_id_map(plan.points, rounds=round_no + 2),
-        date_format=date_format,
         sheet=sheet,
+        date_format=date_format,
+        allow_duplicate=allow_duplicate,
+        positions=positions,
+        max_offset=max_offset,
     )
-    # A refused re-import prints the refusal alone, not the problems of a file already dealt with.
-    refuse_duplicate(table, existing, allow_duplicate=allow_duplicate)
-    actual = _read_positions(table, positions)
-    if actual is not None:
-        from fieldplan.field.positions import default_max_offset, position_report
-
-        # Unknown waypoint names or a bad --max-offset fail here, before the round is stored.
-        limit = default_max_offset(plan.params) if max_offset is None else max_offset
-        position_report(plan, actual, max_offset=limit)
+    table = ready.table
     for note in table.notes:
         echo_err(f"note: {file.name}: {note}")
     if not table.problems.empty:
         echo_err(f"{len(table.problems)} problem(s) in {file.name}:")
         echo_err(format_problems(table.problems))
-    suspects = outlier_suspects(table)
-    if len(suspects):
+    if len(ready.suspects):
         echo_err(
-            f"{len(suspects)} value(s) far from the rest of the round "
+            f"{len(ready.suspects)} value(s) far from the rest of the round "
             "(modified z-score beyond 3.5, Iglewicz & Hoaglin 1993), e.g. a decimal slip:"
         )
-        echo_err(format_outliers(suspects))
+        echo_err(format_outliers(ready.suspects))
         if not accept_outliers:
             raise InputError(
                 f"{file}: nothing stored; correct the values listed above, or give --accept-outliers "
@@ -168,50 +137,31 @@ def results(
     stored = append_round(
         plan_dir,
         table,
-        existing=existing,
+        existing=ready.existing,
         imported_utc=_now_utc(),
         allow_duplicate=allow_duplicate,
-        round_no=round_no,
+        round_no=ready.round_no,
     )
     if not quiet:
-        active = _active_ids(plan.points)
-        matched = table.data["point_id"].astype(str)
-        got = len(set(matched) & active)
-        inactive = sorted(set(matched) - active)
         cols = ", ".join(table.value_columns)
         typer.echo(
-            f"Stored round {stored}: {got} of {len(active)} active plan points, values {cols} "
+            f"Stored round {stored}: {ready.matched} of {len(ready.active)} active plan points, values {cols} "
             f"-> {Path(plan_dir) / 'plan.gpkg'} (layer results)"
         )
-        if inactive:
+        if ready.inactive:
             echo_err(
-                f"note: {len(inactive)} row(s) for points not in the active sample (spares not in use "
-                f"or marked inaccessible), stored but worth a check: {', '.join(inactive[:10])}"
-                + (" ..." if len(inactive) > 10 else "")
+                f"note: {len(ready.inactive)} row(s) for points not in the active sample (spares not in "
+                f"use or marked inaccessible), stored but worth a check: {', '.join(ready.inactive[:10])}"
+                + (" ..." if len(ready.inactive) > 10 else "")
             )
-    if actual is not None:
-        _positions(plan, plan_dir, actual, max_offset=max_offset, round_no=stored, quiet=quiet)
+    if ready.positions is not None:
+        _positions(plan_dir, ready.positions, limit=ready.max_offset, round_no=stored, quiet=quiet)
 
 
-def _read_positions(table, gpx: Path | None):
-    """Recorded positions from --positions or the file's lon/lat columns (read only)."""
-    from fieldplan.field.positions import positions_from_table, read_gpx_positions
-
-    if gpx is not None:
-        return read_gpx_positions(gpx)
-    data = table.data
-    if "lon" not in data.columns and "lat" not in data.columns:
-        return None
-    return positions_from_table(data[[c for c in ("point_id", "lon", "lat") if c in data.columns]],
-                                source=table.source)  # fmt: skip
-
-
-def _positions(plan, plan_dir: Path, actual, *, max_offset, round_no: int, quiet: bool) -> None:
-    """Compare recorded positions with the plan and store them."""
-    from fieldplan.field.positions import default_max_offset
+def _positions(plan_dir: Path, actual, *, limit: float, round_no: int, quiet: bool) -> None:
+    """Store the recorded positions (checked by prepare_import) and report the far ones."""
     from fieldplan.field.record import POSITIONS_NAME, record_positions
 
-    limit = default_max_offset(plan.params) if max_offset is None else max_offset
     report = record_positions(plan_dir, actual, max_offset=limit, round_no=round_no, recorded_utc=_now_utc())
     far = report[report["beyond_max_offset"]]
     for row in far.head(50).itertuples(index=False):
