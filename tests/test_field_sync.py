@@ -418,3 +418,25 @@ def test_conflicts_endpoint(client, plan_dir):
     assert locked.get("/api/field/harvest/conflicts").status_code == 403
     office = locked.get("/api/field/harvest/conflicts", headers={"authorization": "Bearer office-key"})
     assert office.status_code == 200 and office.json()["conflicts"][0]["kind"] == "taken twice"
+
+
+def test_crew_links_for_the_office(plan_dir):
+    from fastapi.testclient import TestClient
+
+    from fieldplan.field.links import check_crew_token
+    from fieldplan.web.app import create_app
+
+    app = create_app(plan_dir.parent, token="office-key")
+    http = TestClient(app, base_url="http://127.0.0.1")
+    assert http.get("/api/field/harvest/links").status_code == 403
+    answer = http.get(
+        "/api/field/harvest/links?base=http://10.0.0.7:8750", headers={"authorization": "Bearer office-key"}
+    )
+    assert answer.status_code == 200
+    crews = answer.json()["crews"]
+    assert [c["crew"] for c in crews] == [1, 2]
+    for c in crews:
+        assert c["url"].startswith(f"http://10.0.0.7:8750/field/harvest/{c['crew']}/?t=")
+        # reference: RFC 2104 HMAC bound to plan and crew
+        assert check_crew_token(app.state.secret, "harvest", c["crew"], c["url"].rsplit("=", 1)[1])
+        assert c["qr_svg"].startswith("<svg")

@@ -302,31 +302,77 @@ async def field_records(request: Request, plan: str, crew: int) -> JSONResponse:
     return JSONResponse(report.as_dict())
 
 
-@router.get("/api/field/{plan}/conflicts")
-def field_conflicts_api(request: Request, plan: str) -> JSONResponse:
-    """Conflicts between field records, and with points marked inaccessible at the office."""
+def _office_allowed(request: Request) -> bool:
+    """The workspace's own users: its access token as a bearer header, or its login cookie.
+
+    A workspace started without a token serves loopback hosts only (its guard), so anyone
+    who reaches it is at the office machine.
+    """
     import hmac
 
-    from fieldplan.field.sync import field_conflicts
+    from fieldplan.web.security import AUTH_COOKIE, auth_cookie_value
+
+    token = getattr(request.app.state, "token", None)
+    if not token:
+        return True
+    authz = request.headers.get("authorization", "")
+    bearer = authz[7:].strip() if authz[:7].lower() == "bearer " else ""
+    if bearer and hmac.compare_digest(bearer, token):
+        return True
+    cookie = request.cookies.get(AUTH_COOKIE, "")
+    return bool(cookie) and hmac.compare_digest(cookie, auth_cookie_value(request.app.state.secret, token))
+
+
+@router.get("/api/field/{plan}/conflicts")
+def field_conflicts_api(request: Request, plan: str) -> JSONResponse:
+    """Conflicts between field records, and with points marked inaccessible at the office.
+
+    Open to the workspace's users and to any crew of the plan (``?crew=K&t=TOKEN``).
+    """
+    from fieldplan.field.sync import conflict_notes, field_conflicts
 
     token = _token(request)
     crew = request.query_params.get("crew", "")
     allowed = (
         bool(token) and crew.isdigit() and check_crew_token(request.app.state.secret, plan, int(crew), token)
     )
-    workspace_token = getattr(request.app.state, "token", None)
-    authz = request.headers.get("authorization", "")
-    bearer = authz[7:].strip() if authz[:7].lower() == "bearer " else ""
-    if workspace_token and bearer and hmac.compare_digest(bearer, workspace_token):
-        allowed = True
-    if not workspace_token and _is_local(request):
-        allowed = True
-    if not allowed:
+    if not (allowed or _office_allowed(request)):
         _forbidden("Conflicts need a crew link of this plan or the workspace's access token.")
-    return JSONResponse({"plan": plan, "conflicts": field_conflicts(_plan_dir(request, plan))})
+    plan_dir = _plan_dir(request, plan)
+    return JSONResponse(
+        {"plan": plan, "conflicts": field_conflicts(plan_dir), "notes": conflict_notes(plan_dir)}
+    )
 
 
-def _is_local(request: Request) -> bool:
-    """A workspace without a token serves only loopback clients (its guard checks the host)."""
-    client = request.client.host if request.client else ""
-    return client in ("127.0.0.1", "::1", "testclient", "localhost")
+@router.get("/api/field/{plan}/links")
+def crew_links(request: Request, plan: str, base: str | None = None) -> JSONResponse:
+    """Each crew's page address with its QR code (SVG), for the plan page (workspace users only).
+
+    ``base`` is the address the phones reach this server at (default: the one this request
+    used; a server bound to 127.0.0.1 is not reachable from a phone, see docs/crew-page.md).
+    """
+    import numpy as np
+    import pandas as pd
+    import segno
+
+    from fieldplan.field.links import crew_link
+    from fieldplan.store import load_plan
+
+    if not _office_allowed(request):
+        _forbidden("Crew links are for the workspace's users; open the workspace with its access link.")
+    plan_dir = _plan_dir(request, plan)
+    root = base or str(request.base_url)
+    if not root.startswith(("http://", "https://")):
+        raise HTTPException(status_code=400, detail="base must start with http:// or https://")
+    points = load_plan(plan_dir).points
+    crews = (
+        sorted(int(k) for k in np.unique(pd.to_numeric(points["crew"], errors="coerce").dropna()) if k > 0)
+        if "crew" in points.columns
+        else []
+    )
+    out = []
+    for k in crews:
+        url = crew_link(root, request.app.state.secret, plan, k)
+        svg = segno.make_qr(url, error="m").svg_inline(scale=3, border=4)
+        out.append({"crew": k, "url": url, "qr_svg": svg})
+    return JSONResponse({"plan": plan, "crews": out})
