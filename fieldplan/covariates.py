@@ -450,8 +450,7 @@ def fit_variogram(
     (``scipy.optimize.curve_fit``, bounded: range within the lags, sill and nugget within
     twice the largest semivariance) and the one with the smallest weighted residual is
     kept. None is returned with fewer than 30 points, fewer than 4 lag classes holding
-    pairs, or when the best fit is pure nugget or hits the range bound (no structure the
-    survey resolves).
+    pairs, or when the nugget is 95 % or more of the sill (no spatial structure).
     """
     from scipy.optimize import curve_fit
 
@@ -491,7 +490,10 @@ def fit_variogram(
     if best is None:
         return None
     v = best[1]
-    if v.psill <= 1e-6 * top or v.range >= 0.999 * maxlag:
+    # A pure nugget effect means no spatial structure to krige with. A range at the upper
+    # bound (a trend, or structure wider than the lags) is kept: kriging uses the 16 nearest
+    # points, where the fitted curve describes the data.
+    if v.psill <= 0.05 * (v.psill + v.nugget):
         return None
     return v
 
