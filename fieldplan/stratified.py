@@ -96,6 +96,9 @@ def read_rows(path, *, crs):
         raise InputError(f"{path}: cannot read row lines ({err}); export them as GeoJSON") from None
     if frame.crs is None:
         frame = frame.set_crs("EPSG:4326")
+    # Rows walked with a GPS carry heights; the row model is on the ground plane.
+    flat = shapely.force_2d(frame.geometry.values)
+    frame = frame.set_geometry(gpd.GeoSeries(flat, crs=frame.crs, index=frame.index))
     frame = frame.explode(index_parts=False, ignore_index=True)
     kinds = frame.geometry.geom_type.to_numpy()
     bad = np.flatnonzero(kinds != "LineString")

@@ -479,3 +479,31 @@ def test_gpkg_layers_are_written_flat_without_a_warning(tmp_path):
     back = pyogrio.read_dataframe(tmp_path / "t.gpkg", layer="positions")
     assert not back.geometry.has_z.any()
     assert frame.geometry.has_z.all()  # the caller's frame is left as it was
+
+
+def test_missing_row_value_error_names_the_option_and_the_files_fields(tmp_path):
+    from fieldplan.read import check_row_attributes
+
+    path = rx.state_plane_shapefile(tmp_path)
+    blocks = read_blocks(path, columns={"block": "BLOCK_NAME"})
+    with pytest.raises(InvalidBlocksError) as err:
+        check_row_attributes(blocks, needed=True)
+    message = str(err.value)
+    assert "block 'Blk 1' (and 2 more) has no row_spacing_m" in message
+    assert "--column row_spacing=FIELD" in message
+    assert (
+        "(the file's fields: BLOCK_NAME, Variety, Crop, AREA_HA, RowSpacing, VineSpace, RowDir, FLAGS)"
+        in message
+    )
+
+
+def test_mapped_rows_with_z_are_flattened(tmp_path):
+    from fieldplan.stratified import read_rows
+
+    x0, y0, x1, y1 = rx.PHONE["Home block"]
+    rows = rx.gpd.GeoDataFrame(
+        {"row": [1]}, geometry=[rx.shapely.LineString([(x0, y0, 200.0), (x0, y1, 205.0)])], crs="EPSG:4326"
+    )
+    path = tmp_path / "rows.geojson"
+    rows.to_file(path)
+    assert not read_rows(path, crs="EPSG:32734").geometry.has_z.any()
