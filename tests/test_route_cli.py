@@ -205,3 +205,61 @@ def test_bad_options_one_line_exit_2(plan_dir, args, needle):
     result = runner.invoke(app, [a.replace("{dir}", str(plan_dir)) for a in args])
     assert result.exit_code == 2 and needle in result.output
     assert "Traceback" not in result.output
+
+
+def test_drop_off_far_from_every_block_is_refused(plan_dir):
+    # reference: pyproj.Geod (WGS84) distances; 50 km is the limit the tool sets (common
+    # practice, no source: crews drive to the blocks, a far drop-off is a typing slip).
+    from pyproj import Geod
+
+    geod = Geod(ellps="WGS84")
+    lonlat = load_plan(plan_dir).blocks.to_crs(4326).get_coordinates()
+    lost = runner.invoke(app, ["crews", str(plan_dir), "--crews", "2", "--start", "18.8905,33.8620"])
+    assert lost.exit_code == 2 and "Traceback" not in lost.output
+    assert "did you mean --start 18.8905,-33.862?" in lost.output
+    x, y = lonlat.x.to_numpy(), lonlat.y.to_numpy()
+    _, _, d = geod.inv(np.full(len(x), 18.8905), np.full(len(x), 33.862), x, y)
+    assert f"is {d.min() / 1000:,.0f} km from the nearest block" in lost.output
+    assert not (plan_dir / "crews.csv").exists()
+    west = lonlat.iloc[int(np.argmin(x))]
+    for km, ok in ((45, True), (55, False)):
+        lon, lat, _ = geod.fwd(west.x, west.y, 270.0, km * 1000.0)
+        result = runner.invoke(
+            app, ["crews", str(plan_dir), "--crews", "2", "--start", f"{lon},{lat}", "--force"]
+        )
+        assert (result.exit_code == 0) == ok, result.output
+
+
+def test_max_hours_names_the_blocks_left_part_sampled(plan_dir):
+    # common practice, no source: dropping the far end of a route samples the part of a block
+    # nearer the drop-off, so the user is told which blocks are incomplete and why it matters.
+    args = ["crews", str(plan_dir), "--crews", "2", "--max-hours", "1.5", "--start", START]
+    result = runner.invoke(app, args)
+    assert result.exit_code == 0, result.output
+    pts = load_plan(plan_dir).points
+    left = pts[pts["crew"] == 0].groupby("block").size()
+    total = pts.groupby("block").size()
+    assert len(left) > 0 and "part-sampled" in result.output and "toward the drop-off" in result.output
+    for block, k in left.items():
+        assert f"{block}: {k} of {total[block]} point(s) not visited" in result.output
+    for block in set(total.index) - set(left.index):
+        assert f"{block}: " not in result.output
+
+
+@pytest.mark.parametrize(("k", "hours"), [(2, None), (3, None), (4, "6")])
+def test_each_block_is_sampled_by_one_crew(plan_dir, k, hours):
+    # common practice, no source: one crew per block (one drive, one set of hands per block),
+    # as long as the days stay balanced (longest crew within 15 % of the mean, as above) or,
+    # with --max-hours, the block fits in the day.
+    args = ["crews", str(plan_dir), "--crews", str(k), "--start", START, "--return"]
+    result = runner.invoke(app, args + (["--max-hours", hours] if hours else []))
+    assert result.exit_code == 0, result.output
+    pts = load_plan(plan_dir).points
+    assert (pts["crew"] > 0).all()
+    assert (pts.groupby("block")["crew"].nunique() == 1).all()
+    table = (plan_dir / "crews.csv").read_text().splitlines()
+    crew_hours = np.array([float(line.split(",")[3]) for line in table[1:]])
+    if hours is None:
+        assert crew_hours.max() <= 1.15 * crew_hours.mean()
+    else:
+        assert crew_hours.max() <= float(hours)

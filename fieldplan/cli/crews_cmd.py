@@ -88,6 +88,13 @@ def crews(
             f"{len(run.unfitted_ids)} point(s) do not fit in {max_hours:g} h per crew: {shown} "
             f"(listed in {Path(plan_dir) / 'crews_unfitted.csv'}); add crews or hours"
         )
+        echo_err(
+            "warning: these blocks would be left part-sampled: "
+            + "; ".join(line.removeprefix("block ") for line in run.incomplete)
+            + ". The points left out are the far ends of the routes, so what is sampled of a block "
+            "leans toward the drop-off and its estimate is biased; sample the rest another day "
+            "(same plan) or add crews or hours rather than estimating from part of a block"
+        )
     if not quiet:
         if run.start_xy is not None:
             typer.echo(_start_line(run, plan.crs))

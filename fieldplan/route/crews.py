@@ -15,6 +15,9 @@ Method ("route first, cluster second"; tour splitting after Frederickson, Hecht
 3. Each crew is routed on its own points (:func:`~fieldplan.route.tsp.solve_route`).
 4. Local rebalancing: the slowest crew hands points at the end of its stretch
    to the quicker neighbouring stretch while that lowers the slower of the two.
+   Then a cut that falls inside a block moves to that block's edge, so one crew
+   samples the whole block, where the longest day grows by at most
+   :data:`BLOCK_SLACK`, or, with ``max_hours``, wherever the block fits in the day.
 5. If ``max_hours`` is given, points at the end of a route that would push the
    crew past it are left out and reported.
 
@@ -44,6 +47,11 @@ __all__ = [
 DEFAULT_WALK_KMH = 4.0
 #: Minutes spent at each point taking and labelling a sample (common practice, no source).
 DEFAULT_MINUTES_PER_POINT = 5.0
+#: How much longer the longest crew day may get so that a block is not split between crews
+#: (without ``max_hours``; with it, a block is kept whole wherever it fits in the day):
+#: one crew per block keeps a block's samples consistent and saves a second drive (common
+#: practice, no source).
+BLOCK_SLACK = 0.10
 
 
 @dataclass(frozen=True)
@@ -250,8 +258,9 @@ def assign_crews(
     n_crews = int(n_crews)
 
     # The drop-off becomes node n with its own block code: plain distance to everything.
+    grouped = group is not None
     if group is None or row_bearing_deg is None:
-        group = np.arange(n)
+        group = np.arange(n) if group is None else np.asarray(group)
         row_bearing_deg = np.full(n, np.nan)
     group = np.asarray(group, dtype=np.int64)
     bearing = np.asarray(row_bearing_deg, dtype=float)
@@ -278,8 +287,20 @@ def assign_crews(
     if depot is not None:
         tour = tour[tour != depot]
     approach = metric.many(np.full(n, depot), np.arange(n)) / speed if depot is not None else None
+    shifts = np.unique(np.linspace(0, n, num=min(n, 8), endpoint=False).astype(int))
+    if grouped and n:
+        # Each block's points together, blocks in the order the tour meets them on average, so
+        # stretches cut between blocks where they can; tours are rotated at block starts only.
+        codes = group[tour]
+        at = np.arange(n, dtype=float)
+        mean_at = np.bincount(codes, weights=at) / np.maximum(np.bincount(codes), 1)
+        tour = tour[np.lexsort((at, mean_at[codes]))]
+        starts = np.flatnonzero(np.r_[True, group[tour][1:] != group[tour][:-1]])
+        shifts = np.unique(
+            starts[np.linspace(0, len(starts), num=min(len(starts), 8), endpoint=False).astype(int)]
+        )
     best = None
-    for shift in np.unique(np.linspace(0, n, num=min(n, 8), endpoint=False).astype(int)):
+    for shift in shifts:
         seq = np.roll(tour, -int(shift))
         leg = metric.many(seq[:-1], seq[1:]) / speed
         bounds, longest = split_tour(
@@ -333,6 +354,37 @@ def assign_crews(
                 move //= 2
         if not improved:
             break
+
+    # 4b: a cut inside a block moves to the block's edge, so one crew samples the whole block,
+    # where that keeps the longest day within BLOCK_SLACK of what it was (and within max_hours).
+    if n_crews > 1 and grouped:
+        codes = group[:n][seq]
+        for c in range(1, n_crews):
+            b = bounds[c]
+            if b <= bounds[c - 1] or b >= bounds[c + 1] or codes[b - 1] != codes[b]:
+                continue
+            lo, hi = b, b
+            while lo > bounds[c - 1] + 1 and codes[lo - 1] == codes[b]:
+                lo -= 1
+            while hi < bounds[c + 1] - 1 and codes[hi] == codes[b - 1]:
+                hi += 1
+            # With max_hours, a whole block is kept wherever it fits in the day; without, the
+            # longest day may grow by BLOCK_SLACK.
+            limit = float(hours.max()) * (1.0 + BLOCK_SLACK)
+            if max_hours is not None:
+                limit = max(float(max_hours), float(max(hours[c - 1], hours[c])))
+            best_cut = None
+            for cut in (lo, hi):
+                if cut == b or codes[cut - 1] == codes[cut]:
+                    continue
+                trial = bounds.copy()
+                trial[c] = cut
+                r_a, r_b = route_part(c - 1, trial, quick), route_part(c, trial, quick)
+                h_a, h_b = hours_of(r_a), hours_of(r_b)
+                if max(h_a, h_b) <= limit + 1e-9 and (best_cut is None or max(h_a, h_b) < best_cut[0]):
+                    best_cut = (max(h_a, h_b), trial, r_a, r_b, h_a, h_b)
+            if best_cut is not None:
+                _, bounds, routes[c - 1], routes[c], hours[c - 1], hours[c] = best_cut
 
     routes = [route_part(k, bounds, kicks) for k in range(n_crews)]
 

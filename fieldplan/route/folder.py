@@ -27,7 +27,19 @@ from fieldplan.errors import OutputExistsError
 from fieldplan.route.crews import DEFAULT_MINUTES_PER_POINT, DEFAULT_WALK_KMH, CrewPlan, assign_crews
 from fieldplan.route.metric import DEFAULT_ACROSS_FACTOR
 
-__all__ = ["CrewRun", "default_start_xy", "plan_crews", "write_crews"]
+__all__ = [
+    "MAX_DROP_OFF_KM",
+    "CrewRun",
+    "check_drop_off",
+    "default_start_xy",
+    "incomplete_blocks",
+    "plan_crews",
+    "write_crews",
+]
+
+#: A drop-off further than this from every block is taken for a typing slip (a lost minus sign,
+#: longitude and latitude swapped): crews drive to the blocks, they do not walk from another farm.
+MAX_DROP_OFF_KM = 50.0
 
 # Point statuses nobody walks to: unused spares and points marked inaccessible.
 _NOT_VISITED = ("spare", "inaccessible")
@@ -45,6 +57,59 @@ class CrewRun:
     unfitted_ids: list[str]
     start_xy: np.ndarray | None
     start_source: str = ""  # "given" (--start), "centroid" (default for --return) or "" (none)
+    incomplete: tuple[str, ...] = ()  # one line per block that max_hours leaves part-sampled
+
+
+def check_drop_off(plan, lonlat: tuple[float, float], *, max_km: float = MAX_DROP_OFF_KM) -> float:
+    """Refuse a drop-off further than ``max_km`` from every block; return its distance in km.
+
+    The distance is geodesic (WGS84 ellipsoid, :class:`pyproj.Geod`) from the
+    drop-off to the nearest point of the nearest block (found in the plan's
+    metric CRS). The message suggests the point with a sign flipped or the
+    two numbers swapped when that one lies near the blocks.
+    """
+    from pyproj import Geod, Transformer
+
+    from fieldplan.errors import OptionError
+
+    km = _drop_off_km(plan, lonlat, Geod(ellps="WGS84"), Transformer)
+    if km <= max_km:
+        return km
+    lon, lat = lonlat
+    guesses = [(lon, -lat), (-lon, lat), (-lon, -lat), (lat, lon)]
+    near = [g for g in guesses if -180 <= g[0] <= 180 and -90 <= g[1] <= 90]
+    near = [g for g in near if _drop_off_km(plan, g, Geod(ellps="WGS84"), Transformer) <= max_km]
+    hint = f"; did you mean --start {near[0][0]:g},{near[0][1]:g}?" if near else ""
+    raise OptionError(
+        f"--start {lon:g},{lat:g} is {km:,.0f} km from the nearest block, more than {max_km:g} km: "
+        "check the signs (south and west are negative) and the order LON,LAT" + hint
+    )
+
+
+def _drop_off_km(plan, lonlat, geod, transformer) -> float:
+    to_local = transformer.from_crs("EPSG:4326", plan.crs, always_xy=True)
+    to_wgs84 = transformer.from_crs(plan.crs, "EPSG:4326", always_xy=True)
+    x, y = to_local.transform(*lonlat)
+    if not (np.isfinite(x) and np.isfinite(y)):
+        return float("inf")
+    blocks = shapely.union_all(plan.blocks.geometry.values)
+    nearest = shapely.get_coordinates(shapely.shortest_line(shapely.Point(x, y), blocks))[-1]
+    lon, lat = to_wgs84.transform(*nearest)
+    _, _, metres = geod.inv(lonlat[0], lonlat[1], lon, lat)
+    return float(metres) / 1000.0
+
+
+def incomplete_blocks(points, crew: np.ndarray, active: np.ndarray) -> list[str]:
+    """One line per block whose active points are only partly assigned to a crew."""
+    blocks = points["block"].astype(str).to_numpy()
+    frame = pd.DataFrame({"block": blocks[active], "left": (crew[active] == 0)})
+    counts = frame.groupby("block", sort=True)["left"].agg(["sum", "size"])
+    counts = counts[counts["sum"] > 0]
+    return [
+        f"block {b}: {int(r['sum'])} of {int(r['size'])} point(s) not visited"
+        + (" (the whole block)" if r["sum"] == r["size"] else "")
+        for b, r in counts.iterrows()
+    ]
 
 
 def default_start_xy(plan) -> np.ndarray:
@@ -107,6 +172,7 @@ def plan_crews(
 
     start_xy, start_source = None, ""
     if start_lonlat is not None:
+        check_drop_off(plan, start_lonlat)
         to_local = Transformer.from_crs("EPSG:4326", plan.crs, always_xy=True)
         start_xy, start_source = np.array(to_local.transform(*start_lonlat), dtype=float), "given"
     elif return_to_start:
@@ -162,7 +228,8 @@ def plan_crews(
     unfitted = points["point_id"].astype(str).to_numpy()[idx[result.unfitted]].tolist()
     layers = {**getattr(plan, "layers", {}), "routes": routes}
     new_plan = dataclasses.replace(plan, points=points, layers=layers)
-    return CrewRun(new_plan, result, table, routes, unfitted, start_xy, start_source)
+    incomplete = tuple(incomplete_blocks(points, crew, active)) if len(result.unfitted) else ()
+    return CrewRun(new_plan, result, table, routes, unfitted, start_xy, start_source, incomplete)
 
 
 def _swap_gpkg(plan_dir: Path, points, routes) -> None:
