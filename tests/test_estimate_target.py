@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+import math
 import re
 import shutil
 from pathlib import Path
@@ -111,3 +113,19 @@ def test_target_below_on_the_command_line(plan_dir):
     p = stats.t.sf((v01.mean() - 3.3) / stats.sem(v01), len(v01) - 1)
     assert est.loc["V01", "p_reached"] == pytest.approx(p, rel=1e-4, abs=1e-9)
     assert (est["direction"] == "below").all()
+
+
+def test_size_from_a_grid_plan_prints_a_density(plan_dir):
+    res = runner.invoke(app, ["size", "--from", str(plan_dir), "--value", "brix", "--margin-abs", "0.4", "--json"])
+    assert res.exit_code == 0, res.output
+    out = json.loads(res.stdout)
+    import pyogrio
+
+    blocks = pyogrio.read_dataframe(plan_dir / "plan.gpkg", layer="blocks", read_geometry=False)
+    points = pyogrio.read_dataframe(plan_dir / "plan.gpkg", layer="points", read_geometry=False)
+    area = blocks.loc[blocks["block"].isin(points["block"]), "sampled_area_ha"]
+    per_ha = float(out["plan_options"].split("--per-ha ")[1].split()[0])
+    # common practice, no source: a grid's points are about density x area, so the density
+    # giving n points in a block of median area is n / median area (rounded up)
+    assert per_ha == pytest.approx(math.ceil(100 * out["n"] / area.median()) / 100)
+    assert out["per"] == "block" and "--design grid" in out["plan_options"]

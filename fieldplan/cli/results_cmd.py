@@ -182,6 +182,8 @@ def _remove(plan_dir: Path, round_no: int, *, reason: str, by: str | None, quiet
         f"Removed round {done['round']} ({done['source']}, {done['values']} values) from the results; "
         f"kept in layer results_removed, event {done['event_id']} in the events table"
     )
+    if (Path(plan_dir) / "estimates.csv").exists():
+        echo_err("note: estimates.csv was made before the removal; run 'fieldplan estimate' again")
 
 
 def register(app: typer.Typer) -> None:

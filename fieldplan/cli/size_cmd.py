@@ -155,10 +155,17 @@ def size(
         typer.echo(f"Result: {result.n} samples{per}")
     if inputs is not None:
         what = f"stratum ({inputs.strata_by})" if inputs.per == "stratum" else "block"
+        options = extra["plan_options"]
         typer.echo(
             f"This is per {what}: each {inputs.per}'s own mean within the margin "
-            f"({inputs.n_groups} {inputs.per}s in the plan). Plan options: {extra['plan_options']}"
+            f"({inputs.n_groups} {inputs.per}s in the plan)."
+            + (f" Plan options: {options}" if options else "")
         )
+        if inputs.params.get("design") == "grid" and options:
+            typer.echo(
+                f"note: a grid's count follows the area; this density gives about {result.n} points in a "
+                f"block of the median size ({inputs.median_ha:.3g} ha), fewer in smaller blocks"
+            )
     typer.echo(
         "The CV or SD is a guess from earlier seasons or a pilot; the margin holds only if it is right."
     )

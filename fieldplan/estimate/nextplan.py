@@ -8,6 +8,7 @@ rather than from a guess.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -138,6 +139,7 @@ class SizingInputs:
     n_groups: int
     params: dict
     summary: str
+    median_ha: float = float("nan")  # median sampled block area, for a grid density
 
 
 def plan_options(inputs: SizingInputs, *, clusters: int | None, n: int) -> str:
@@ -155,6 +157,12 @@ def plan_options(inputs: SizingInputs, *, clusters: int | None, n: int) -> str:
         for key, flag in (("skip_row_ends", "--skip-row-ends"), ("skip_border_rows", "--skip-border-rows")):
             if p.get(key):
                 parts.append(f"{flag} {p[key]}")
+    elif p.get("design") == "grid":
+        # A grid's count follows the area: the density giving n points in a block of median size
+        # (the smallest blocks would ask for an absurd density).
+        if not (inputs.median_ha > 0):
+            return ""
+        parts += ["--design grid", f"--per-ha {math.ceil(100 * n / inputs.median_ha) / 100:g}"]
     else:
         design = p.get("design", "random")
         parts.append(f"--design {design if design in ('random', 'balanced') else 'random'}")
@@ -222,8 +230,12 @@ def describe_for_sizing(
         f"From {plan_dir} round {rnd} ({v.n} values of {name}): "
         f"mean {v.mean:.4g}, {spread} {v.sd:.4g}, CV {100 * v.cv:.1f} %{icc_text}"
     )
+    area = plan.blocks["sampled_area_ha"] if "sampled_area_ha" in plan.blocks else plan.blocks.get("area_ha")
+    area = pd.to_numeric(area, errors="coerce") if area is not None else pd.Series(dtype=float)
+    sampled = area[plan.blocks["block"].astype(str).isin(set(plan.points["block"].astype(str)))]
+    median = float(sampled[sampled > 0].median()) if (sampled > 0).any() else float("nan")
     return SizingInputs(
         cv=cv, sd=sd, icc=icc if (not is_clusters or per_plant) else None, plants_per_cluster=m,
         clusters=is_clusters, per_plant=per_plant, per=per, strata_by=strata_by, n_groups=n_groups,
-        params=params, summary=summary,
+        params=params, summary=summary, median_ha=median,
     )  # fmt: skip
