@@ -196,18 +196,29 @@ def markdown(table: pd.DataFrame, seconds: float) -> str:
             f"| {r.rho:.1f} | {r.design} | {r.bias:+.3f} ± {2 * r.mcse:.3f} | {100 * r.coverage:.1f} % | "
             f"{r.var_srs:.2f} | {r.one_minus_rho2:.2f} | {r.width:.3f} | {r.width_vs_block:.2f} | {r.se_ratio:.2f} |"
         )
-    zs = table[table["design"] == "zone-stratified"].set_index("rho")
-    gain = ", ".join(f"ρ = {rho:.1f}: {row.var_srs:.2f}" for rho, row in zs.iterrows())
+    by = table.set_index(["design", "rho"])
+    zs = by.loc["zone-stratified"]
+    rhos = list(zs.index)
+    listed = ", ".join(f"{zs.loc[r, 'var_srs']:.2f}" for r in rhos)
+    bound = ", ".join(f"{1 - r**2:.2f}" for r in rhos)
+    at = ", ".join(f"{r:.1f}" for r in rhos)
+    top = max(rhos)
+    cl = by.loc[("cLHS", top)]
+    bal = by.loc["balanced"]
     lines += [
         "",
-        f"Zone strata on the covariate cut the variance as the correlation allows ({gain} of SRS; "
-        "four zones leave some within-zone spread of X, so the figures sit a little above 1 − ρ²). "
-        "Block strata gain only what the blocks' own differences give. Zone-stratified intervals use "
-        "Cochran's formula with Satterthwaite degrees of freedom; a zone with two points gives a "
-        "wide t quantile, which keeps coverage near nominal. cLHS spreads the sample over X's "
-        "quantiles, so its mean is close to the truth, but the SRS formula ignores that and its "
-        "intervals are too wide (coverage above 97 %) where X explains much of Y: use cLHS to map or "
-        "model, and zone strata (or balanced samples) to estimate a mean with a stated precision.",
+        f"Zone strata on the covariate lower the variance as the correlation grows (var / SRS {listed} "
+        f"at ρ = {at}, against 1 − ρ² = {bound}). Four zones leave part of X's variation inside the "
+        "zones, so the gain stops short of 1 − ρ² when ρ is high; when ρ is low, block strata, which "
+        "also follow the target's own spatial pattern, do as well. Zone-stratified coverage stays at "
+        f"{100 * zs['coverage'].min():.1f}–{100 * zs['coverage'].max():.1f} %. Balanced samples gain from "
+        "the spatial pattern of both parts of Y; their local-difference intervals are conservative "
+        f"(coverage {100 * bal['coverage'].min():.0f}–{100 * bal['coverage'].max():.0f} %). cLHS spreads "
+        f"the sample over X's quantiles, so at ρ = {top:.1f} its mean has the smallest error "
+        f"({cl['var_srs']:.2f} of SRS), but it is not a probability sample: the SRS formula overstates "
+        f"its error (SE ratio {cl['se_ratio']:.1f}, coverage {100 * cl['coverage']:.0f} %). Use cLHS to "
+        "map or model a property against the covariates; to estimate a mean with a stated precision, "
+        "stratify by zone.",
         END,
     ]
     return "\n".join(lines) + "\n"
