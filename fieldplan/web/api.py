@@ -44,7 +44,34 @@ def get_plans(request: Request) -> dict:
 
 @router.get("/plans/{name}", summary="One plan: summary, parameters, map layers, files, crews")
 def get_plan(request: Request, name: str) -> dict:
-    return service.plan_detail(_folder(request, name))
+    folder = _folder(request, name)
+    detail = service.plan_detail(folder)
+    base = str(request.base_url).rstrip("/")
+    detail["crew_links"] = service.crew_links(folder, base, request.app.state.secret)
+    detail["conflicts"] = service.conflicts(folder)
+    return detail
+
+
+class DuplicateRequest(BaseModel):
+    """Next season's plan: the same recipe and blocks under a new name."""
+
+    name: str = Field(min_length=1, max_length=64, description="Name of the new plan folder.")
+    seed: int | None = Field(default=None, ge=0, description="Default: the plan's seed (the same sites).")
+
+
+@router.post("/plans/{name}/duplicate", status_code=202, summary="Next season's plan from this plan's recipe")
+def post_duplicate(request: Request, name: str, body: DuplicateRequest) -> dict:
+    from fieldplan.web.workspace import check_plan_name
+
+    folder = _folder(request, name)
+    new_name = check_plan_name(body.name, parameter="name")
+    workspace = request.app.state.workspace
+
+    def run(progress):
+        return service.duplicate(folder, workspace, new_name, seed=body.seed, progress=progress)
+
+    job = request.app.state.jobs.submit("duplicate", run)
+    return {"job": job.id, "status_url": f"/api/jobs/{job.id}"}
 
 
 class CrewsRequest(BaseModel):

@@ -60,3 +60,32 @@ def plan_page(request: Request, name: str):
 @router.get("/new", response_class=HTMLResponse)
 def new_plan_page(request: Request):
     return render(request, "new.html", page="new")
+
+
+@router.get("/api/docs", response_class=HTMLResponse)
+def api_docs(request: Request):
+    """The JSON API described from its OpenAPI schema, served with no script (works offline)."""
+    schema = request.app.openapi()
+    endpoints = []
+    for path, methods in schema.get("paths", {}).items():
+        for method, op in methods.items():
+            params = [
+                {
+                    "name": p.get("name"),
+                    "where": p.get("in"),
+                    "required": bool(p.get("required")),
+                    "help": (p.get("description") or (p.get("schema") or {}).get("description") or ""),
+                }
+                for p in op.get("parameters", [])
+            ]
+            body = op.get("requestBody", {}).get("content", {})
+            endpoints.append(
+                {
+                    "method": method.upper(),
+                    "path": path,
+                    "summary": op.get("summary", ""),
+                    "params": params,
+                    "body": sorted(body),
+                }
+            )
+    return render(request, "api.html", endpoints=endpoints, page="api")

@@ -431,3 +431,78 @@ def make_lab_sheet(folder: Path, *, analyses: str) -> dict:
         plan = load(folder)
         paths = write_lab_sheet(plan, folder, analyses=names, round_no=1)
     return {"files": [Path(p).name for p in paths], "analyses": names}
+
+
+# --- next season (a plan's recipe on its own blocks) ----------------------------------------
+
+
+def duplicate(
+    folder: Path, workspace: Path, new_name: str, *, seed: int | None = None, progress=None
+) -> dict:
+    """A new plan folder from ``folder``'s recipe (its :class:`PlanSpec` and blocks).
+
+    The blocks and exclusions come from the plan's GeoPackage, the parameters from its
+    manifest; the same seed gives the same points (sites revisited), another seed a new draw.
+    """
+    from fieldplan.plan import make_plan
+    from fieldplan.spec import PlanSpec
+    from fieldplan.store import load_plan, write_plan
+    from fieldplan.web.workspace import plan_dir
+
+    target = plan_dir(workspace, new_name)
+    if target.exists() and any(target.iterdir()):
+        raise WebError(
+            409, f"a plan named {new_name!r} exists already; choose another name", parameter="name"
+        )
+    plan = load_plan(folder)
+    spec = PlanSpec.from_dict(plan.params)
+    use_seed = int(plan.params.get("seed", 0)) if seed is None else int(seed)
+    exclusions = plan.exclusions if len(plan.exclusions) else None
+    new = make_plan(
+        plan.blocks,
+        spec,
+        seed=use_seed,
+        exclusions=exclusions,
+        command=["fieldplan", "serve", f"(next season of {folder.name}, seed {use_seed})"],
+        progress=progress,
+    )
+    meta = plan.meta if isinstance(plan.meta, dict) else {}
+    new.meta["cautions"] = list(meta.get("cautions") or [])
+    if not new.meta["cautions"]:
+        from fieldplan.safety import set_cautions
+
+        set_cautions(new, None)
+    else:
+        new.meta["cautions_source"] = meta.get("cautions_source", "default")
+    new.meta["duplicated_from"] = folder.name
+    with plan_lock(target):
+        write_plan(new, target, force=False, formats=list(spec.outputs.formats))
+    n_spare = int(new.points["status"].eq("spare").sum()) if "status" in new.points.columns else 0
+    return {
+        "name": target.name,
+        "url": f"/plans/{target.name}",
+        "points": int(len(new.points) - n_spare),
+        "seed": use_seed,
+    }
+
+
+def crew_links(folder: Path, base_url: str, secret: bytes) -> list[dict]:
+    """Each crew's page address (the crew companion), if that part is installed."""
+    try:
+        from fieldplan.field.links import crew_link
+    except ImportError:
+        return []
+    crews_csv = folder / "crews.csv"
+    if not crews_csv.is_file():
+        return []
+    crews = pd.read_csv(crews_csv)["crew"].astype(int).tolist()
+    return [{"crew": k, "url": crew_link(base_url, secret, folder.name, k)} for k in crews]
+
+
+def conflicts(folder: Path) -> list[dict]:
+    """Field records that disagree (two crews on one point, taken but marked inaccessible)."""
+    try:
+        from fieldplan.field.sync import field_conflicts
+    except ImportError:
+        return []
+    return field_conflicts(folder)

@@ -103,6 +103,25 @@
     } else {
       box.appendChild(el("p", "No crews assigned yet.", "fp-muted"));
     }
+    var links = FP.clear(document.getElementById("crew-links"));
+    if (detail.crew_links && detail.crew_links.length) {
+      links.appendChild(el("h3", "Crew pages for phones"));
+      var ul = el("ul", null, "fp-files");
+      detail.crew_links.forEach(function (c) {
+        var li = el("li");
+        li.appendChild(el("a", "Crew " + c.crew, null, { href: c.url }));
+        li.appendChild(el("span", " — send this link to the crew only: it opens their points and records their samples.", "fp-muted"));
+        ul.appendChild(li);
+      });
+      links.appendChild(ul);
+    }
+    var conf = document.getElementById("conflicts");
+    var rows = (detail.conflicts || []).map(function (c) {
+      return { point_id: c.point_id, kind: c.kind, note: c.note, records: (c.records || []).length };
+    });
+    conf.hidden = !rows.length;
+    var out = FP.clear(document.getElementById("conflicts-out"));
+    if (rows.length) { out.appendChild(FP.table(rows, [["point_id", "Point"], ["kind", "What"], ["records", "Records"], ["note", "Note"]], "fp-conflicts")); }
   }
 
   function showFiles(detail) {
