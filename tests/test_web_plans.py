@@ -306,3 +306,42 @@ def test_job_lookup_unknown(ws):
     client, _, _ = ws
     r = client.get("/api/jobs/nothing")
     assert r.status_code == 404 and r.json()["parameter"] == "job_id"
+
+
+def test_next_season_from_the_recipe(ws):
+    client, web, _ = ws
+    r = client.post("/api/plans/p/duplicate", json={"name": "p-2028"})
+    assert r.status_code == 202
+    job = client.get(r.json()["status_url"]).json()
+    while job["status"] not in ("done", "failed"):
+        job = client.get(r.json()["status_url"]).json()
+    assert job["status"] == "done", job
+    old = pd.read_csv(web / "points.csv")
+    new = pd.read_csv(web.parent / "p-2028" / "points.csv")
+    # reference: the plan's own points: same recipe, blocks and seed revisit the same sites
+    assert old[["point_id", "x", "y", "status"]].equals(new[["point_id", "x", "y", "status"]])
+    again = client.post("/api/plans/p/duplicate", json={"name": "p-2028"})
+    job = client.get(again.json()["status_url"]).json()
+    while job["status"] not in ("done", "failed"):
+        job = client.get(again.json()["status_url"]).json()
+    assert job["status"] == "failed" and job["error"]["status"] == 409
+    other = client.post("/api/plans/p/duplicate", json={"name": "p-2029", "seed": 12})
+    job = client.get(other.json()["status_url"]).json()
+    while job["status"] not in ("done", "failed"):
+        job = client.get(other.json()["status_url"]).json()
+    assert job["status"] == "done"
+    moved = pd.read_csv(web.parent / "p-2029" / "points.csv")
+    assert not old[["x", "y"]].equals(moved[["x", "y"]])
+    assert client.post("/api/plans/p/duplicate", json={"name": "../x"}).status_code == 400
+
+
+def test_api_docs_page_lists_every_route(ws):
+    client, _, _ = ws
+    page = client.get("/api/docs")
+    assert page.status_code == 200 and "<script" not in page.text
+    schema = client.get("/api/openapi.json").json()
+    for path in schema["paths"]:
+        assert path in page.text
+    for path in ("/api/plans", "/api/plans/{name}", "/api/plans/{name}/crews", "/api/plans/{name}/results",
+                 "/api/plans/{name}/marks", "/api/plans/{name}/estimates"):  # fmt: skip
+        assert path in schema["paths"]
