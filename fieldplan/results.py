@@ -288,15 +288,22 @@ def _join_decimal_commas(cells: list[str], header: list[str]) -> list[list[str]]
     return found
 
 
-def _csv_frame(text: str, source: str) -> tuple[pd.DataFrame, list[str]]:
+def _csv_frame(text: str, source: str) -> tuple[pd.DataFrame, list[str], list[str], int]:
     notes: list[str] = []
-    sep = _delimiter(text)
+    skipped = 0
+    # Spreadsheets writing CSV for another locale may put the separator on a first line "sep=;".
+    hint = re.match(r"^sep=(.)\r?\n", text)
+    if hint:
+        sep, text, skipped = hint.group(1), text[hint.end() :], 1
+    else:
+        sep = _delimiter(text)
     try:
         rows = list(csv.reader(io.StringIO(text, newline=""), delimiter=sep))
     except csv.Error as exc:
         raise InputError(f"{source}: not a readable CSV table ({exc}); save it as CSV with a header row") from None
     while rows and not any(c.strip() for c in rows[0]):
         rows.pop(0)
+        skipped += 1
     if not rows:
         raise InputError(f"{source}: the file is empty; save the results as CSV with a header row")
     header = [c.strip() for c in rows[0]]
@@ -329,7 +336,7 @@ def _csv_frame(text: str, source: str) -> tuple[pd.DataFrame, list[str]]:
             f"comma-separated with unquoted decimal commas in {joined} row(s): read e.g. 23,1 as 23.1 "
             "(quote such values or use ';' as separator to be sure)"
         )
-    return pd.DataFrame(body, columns=range(width), dtype=object), notes, header
+    return pd.DataFrame(body, columns=range(width), dtype=object), notes, header, 2 + skipped
 
 
 def _xlsx_frame(data: bytes, source: str, sheet: str | None) -> tuple[pd.DataFrame, list[str], list[str], int]:
@@ -413,9 +420,8 @@ def read_table(path: str | Path, *, sheet: str | None = None) -> RawTable:
         if sheet is not None:
             raise InputError(f"{source}: --sheet applies to .xlsx workbooks; this is a text file")
         text, notes = _decode(data, source)
-        frame, more, header = _csv_frame(text, source)
+        frame, more, header, first_row = _csv_frame(text, source)
         notes += more
-        first_row = 2
     seen: dict[str, int] = {}
     for i, name in enumerate(header):
         if not name:

@@ -121,6 +121,16 @@ def test_semicolon_file_with_decimal_commas(tmp_path):
     assert not any("decimal commas" in n for n in r.notes)
 
 
+def test_separator_line_written_by_spreadsheets(tmp_path):
+    # common practice, no source: spreadsheet CSV exports may start with a "sep=;" line
+    p = tmp_path / "sep.csv"
+    p.write_text("sep=;\n" + "\n".join(_rows(";", ",")) + "\nNOPE;1;2\n", encoding="utf-8")
+    r = read_results(p, point_ids=IDS)
+    assert r.data.set_index("point_id").loc[IDS, "brix"].tolist() == BRIX
+    # rows keep the file's own numbers: the separator line is line 1, the header line 2
+    assert r.problems["row"].tolist() == [len(IDS) + 3]
+
+
 def test_comma_file_with_unquoted_decimal_commas_is_repaired_and_said(tmp_path):
     p = tmp_path / "commas.csv"
     p.write_text("\n".join(_rows(",", ",")) + "\n", encoding="utf-8")
