@@ -9,7 +9,7 @@ import shutil
 import sys
 import tempfile
 import time
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
@@ -74,14 +74,22 @@ def neutralise_frame(frame):
     return out
 
 
-def atomic_write_bytes(path: Path, data: bytes) -> None:
-    """Write ``data`` to ``path`` so readers see the old file or the new one, never a part."""
+def atomic_write_bytes(path: Path, data: bytes | Iterable[bytes]) -> None:
+    """Write ``data`` to ``path`` so readers see the old file or the new one, never a part.
+
+    ``data`` may be an iterable of byte strings, written in turn (a large file need not be
+    held in memory whole).
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
         with os.fdopen(fd, "wb") as handle:
-            handle.write(data)
+            if isinstance(data, bytes | bytearray | memoryview):
+                handle.write(data)
+            else:
+                for chunk in data:
+                    handle.write(chunk)
             handle.flush()
             os.fsync(handle.fileno())
         # mkstemp makes owner-only files; plan files are meant to be shared like any other.

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import math
 import re
+from collections.abc import Iterator
 from contextlib import contextmanager
 from functools import lru_cache
 from pathlib import Path
@@ -16,7 +17,7 @@ from pyproj import CRS, Transformer
 
 from fieldplan.crs import WGS84
 from fieldplan.safety import cautions_text, plan_cautions
-from fieldplan.write.safe import _FORMULA_PREFIXES, atomic_write_text, neutralise_frame
+from fieldplan.write.safe import _FORMULA_PREFIXES, atomic_write_bytes, atomic_write_text, neutralise_frame
 
 __all__ = [
     "points_lonlat",
@@ -145,32 +146,44 @@ def _json_column(values: pd.Series) -> np.ndarray | None:
     return out
 
 
-def _geojson_text(points, lonlat: np.ndarray) -> str:
-    """Same text as :func:`_geojson_text_records`, built column by column (no dict per point)."""
+def _geojson_chunks(points, lonlat: np.ndarray, *, rows: int = 8192) -> Iterator[str]:
+    """The text of :func:`_geojson_text_records` in pieces of ``rows`` features, built column by
+    column (no dict per point); pieces keep the peak memory of a large plan near one chunk."""
     columns = [c for c in points.columns if c != "geometry"]
     parts: list[np.ndarray | str] = ['{"type": "Feature", "properties": {']
     for k, column in enumerate(columns):
         text = _json_column(points[column])
         if text is None:
-            return _geojson_text_records(points, lonlat)
+            yield _geojson_text_records(points, lonlat)
+            return
         key = json.dumps(str(column), ensure_ascii=False)
         parts += [(", " if k else "") + key + ": ", text]
     lon = np.array(list(map(repr, lonlat[:, 0].tolist())), dtype=object)
     lat = np.array(list(map(repr, lonlat[:, 1].tolist())), dtype=object)
     parts += ['}, "geometry": {"type": "Point", "coordinates": [', lon, ", ", lat, "]}}"]
     parts.append(", ")
-    # One table of text pieces, a row per feature, joined in a single pass.
-    pieces = np.empty((len(points), len(parts)), dtype=object)
-    for k, part in enumerate(parts):
-        pieces[:, k] = part
-    body = "".join(pieces.ravel().tolist())[:-2]
-    return '{"type": "FeatureCollection", "features": [' + body + "]}\n"
+    n = len(points)
+    yield '{"type": "FeatureCollection", "features": ['
+    for start in range(0, n, rows):
+        stop = min(n, start + rows)
+        # A table of text pieces, a row per feature, joined in a single pass.
+        pieces = np.empty((stop - start, len(parts)), dtype=object)
+        for k, part in enumerate(parts):
+            pieces[:, k] = part if isinstance(part, str) else part[start:stop]
+        text = "".join(pieces.ravel().tolist())
+        yield text[:-2] if stop == n else text
+    yield "]}\n"
+
+
+def _geojson_text(points, lonlat: np.ndarray) -> str:
+    """Same text as :func:`_geojson_text_records`, built column by column."""
+    return "".join(_geojson_chunks(points, lonlat))
 
 
 def write_points_geojson(plan, folder: Path) -> None:
     """``points.geojson``: a FeatureCollection in WGS84 with lon/lat order (RFC 7946 §3.1.1)."""
     lonlat = points_lonlat(plan.points)
-    atomic_write_text(folder / "points.geojson", _geojson_text(plan.points, lonlat))
+    atomic_write_bytes(folder / "points.geojson", (c.encode("utf-8") for c in _geojson_chunks(plan.points, lonlat)))
 
 
 def csv_xy_crs(plan) -> CRS:
