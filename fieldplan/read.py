@@ -783,6 +783,8 @@ def read_blocks(
     if len(frame) == 0:
         raise InvalidBlocksError(f"{path}: holds no features; export the block boundaries again")
     source_fields = [str(c) for c in frame.columns if c != frame.geometry.name]
+    if path.suffix.lower() in (".kml", ".kmz") and id_field is None and "block" not in columns:
+        id_field = "name"  # a placemark's name is its block id, whatever its ExtendedData holds
     sources = _role_sources(frame, path, columns, id_field)
     id_name = sources["block"]
     frame, repaired = _check_geometries(frame, path, id_name, repair, notes)
@@ -824,7 +826,11 @@ def read_blocks(
             data[role] = frame[sources[role]].to_numpy()
     if "stratum" in data:
         blank = np.flatnonzero(pd.isna(pd.Series(data["stratum"], dtype=object)).to_numpy())
-        if len(blank):
+        if len(blank) == len(frame) and "stratum" not in columns:
+            # A field named stratum that no block fills (KML ExtendedData of the skipped
+            # points, say) is no stratification: each block stays its own stratum.
+            del data["stratum"]
+        elif len(blank):
             raise InvalidBlocksError(
                 f"{path}: {_feature_label(frame, int(blank[0]), id_name)} has no stratum in field "
                 f"{sources['stratum']!r}; fill it in or map another field with --column stratum=FIELD"

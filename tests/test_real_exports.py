@@ -507,3 +507,15 @@ def test_mapped_rows_with_z_are_flattened(tmp_path):
     path = tmp_path / "rows.geojson"
     rows.to_file(path)
     assert not read_rows(path, crs="EPSG:32734").geometry.has_z.any()
+
+
+def test_kml_placemark_name_is_the_block_id_even_beside_a_block_field(tmp_path):
+    text = rx.kml_text(rx.PHONE).replace(
+        '<Data name="variety">', '<Data name="block"><value></value></Data><Data name="variety">'
+    )
+    path = tmp_path / "named.kml"
+    path.write_text(text)
+    blocks = read_blocks(path)
+    assert blocks["block"].tolist() == ["Creek block", "Home block"]
+    assert "src_block" in blocks.columns  # the ExtendedData field is kept, renamed
+    assert "stratum" not in blocks.columns

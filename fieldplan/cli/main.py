@@ -34,6 +34,11 @@ def main(
     ] = False,
 ) -> None:
     """Plan where and how to take samples in fields, vineyards and orchards."""
+    import warnings
+
+    # What GDAL says about a file reaches the user as fieldplan's own notes and errors
+    # (a dropped Z, a skipped feature); its raw warnings would only add noise.
+    warnings.filterwarnings("ignore", category=RuntimeWarning, module=r"pyogrio(\..*)?$")
 
 
 from fieldplan.cli import (  # noqa: E402
