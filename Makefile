@@ -33,6 +33,7 @@ demo: $(STAMP)
 	$(FP) lab-sheet $(DEMO_OUT)/soil --analyses "pH,P,K" -q
 	$(FP) plan $(EST) --spacing 60 --purpose ripeness --crop-profile wine-grapes --select "crop=wine grape" --seed 7 --out $(DEMO_OUT)/ripeness --force -q
 	$(FP) labels $(DEMO_OUT)/ripeness --layout letter-3x10 -q
+	$(FP) zones $(EST) --covariates demo_plots/estate_eca_survey.csv demo_plots/estate_ndvi.tif --exclude $(EXCL) --zones auto --method fuzzy --min-zone-ha 0.3 --seed 7 --out $(DEMO_OUT)/zones/zones.gpkg --force -q
 	@echo
 	@echo "Demo plans written under $(DEMO_OUT)/: plan (grid, crews, results), soil (cores, labels, lab sheet), ripeness"
 	@echo "Map: $$(cd $(DEMO_OUT)/plan && pwd)/map.html"
