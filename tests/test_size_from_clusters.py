@@ -112,3 +112,15 @@ def test_stratified_plan_sizes_per_stratum(plans, tmp_path):
     assert "per stratum" in res.stdout and "This is per stratum (variety)" in res.stdout
     # common practice, no source: --target-units T with m plants per cluster gives ceil(T / m) clusters
     assert f"--strata-by variety --target-units {k * M} --plants-per-cluster {M}" in res.stdout
+
+
+def test_size_keeps_the_old_option_name_hidden():
+    args = ["size", "--cv", "25", "--margin", "10", "--icc", "0.1", "--json"]
+    new = runner.invoke(app, [*args, "--plants-per-cluster", "5"])
+    old = runner.invoke(app, [*args, "--units-per-cluster", "5"])
+    # common practice, no source: a renamed option keeps working for one release, same result
+    assert new.exit_code == old.exit_code == 0
+    assert json.loads(new.stdout) == json.loads(old.stdout)
+    assert "--plants-per-cluster" in old.stderr
+    helptext = runner.invoke(app, ["size", "--help"], env={"COLUMNS": "200"}).output
+    assert "--plants-per-cluster" in helptext and "--units-per-cluster" not in helptext

@@ -77,6 +77,9 @@ def size(
     if units_per_cluster_old is not None:
         if units_per_cluster is not None and units_per_cluster != units_per_cluster_old:
             raise OptionError("give --plants-per-cluster only (--units-per-cluster is its old name)")
+        from fieldplan.cli.options import echo_err
+
+        echo_err("note: --units-per-cluster is now --plants-per-cluster; the old name goes in the next release")
         units_per_cluster = units_per_cluster_old
     inputs = None
     if from_plan is not None:
