@@ -250,14 +250,14 @@ def _run_params(spec: PlanSpec, seed: int) -> dict:
     grid, size, clusters = spec.grid, spec.size, spec.clusters
     spacing = grid.spacing
     if spec.design == "grid" and spacing is None:
-        spacing = spacing_for_density(size.per_ha, grid.layout)
+        spacing = spacing_for_density(size.per_ha, grid.grid_layout)
     run = {
         "design": spec.design,
         "seed": int(seed),
         "spacing": float(spacing) if spacing is not None else None,
         "per_ha": size.per_ha,
-        "layout": grid.layout,
-        "start": grid.start,
+        "layout": grid.grid_layout,
+        "start": grid.random_start,
         "angle": grid.angle,
         "max_points": spec.scale.max_points,
         "spares": spec.replacements.spares,
@@ -474,7 +474,7 @@ def make_plan(
         params["spacing_m"] = round(float(spacing), 6)
     plan = _keep_design_columns(plan, replace(purposed, params=params))
     if spec.replacements.substitute == "within-cell":
-        plan.layers[SUBSTITUTES_LAYER] = _grid_substitutes(plan, blocks, areas, params)
+        plan.layers[SUBSTITUTES_LAYER] = _grid_substitutes(plan, blocks, areas, {**params, **run})
     return plan
 
 

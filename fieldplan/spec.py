@@ -201,6 +201,7 @@ def _param(
     maximum: float | None = None,
     shown_default: Any = None,
     identity: bool = True,
+    aliases: tuple[str, ...] = (),
 ) -> Any:
     """A dataclass field with the metadata forms and help need.
 
@@ -209,7 +210,9 @@ def _param(
     every design). ``shown_default`` is the value used when the field is left
     empty (``None``), e.g. 16 cores for soil plans. ``identity=False`` marks
     parameters that change how a plan is computed or written but not its points
-    (engine, formats), left out of the plan's code.
+    (engine, formats), left out of the plan's code. ``aliases`` are former flags,
+    still accepted (hidden) for one release. ``help`` may name other parameters
+    as ``{name}``: forms show the name, the CLI its flag.
     """
     meta = {
         "kind": kind,
@@ -224,6 +227,7 @@ def _param(
         "maximum": maximum,
         "shown_default": shown_default,
         "identity": identity,
+        "aliases": aliases,
     }
     if isinstance(default, dict | list):
         raise TypeError("use a tuple default")
@@ -388,23 +392,25 @@ class GridSpec(_Section):
         above=0,
         designs=("grid",),
         panel="grid",
-        help="Grid spacing in metres (or give per_ha).",
+        help="Grid spacing in metres (or give {per_ha}).",
     )
-    layout: str = _param(
+    grid_layout: str = _param(
         "square",
         kind="choice",
         choices=("square", "triangular"),
         designs=("grid",),
         panel="grid",
-        help="Grid layout: square, or triangular (points of each row offset by half a spacing).",
+        aliases=("--layout",),
+        help="Grid layout: square, or triangular (rows of points offset by half a spacing).",
     )
-    start: str = _param(
+    random_start: str = _param(
         "field",
         kind="choice",
         choices=("field", "block"),
         designs=("grid",),
         panel="grid",
-        help="Random start: one for the whole farm (field) or one per block (block).",
+        aliases=("--start",),
+        help="Where the grid's random start is drawn: once for the whole farm (field) or per block.",
     )
     angle: float | str = _param(
         0.0,
@@ -455,13 +461,13 @@ class SizeSpec(_Section):
         choices=("proportional", "equal", "neyman", "optimal"),
         designs=_STRATIFIED,
         panel="size",
-        help="With n: proportional (to area or size_field), equal, neyman or optimal.",
+        help="With {n}: proportional (to area or {size_field}), equal, neyman or optimal.",
     )
     size_field: str | None = _param(
         kind="string",
         designs=_STRATIFIED,
         panel="size",
-        help="With n: block field used as stratum size instead of area.",
+        help="With {n}: block field used as stratum size instead of area.",
     )
     sd_field: str | None = _param(
         kind="string",
@@ -519,7 +525,7 @@ class ClusterSpec(_Section):
         minimum=1,
         designs=("clusters",),
         panel="clusters",
-        help="Units to collect per stratum (with plants_per_cluster).",
+        help="Units to collect per stratum (with {plants_per_cluster}).",
     )
     plants_per_cluster: int | None = _param(
         kind="integer",
@@ -527,6 +533,7 @@ class ClusterSpec(_Section):
         designs=("clusters",),
         panel="clusters",
         shown_default=1,
+        aliases=("--units-per-cluster",),
         help="Consecutive plants in each cluster, one unit taken at each.",
     )
     skip_row_ends: int = _param(
@@ -555,7 +562,7 @@ class ClusterSpec(_Section):
         kind="string",
         designs=("clusters",),
         panel="clusters",
-        help="Field instructions with {row}, {plant}, {units}, {block} placeholders.",
+        help="Field instructions with {{row}}, {{plant}}, {{units}}, {{block}} placeholders.",
     )
 
     def _check(self) -> None:
@@ -701,7 +708,7 @@ class InputSpec(_Section):
         kind="mapping",
         flag="--column",
         panel="input",
-        help="Which file column plays which role, ROLE=SOURCE (block, variety, row_spacing, "
+        help="Which file field plays which role, ROLE=FIELD (block, variety, row_spacing, "
         "plant_spacing, row_bearing, crop, or a field used for strata).",
     )
     length_unit: str = _param(
@@ -781,7 +788,7 @@ class ScaleSpec(_Section):
         kind="string",
         panel="scale",
         identity=False,
-        help="With engine dask: address of a running Dask scheduler, e.g. tcp://host:8786 "
+        help="With {engine} dask: address of a running Dask scheduler, e.g. tcp://host:8786 "
         "(default: two worker processes on this machine).",
     )
     max_points: int = _param(
@@ -825,7 +832,7 @@ class PlanSpec:
         kind="choice",
         choices=_design_names,
         panel="grid",
-        help="Sampling design: grid, random, balanced (spatially balanced) or clusters (plants from rows).",
+        help="Sampling design: {choices} (docs/designs.md).",
     )
     edge_buffer: float = _param(
         0.0,
@@ -972,8 +979,8 @@ class PlanSpec:
             "design": design,
             "spacing": spacing,
             "per_ha": per_ha,
-            "layout": layout,
-            "start": start,
+            "grid_layout": layout,
+            "random_start": start,
             "angle": angle,
             "edge_buffer": edge_buffer,
             "max_points": max_points,
@@ -1039,6 +1046,8 @@ _LEGACY_NAMES = {
     "depth_cm": "depth",
     "rows_file": "rows",
     "units_per_cluster": "plants_per_cluster",
+    "layout": "grid_layout",
+    "start": "random_start",
 }
 
 
@@ -1116,8 +1125,18 @@ def param_info(name: str) -> dict[str, Any]:
         "maximum": meta["maximum"],
         "designs": list(meta["designs"]) if meta["designs"] else list(DESIGNS),
         "flag": flag_of(name),
-        "help": meta["help"],
+        "help": help_text(name),
+        "aliases": list(meta["aliases"]),
     }
+
+
+def help_text(name: str, namer: Callable[[str], str] | None = None) -> str:
+    """The help of parameter ``name``, other parameters named by ``namer`` (default: their names)."""
+    namer = namer or (lambda n: n)
+    meta = _FIELD_META[name]
+    # "{choices}" lists the current choices (the design registry may have grown).
+    text = meta["help"].replace("{choices}", ", ".join(_choices(meta)))
+    return string.Formatter().vformat(text, (), _Names(namer))
 
 
 #: Panels in the order help and forms show them, with their titles.

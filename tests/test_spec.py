@@ -38,8 +38,8 @@ def blocks():
         ({"spacing": float("nan")}, "spacing"),
         ({"spacing": 40, "per_ha": 1}, "per_ha"),
         ({}, "spacing"),
-        ({"spacing": 40, "layout": "hexagon"}, "layout"),
-        ({"spacing": 40, "start": "farm"}, "start"),
+        ({"spacing": 40, "grid_layout": "hexagon"}, "grid_layout"),
+        ({"spacing": 40, "random_start": "farm"}, "random_start"),
         ({"spacing": 40, "angle": "diagonal"}, "angle"),
         ({"spacing": 40, "per_block": 3}, "per_block"),
         ({"spacing": 40, "spares": 2}, "spares"),
@@ -81,7 +81,7 @@ def test_each_check_names_its_parameter(values, param):
 
 
 def test_choices_are_listed_when_refused():
-    for name, bad in (("layout", "hex"), ("purpose", "water"), ("design", "grdi"), ("engine", "spark")):
+    for name, bad in (("grid_layout", "hex"), ("purpose", "water"), ("design", "grdi"), ("engine", "spark")):
         values = {"spacing": 40, name: bad}
         with pytest.raises(SpecError) as info:
             PlanSpec.from_dict(values)
@@ -133,7 +133,7 @@ def test_sections_are_frozen_and_accept_dicts():
 
 def test_section_tables_as_in_a_recipe():
     spec = PlanSpec.from_dict({"design": "grid", "grid": {"spacing": 30, "layout": "triangular"}})
-    assert spec.grid.layout == "triangular" and spec.grid.spacing == 30.0
+    assert spec.grid.grid_layout == "triangular" and spec.grid.spacing == 30.0  # former name read
 
 
 def test_schema_describes_every_parameter_for_forms():

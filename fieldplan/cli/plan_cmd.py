@@ -1,282 +1,192 @@
-"""``fieldplan plan``: read blocks, run a design, write the plan folder."""
+"""``fieldplan plan``: read blocks, run a design, write the plan folder.
+
+The options are made from the plan specification (:mod:`fieldplan.spec`): one
+flag per parameter, with the spec's type, choices (typos fail before any file
+is read, listing the valid ones), default, help text and help panel. A new
+parameter or design in the spec is a new option here with no change to this
+file. Former flag names stay accepted, hidden, for one release (the spec's
+``aliases``). ``plan()`` itself only builds the spec, then reads, plans, writes
+and reports (:func:`run_plan`).
+"""
 
 from __future__ import annotations
 
+import enum
+import inspect
 import sys
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Any
 
 import typer
 
-from fieldplan.cli.options import Force, Quiet, Seed, echo_err, handle_errors, progress_callback
+from fieldplan.cli.options import echo_err, handle_errors, progress_callback
 
-__all__ = ["register", "plan", "run_plan"]
+__all__ = ["register", "plan", "run_plan", "build_spec"]
+
+_ALIAS = "alias__"
+_METAVAR = {
+    "number": "X",
+    "integer": "N",
+    "string": "TEXT",
+    "path": "FILE",
+    "angle": "DEG|rows",
+    "list": "A,B",
+    "mapping": "ROLE=FIELD",
+    "choice": "NAME",
+}
+_TYPES: dict[str, Any] = {"number": float, "integer": int, "string": str, "path": str, "angle": str, "list": str}
 
 
-@handle_errors
-def plan(
-    ctx: typer.Context,
-    blocks_file: Annotated[
-        Path, typer.Argument(help="Block boundaries: GeoJSON, GeoPackage, Shapefile (or zipped), KML or KMZ.")
-    ],
-    out: Annotated[Path, typer.Option("--out", "-o", help="Folder to write the plan into.")],
-    spacing: Annotated[float | None, typer.Option(help="Grid spacing in metres.")] = None,
-    per_ha: Annotated[
-        float | None,
-        typer.Option("--per-ha", help="Sampling density in points per hectare (instead of --spacing)."),
-    ] = None,
-    layout: Annotated[str, typer.Option(help="Grid layout: square or triangular.")] = "square",
-    start: Annotated[
-        str, typer.Option(help="Random start: 'field' (one for the whole farm) or 'block' (one per block).")
-    ] = "field",
-    angle: Annotated[
-        str,
-        typer.Option(
-            help="Grid bearing in degrees clockwise from north, or 'rows' to follow each block's row_bearing_deg."
-        ),
-    ] = "0",
-    edge_buffer: Annotated[
-        float,
-        typer.Option("--edge-buffer", help="Metres kept free of samples inside each block edge (headland)."),
-    ] = 0.0,
-    exclude: Annotated[
-        Path | None, typer.Option(help="Polygons to keep samples out of (wet spots, buildings, tracks).")
-    ] = None,
-    layer: Annotated[str | None, typer.Option(help="GeoPackage layer holding the blocks.")] = None,
-    select: Annotated[
-        str | None,
-        typer.Option(help="Plan only blocks whose FIELD matches: FIELD=VALUE[,VALUE...], e.g. 'crop=wine grape'."),
-    ] = None,
-    id_field: Annotated[
-        str | None,
-        typer.Option("--id-field", help="Field with block ids (default: block, block_id, id or name)."),
-    ] = None,
-    column: Annotated[
-        list[str] | None,
-        typer.Option(
-            "--column",
-            help="The file's field for a role, ROLE=FIELD (repeatable), e.g. row_spacing=RowSpacing; roles: "
-            "block, variety, row_spacing, plant_spacing, row_bearing, crop, stratum, or a name for --strata-by.",
-        ),
-    ] = None,
-    length_unit: Annotated[
-        str,
-        typer.Option("--length-unit", help="Unit of the row and plant spacing fields: m, ft or yd."),
-    ] = "m",
-    repair: Annotated[
-        bool, typer.Option(help="Repair invalid (self-intersecting) polygons instead of stopping.")
-    ] = False,
-    max_points: Annotated[
-        int, typer.Option("--max-points", help="Refuse plans with more points than this.")
-    ] = 10_000_000,
-    purpose: Annotated[
-        str, typer.Option(help="What the samples are for: general, soil (composites of cores) or ripeness.")
-    ] = "general",
-    cores: Annotated[
-        int | None, typer.Option(help="Soil: cores per composite sample (default 16; 15-20 is usual).")
-    ] = None,
-    core_radius: Annotated[
-        float | None, typer.Option("--core-radius", help="Soil: metres around each point for its cores (default 10).")
-    ] = None,
-    composite: Annotated[
-        str | None,
-        typer.Option(help="Soil: 'cell' (one composite per point) or 'zone' (one per block, zig-zag cores)."),
-    ] = None,
-    core_buffer: Annotated[
-        float | None,
-        typer.Option("--core-buffer", help="Soil: metres kept from block edges and exclusions (default 30)."),
-    ] = None,
-    depth: Annotated[
-        str | None, typer.Option(help="Sampling depth in cm, e.g. 0-15 (soil default 0-15).")
-    ] = None,
-    crop_profile: Annotated[
-        str | None,
-        typer.Option(
-            "--crop-profile",
-            help="Ripeness: wine-grapes, table-grapes, pome-fruit, stone-fruit or a TOML file (default wine-grapes).",
-        ),
-    ] = None,
-    cautions: Annotated[
-        Path | None,
-        typer.Option(help="Text file of field cautions, one per line, to carry instead of the defaults."),
-    ] = None,
-    design: Annotated[
-        str, typer.Option(help="Design: grid, random, balanced (spatially balanced) or clusters (plants from rows).")
-    ] = "grid",
-    strata_by: Annotated[
-        str | None,
-        typer.Option("--strata-by", help="Block field whose values are strata (default: each block is a stratum)."),
-    ] = None,
-    per_block: Annotated[
-        int | None, typer.Option("--per-block", help="random/balanced/clusters: points per block.")
-    ] = None,
-    n_total: Annotated[
-        int | None, typer.Option("--n", help="random/balanced/clusters: total points, allocated over strata.")
-    ] = None,
-    allocation: Annotated[
-        str | None,
-        typer.Option(help="With --n: proportional (to area or --size-field), equal, neyman or optimal."),
-    ] = None,
-    size_field: Annotated[
-        str | None, typer.Option("--size-field", help="With --n: block field used as stratum size instead of area.")
-    ] = None,
-    sd_field: Annotated[
-        str | None, typer.Option("--sd-field", help="neyman/optimal: block field with the expected standard deviation.")
-    ] = None,
-    cost_field: Annotated[
-        str | None, typer.Option("--cost-field", help="optimal: block field with the cost of one sample.")
-    ] = None,
-    min_per_stratum: Annotated[
-        int | None, typer.Option("--min-per-stratum", help="Fewest points in any stratum (default 1).")
-    ] = None,
-    target_units: Annotated[
-        int | None,
-        typer.Option("--target-units", help="clusters: units to collect per stratum (with --plants-per-cluster)."),
-    ] = None,
-    units_per_cluster: Annotated[
-        int | None,
-        typer.Option(
-            "--plants-per-cluster",
-            help="clusters: consecutive plants in each cluster, one unit taken at each.",
-        ),
-    ] = None,
-    units_per_cluster_old: Annotated[
-        int | None, typer.Option("--units-per-cluster", hidden=True, help="Old name of --plants-per-cluster.")
-    ] = None,
-    skip_row_ends: Annotated[
-        int | None, typer.Option("--skip-row-ends", help="clusters: plants left out at each end of every row.")
-    ] = None,
-    skip_border_rows: Annotated[
-        int | None, typer.Option("--skip-border-rows", help="clusters: rows left out on each side of a block.")
-    ] = None,
-    rows: Annotated[
-        Path | None, typer.Option("--rows", help="clusters: mapped row lines (instead of the spacing model).")
-    ] = None,
-    instructions: Annotated[
-        str | None,
-        typer.Option(help="clusters: field instructions with {row}, {plant}, {units}, {block} placeholders."),
-    ] = None,
-    engine: Annotated[
-        str,
-        typer.Option(help="Where to plan: 'local' (this process) or 'dask' (groups of blocks in parallel)."),
-    ] = "local",
-    scheduler: Annotated[
-        str | None,
-        typer.Option(
-            help="With --engine dask: address of a running Dask scheduler, e.g. tcp://scheduler-host:8786 "
-            "(default: two worker processes on this machine)."
-        ),
-    ] = None,
-    spares: Annotated[
-        int,
-        typer.Option(
-            "--spares", min=0, help="random/balanced/clusters: extra points per stratum, used in rank order."
-        ),
-    ] = 0,
-    substitute: Annotated[
-        str, typer.Option("--substitute", help="grid: 'within-cell' precomputes a substitute per point.")
-    ] = "none",
-    formats: Annotated[
-        str,
-        typer.Option(
-            "--formats",
-            help="Outputs to write, comma-separated: all (default); core (points.geojson, points.csv, "
-            "summary.csv, plan.gpkg) for large batch runs; or any of geojson, csv, summary, gpkg, html, "
-            "gpx, kml, png. manifest.json, plan.gpkg and README.txt are always written.",
-        ),
-    ] = "all",
-    recipe: Annotated[
-        Path | None,
-        typer.Option(
-            "--recipe",
-            help="TOML recipe with the plan's parameters (see 'fieldplan recipe'); flags given here win.",
-        ),
-    ] = None,
-    like: Annotated[
-        Path | None,
-        typer.Option(
-            "--like",
-            help="Plan like an earlier plan folder: its parameters, a new seed unless --seed is given.",
-        ),
-    ] = None,
-    seed: Seed = 0,
-    force: Force = False,
-    quiet: Quiet = False,
-) -> None:
-    """Plan sample points over block boundaries and write them to a folder.
+def _choice_type(name: str, choices: tuple[str, ...]) -> type[enum.Enum]:
+    # A str Enum: click checks the choice while parsing, before any file is read.
+    return enum.Enum(f"{name.title().replace('_', '')}Choice", {c: c for c in choices}, type=str)  # type: ignore[return-value]
 
-    Example: fieldplan plan blocks.geojson --spacing 40 --edge-buffer 8 --seed 7 --out plan-2027-soil
-    """
-    old_cluster_flag = units_per_cluster_old is not None
-    if units_per_cluster_old is not None:
-        # The old name read as "berries per grape cluster"; kept hidden for one release.
-        if units_per_cluster is not None and units_per_cluster != units_per_cluster_old:
-            from fieldplan.errors import OptionError
 
-            raise OptionError("give --plants-per-cluster only (--units-per-cluster is its old name)")
-        echo_err("note: --units-per-cluster is now --plants-per-cluster; the old name goes in the next release")
-        units_per_cluster = units_per_cluster_old
-    from fieldplan.spec import SpecError, flag_of
+def _option_for(name: str, *, flag: str | None = None, hidden: bool = False) -> inspect.Parameter:
+    """The typer option of spec parameter ``name`` (or a hidden former flag of it)."""
+    from fieldplan.spec import PANELS, flag_of, help_text, param_info
 
-    values = {
-        "design": design,
-        "spacing": spacing,
-        "per_ha": per_ha,
-        "layout": layout,
-        "start": start,
-        "angle": angle,
-        "edge_buffer": edge_buffer,
-        "exclude": exclude,
-        "layer": layer,
-        "select": select,
-        "id_field": id_field,
-        "repair": repair,
-        "columns": column or (),
-        "length_unit": length_unit,
-        "max_points": max_points,
-        "purpose": purpose,
-        "cores": cores,
-        "core_radius": core_radius,
-        "composite": composite,
-        "core_buffer": core_buffer,
-        "depth": depth,
-        "crop_profile": crop_profile,
-        "cautions": cautions,
-        "strata_by": strata_by,
-        "per_block": per_block,
-        "n": n_total,
-        "allocation": allocation,
-        "size_field": size_field,
-        "sd_field": sd_field,
-        "cost_field": cost_field,
-        "min_per_stratum": min_per_stratum,
-        "target_units": target_units,
-        "plants_per_cluster": units_per_cluster,
-        "skip_row_ends": skip_row_ends,
-        "skip_border_rows": skip_border_rows,
-        "rows": rows,
-        "instructions": instructions,
-        "engine": engine,
-        "scheduler": scheduler,
-        "spares": spares,
-        "substitute": substitute,
-        "formats": formats,
-    }
-    # Only what was typed overrides a recipe; the spec's defaults fill the rest.
-    python_name = {"n": "n_total", "plants_per_cluster": "units_per_cluster", "columns": "column"}
-    given = {
-        k: str(v) if isinstance(v, Path) else v
-        for k, v in values.items()
-        if _typed(ctx, python_name.get(k, k)) or (k == "plants_per_cluster" and old_cluster_flag)
-    }
-    try:
-        spec, seed = _spec_and_seed(given, recipe=recipe, like=like, seed=seed if _typed(ctx, "seed") else None)
-        run_plan(blocks_file, spec, out=out, seed=seed, force=force, quiet=quiet)
-    except SpecError as err:
-        # The library names parameters; here they are flags.
-        from fieldplan.errors import OptionError
+    info = param_info(name)
+    kind = info["kind"]
+    shown = info["effective_default"]
+    # The default shown is the spec's; only options typed are used (see build_spec).
+    if isinstance(shown, list):
+        shown = ",".join(shown)
+    show = shown not in (None, "", {})
+    panel = PANELS[info["panel"]]
+    decl = flag or flag_of(name)
+    helptext = help_text(name, flag_of) if not hidden else f"Former name of {flag_of(name)}."
+    if kind == "boolean":
+        option = typer.Option(decl, help=helptext, rich_help_panel=panel, hidden=hidden)
+        annotation: Any = Annotated[bool, option]
+        default: Any = False
+    else:
+        if kind == "choice":
+            base: Any = _choice_type(name, tuple(info["choices"]))
+        elif kind == "mapping":
+            base = list[str]
+        else:
+            base = _TYPES[kind]
+        option = typer.Option(
+            decl,
+            help=helptext,
+            rich_help_panel=panel,
+            metavar=_METAVAR[kind],
+            show_default=show and not hidden,
+            case_sensitive=False,
+            hidden=hidden,
+        )
+        annotation = Annotated[base | None, option]
+        default = None if not show or kind == "mapping" else shown
+    python_name = _ALIAS + name if hidden else name
+    return inspect.Parameter(python_name, inspect.Parameter.KEYWORD_ONLY, default=default, annotation=annotation)
 
-        raise OptionError(err.render(flag_of)) from None
+
+def _fixed_parameters() -> list[inspect.Parameter]:
+    """Options that are not plan parameters: files, recipe, seed, run control."""
+    from fieldplan.spec import PANELS
+
+    kw = inspect.Parameter.KEYWORD_ONLY
+    io, grid, outputs = PANELS["input"], PANELS["grid"], PANELS["outputs"]
+    return [
+        inspect.Parameter("ctx", inspect.Parameter.POSITIONAL_OR_KEYWORD, annotation=typer.Context),
+        inspect.Parameter(
+            "blocks_file",
+            inspect.Parameter.POSITIONAL_OR_KEYWORD,
+            annotation=Annotated[
+                Path,
+                typer.Argument(
+                    help="Block boundaries: GeoJSON, GeoPackage, Shapefile (or zipped), KML or KMZ.",
+                    metavar="BLOCKS",
+                    show_default=False,
+                ),
+            ],
+        ),
+        inspect.Parameter(
+            "out",
+            kw,
+            annotation=Annotated[
+                Path,
+                typer.Option("--out", "-o", help="Folder to write the plan into.", metavar="DIR", rich_help_panel=outputs),
+            ],
+        ),
+        inspect.Parameter(
+            "recipe",
+            kw,
+            default=None,
+            annotation=Annotated[
+                Path | None,
+                typer.Option(
+                    "--recipe",
+                    help="TOML recipe of the plan's parameters (see 'fieldplan recipe'); flags given here win.",
+                    metavar="FILE",
+                    rich_help_panel=io,
+                ),
+            ],
+        ),
+        inspect.Parameter(
+            "like",
+            kw,
+            default=None,
+            annotation=Annotated[
+                Path | None,
+                typer.Option(
+                    "--like",
+                    help="Plan like an earlier plan folder: its parameters, a new seed unless --seed.",
+                    metavar="DIR",
+                    rich_help_panel=io,
+                ),
+            ],
+        ),
+        inspect.Parameter(
+            "seed",
+            kw,
+            default=0,
+            annotation=Annotated[
+                int,
+                typer.Option(
+                    "--seed",
+                    min=0,
+                    help="Seed of every random choice; same inputs + seed = same plan.",
+                    metavar="N",
+                    rich_help_panel=grid,
+                ),
+            ],
+        ),
+        inspect.Parameter(
+            "force",
+            kw,
+            default=False,
+            annotation=Annotated[
+                bool, typer.Option("--force", help="Replace an existing plan folder.", rich_help_panel=outputs)
+            ],
+        ),
+        inspect.Parameter(
+            "quiet",
+            kw,
+            default=False,
+            annotation=Annotated[bool, typer.Option("--quiet", "-q", help="Print only errors.", rich_help_panel=outputs)],
+        ),
+    ]
+
+
+def _signature() -> inspect.Signature:
+    from fieldplan.spec import PANELS, param_info, params_in_panel
+
+    fixed = _fixed_parameters()
+    params = fixed[:2]  # the context and the blocks file
+    for panel in PANELS:
+        # Panels appear in help in the order of their first option.
+        params.extend(p for p in fixed[2:] if _panel_of(p) == PANELS[panel])
+        for name in params_in_panel(panel):
+            params.append(_option_for(name))
+            params.extend(_option_for(name, flag=alias, hidden=True) for alias in param_info(name)["aliases"])
+    return inspect.Signature(params)
+
+
+def _panel_of(param: inspect.Parameter) -> str | None:
+    option = next(a for a in param.annotation.__metadata__ if isinstance(a, typer.models.OptionInfo))
+    return option.rich_help_panel
 
 
 def _typed(ctx: typer.Context, name: str) -> bool:
@@ -284,6 +194,74 @@ def _typed(ctx: typer.Context, name: str) -> bool:
     # By name: typer may carry its own copy of click's ParameterSource enum.
     source = ctx.get_parameter_source(name)
     return getattr(source, "name", None) in ("COMMANDLINE", "ENVIRONMENT")
+
+
+def _plain(value: Any) -> Any:
+    if isinstance(value, enum.Enum):
+        return value.value
+    if isinstance(value, list | tuple):
+        return [_plain(v) for v in value]
+    return value
+
+
+def build_spec(ctx: typer.Context, values: dict[str, Any], *, recipe: Path | None, like: Path | None, seed: int | None):
+    """The spec and seed from a recipe or earlier plan, overridden by the flags typed."""
+    from fieldplan.errors import OptionError
+    from fieldplan.spec import flag_of
+
+    given: dict[str, Any] = {}
+    for key, value in values.items():
+        name = key.removeprefix(_ALIAS)
+        if not _typed(ctx, key):
+            continue
+        if key.startswith(_ALIAS):
+            old = next(o.opts[0] for o in ctx.command.params if o.name == key)
+            if name in given and given[name] != _plain(value):
+                raise OptionError(f"give {flag_of(name)} only ({old} is its former name)")
+            echo_err(f"note: {old} is now {flag_of(name)}; the former name goes in the next release")
+        elif name in given and given[name] != _plain(value):
+            raise OptionError(f"give {flag_of(name)} only (its former name was given too)")
+        given[name] = _plain(value)
+    return _spec_and_seed(given, recipe=recipe, like=like, seed=seed if _typed(ctx, "seed") else None)
+
+
+def _plan(
+    ctx: typer.Context,
+    blocks_file: Path,
+    *,
+    out: Path,
+    recipe: Path | None = None,
+    like: Path | None = None,
+    seed: int | None = None,
+    force: bool = False,
+    quiet: bool = False,
+    **values: Any,
+) -> None:
+    """Plan sample points over block boundaries and write them to a folder.
+
+    Example: fieldplan plan blocks.geojson --spacing 40 --edge-buffer 8 --seed 7 --out plan-2027
+    """
+    from fieldplan.errors import OptionError
+    from fieldplan.spec import SpecError, flag_of
+
+    try:
+        spec, seed = build_spec(ctx, values, recipe=recipe, like=like, seed=seed)
+        run_plan(blocks_file, spec, out=out, seed=seed, force=force, quiet=quiet)
+    except SpecError as err:
+        # The library names parameters; here they are flags.
+        raise OptionError(err.render(flag_of)) from None
+
+
+def _command() -> Any:
+    command = handle_errors(_plan)
+    signature = _signature()
+    command.__signature__ = signature
+    command.__annotations__ = {p.name: p.annotation for p in signature.parameters.values()}
+    return command
+
+
+#: ``fieldplan plan`` as a function (its options are built from the spec).
+plan = _command()
 
 
 def _spec_and_seed(given: dict, *, recipe: Path | None, like: Path | None, seed: int | None):
