@@ -361,5 +361,17 @@ def report(result, out: Path) -> None:
     typer.echo("Before going out:\n" + cautions_text(plan_cautions(result)))
 
 
+class _PanelCommand(typer.core.TyperCommand):
+    """The plan command's help in rich panels whatever the app's markup mode.
+
+    Its options are many; the panels group them. Metavars are kept short so the
+    option names stay whole at 80 columns (tests/test_spec_cli.py checks it).
+    """
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        super().__init__(*args, **kwargs)
+        self.rich_markup_mode = "rich"
+
+
 def register(app: typer.Typer) -> None:
-    app.command("plan")(plan)
+    app.command("plan", cls=_PanelCommand)(plan)
