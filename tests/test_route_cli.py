@@ -263,3 +263,37 @@ def test_each_block_is_sampled_by_one_crew(plan_dir, k, hours):
         assert crew_hours.max() <= 1.15 * crew_hours.mean()
     else:
         assert crew_hours.max() <= float(hours)
+
+
+def test_after_mark_the_replacement_keeps_the_crew_and_the_advice_runs_as_printed(tmp_path):
+    # common practice, no source: crews already in the field keep their assignments; the point
+    # brought in goes to the crew that would have sampled the point it replaces, in its place.
+    import shlex
+
+    out = tmp_path / "spares"
+    args = ["plan", str(demo_blocks_path()), "--design", "random", "--per-block", "4", "--spares", "2"]
+    assert runner.invoke(app, [*args, "--seed", "3", "--out", str(out), "-q"]).exit_code == 0
+    crews = ["crews", str(out), "--crews", "3", "--start", START, "--return", "--max-hours", "9"]
+    assert runner.invoke(app, crews).exit_code == 0
+    before = load_plan(out).points.set_index("point_id")
+    gone = before.index[(before["block"] == "V01") & (before["status"] == "selected")][1]
+    result = runner.invoke(app, ["mark", str(out), gone.lower(), "--inaccessible", "--reason", "gate locked"])
+    assert result.exit_code == 0, result.output
+    after = load_plan(out).points.set_index("point_id")
+    came = after.index[after["status"] == "replacement"].item()
+    assert after.loc[came, "crew"] == before.loc[gone, "crew"] > 0
+    assert after.loc[came, "visit_order"] == before.loc[gone, "visit_order"]
+    assert after.loc[gone, "crew"] == 0
+    others = after.index[after["status"] == "selected"]
+    assert (after.loc[others, "crew"] == before.loc[others, "crew"]).all()
+    assert f"{came} joins crew {before.loc[gone, 'crew']}" in result.output
+    printed = result.output.split("same options: ")[1].splitlines()[0]
+    command = shlex.split(printed)
+    assert command[:2] == ["fieldplan", "crews"] and "--max-hours" in command and "--force" in command
+    rerun = runner.invoke(app, command[1:])
+    assert rerun.exit_code == 0, rerun.output
+    pts = load_plan(out).points
+    assert (
+        pts.loc[pts["point_id"] == came, "crew"].item() > 0
+        and pts.loc[pts["point_id"] == gone, "crew"].item() == 0
+    )

@@ -82,6 +82,18 @@ def crews(
         across_factor=across_factor,
     )
     write_crews(plan_dir, run, links=_links(plan_dir, run, link_base))
+    from fieldplan.route.folder import save_rerun
+
+    # The options, so that advice printed after a later change can repeat them exactly.
+    rerun = ["--crews", str(n_crews)]
+    rerun += ["--start", start] if start is not None else []
+    rerun += ["--walk-speed", f"{walk_speed:g}"] if walk_speed != 4.0 else []
+    rerun += ["--minutes-per-point", f"{minutes_per_point:g}"] if minutes_per_point != 5.0 else []
+    rerun += ["--max-hours", f"{max_hours:g}"] if max_hours is not None else []
+    rerun += ["--return"] if return_to_start else []
+    rerun += ["--across-rows", f"{across_factor:g}"] if across_factor != 1.5 else []
+    rerun += ["--link-base", link_base] if link_base is not None else []
+    save_rerun(plan_dir, rerun)
     if run.unfitted_ids:
         shown = ", ".join(run.unfitted_ids[:10]) + (" ..." if len(run.unfitted_ids) > 10 else "")
         echo_err(

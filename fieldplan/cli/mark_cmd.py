@@ -76,8 +76,22 @@ def mark(
     )
     for note in result.notes:
         echo_err(f"note: {note}")
-    if (Path(plan_dir) / "crews.csv").exists():
-        echo_err("note: crew routes were made before this change; run 'fieldplan crews' again")
+    from fieldplan.route.folder import rerun_command
+
+    command = rerun_command(plan_dir)
+    if command is not None:
+        moved = [
+            f"{row.replacement_id if row.action == INACCESSIBLE else row.point_id} joins crew "
+            f"{_crew_of(result.points, row.replacement_id if row.action == INACCESSIBLE else row.point_id)}"
+            for row in result.events.itertuples(index=False)
+            if row.replacement_id
+        ]
+        echo_err(
+            "note: points.csv and points.gpx give each point brought in the crew of the point it replaces"
+            + (f" ({'; '.join(moved)})" if moved else "")
+            + "; crew_NN.gpx and crew_sheets.html still show the routes made before this change. "
+            f"To re-route every crew with the same options: {command}"
+        )
     if quiet:
         return
     for row in result.events.itertuples(index=False):
@@ -87,6 +101,13 @@ def mark(
         else:
             swap = f"; {row.replacement_id} no longer needed" if row.replacement_id else ""
             typer.echo(f"{row.point_id}: restored{swap} (event {row.event_id})")
+
+
+def _crew_of(points, point_id: str) -> int:
+    if "crew" not in points.columns:
+        return 0
+    hit = points.loc[points["point_id"].astype(str) == str(point_id), "crew"]
+    return int(hit.iloc[0]) if len(hit) else 0
 
 
 def register(app: typer.Typer) -> None:

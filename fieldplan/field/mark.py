@@ -40,6 +40,7 @@ from fieldplan.field.events import (
 )
 from fieldplan.field.spares import SELECTED, SPARE
 from fieldplan.field.substitutes import SUBSTITUTES_LAYER, SUFFIX
+from fieldplan.route.folder import inherit_crews
 from fieldplan.samples.purpose import field_cores, with_notes
 
 __all__ = [
@@ -306,6 +307,8 @@ def mark_points(
     # Soil plans: a substitute in use gets its own cores; those of points given up are retired.
     cores, after, moved = field_cores(plan, after)
     repl = _replacements(before, after, ids, planned)
+    # With crews, a point brought in joins the crew (and takes the place) of the one it replaces.
+    after = inherit_crews(plan.points, after, ids, repl, restore=action == RESTORE)
     rows = make_events([action] * len(ids), ids, replacement_ids=repl, reason=reason, user=by, now=now)
     notes = []
     if action == INACCESSIBLE:

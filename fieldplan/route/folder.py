@@ -28,6 +28,10 @@ from fieldplan.route.crews import DEFAULT_MINUTES_PER_POINT, DEFAULT_WALK_KMH, C
 from fieldplan.route.metric import DEFAULT_ACROSS_FACTOR
 
 __all__ = [
+    "RERUN_NAME",
+    "inherit_crews",
+    "rerun_command",
+    "save_rerun",
     "MAX_DROP_OFF_KM",
     "CrewRun",
     "check_drop_off",
@@ -364,6 +368,94 @@ def write_crews(
     write_map(plan, plan_dir / "map.html", routes=routes)
     written += [plan_dir / n for n in ("points.csv", "points.geojson", "points.gpx", "map.html")]
     return written
+
+
+#: The options of the last ``fieldplan crews`` run, so the advice printed after a change can repeat them.
+RERUN_NAME = "crews.json"
+
+
+def save_rerun(plan_dir: str | Path, args: list[str]) -> Path:
+    """Record the ``fieldplan crews`` options that made the crews (``args`` after the folder)."""
+    import json
+
+    from fieldplan.write.safe import atomic_write_text
+
+    path = Path(plan_dir) / RERUN_NAME
+    atomic_write_text(path, json.dumps({"args": [str(a) for a in args]}, indent=1) + "\n")
+    return path
+
+
+def rerun_command(plan_dir: str | Path) -> str | None:
+    """The command that re-routes every crew with the options last used (None without crews).
+
+    It carries ``--force``, as it replaces crews on purpose. Crews made before the
+    options were recorded get the number of crews from ``crews.csv``.
+    """
+    import json
+    import shlex
+
+    plan_dir = Path(plan_dir)
+    args: list[str] | None = None
+    try:
+        data = json.loads((plan_dir / RERUN_NAME).read_text(encoding="utf-8"))
+        args = [str(a) for a in data["args"]]
+    except (OSError, ValueError, KeyError, TypeError):
+        table = plan_dir / "crews.csv"
+        if not table.exists():
+            return None
+        rows = [line for line in table.read_text(encoding="utf-8").splitlines()[1:] if line.strip()]
+        args = ["--crews", str(max(len(rows), 1))]
+    return shlex.join(["fieldplan", "crews", str(plan_dir), *args, "--force"])
+
+
+def inherit_crews(current, after, ids: list[str], replaced_by: list[str], *, restore: bool):
+    """Crews after a mark: a point brought in takes the crew and visit of the point it replaces.
+
+    Parameters
+    ----------
+    current : DataFrame
+        The points before the change, with ``crew`` and ``visit_order`` when crews exist.
+    after : DataFrame
+        The points after it (``fieldplan.field.mark.field_points``).
+    ids, replaced_by : list of str
+        The points marked (or restored) and, for each, the point that came into use
+        (or, on restore, stopped being needed); '' for none.
+    restore : bool
+        Whether the points were restored.
+
+    Returns
+    -------
+    DataFrame
+        ``after`` with ``crew`` and ``visit_order`` (unchanged when there are no crews);
+        points nobody visits have crew 0.
+    """
+    if "crew" not in current.columns:
+        return after
+    key = current["point_id"].astype(str)
+    crew = dict(zip(key, pd.to_numeric(current["crew"], errors="coerce").fillna(0).astype(int), strict=True))
+    visit = dict(
+        zip(
+            key,
+            pd.to_numeric(current.get("visit_order", 0), errors="coerce").fillna(0).astype(int),
+            strict=True,
+        )
+    )
+    for pid, other in zip(ids, replaced_by, strict=True):
+        came, went = (pid, other) if restore else (other, pid)
+        if came and went:
+            crew[came], visit[came] = crew.get(went, 0), visit.get(went, 0)
+        if went:
+            crew[went], visit[went] = 0, 0
+    out = after.copy()
+    names = out["point_id"].astype(str)
+    off = (
+        out["status"].fillna("").astype(str).str.lower().isin(_NOT_VISITED)
+        if "status" in out.columns
+        else pd.Series(False, index=out.index)
+    )
+    out["crew"] = np.where(off, 0, names.map(crew).fillna(0).astype(np.int64))
+    out["visit_order"] = np.where(off, 0, names.map(visit).fillna(0).astype(np.int64))
+    return out
 
 
 def has_crews(plan) -> bool:
