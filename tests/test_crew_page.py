@@ -273,6 +273,11 @@ def test_offline_day_then_one_sync(served, tmp_path):
         assert len(journal_records(read_journal(plan_dir))) == 6
 
         # The same records sent again (a lost answer, a retry): nothing is added, the file is untouched.
+        wait_until(page, "!window.fieldplanCrew.state.syncing")
+        if offer and offer["replacement_id"]:
+            # After the sync the page reloads the plan: the spare now sits on the crew's list.
+            ids_now = page.evaluate("window.fieldplanCrew.state.data.points.map((p) => p.point_id)")
+            assert offer["replacement_id"] in ids_now
         before = hashlib.sha256((plan_dir / GPKG_NAME).read_bytes()).hexdigest()
         again = page.evaluate(
             """async () => {
@@ -310,7 +315,15 @@ def test_js_checks_agree_with_python(served, tmp_path):
     from playwright.sync_api import sync_playwright
     from pyproj import Geod
 
-    from fieldplan.samples.ids import ALPHABET, check_char, is_valid, make_sample_ids
+    from fieldplan.field.sync import check_sample_id
+    from fieldplan.samples.ids import (
+        ALPHABET,
+        check_char,
+        is_valid,
+        make_sample_ids,
+        normalise_id,
+        round_sample_ids,
+    )
 
     server, _, _ = served
     rng = np.random.default_rng(20)
@@ -319,6 +332,10 @@ def test_js_checks_agree_with_python(served, tmp_path):
     typos = [i[:-1] + ALPHABET[(ALPHABET.index(i[-1]) + 1) % 31] for i in ids[:50]]
     # Adjacent transpositions of different characters (swapping equal ones changes nothing).
     swaps = [i[:6] + i[7] + i[6] + i[8:] for i in ids[:200] if i[6] != i[7]][:50]
+    # The page's bag check against the server's (week-2 labels of the same point are its bags).
+    week2 = round_sample_ids(ids[:2], 2)
+    labels = [normalise_id(week2[0])]
+    bags = [[t, ids[0], labels] for t in (ids[0], ids[0].lower(), week2[0], week2[1], ids[1], typos[0], "")]
     lat1 = rng.uniform(-60, 60, 200)
     lon1 = rng.uniform(-180, 180, 200)
     lat2 = lat1 + rng.uniform(-0.02, 0.02, 200)
@@ -329,18 +346,21 @@ def test_js_checks_agree_with_python(served, tmp_path):
         page.goto(server.url + "/field/static/crew.css")
         page.add_script_tag(url=server.url + "/field/static/fieldcore.js")
         got = page.evaluate(
-            """([payloads, ids, bad, pts]) => ({
+            """([payloads, ids, bad, pts, bags]) => ({
                  checks: payloads.map((p) => FieldCore.checkChar(p)),
                  valid: ids.concat(bad).map((i) => FieldCore.isValidId(i)),
                  geo: pts.map((p) => FieldCore.inverse(p[0], p[1], p[2], p[3])),
+                 bags: bags.map((b) => FieldCore.bagProblem(b[0], b[1], b[2])),
                })""",
-            [payloads, ids, typos + swaps, np.column_stack([lat1, lon1, lat2, lon2]).tolist()],
+            [payloads, ids, typos + swaps, np.column_stack([lat1, lon1, lat2, lon2]).tolist(), bags],
         )
         context.close()
     # reference: fieldplan.samples.ids (ISO/IEC 7064 pure system, mod 31, radix 3)
     assert got["checks"] == [check_char(p) for p in payloads]
     assert got["valid"] == [is_valid(i) for i in ids + typos + swaps]
     assert all(got["valid"][:200]) and not any(got["valid"][200:])
+    assert [p == "" for p in got["bags"]] == [check_sample_id(*b) == "" for b in bags]
+    assert [p == "" for p in got["bags"]] == [True, True, True, False, False, False, False]
     # reference: pyproj.Geod (Karney 2013) on WGS84: within 0.5 m and 0.5 degrees
     az, _, dist = Geod(ellps="WGS84").inv(lon1, lat1, lon2, lat2)
     js_dist = np.array([g["distance"] for g in got["geo"]])

@@ -440,3 +440,18 @@ def test_crew_links_for_the_office(plan_dir):
         # reference: RFC 2104 HMAC bound to plan and crew
         assert check_crew_token(app.state.secret, "harvest", c["crew"], c["url"].rsplit("=", 1)[1])
         assert c["qr_svg"].startswith("<svg")
+
+
+def test_later_round_labels_are_the_same_bag(plan_dir):
+    """Bags labelled for a later round (`fieldplan labels --round`) belong to the same point."""
+    from fieldplan.samples.ids import round_sample_ids
+
+    pts, ll = crew_points(plan_dir, 1)
+    rows = [r._asdict() for r in pts.itertuples(index=False)]
+    week2 = round_sample_ids([rows[0]["sample_id"], rows[1]["sample_id"]], 2)
+    good = taken(rows[0], ll[0], sample_id=week2[0], value=20.0)
+    other = taken(rows[0], ll[0], sample_id=week2[1], value=20.0, minute=3)
+    report = apply_records(plan_dir, [good, other], crew=1)
+    # reference: fieldplan.samples.ids.round_sample_ids (label rounds keep the serial, new plan code)
+    assert report.stored == [good["id"]]
+    assert "another point's bag" in report.refused[other["id"]]

@@ -65,6 +65,7 @@ __all__ = [
     "journal_records",
     "check_record",
     "check_sample_id",
+    "point_labels",
     "apply_records",
     "field_conflicts",
     "conflict_notes",
@@ -206,11 +207,13 @@ def _content(record: Mapping) -> dict:
     return {k: record.get(k) for k in keys}
 
 
-def check_sample_id(typed: str, planned: str) -> str:
+def check_sample_id(typed: str, planned: str, accepted: Iterable[str] = ()) -> str:
     """Why ``typed`` is not the bag of a point whose planned id is ``planned`` ('' if it is).
 
     The check character is tested first (:func:`fieldplan.samples.ids.is_valid`), so
     a mistyped id is told apart from a valid id of another point (the wrong bag).
+    ``accepted`` adds the point's labels of later rounds (``fieldplan labels --round``,
+    see :func:`fieldplan.results.sample_id_map`); hyphens, spaces and case are ignored.
     """
     from fieldplan.samples.ids import is_valid, normalise_id
 
@@ -220,12 +223,31 @@ def check_sample_id(typed: str, planned: str) -> str:
         return f"no sample id; this point's bag is {planned}"
     if not is_valid(typed):
         return f"sample id {typed} has a wrong check character; read the label again"
-    if normalise_id(typed) != normalise_id(planned):
+    if normalise_id(typed) not in {normalise_id(planned), *map(normalise_id, accepted)}:
         return f"sample id {typed} is another point's bag; this point's bag is {planned}"
     return ""
 
 
-def _plan_problem(record: Mapping, points: pd.DataFrame) -> str:
+def point_labels(plan) -> dict[str, list[str]]:
+    """Point id -> the normalised sample ids its bags may carry (label rounds 1 to next round + 2).
+
+    The same set of rounds ``fieldplan results`` accepts for sample ids.
+    """
+    from fieldplan.results import sample_id_map
+
+    try:
+        from fieldplan.results import next_round
+
+        rounds = next_round(plan.layers) + 2
+    except ImportError:  # pragma: no cover - older results module
+        rounds = 3
+    out: dict[str, list[str]] = {}
+    for label, (pid, _round) in sample_id_map(plan.points, rounds=rounds).items():
+        out.setdefault(pid, []).append(label)
+    return {pid: sorted(labels) for pid, labels in out.items()}
+
+
+def _plan_problem(record: Mapping, points: pd.DataFrame, labels: Mapping[str, list[str]]) -> str:
     """Why the plan cannot take ``record`` ('' when it can)."""
     from fieldplan.results import plausible_range
 
@@ -241,7 +263,7 @@ def _plan_problem(record: Mapping, points: pd.DataFrame) -> str:
     if record["kind"] == TAKEN:
         planned = points.at[pid, "sample_id"] if "sample_id" in points.columns else ""
         planned = "" if planned is None or planned != planned else str(planned)
-        problem = check_sample_id(record["sample_id"], planned)
+        problem = check_sample_id(record["sample_id"], planned, labels.get(pid, ()))
         if problem:
             return problem
         if record["value"] is not None:
@@ -380,6 +402,7 @@ def apply_records(
     with _lock(plan_dir, lock_timeout):
         plan = load_plan(plan_dir)
         points = _points_table(plan)
+        labels = point_labels(plan)
         entries = read_journal(plan_dir)
         known = {r["id"]: r for r in journal_records(entries)}
         applied = {rid for e in entries if e.get("type") == "applied" for rid in e.get("ids", [])}
@@ -396,7 +419,7 @@ def apply_records(
                 else:
                     report.duplicates.append(record["id"])
                 continue
-            problem = _plan_problem(record, points)
+            problem = _plan_problem(record, points, labels)
             entry = {"type": "record", **record, "crew": str(crew), "received_utc": received}
             if problem:
                 entry["problem"] = problem

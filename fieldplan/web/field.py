@@ -158,6 +158,7 @@ def crew_data(plan_dir: Path, crew: int) -> dict:
         REASONS,
         field_conflicts,
         journal_records,
+        point_labels,
         read_journal,
         replacement_offers,
     )
@@ -198,6 +199,7 @@ def crew_data(plan_dir: Path, crew: int) -> dict:
     sub = points.iloc[keep]
     lonlat = points_lonlat(sub) if len(sub) else np.empty((0, 2))
     offers = replacement_offers(plan, ids[keep].tolist())
+    labels = point_labels(plan)
 
     def text(row, column: str) -> str:
         value = row.get(column)
@@ -212,6 +214,7 @@ def crew_data(plan_dir: Path, crew: int) -> dict:
                 "point_id": pid,
                 "block": text(row, "block"),
                 "sample_id": text(row, "sample_id"),
+                "labels": labels.get(pid, []),
                 "status": str(status[keep[n - 1]]),
                 "lon": round(float(lon), 7),
                 "lat": round(float(lat), 7),

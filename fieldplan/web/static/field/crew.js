@@ -80,7 +80,7 @@
 
   /* ---------- map ---------- */
   var map = null, layers = {};
-  function drawMap() {
+  function drawMap(keepView) {
     var d = state.data;
     if (!window.L || !d) return;
     if (!map) {
@@ -106,7 +106,8 @@
         .addTo(layers.route);
     }
     d.points.forEach(function (p) { bounds.push([p.lat, p.lon]); });
-    if (bounds.length) map.fitBounds(bounds, { padding: [18, 18] });
+    if (keepView) { /* a refresh while walking keeps the crew's view */ }
+    else if (bounds.length) map.fitBounds(bounds, { padding: [18, 18] });
     else map.setView([0, 0], 2);
     drawPoints();
   }
@@ -229,7 +230,7 @@
   function saveTaken() {
     var t = pickTarget();
     if (!t) return;
-    var typed = $("sample-id").value, problem = FC.bagProblem(typed, t.sample_id);
+    var typed = $("sample-id").value, problem = FC.bagProblem(typed, t.sample_id, t.labels);
     var raw = $("value").value.trim(), value = raw === "" ? null : Number(raw.replace(",", "."));
     var v = state.data.variable, lim = state.data.ranges[v];
     if (!problem && raw !== "" && !isFinite(value)) problem = "The value is not a number.";
@@ -372,6 +373,16 @@
         if ((answer.conflicts || []).length) msg += " " + answer.conflicts.length + " conflict(s) for the office.";
         say(msg, !refused);
         update();
+        // The plan may have changed (a spare brought in, another crew's records): fetch it again.
+        if ((answer.stored || []).length) {
+          return loadData().then(function (data) {
+            var keep = state.target && state.target.point_id;
+            state.data = data;
+            state.target = keep ? pointById(keep) : null;
+            drawMap(true);
+            update();
+          }).catch(function () { /* the kept copy stays in use */ });
+        }
       });
     }).catch(function (err) {
       if (!quiet) say("Not synced (" + (navigator.onLine ? err.message || err : "no signal") + "). Records stay on this phone.");

@@ -32,12 +32,16 @@
     return c !== null && c === t.charAt(t.length - 1);
   }
 
-  /* Why `typed` is not the bag of a point planned with `planned` ("" when it is). */
-  function bagProblem(typed, planned) {
+  /* Why `typed` is not the bag of a point planned with `planned` ("" when it is); `labels`
+   * adds the point's ids of later label rounds (normalised), as the server accepts them. */
+  function bagProblem(typed, planned, labels) {
     if (!planned) return "";
-    if (!normaliseId(typed)) return "Type or scan the bag's sample id.";
+    var t = normaliseId(typed);
+    if (!t) return "Type or scan the bag's sample id.";
     if (!isValidId(typed)) return "Check character wrong: read the label again.";
-    if (normaliseId(typed) !== normaliseId(planned)) return "Wrong bag: this point's bag is " + planned + ".";
+    if (t !== normaliseId(planned) && (labels || []).indexOf(t) < 0) {
+      return "Wrong bag: this point's bag is " + planned + ".";
+    }
     return "";
   }
 
