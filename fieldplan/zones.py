@@ -120,9 +120,11 @@ def memberships(x: np.ndarray, centres: np.ndarray, m: float) -> np.ndarray:
     on = d2 <= 1e-300
     # Distances relative to the nearest centre keep the powers in [0, 1] (no overflow).
     # Rows with a point on a centre give inf here and are set just below.
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         ratio = d2 / np.maximum(d2.min(axis=1, keepdims=True), 1e-300)
-        inv = ratio ** (-1.0 / (m - 1.0))
+        power = 1.0 / (m - 1.0)
+        # m = 1.5 and m = 2 give whole powers: squaring is several times faster than pow.
+        inv = 1.0 / (np.square(ratio) if power == 2.0 else ratio if power == 1.0 else ratio**power)
         u = inv / inv.sum(axis=1, keepdims=True)
     hit = on.any(axis=1)
     if hit.any():
@@ -225,14 +227,15 @@ def choose_k(
     m: float,
     rng: np.random.Generator,
     ks: tuple[int, ...] = K_RANGE,
-    silhouette_sample: int = 5000,
+    silhouette_sample: int = 2000,
 ) -> tuple[int, pd.DataFrame, dict[int, tuple[np.ndarray, np.ndarray]]]:
     """Fit every K in ``ks`` and choose one.
 
     ``fpi-nce``: the K with the smallest sum of its ranks on FPI and on NCE (both lowest at the
     least ambiguous partition, Odeh et al. 1992; ties go to the smaller K). ``silhouette``: the
     K with the largest mean silhouette (Rousseeuw 1987) on a seeded sample of at most
-    ``silhouette_sample`` cells (scikit-learn's ``silhouette_score``).
+    ``silhouette_sample`` cells (scikit-learn's ``silhouette_score``; 2,000 cells give the
+    mean silhouette to about +-0.01, and the cost grows with the square of the sample).
 
     Returns
     -------
