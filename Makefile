@@ -37,6 +37,7 @@ demo: $(STAMP)
 	@echo
 	@echo "Demo plans written under $(DEMO_OUT)/: plan (grid, crews, results), soil (cores, labels, lab sheet), ripeness"
 	@echo "Map: $$(cd $(DEMO_OUT)/plan && pwd)/map.html"
+	@echo "Workspace in the browser: $(FP) serve $(DEMO_OUT)   (then open http://127.0.0.1:8750/)"
 
 lint: $(STAMP)
 	$(BIN)/ruff check .
@@ -48,6 +49,7 @@ bench: $(STAMP)
 	@# The validity study reads the Meuse zinc survey shipped inside scikit-gstat (data only, no import).
 	$(BIN)/python -m pip install --quiet --no-deps scikit-gstat
 	$(BIN)/python -m benchmarks.run
+	$(BIN)/python -m benchmarks.web_bench
 
 clean:
 	rm -rf $(VENV) $(DEMO_OUT)

@@ -8,6 +8,7 @@ same whichever way a change was made. Errors are JSON: ``{"error", "parameter",
 
 from __future__ import annotations
 
+import json
 import shutil
 import tempfile
 from pathlib import Path
@@ -43,13 +44,26 @@ def get_plans(request: Request) -> dict:
 
 
 @router.get("/plans/{name}", summary="One plan: summary, parameters, map layers, files, crews")
-def get_plan(request: Request, name: str) -> dict:
+def get_plan(request: Request, name: str):
+    from fastapi.responses import Response
+
     folder = _folder(request, name)
-    detail = service.plan_detail(folder)
     base = str(request.base_url).rstrip("/")
+    # The answer depends only on the folder's files: kept until one of them changes.
+    key = (str(folder), base, service.folder_stamp(folder))
+    cached = _DETAILS.get(str(folder))
+    if cached is not None and cached[0] == key:
+        return Response(cached[1], media_type="application/json")
+    detail = service.plan_detail(folder)
     detail["crew_links"] = service.crew_links(folder, base, request.app.state.secret)
     detail["conflicts"] = service.conflicts(folder)
-    return detail
+    # Already JSON-ready: skip FastAPI's generic encoder, which costs more than the plan itself.
+    body = json.dumps(detail, separators=(",", ":"), allow_nan=False, default=str).encode()
+    _DETAILS[str(folder)] = (key, body)
+    return Response(body, media_type="application/json")
+
+
+_DETAILS: dict[str, tuple[tuple, bytes]] = {}
 
 
 class DuplicateRequest(BaseModel):

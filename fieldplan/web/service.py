@@ -63,6 +63,28 @@ def _stamp(folder: Path) -> tuple:
     return tuple(out)
 
 
+def folder_stamp(folder: Path) -> tuple:
+    """Name, size and modification time of every entry of a plan folder (hidden ones too)."""
+    out = []
+    with os.scandir(folder) as entries:
+        for entry in entries:
+            try:
+                st = entry.stat(follow_symlinks=False)
+            except OSError:
+                continue
+            out.append((entry.name, st.st_size, st.st_mtime_ns))
+            if entry.is_dir(follow_symlinks=False):
+                # A journal folder: its files count too (one level is all the plan folder uses).
+                with os.scandir(entry.path) as inner:
+                    for sub in inner:
+                        try:
+                            sst = sub.stat(follow_symlinks=False)
+                        except OSError:
+                            continue
+                        out.append((f"{entry.name}/{sub.name}", sst.st_size, sst.st_mtime_ns))
+    return tuple(sorted(out))
+
+
 def load(folder: Path):
     """The plan in ``folder`` (``fieldplan.store.load_plan``), cached until its files change.
 
@@ -158,7 +180,13 @@ def plan_detail(folder: Path) -> dict:
     from fieldplan.write.html_map import map_data
 
     plan = load(folder)
-    data = map_data(plan, markers="dom")
+    key = ("map", str(folder))
+    hit = _CACHE.get(key)
+    if hit is not None and hit[1][0] is plan:
+        data = hit[1][1]
+    else:
+        data = map_data(plan, markers="dom")
+        _CACHE[key] = ((), (plan, data))
     from fieldplan.results import stored_results
 
     results = stored_results(plan.layers)
