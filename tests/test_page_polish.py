@@ -149,3 +149,33 @@ def test_coverage_share_and_its_note_agree_to_the_last_digit():
     for name, row in table.iterrows():
         quoted = re.search(r"vs ([0-9.]+) by area share", row["notes"]).group(1)
         assert quoted == f"{row['expected_points']:.2f}", name
+
+
+def test_estimates_table_lists_blocks_in_natural_order():
+    import geopandas as gpd
+    import pandas as pd
+
+    from fieldplan.estimate.table import estimate_table
+
+    names = ["Blk 10", "Blk 2", "Blk 1"]
+    ids = [f"{b}-{i}" for b in names for i in range(3)]
+    blocks_of = [b for b in names for _ in range(3)]
+    pts = gpd.GeoDataFrame(
+        {"point_id": ids, "block": blocks_of, "stratum": blocks_of},
+        geometry=shapely.points(np.arange(9.0) * 10, np.zeros(9)),
+    )
+    blk = pd.DataFrame({"block": names, "stratum": names, "sampled_area_ha": [1.0, 2.0, 3.0]})
+    res = pd.DataFrame(
+        {
+            "round": 1,
+            "date": "",
+            "point_id": ids,
+            "unit": "",
+            "value": np.arange(9.0) + 20,
+            "units_measured": np.nan,
+            "variable": "brix",
+        }
+    )
+    table = estimate_table(pts, blk, res, value="brix")
+    # common practice, no source: natural order of ids, then the whole-farm row.
+    assert table["group"].tolist() == ["Blk 1", "Blk 2", "Blk 10", "all"]

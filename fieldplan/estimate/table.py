@@ -28,6 +28,7 @@ from fieldplan.estimate.intervals import check_confidence, t_interval
 from fieldplan.estimate.readiness import check_target, prob_reached, project_blocks
 from fieldplan.estimate.stratified import ONE_POINT_NOTE, stratified_mean
 from fieldplan.estimate.systematic import successive_difference_se, systematic_mean
+from fieldplan.sorting import natural_key
 
 __all__ = ["GROUPINGS", "estimate_table", "point_values"]
 
@@ -267,7 +268,8 @@ def estimate_table(
     # One estimate per (round, group): a handful of groups, not a loop over points.
     for rnd, dr in d.groupby("round", sort=True):
         date = _round_date(dr)
-        groups = [(g, s) for g, s in dr.groupby(by, sort=True)] + [(ALL, dr)]
+        # Groups in natural order (Blk 2 before Blk 10), as block ids are listed everywhere.
+        groups = sorted(dr.groupby(by, sort=False), key=lambda gs: natural_key(gs[0])) + [(ALL, dr)]
         for g, sub in groups:
             row = _one(sub, design=design, confidence=c, local=local_variance)
             if row["n"] == 1 and not row["note"]:
