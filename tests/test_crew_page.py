@@ -291,6 +291,16 @@ def test_offline_day_then_one_sync(served, tmp_path):
         assert hashlib.sha256((plan_dir / GPKG_NAME).read_bytes()).hexdigest() == before
         assert len(journal_records(read_journal(plan_dir))) == 6
 
+        # The plan page shows the same records: one round, five recorded positions, one point given up.
+        office = context.new_page()
+        office.goto(server.url + "/plans/vintage")
+        wait_until(office, "document.querySelectorAll('.fp-actual').length > 0", 20)
+        assert office.locator(".fp-actual").count() == 5
+        detail = office.evaluate("fetch('/api/plans/vintage').then((r) => r.json())")
+        assert detail["rounds"] == 1 and detail["status_counts"].get("inaccessible") == 1
+        assert detail["conflicts"] == []
+        office.close()
+
         # The worker keeps only same-origin files.
         kept = page.evaluate(
             """async () => {
