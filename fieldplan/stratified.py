@@ -55,7 +55,7 @@ DEFAULT_INSTRUCTIONS = (
     "Start at row {row}, plant {plant}; sample {units} consecutive plant(s) along the row, "
     "alternating sides of the row and rotating top, middle and bottom of the canopy"
 )
-_FIELDS = ("block", "row", "plant", "units")
+_FIELDS = ("block", "row", "plant", "units", "part")
 _SIZE_KEYS = ("per_block", "per_ha", "n", "target_units")
 
 
@@ -146,7 +146,9 @@ def check_design_options(design: str, options: dict) -> dict:
     if opts["target_units"] is not None and design != "clusters":
         raise OptionError("--target-units applies to --design clusters only")
     if opts["target_units"] is not None and opts["units_per_cluster"] is None:
-        raise OptionError("--target-units needs --plants-per-cluster (plants in each cluster, one unit from each)")
+        raise OptionError(
+            "--target-units needs --plants-per-cluster (plants in each cluster, one unit from each)"
+        )
     for key in ("per_block", "n", "target_units", "units_per_cluster"):
         value = opts[key]
         if value is not None and (int(value) != value or value < 1):
@@ -182,7 +184,9 @@ def check_design_options(design: str, options: dict) -> dict:
 
 
 def format_instructions(template: str, table: pd.DataFrame) -> np.ndarray:
-    """Fill ``{block}``, ``{row}``, ``{plant}``, ``{units}`` in ``template`` for each pick.
+    """Fill ``{block}``, ``{row}``, ``{plant}``, ``{units}``, ``{part}`` in ``template`` for each pick.
+
+    ``{part}`` names the part of a multi-part block ("part 2 of 2 (north-east)"), '' otherwise.
 
     Built column by column (no loop per point).
     """
@@ -197,11 +201,47 @@ def format_instructions(template: str, table: pd.DataFrame) -> np.ndarray:
             continue
         if name not in _FIELDS or spec or conv:
             raise OptionError(
-                f"--instructions: unknown placeholder {{{name}}}; use {{row}}, {{plant}}, {{units}} or {{block}}"
+                f"--instructions: unknown placeholder {{{name}}}; use {{row}}, {{plant}}, {{units}}, {{part}} or {{block}}"
             )
         if len(table):
             out = out + table[name].astype(str)
     return out.to_numpy(dtype=object)
+
+
+_COMPASS = ("north", "north-east", "east", "south-east", "south", "south-west", "west", "north-west")
+
+
+def part_names(blocks: pd.DataFrame, block: np.ndarray, part: np.ndarray) -> np.ndarray:
+    """Name of the part each pick lies in, e.g. "part 2 of 2 (north-east)"; '' for one-part blocks.
+
+    Parts keep the order of the block's geometry; the compass word is the side of
+    the block the part's centroid lies on, so a crew can tell the parts apart on the ground.
+    """
+    out = np.full(len(block), "", dtype=object)
+    if not len(block):
+        return out
+    names = blocks["block"].astype(str).to_numpy()
+    geoms = blocks.geometry.values
+    which = pd.Index(names).get_indexer(np.asarray(block, dtype=str))
+    count = shapely.get_num_geometries(geoms)
+    multi = (count[which] > 1) & (np.asarray(part) > 0)
+    if not multi.any():
+        return out
+    pairs, inverse = np.unique(np.column_stack([which[multi], part[multi]]), axis=0, return_inverse=True)
+    whole = shapely.centroid(geoms[pairs[:, 0]])
+    piece = shapely.centroid(shapely.get_geometry(geoms[pairs[:, 0]], pairs[:, 1] - 1))
+    dx = shapely.get_x(piece) - shapely.get_x(whole)
+    dy = shapely.get_y(piece) - shapely.get_y(whole)
+    sector = np.round(np.degrees(np.arctan2(dx, dy)) % 360.0 / 45.0).astype(int) % 8
+    label = np.array(
+        [
+            f"part {p} of {count[b]} ({_COMPASS[k]})"
+            for (b, p), k in zip(pairs.tolist(), sector.tolist(), strict=True)
+        ],
+        dtype=object,
+    )
+    out[multi] = label[inverse.reshape(-1)]
+    return out
 
 
 def _field_per_stratum(
@@ -395,7 +435,9 @@ def _stratified(
                 units = np.concatenate([units, np.full(n_h - n_sel, units_per, dtype=np.int64)])
             else:
                 units = np.full(n_h, units_per, dtype=np.int64)
-            extra = {"row": picks.row, "plant": picks.plant, "units": units}
+            # Mapped rows are numbered over the whole block, whatever its parts.
+            part = picks.part if params.get("rows_frame") is None else np.zeros(n_h, dtype=np.int64)
+            extra = {"row": picks.row, "plant": picks.plant, "units": units, "part": part}
         else:
             m = m[~gone[m]]
             poly = shapely.union_all(use[m]) if m.size > 1 else use[m[0]]
@@ -415,7 +457,7 @@ def _stratified(
         parts.append(part)
         if progress is not None:
             progress(h + 1, len(strata))
-    columns = ["_order", "x", "y"] + (["row", "plant", "units"] if design == "clusters" else [])
+    columns = ["_order", "x", "y"] + (["row", "plant", "units", "part"] if design == "clusters" else [])
     columns += ["status", "spare_rank"] if n_spares else []
     if parts:
         joined = {key: np.concatenate([part[key] for part in parts]) for key in columns}
@@ -428,9 +470,17 @@ def _stratified(
         table = pd.DataFrame(columns=["block", *columns[1:]])
     table["block"] = table["block"].astype(str)
     if design == "clusters":
-        for key in ("row", "plant", "units"):
+        for key in ("row", "plant", "units", "part"):
             table[key] = table[key].astype(np.int64)
-        table["instructions"] = format_instructions(opts["instructions"] or DEFAULT_INSTRUCTIONS, table)
+        # Multi-part blocks number rows per part: the text names the part first.
+        table["part"] = part_names(blocks, table["block"].to_numpy(), table["part"].to_numpy())
+        text = format_instructions(opts["instructions"] or DEFAULT_INSTRUCTIONS, table)
+        if not opts["instructions"]:
+            named = table["part"].to_numpy(dtype=object) != ""
+            prefix = "In " + table["part"].astype(str) + " (count rows from that part's own edge): "
+            text = np.where(named, prefix.to_numpy(dtype=object) + text, text)
+        table["instructions"] = text
+        table = table.drop(columns="part")
     table.attrs["strata"] = pd.DataFrame(
         {"stratum": strata, "n_target_exact": np.round(exact, 4), "n_allocated": counts.astype(int)}
     )

@@ -219,6 +219,14 @@ def _reference_segments(row_lines, clip, ps):
 
 
 def _reference_row_segments(polygon, rs, ps, bearing, clip=None):
+    # A multi-part block has a row model per part, numbered within the part (rows of the
+    # second part start again at 1 from that part's own edge), parts in their stored order.
+    parts = shapely.get_parts(polygon)
+    if len(parts) > 1:
+        each = [_reference_row_segments(p, rs, ps, bearing, clip) for p in parts]
+        joined = {key: np.concatenate([e[key] for e in each]) for key in each[0]}
+        joined["part"] = np.concatenate([np.full(len(e["row"]), i + 1) for i, e in enumerate(each)])
+        return joined
     theta = np.radians(bearing)
     u = np.array([np.sin(theta), np.cos(theta)])
     v = np.array([np.cos(theta), -np.sin(theta)])
@@ -285,6 +293,7 @@ def _random_block(rng):
 
 def _assert_same(got, ref):
     assert got.row.tolist() == ref["row"].tolist()
+    assert got.parts.tolist() == ref.get("part", np.ones(len(ref["row"]), dtype=int)).tolist()
     assert got.plants.tolist() == ref["plants"].tolist()
     assert got.first_plant.tolist() == ref["first_plant"].tolist()
     np.testing.assert_allclose(got.length, ref["length"], atol=1e-6, rtol=0)
@@ -342,8 +351,59 @@ def test_edge_buffer_leaving_no_whole_plant_samples_the_block_without_it():
         plant_spacing_m=[1.0],
         row_bearing_deg=[0.0],
     )
-    plan = make_plan(
-        blocks, design="clusters", edge_buffer=10.0, seed=2, design_options={"per_block": 3}
-    )
+    plan = make_plan(blocks, design="clusters", edge_buffer=10.0, seed=2, design_options={"per_block": 3})
     assert len(plan.points) == 3
     assert "edge buffer leaves no whole plant" in plan.blocks["flags"].iloc[0]
+
+
+def test_multi_part_block_numbers_rows_from_each_part_own_edge():
+    # reference: shapely bounds of each part. Rows run north (bearing 0), so row k of a part
+    # lies (k - 0.5) row spacings east of that part's western edge (common practice, no
+    # source: a crew counts rows from the edge of the part it stands in).
+    west = shapely.box(0, 0, 100, 200)  # 40 rows at 2.5 m
+    east = shapely.box(300, 50, 402.5, 150)  # 41 rows
+    block = shapely.MultiPolygon([west, east])
+    seg = row_segments(block, row_spacing_m=2.5, plant_spacing_m=1.0, row_bearing_deg=0.0)
+    picks = pick_plants(seg, 400, rng=np.random.default_rng(8))
+    for k, part in enumerate((west, east), start=1):
+        mine = picks.part == k
+        assert mine.any()
+        x0 = shapely.bounds(part)[0]
+        np.testing.assert_allclose(picks.x[mine] - x0, (picks.row[mine] - 0.5) * 2.5, atol=1e-6)
+        assert picks.row[mine].max() <= round((shapely.bounds(part)[2] - x0) / 2.5)
+        # plant p sits p - 0.5 plant spacings from the part's own southern edge
+        y0 = shapely.bounds(part)[1]
+        np.testing.assert_allclose(picks.y[mine] - y0, picks.plant[mine] - 0.5, atol=1e-6)
+    assert seg.row[seg.parts == 2].max() == 41 and seg.row[seg.parts == 1].max() == 40
+    # border rows are left out on each side of every part
+    elig = eligible_plants(seg, skip_border_rows=1)
+    for k, last in ((1, 40), (2, 41)):
+        out = (seg.parts == k) & np.isin(seg.row, [1, last])
+        assert (elig[out] == 0).all() and (elig[(seg.parts == k) & ~out] > 0).all()
+
+
+def test_cluster_instructions_name_the_part_of_a_multi_part_block():
+    # common practice, no source: instructions tell the crew which part to go to and that rows
+    # count from that part's edge; the compass word is the side of the block the part lies on
+    # (reference: shapely centroids).
+    from fieldplan.plan import make_plan
+    from tests.geoms import E0, N0, blocks_frame
+
+    block = shapely.MultiPolygon(
+        [shapely.box(E0, N0, E0 + 100, N0 + 200), shapely.box(E0 + 300, N0 + 50, E0 + 402.5, N0 + 150)]
+    )
+    blocks = blocks_frame(
+        {"P": block, "S": shapely.box(E0, N0 - 400, E0 + 100, N0 - 300)},
+        row_spacing_m=[2.5, 2.5],
+        plant_spacing_m=[1.0, 1.0],
+        row_bearing_deg=[0.0, 0.0],
+    )
+    plan = make_plan(blocks, design="clusters", design_options={"per_block": 30}, seed=4)
+    pts = plan.points
+    multi = pts[pts["block"] == "P"]
+    west = multi.geometry.x < E0 + 200
+    assert multi.loc[west, "instructions"].str.startswith("In part 1 of 2 (west)").all()
+    assert multi.loc[~west, "instructions"].str.startswith("In part 2 of 2 (east)").all()
+    assert (multi.loc[~west, "row"] <= 41).all() and west.any() and (~west).any()
+    assert pts.loc[pts["block"] == "S", "instructions"].str.startswith("Start at row").all()
+    assert "part" not in pts.columns

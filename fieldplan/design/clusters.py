@@ -16,6 +16,11 @@ Plants on a segment of length ``L`` sit ``plant_spacing_m`` apart:
 numbers count along the row from its start, over all its segments, starting
 at 1.
 
+A multi-part block (a MultiPolygon, e.g. a block split by a road or a creek)
+has a row model per part: each part's rows start half a row spacing inside
+its own left-hand edge and are numbered 1, 2, ... within the part, so a crew
+counts them from the part it stands in (:attr:`RowSegments.part`).
+
 Mapped rows (:func:`rows_from_lines`) replace the model: each given line is a
 row, numbered in the order given, starting at its first vertex.
 
@@ -88,6 +93,9 @@ class RowSegments:
     ends : numpy.ndarray, optional
         ``(k, 2, 2)`` start and end coordinates of straight segments (row model);
         their LineStrings are built only when :attr:`geometry` is asked for.
+    part : numpy.ndarray, optional
+        1-based part of a multi-part block each segment lies in; rows and plants
+        are numbered within their part. None means one part.
     """
 
     row: np.ndarray
@@ -98,6 +106,12 @@ class RowSegments:
     plant_spacing: float | np.ndarray
     lines: np.ndarray | None = None
     ends: np.ndarray | None = None
+    part: np.ndarray | None = None
+
+    @property
+    def parts(self) -> np.ndarray:
+        """:attr:`part`, with 1 for every segment of a one-part block."""
+        return self.part if self.part is not None else np.ones(self.row.size, dtype=np.int64)
 
     @cached_property
     def geometry(self) -> np.ndarray:
@@ -131,6 +145,8 @@ class PlantPicks:
         Index of the row segment in the :class:`RowSegments`.
     eligible : int
         Number of plants that could have been drawn.
+    part : numpy.ndarray
+        1-based part of the block (multi-part blocks number rows per part).
     """
 
     row: np.ndarray
@@ -139,6 +155,7 @@ class PlantPicks:
     y: np.ndarray
     segment: np.ndarray
     eligible: int
+    part: np.ndarray | None = None
 
 
 def _check_positive(value: float, name: str) -> float:
@@ -236,6 +253,33 @@ def row_segments(
         raise DesignError("the block has no geometry to lay rows in")
     if shapely.get_type_id(polygon) not in (3, 6):
         raise DesignError("the block is not a polygon; rows are laid out in polygons only")
+    if shapely.get_type_id(polygon) == 6 and shapely.get_num_geometries(polygon) > 1:
+        # A crew counts rows from the edge of the part it stands in: each part of a
+        # multi-part block has its own rows 1, 2, ... (in the parts' order in the file).
+        pieces = [_one_part_segments(part, rs, ps, float(row_bearing_deg), clip) for part in polygon.geoms]
+        return _join_parts(pieces)
+    return _one_part_segments(polygon, rs, ps, float(row_bearing_deg), clip)
+
+
+def _join_parts(pieces: list[RowSegments]) -> RowSegments:
+    """The segments of a block's parts one after the other, each tagged with its part."""
+    part = np.concatenate([np.full(p.row.size, i + 1, dtype=np.int64) for i, p in enumerate(pieces)])
+    straight = all(p.lines is None for p in pieces)
+    return RowSegments(
+        row=np.concatenate([p.row for p in pieces]),
+        lines=None if straight else np.concatenate([p.geometry for p in pieces]),
+        ends=np.concatenate([p.ends for p in pieces]) if straight else None,
+        length=np.concatenate([p.length for p in pieces]),
+        plants=np.concatenate([p.plants for p in pieces]),
+        first_plant=np.concatenate([p.first_plant for p in pieces]),
+        offset=np.concatenate([p.offset for p in pieces]),
+        plant_spacing=pieces[0].plant_spacing,
+        part=part,
+    )
+
+
+def _one_part_segments(polygon, rs: float, ps: float, row_bearing_deg: float, clip) -> RowSegments:
+    """:func:`row_segments` of a polygon (or a one-part multipolygon)."""
     u, v = _frame(np.radians(float(row_bearing_deg)))
     xy, ring = _ring_coordinates(polygon)
     row, start, length, plants, first_plant, offset, ends, first, count = row_model(xy, ring, u, v, rs, ps)
@@ -360,6 +404,7 @@ def concat_segments(parts: list[RowSegments]) -> tuple[RowSegments, np.ndarray]:
         first_plant=cat("first_plant"),
         offset=cat("offset"),
         plant_spacing=spacing,
+        part=np.concatenate([p.parts for p in parts]) if any(p.part is not None for p in parts) else None,
     )
     return joined, np.repeat(np.arange(len(parts)), sizes)
 
@@ -402,12 +447,18 @@ def eligible_plants(
         raise OptionError("plants or rows to skip must be zero or more")
     count = np.maximum(segments.plants - 2 * int(skip_row_ends), 0)
     if skip_border_rows:
-        # Rows are numbered per block; after concat_segments, border rows are taken
-        # over the joined numbering, so skip border rows block by block before joining.
-        planted = np.unique(segments.row[segments.plants > 0])
+        # Rows are numbered per block (per part of a multi-part block, each with its own
+        # border rows); after concat_segments, border rows are taken over the joined
+        # numbering, so skip border rows block by block before joining.
+        key = segments.parts * (int(segments.row.max(initial=0)) + 1) + segments.row
+        planted = np.unique(key[segments.plants > 0])
+        owner = planted // (int(segments.row.max(initial=0)) + 1)
+        starts = np.searchsorted(owner, owner, side="left")
+        ends = np.searchsorted(owner, owner, side="right")
+        rank = np.arange(planted.size) - starts
         k = int(skip_border_rows)
-        border = np.concatenate([planted[:k], planted[-k:]]) if planted.size else planted
-        count = np.where(np.isin(segments.row, border), 0, count)
+        border = planted[(rank < k) | (rank >= ends - starts - k)]
+        count = np.where(np.isin(key, border), 0, count)
     return count
 
 
@@ -492,6 +543,7 @@ def pick_plants(
         y=xy[:, 1],
         segment=seg,
         eligible=total,
+        part=segments.parts[seg],
     )
 
 
