@@ -192,3 +192,33 @@ def test_openapi_schema_served(client):
     schema = client.get("/api/openapi.json").json()
     assert schema["openapi"].startswith("3.")
     assert "/api/plans" in schema["paths"]
+
+
+def test_serve_command_binds_loopback_and_needs_a_token_elsewhere(tmp_path, monkeypatch):
+    """`fieldplan serve`: 127.0.0.1 by default; another address gets a generated token, printed in the URL."""
+    import uvicorn
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import app as cli
+
+    calls = []
+    monkeypatch.setattr(uvicorn, "run", lambda app, **kw: calls.append((app, kw)))
+    runner = CliRunner()
+    result = runner.invoke(cli, ["serve", str(tmp_path / "ws")])
+    assert result.exit_code == 0, result.output
+    app, kw = calls[-1]
+    assert kw["host"] == "127.0.0.1" and kw["port"] == 8750
+    assert app.state.token is None and not app.state.public
+    assert "http://127.0.0.1:8750/" in result.output and "token" not in result.output
+
+    result = runner.invoke(cli, ["serve", str(tmp_path / "ws"), "--host", "0.0.0.0", "--port", "9000"])
+    assert result.exit_code == 0, result.output
+    app, kw = calls[-1]
+    assert kw["host"] == "0.0.0.0" and app.state.public and len(app.state.token) >= 32
+    assert f"?token={app.state.token}" in result.output
+
+    result = runner.invoke(cli, ["serve", str(tmp_path / "ws"), "--host", "0.0.0.0", "--token", "short"])
+    assert result.exit_code == 2 and "at least 16" in result.output
+    result = runner.invoke(cli, ["serve", str(tmp_path / "ws"), "--max-upload-mb", "5", "--token", TOKEN])
+    app, _ = calls[-1]
+    assert app.state.max_upload_bytes == 5_000_000 and app.state.token == TOKEN

@@ -330,3 +330,60 @@ def save_screenshots(out: Path = DOCS) -> list[Path]:
 
 if __name__ == "__main__":
     print(*save_screenshots(Path(sys.argv[1]) if len(sys.argv) > 1 else DOCS), sep="\n")
+
+
+EVIL_BLOCK = '<img src=x onerror="window.__fp_pwned=1">'
+EVIL_VARIETY = "</script><script>window.__fp_pwned=2</script>\"'"
+
+
+def test_hostile_names_stay_text(tmp_path):
+    """Block names and varieties from a file reach the pages as text, in the table, map and popups."""
+    if not CHROMIUM.exists():
+        pytest.skip("needs Debian's chromium at /usr/bin/chromium")
+    import json
+
+    from playwright.sync_api import sync_playwright
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import app as cli
+
+    def square(x0):
+        ring = [[x0, -33.86], [x0 + 0.0025, -33.86], [x0 + 0.0025, -33.858], [x0, -33.858], [x0, -33.86]]
+        return {"type": "Polygon", "coordinates": [ring]}
+
+    names = [("A1", "Syrah"), (EVIL_BLOCK, EVIL_VARIETY)]
+    features = [
+        {"type": "Feature", "properties": {"block": b, "variety": v}, "geometry": square(18.9 + i * 0.003)}
+        for i, (b, v) in enumerate(names)
+    ]
+    path = tmp_path / "hostile.geojson"
+    path.write_text(json.dumps({"type": "FeatureCollection", "features": features}), encoding="utf-8")
+    ws = tmp_path / "ws"
+    ws.mkdir()
+    result = CliRunner().invoke(cli, ["plan", str(path), "--spacing", "50", "--out", str(ws / "h"), "-q"])
+    assert result.exit_code == 0, result.output
+    server = LiveServer(ws)
+    try:
+        with sync_playwright() as pw:
+            browser, page, log = open_browser(pw, server.base)
+            try:
+                page.goto(server.base + "/plans/h")
+                page.wait_for_selector("body[data-loaded]")
+                labels = page.locator(".fp-block-label").all_text_contents()
+                page.goto(server.base + "/new")
+                page.wait_for_selector("#f-design")
+                page.set_input_files("#blocks-file", str(path))
+                page.click("#upload-form button[type=submit]")
+                page.wait_for_selector("#attr-table tbody tr")
+                table = page.inner_text("#attr-table")
+                pwned = page.evaluate("() => window.__fp_pwned === undefined ? null : window.__fp_pwned")
+                images = page.locator("#attr-table img, .fp-block-label img").count()
+            finally:
+                browser.close()
+    finally:
+        server.stop()
+    # reference: OWASP XSS Prevention Cheat Sheet: payloads from data must not execute
+    assert pwned is None and images == 0
+    assert any(EVIL_BLOCK in t and EVIL_VARIETY in t for t in labels)
+    assert EVIL_BLOCK in table and EVIL_VARIETY.strip() in table
+    assert log["requests"] == [] and log["errors"] == []

@@ -285,3 +285,97 @@ def test_size_helper_matches_the_formula(client):
     assert "CV" in body["formula"]
     assert client.get("/api/size", params={"cv": 25}).json()["parameter"] == "margin"
     assert client.get("/api/size").status_code == 422
+
+
+def test_long_plan_reports_progress_and_does_not_block(client, tmp_path):
+    from benchmarks.workloads import estate, write_geojson
+
+    path = write_geojson(estate(600, seed=9), tmp_path / "estate_600.geojson")
+    info = _upload(client, path).json()
+    r = client.post("/api/previews", json={"upload": info["upload"], "params": {"spacing": 60}, "seed": 2})
+    job_id = r.json()["job"]
+    quick, seen_total = [], 0
+    while True:
+        t0 = time.perf_counter()
+        assert client.get("/api/plans").status_code == 200
+        quick.append(time.perf_counter() - t0)
+        job = client.get(f"/api/jobs/{job_id}").json()
+        seen_total = max(seen_total, job["total"])
+        if job["status"] in ("done", "failed"):
+            break
+        time.sleep(0.02)
+    assert job["status"] == "done", job
+    assert job["done"] == job["total"] == seen_total > 0  # progress counted the blocks planned
+    # Other requests were answered while the plan ran (the plan ran in the pool, not in the request).
+    assert len(quick) >= 3
+    assert max(quick) < job["seconds"]
+
+
+def test_killed_server_leaves_plan_folders_whole(tmp_path):
+    """SIGKILL while a large plan is being made: no half plan folder, the others untouched."""
+    import hashlib
+    import os
+    import signal
+    import socket
+    import subprocess
+    import sys
+
+    import httpx
+
+    from benchmarks.workloads import estate, write_geojson
+    from fieldplan.store import load_plan
+    from fieldplan.web.workspace import list_plans
+
+    ws = tmp_path / "ws"
+    ws.mkdir()
+    result = CliRunner().invoke(
+        cli, ["plan", str(demo_blocks_path()), "--spacing", "80", "--out", str(ws / "kept"), "-q"]
+    )
+    assert result.exit_code == 0, result.output
+    before = {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in (ws / "kept").iterdir()}
+    big = write_geojson(estate(800, seed=3), tmp_path / "estate_800.geojson")
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[1])}
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "fieldplan", "serve", str(ws), "--port", str(port)],
+        env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+    )  # fmt: skip
+    try:
+        base = f"http://127.0.0.1:{port}"
+        end = time.monotonic() + 60
+        while True:
+            try:
+                httpx.get(base + "/api/session", timeout=1.0)
+                break
+            except httpx.HTTPError:
+                assert time.monotonic() < end, "server did not start"
+                time.sleep(0.1)
+        with httpx.Client(base_url=base, timeout=60.0) as c:
+            c.headers["X-CSRF-Token"] = c.get("/api/session").json()["csrf"]
+            upload = c.post("/api/uploads", files={"file": (big.name, big.read_bytes())}).json()["upload"]
+            job = c.post(
+                "/api/plans", json={"upload": upload, "params": {"spacing": 40}, "name": "big"}
+            ).json()["job"]
+            while True:
+                state = c.get(f"/api/jobs/{job}").json()
+                if state["total"] and state["done"] >= state["total"] // 2 or state["status"] != "running":
+                    break
+                time.sleep(0.01)
+        proc.send_signal(signal.SIGKILL)
+        proc.wait(timeout=10)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait(timeout=10)
+    # common practice, no source: an interrupted write leaves the old state or the new, never half
+    names = [p["name"] for p in list_plans(ws)]
+    assert "kept" in names
+    if (ws / "big").exists():
+        assert load_plan(ws / "big").points is not None
+    after = {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in (ws / "kept").iterdir()}
+    assert after == before
+    # The workspace serves again and can make the plan that was cut off.
+    client = TestClient(create_app(ws), base_url=LOCAL)
+    assert client.get("/api/plans").status_code == 200
