@@ -231,7 +231,7 @@ def test_shapefile_plan_writes_every_plan_column_and_the_renamed_fields(tmp_path
     assert np.allclose(x, table["x"], atol=0.01) and np.allclose(y, table["y"], atol=0.01)
 
 
-@pytest.mark.parametrize("name", sorted(set(PLAN_COLUMNS) - {"geometry", "fid"}))
+@pytest.mark.parametrize("name", sorted(set(PLAN_COLUMNS) - {"geometry"}))
 def test_every_plan_column_name_in_a_file_is_renamed_not_clashing(tmp_path, name):
     frame = rx.gpd.GeoDataFrame(
         {"id": ["A", "B"], name.upper(): [1, 2]},
@@ -252,6 +252,17 @@ def test_every_plan_column_name_in_a_file_is_renamed_not_clashing(tmp_path, name
     assert blocks.attrs["renamed_columns"] == {upper: "src_" + upper}
     lowered = [str(c).lower() for c in blocks.columns]
     assert len(lowered) == len(set(lowered))
+    # The whole plan folder is written (GeoPackage, map, page...), the file's values kept.
+    from fieldplan.plan import make_plan
+    from fieldplan.store import write_plan
+
+    out = tmp_path / "plan"
+    write_plan(make_plan(blocks, spacing=40.0, seed=1, command=["test"]), out)
+    for layer in ("blocks", "points"):
+        fields = [str(f).lower() for f in pyogrio.read_info(out / "plan.gpkg", layer=layer)["fields"]]
+        assert len(fields) == len(set(fields)), layer
+    written = pyogrio.read_dataframe(out / "plan.gpkg", layer="blocks")
+    assert sorted(written["src_" + upper].tolist()) == [1, 2]
 
 
 def test_national_grid_geopackage_layers_bowtie_and_area(tmp_path):
