@@ -455,3 +455,27 @@ def test_later_round_labels_are_the_same_bag(plan_dir):
     # reference: fieldplan.samples.ids.round_sample_ids (label rounds keep the serial, new plan code)
     assert report.stored == [good["id"]]
     assert "another point's bag" in report.refused[other["id"]]
+
+
+def test_busy_plan_answers_a_clear_error(plan_dir):
+    from filelock import FileLock
+
+    from fieldplan.errors import PlanDirError
+    from fieldplan.field.sync import LOCK_NAME
+
+    pts, ll = crew_points(plan_dir, 1)
+    row = next(pts.itertuples(index=False))._asdict()
+    with FileLock(str(plan_dir / LOCK_NAME)):
+        with pytest.raises(PlanDirError, match="another sync of this plan"):
+            apply_records(plan_dir, [taken(row, ll[0])], crew=1, lock_timeout=0.2)
+    assert not (plan_dir / JOURNAL_NAME).exists()  # nothing half-kept
+
+
+def test_a_late_day_is_stored_with_a_note(plan_dir):
+    pts, ll = crew_points(plan_dir, 1)
+    rows = [r._asdict() for r in pts.itertuples(index=False)]
+    apply_records(plan_dir, [taken(rows[0], ll[0], value=21.0)], crew=1)
+    late = taken(rows[1], ll[1], value=19.0, time_utc="2027-02-19T09:00:00Z", date="2027-02-19")
+    report = apply_records(plan_dir, [late], crew=2)
+    assert report.round_no == 2
+    assert any("2027-02-19 arrived after field values of 2027-02-20" in n for n in report.notes)

@@ -52,7 +52,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from fieldplan.errors import InputError
+from fieldplan.errors import InputError, PlanDirError
 
 __all__ = [
     "JOURNAL_NAME",
@@ -94,6 +94,7 @@ _VARIABLE = re.compile(r"^[a-z][a-z0-9_]{0,39}$")
 _TAG = re.compile(r"\[record ([0-9a-fA-F-]{36})\]")
 _MAX_TEXT = 500
 _MAX_BATCH = 5000
+_SOURCE_PREFIX = "field-records-"
 
 
 @dataclass
@@ -322,10 +323,38 @@ def _append_journal(plan_dir: Path, entries: Sequence[Mapping]) -> None:
         os.close(fd)
 
 
-def _lock(plan_dir: Path, timeout: float):
-    from filelock import FileLock
+class _Lock:
+    """One sync at a time per plan folder (across processes); a clear error when busy."""
 
-    return FileLock(str(plan_dir / LOCK_NAME), timeout=timeout)
+    def __init__(self, plan_dir: Path, timeout: float) -> None:
+        from filelock import FileLock
+
+        self.plan_dir = plan_dir
+        self.timeout = timeout
+        self.lock = FileLock(str(plan_dir / LOCK_NAME), timeout=timeout)
+
+    def __enter__(self):
+        from filelock import Timeout
+
+        if not self.plan_dir.is_dir():
+            raise PlanDirError(
+                f"{self.plan_dir}: no such plan folder; give a folder made by 'fieldplan plan'"
+            )
+        try:
+            self.lock.acquire()
+        except Timeout:
+            raise PlanDirError(
+                f"{self.plan_dir}: another sync of this plan has been running for {self.timeout:g} s; "
+                "try again in a minute (the records stay on the phone meanwhile)"
+            ) from None
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.lock.release()
+
+
+def _lock(plan_dir: Path, timeout: float) -> _Lock:
+    return _Lock(plan_dir, timeout)
 
 
 def _points_table(plan) -> pd.DataFrame:
@@ -519,11 +548,21 @@ def _apply_pending(
             frame,
             point_ids=known_ids,
             value_columns=variables,
-            source=f"field-records-{day}.csv",
+            source=f"{_SOURCE_PREFIX}{day}.csv",
             sha256=digest,
         )
         from fieldplan.results import append_round
 
+        field_days = sorted(
+            str(src)[len(_SOURCE_PREFIX) : -len(".csv")]
+            for src in set(existing["source"] if "source" in existing.columns else [])
+            if str(src).startswith(_SOURCE_PREFIX) and str(src).endswith(".csv")
+        )
+        if field_days and day < field_days[-1]:
+            report.notes.append(
+                f"values of {day} arrived after field values of {field_days[-1]}; stored as the latest "
+                f"round, so 'fieldplan estimate' (latest round) now describes {day}"
+            )
         report.round_no = append_round(plan_dir, table, existing=existing, imported_utc=received)
         for row in table.problems.itertuples(index=False):
             report.notes.append(f"{row.point_id}: {row.problem} ({row.detail})".replace(" ()", ""))
