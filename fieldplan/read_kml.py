@@ -146,18 +146,31 @@ def _combine(parts: list):
     return shapely.GeometryCollection(parts)
 
 
+def _placemarks(element: ET.Element, folder: str | None):
+    """Placemarks in document order, each with the name of the innermost Folder holding it."""
+    for child in element:
+        if child.tag == "Placemark":
+            yield child, folder
+        elif child.tag == "Folder":
+            name = child.find("name")
+            yield from _placemarks(child, (name.text or "").strip() if name is not None else folder)
+        else:
+            yield from _placemarks(child, folder)
+
+
 def parse_kml(data: bytes, *, source: str = "<kml>") -> tuple[gpd.GeoDataFrame, list[str]]:
     """Placemarks of a KML document as a WGS84 GeoDataFrame, and notes for the user.
 
-    Columns: ``name`` (the placemark's name), ``description`` when any placemark
-    has one, and one column per ``ExtendedData`` field. Placemarks without a
-    geometry are left out with a note.
+    Columns: ``name`` (the placemark's name), ``folder`` (the innermost Folder's
+    name, when placemarks sit in folders: ``--select folder=...`` picks some),
+    ``description`` when any placemark has one, and one column per
+    ``ExtendedData`` field. Placemarks without a geometry are left out with a note.
     """
     root = _parse_xml(data, source)
     rows: list[dict] = []
     geoms: list = []
     empty: list[str] = []
-    for number, mark in enumerate(root.iter("Placemark"), start=1):
+    for number, (mark, folder) in enumerate(_placemarks(root, None), start=1):
         name_el = mark.find("name")
         name = (name_el.text or "").strip() if name_el is not None else ""
         label = f"placemark {number}" + (f" ({name!r})" if name else "")
@@ -170,6 +183,8 @@ def parse_kml(data: bytes, *, source: str = "<kml>") -> tuple[gpd.GeoDataFrame, 
             empty.append(label)
             continue
         row: dict = {"name": name or None}
+        if folder is not None:
+            row["folder"] = folder
         description = mark.find("description")
         if description is not None and (description.text or "").strip():
             row["description"] = description.text.strip()

@@ -530,3 +530,19 @@ def test_kml_placemark_name_is_the_block_id_even_beside_a_block_field(tmp_path):
     assert blocks["block"].tolist() == ["Creek block", "Home block"]
     assert "src_block" in blocks.columns  # the ExtendedData field is kept, renamed
     assert "stratum" not in blocks.columns
+
+
+def test_kml_folders_become_a_field_to_select_on(tmp_path):
+    from fieldplan.read import select_blocks
+
+    path = rx.kml_file(tmp_path)
+    blocks = read_blocks(path)
+    assert set(blocks["folder"]) == {"Blocks"}
+    # A plan's own points.kml: blocks and exclusions are both polygons; the folder tells them apart.
+    out = tmp_path / "plan"
+    assert plan_cli([str(path), "--spacing", "30", "--out", str(out)]).exit_code == 0
+    again = select_blocks(read_blocks(out / "points.kml"), "folder=Blocks")
+    assert again["block"].tolist() == ["Block Creek block", "Block Home block"]
+    for name, expected in geodesic_ha(rx.PHONE).items():
+        got = again.loc[again["block"] == f"Block {name}"].geometry.area.iloc[0] / 10_000
+        assert got == pytest.approx(expected, rel=1e-3)  # reference: pyproj.Geod
