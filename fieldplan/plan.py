@@ -309,6 +309,7 @@ def make_plan(
     rows: gpd.GeoDataFrame | None = None,
     command: list[str] | None = None,
     progress: Callable[[int, int], None] | None = None,
+    previous: Plan | None = None,
     **options,
 ) -> Plan:
     """Plan samples over blocks.
@@ -332,6 +333,9 @@ def make_plan(
         Command line recorded in the manifest (default ``sys.argv``).
     progress : callable, optional
         ``progress(done, total)`` as blocks or strata are planned.
+    previous : Plan, optional
+        The earlier plan to revisit (default: loaded from the spec's ``revisit``
+        folder, if it names one): its sites are kept, see :mod:`fieldplan.revisit`.
     **options
         The keyword options ``make_plan`` took before the spec (``design``,
         ``spacing``, ``per_ha``, ``layout``, ``start``, ``angle``, ``edge_buffer``,
@@ -359,6 +363,14 @@ def make_plan(
         raise SpecError("seed", f"{{seed}} must be a non-negative integer, got {seed!r}")
     if len(blocks) == 0:
         raise InvalidBlocksError("no blocks to plan")
+    if previous is not None or spec.input.revisit:
+        from fieldplan.revisit import revisit_plan
+
+        if previous is None:
+            from fieldplan.store import load_plan
+
+            previous = load_plan(spec.input.revisit)
+        return revisit_plan(blocks, spec, previous, seed=int(seed), exclusions=exclusions, command=command)
     if rows is not None and spec.design != "clusters":
         raise SpecError("rows", "{rows} applies to {design} clusters only")
     design = spec.design

@@ -723,6 +723,21 @@ class InputSpec(_Section):
         panel="input",
         help="Polygons to keep samples out of (wet spots, buildings, tracks).",
     )
+    revisit: str | None = _param(
+        kind="path",
+        panel="input",
+        identity=False,
+        help="Earlier plan folder whose sites to sample again: same spots, new sample ids "
+        "linked to the earlier ones (its parameters, unless given).",
+    )
+    revisit_changed: str = _param(
+        "refuse",
+        kind="choice",
+        choices=("refuse", "drop"),
+        panel="input",
+        help="With {revisit}: a site now outside its block or excluded stops the plan (refuse) "
+        "or is left out and flagged (drop).",
+    )
 
     def read_options(self) -> dict[str, Any]:
         """Keyword arguments of :func:`fieldplan.read.read_blocks` for this input."""

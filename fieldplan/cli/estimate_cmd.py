@@ -103,12 +103,31 @@ def estimate(
             help="Also report the local-difference variance (grids, balanced samples).",
         ),
     ] = False,
+    previous: Annotated[
+        Path | None,
+        typer.Option(
+            "--previous",
+            help="Earlier plan whose sites this plan revisits (plan --revisit): estimate the change "
+            "at the same sites (paired differences) instead of means.",
+        ),
+    ] = None,
+    compare_round: Annotated[
+        int | None,
+        typer.Option("--compare-round", min=1, help="Estimate the change from this round at the same sites."),
+    ] = None,
     quiet: Quiet = False,
 ) -> None:
     """Estimate means with confidence intervals for the latest results round.
 
-    Writes estimates.csv in the plan folder and prints the table.
+    Writes estimates.csv in the plan folder and prints the table; with --previous
+    or --compare-round, the change at the same sites goes to changes.csv.
     """
+    if previous is not None or compare_round is not None:
+        from fieldplan.estimate.paired import report_change
+
+        report_change(plan_dir, value, by=by, confidence=confidence, round_no=round_no,
+                      previous=previous, compare_round=compare_round, quiet=quiet)
+        return
     from fieldplan.estimate.readiness import target_direction
     from fieldplan.estimate.table import estimate_table
     from fieldplan.results import normalise_column, stored_results

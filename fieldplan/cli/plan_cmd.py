@@ -274,10 +274,13 @@ def _spec_and_seed(given: dict, *, recipe: Path | None, like: Path | None, seed:
         raise OptionError("give --recipe or --like, not both")
     base: dict = {}
     base_seed = None
+    revisit = given.get("revisit")
     if recipe is not None:
         base, base_seed = read_recipe(recipe)
-    elif like is not None:
-        base, _ = plan_recipe(like)
+    elif like is not None or revisit is not None:
+        # A revisit plans with the earlier plan's parameters, as --like does.
+        base, _ = plan_recipe(like if like is not None else revisit)
+        like = like if like is not None else Path(revisit)
     spec = PlanSpec.from_dict(merge(base, given))
     if seed is None:
         seed = base_seed
@@ -317,7 +320,14 @@ def run_plan(blocks_file: Path, spec, *, out: Path, seed: int, force: bool, quie
         core_buffer=samples.core_buffer,
     )
     check_engine(spec.scale.engine, spec.scale.scheduler)  # a missing dask fails before any work
-    blocks = read_blocks(blocks_file, **spec.input.read_options(), crop_profile=samples.crop_profile)
+    previous = None
+    read_options = {**spec.input.read_options(), "crop_profile": samples.crop_profile}
+    if spec.input.revisit:
+        from fieldplan.store import load_plan
+
+        previous = load_plan(spec.input.revisit)
+        read_options["crs"] = previous.crs  # the earlier sites' own CRS: coordinates unchanged
+    blocks = read_blocks(blocks_file, **read_options)
     if spec.input.select is not None:
         blocks = select_blocks(blocks, spec.input.select)
     exclusions = read_exclusions(spec.input.exclude, crs=blocks.crs) if spec.input.exclude else None
@@ -331,6 +341,7 @@ def run_plan(blocks_file: Path, spec, *, out: Path, seed: int, force: bool, quie
             rows=rows,
             command=["fieldplan", *sys.argv[1:]],
             progress=progress,
+            previous=previous,
         )
     set_cautions(result, cautions)
     write_plan(result, out, force=force, formats=list(spec.outputs.formats))
