@@ -1001,44 +1001,40 @@ def append_round(
     plan_dir: str | Path,
     table: ResultsTable,
     *,
-    existing: pd.DataFrame,
+    existing: pd.DataFrame | None = None,
     imported_utc: str,
     allow_duplicate: bool = False,
     round_no: int | None = None,
 ) -> int:
     """Store ``table`` as the next round in ``plan.gpkg`` (layer ``results``).
 
-    Earlier rounds are kept as they are; the GeoPackage is rewritten through a
-    copy beside it and swapped in, so an interrupted import leaves the old file.
-    Returns the new round number.
+    Earlier rounds are kept as they are. The round is stored as a
+    :func:`fieldplan.store.transaction`: the rounds already stored are read
+    under the plan folder's lock (``existing``, if given, is only a caller's
+    earlier look and is not trusted), and an interrupted import leaves the old
+    file. Returns the new round number.
 
     Raises
     ------
     InputError
         If a file with the same SHA-256 was imported before and
         ``allow_duplicate`` is false, or nothing numeric is left to store.
+    fieldplan.lock.PlanBusyError
+        If another change holds the plan longer than the lock timeout.
     """
-    import os
-    import shutil
+    from fieldplan.store import transaction
 
-    from fieldplan.write.gpkg import GPKG_NAME, write_layer
-
-    refuse_duplicate(table, existing, allow_duplicate=allow_duplicate)
-    if round_no is None:
-        round_no = int(existing["round"].max()) + 1 if len(existing) else 1
-    new = long_results(table, round_no=round_no, imported_utc=imported_utc)
-    if new.empty:
-        raise InputError(f"{table.source}: no usable values to store; see the problems listed")
-    frame = pd.concat([existing, new], ignore_index=True) if len(existing) else new
-    path = Path(plan_dir) / GPKG_NAME
-    tmp = path.with_name(f".results-tmp-{path.name}")
-    shutil.copy2(path, tmp)
-    try:
-        write_layer(tmp, RESULTS_LAYER, frame)
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+    with transaction(plan_dir) as txn:
+        existing = stored_results(txn.plan.layers)
+        refuse_duplicate(table, existing, allow_duplicate=allow_duplicate)
+        # A number worked out before the lock may have been taken meanwhile: recount under it.
+        if round_no is None or int(round_no) in set(existing["round"].tolist()):
+            round_no = next_round(txn.plan.layers)
+        new = long_results(table, round_no=round_no, imported_utc=imported_utc)
+        if new.empty:
+            raise InputError(f"{table.source}: no usable values to store; see the problems listed")
+        frame = pd.concat([existing, new], ignore_index=True) if len(existing) else new
+        txn.set_layer(RESULTS_LAYER, frame)
     return round_no
 
 
@@ -1182,43 +1178,42 @@ def remove_round(
     OptionError
         If the plan has no such round.
     """
-    import os
-    import shutil
-    import tempfile
-
     from fieldplan.errors import OptionError
-    from fieldplan.field.events import REMOVE_ROUND, append_events, make_events
-    from fieldplan.store import load_plan
-    from fieldplan.write.gpkg import GPKG_NAME, write_layer
+    from fieldplan.field.events import (
+        REMOVE_ROUND,
+        make_events,
+        number_events,
+        stored_events,
+        write_numbered_events,
+    )
+    from fieldplan.store import transaction
 
     plan_dir = Path(plan_dir)
-    plan = load_plan(plan_dir)
-    results = stored_results(plan.layers)
-    rounds = sorted(results["round"].unique().tolist())
-    if int(round_no) not in rounds:
-        have = ", ".join(map(str, rounds)) or "none"
-        raise OptionError(f"{plan_dir}: no results round {round_no}; stored rounds: {have}")
-    gone = results["round"] == int(round_no)
-    rows = results[gone]
-    source = ", ".join(sorted(set(rows["source"])))
-    sha = ", ".join(sorted(set(rows["sha256"])))
-    detail = f"round {int(round_no)} removed ({source}, {len(rows)} values, sha256 {sha[:12]})"
-    events = make_events([REMOVE_ROUND], [""], reason=f"{detail}: {reason}" if reason else detail, user=by, now=now)
-    old = plan.layers.get(REMOVED_LAYER)
-    gpkg = plan_dir / GPKG_NAME
-    tmp = Path(tempfile.mkstemp(prefix=".plan.", suffix=".gpkg", dir=plan_dir)[1])
-    try:
-        shutil.copyfile(gpkg, tmp)
-        stored = append_events(tmp, events)
+    # Read and changed under the plan's lock, committed in one swap of plan.gpkg.
+    with transaction(plan_dir) as txn:
+        plan = txn.plan
+        results = stored_results(plan.layers)
+        rounds = sorted(results["round"].unique().tolist())
+        if int(round_no) not in rounds:
+            have = ", ".join(map(str, rounds)) or "none"
+            raise OptionError(f"{plan_dir}: no results round {round_no}; stored rounds: {have}")
+        gone = results["round"] == int(round_no)
+        rows = results[gone]
+        source = ", ".join(sorted(set(rows["source"])))
+        sha = ", ".join(sorted(set(rows["sha256"])))
+        detail = f"round {int(round_no)} removed ({source}, {len(rows)} values, sha256 {sha[:12]})"
+        events = make_events(
+            [REMOVE_ROUND], [""], reason=f"{detail}: {reason}" if reason else detail, user=by, now=now
+        )
+        old = plan.layers.get(REMOVED_LAYER)
+        earlier = stored_events(plan)
+        stored = number_events(earlier, events)
         moved = rows.assign(removed_utc=stored["time_utc"].iloc[0], event_id=int(stored["event_id"].iloc[0]))
         if old is not None and len(old):
             moved = pd.concat([pd.DataFrame(old).drop(columns="geometry", errors="ignore"), moved], ignore_index=True)
-        write_layer(tmp, REMOVED_LAYER, moved)
-        write_layer(tmp, RESULTS_LAYER, results[~gone].reset_index(drop=True))
-        os.replace(tmp, gpkg)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
+        txn.edit(lambda path: write_numbered_events(path, stored, append=len(earlier) > 0))
+        txn.set_layer(REMOVED_LAYER, moved)
+        txn.set_layer(RESULTS_LAYER, results[~gone].reset_index(drop=True))
     return {
         "round": int(round_no),
         "source": source,

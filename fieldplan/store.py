@@ -1,12 +1,36 @@
-"""The plan folder: write a Plan atomically, load it back from plan.gpkg."""
+"""The plan folder: write a Plan atomically, load it back, and change it one writer at a time.
+
+A plan folder holds one record, ``plan.gpkg``, and files derived from it
+(points.csv, points.geojson, map.html, ...). Every change goes through
+:func:`transaction` (or at least :func:`locked`): it holds the folder's lock
+(:mod:`fieldplan.lock`) across read-modify-write, writes the changed layers into
+a private copy of ``plan.gpkg`` (``mkstemp`` in the folder) that replaces the
+original in one rename, and then rebuilds the derived files. ``plan.gpkg``
+counts its changes (``store_generation`` in ``plan_info``); the hidden
+``.fieldplan-state.json``, written after the derived files, carries the
+generation they were made from, so a command that finds the two out of step (a
+run killed between the two steps) rebuilds the derived files before it works.
+A freshly planned folder has neither and counts as generation 1 on both sides.
+"""
 
 from __future__ import annotations
 
 import importlib
-from collections.abc import Callable
+import json
+import os
+import re
+import shutil
+import sqlite3
+import tempfile
+import threading
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field, replace
+from datetime import UTC, datetime
 from pathlib import Path
 
 from fieldplan.errors import OptionError, PlanDirError
+from fieldplan.lock import PlanBusyError, plan_lock
 from fieldplan.write.gpkg import GPKG_NAME, read_info, write_gpkg
 from fieldplan.write.safe import staged_folder
 from fieldplan.write.tables import (
@@ -27,6 +51,18 @@ __all__ = [
     "write_plan",
     "load_plan",
     "CORE_LAYERS",
+    "GENERATION_KEY",
+    "HISTORY_LAYERS",
+    "PlanBusyError",
+    "Transaction",
+    "locked",
+    "transaction",
+    "store_generation",
+    "outputs_generation",
+    "rebuild_outputs",
+    "write_outputs",
+    "refuse_links",
+    "plan_history",
 ]
 
 CORE_LAYERS = ("blocks", "points", "exclusions", "plan_info")
@@ -105,7 +141,9 @@ def selected_formats(formats) -> set[str] | None:
     return wanted | set(REQUIRED_FORMATS)
 
 
-def write_plan(plan, out_dir: str | Path, *, force: bool = False, formats=None) -> Path:
+def write_plan(
+    plan, out_dir: str | Path, *, force: bool = False, formats=None, discard_history: bool = False
+) -> Path:
     """Write the outputs of ``plan`` into ``out_dir``.
 
     Files are written into a temporary folder beside ``out_dir`` that replaces it
@@ -116,21 +154,84 @@ def write_plan(plan, out_dir: str | Path, *, force: bool = False, formats=None) 
     the writers to run; ``None`` runs every one. Manifest, GeoPackage and README
     are always written, and a chosen subset is recorded in the manifest as
     ``formats``. Writers not listed in :data:`FORMATS` always run.
+
+    A plan being replaced (``force``) that holds history (results, events,
+    positions, crews, lab sheets: :func:`plan_history`) is never deleted unless
+    ``discard_history``: it is moved aside to ``NAME.replaced-<UTC time>``,
+    recorded in the new manifest as ``previous_plan``. The old folder's lock is
+    held during the swap, so no change to it is lost half-way.
     """
     out_dir = Path(out_dir)
     chosen = selected_formats(formats)
     if chosen is not None:
         plan.meta["formats"] = sorted(chosen)
-    with staged_folder(out_dir, force=force) as stage, shared_lonlat(getattr(plan, "points", None)):
-        for writer in WRITERS:
-            kind = FORMATS.get(getattr(writer, "__name__", ""))
-            if chosen is None or kind is None or kind in chosen:
-                writer(plan, stage)
+    guard = locked(out_dir) if force and (out_dir / GPKG_NAME).is_file() else _nothing()
+    with guard:
+        aside = None
+        if force and not discard_history and plan_history(out_dir):
+            aside = _aside_name(out_dir)
+            plan.meta["previous_plan"] = aside.name
+        with (
+            staged_folder(out_dir, force=force, aside=aside) as stage,
+            shared_lonlat(getattr(plan, "points", None)),
+        ):
+            for writer in WRITERS:
+                kind = FORMATS.get(getattr(writer, "__name__", ""))
+                if chosen is None or kind is None or kind in chosen:
+                    writer(plan, stage)
     return out_dir
 
 
-def load_plan(plan_dir: str | Path):
-    """Load a plan folder written by :func:`write_plan` (reads ``plan.gpkg``)."""
+@contextmanager
+def _nothing():
+    yield
+
+
+def _aside_name(out_dir: Path) -> Path:
+    stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
+    aside = out_dir.with_name(f"{out_dir.name}.replaced-{stamp}")
+    k = 2
+    while aside.exists():
+        aside = out_dir.with_name(f"{out_dir.name}.replaced-{stamp}-{k}")
+        k += 1
+    return aside
+
+
+#: Layers of plan.gpkg that record what happened after planning.
+HISTORY_LAYERS = ("results", "events", "actual", "routes")
+_HISTORY_FILES = ("crews.csv", "lab_submission*.csv", "labels*.pdf", "positions.csv")
+
+
+def plan_history(plan_dir: str | Path) -> list[str]:
+    """What a plan folder holds beyond the plan itself: layers and files a re-plan would lose."""
+    import pyogrio
+
+    plan_dir = Path(plan_dir)
+    found: list[str] = []
+    gpkg = plan_dir / GPKG_NAME
+    if gpkg.is_file() and not gpkg.is_symlink():
+        try:
+            names = {row[0] for row in pyogrio.list_layers(gpkg)}
+        except Exception:  # noqa: BLE001 - an unreadable store is kept as history too
+            return [GPKG_NAME]
+        found += [f"{name} layer" for name in HISTORY_LAYERS if name in names]
+    for pattern in _HISTORY_FILES:
+        found += sorted(p.name for p in plan_dir.glob(pattern))
+    return found
+
+
+def load_plan(plan_dir: str | Path, *, check: bool = True):
+    """Load a plan folder written by :func:`write_plan` (reads ``plan.gpkg``).
+
+    With ``check`` (the default) derived files found out of step with the
+    store are rebuilt first, under the folder's lock (see :func:`locked`).
+    """
+    if check:
+        _bring_in_step(Path(plan_dir))
+    return _read_plan(plan_dir)
+
+
+def _read_plan(plan_dir: str | Path):
     import geopandas as gpd
     import pyogrio
     from pyproj import CRS
@@ -158,6 +259,8 @@ def load_plan(plan_dir: str | Path):
     except Exception as err:
         raise PlanDirError(f"{path}: cannot read the plan ({err}); re-run 'fieldplan plan'") from None
     params = info.pop("parameters", {})
+    # Bookkeeping of the store, not part of the plan (the manifest must not change with it).
+    info.pop(GENERATION_KEY, None)
     crs = CRS.from_user_input(blocks.crs)
     blocks["flags"] = blocks["flags"].fillna("") if "flags" in blocks else ""
     return Plan(blocks, points, exclusions.set_crs(crs, allow_override=True), crs, params, info, layers)
@@ -175,3 +278,346 @@ def _single_parts(geoms):
     one = (shapely.get_type_id(geoms) == 6) & (shapely.get_num_geometries(geoms) == 1)
     geoms[one] = shapely.get_geometry(geoms[one], 0)
     return geoms
+
+
+# --- changing a plan folder: one writer at a time, derived files in step with the store ---
+
+GENERATION_KEY = "store_generation"
+#: Layers of plan.gpkg the derived files do not show (the audit trail and the points as planned).
+_RECORD_ONLY_LAYERS = ("events", "points_planned")
+_TMP = re.compile(r"^\..+\.(?P<pid>\d+)\.[^.]+\.(?:tmp|stage|tmp\.gpkg)$")
+# Temporary names used before the store had a lock; only ever debris now.
+_LEGACY_TMP = re.compile(r"^\.(?:results|crews)-tmp-plan\.gpkg$|^\.plan\.[^.]+\.gpkg$")
+
+
+STATE_NAME = ".fieldplan-state.json"
+
+
+def store_generation(plan_dir: str | Path) -> int:
+    """How many changes ``plan.gpkg`` has recorded (1 as planned, and for older plans)."""
+    path = Path(plan_dir) / GPKG_NAME
+    try:
+        con = sqlite3.connect(f"{path.resolve().as_uri()}?mode=ro", uri=True)
+    except sqlite3.Error:
+        return 1
+    try:
+        row = con.execute("SELECT value FROM plan_info WHERE key = ?", (GENERATION_KEY,)).fetchone()
+    except sqlite3.Error:
+        return 1
+    finally:
+        con.close()
+    try:
+        return int(json.loads(row[0])) if row else 1
+    except (TypeError, ValueError):
+        return 1
+
+
+def outputs_generation(plan_dir: str | Path) -> int:
+    """The store generation the derived files were made from (1 if never changed)."""
+    try:
+        state = json.loads((Path(plan_dir) / STATE_NAME).read_text(encoding="utf-8"))
+        return int(state[GENERATION_KEY])
+    except FileNotFoundError:
+        return 1
+    except (OSError, ValueError, KeyError, TypeError):
+        return 0  # unreadable: rebuild
+
+
+def _out_of_step(plan_dir: Path) -> bool:
+    return store_generation(plan_dir) != outputs_generation(plan_dir)
+
+
+def _bring_in_step(plan_dir: Path) -> None:
+    if (plan_dir / GPKG_NAME).is_file() and _out_of_step(plan_dir):
+        with locked(plan_dir):
+            pass  # locked() rebuilds under the lock, after checking again
+
+
+def refuse_links(plan_dir: str | Path) -> None:
+    """Refuse a plan folder any of whose own files or folders is a symbolic link, naming them.
+
+    A plan folder may arrive by e-mail or in a zip and be processed by a
+    privileged account; a planted link would make a write land outside it.
+    """
+    plan_dir = Path(plan_dir)
+    links = []
+    for root, dirs, files in os.walk(plan_dir):
+        for name in dirs + files:
+            path = Path(root) / name
+            if path.is_symlink():
+                links.append(path)
+    if links:
+        shown = ", ".join(str(p.relative_to(plan_dir)) for p in links[:5])
+        more = f" and {len(links) - 5} more" if len(links) > 5 else ""
+        raise PlanDirError(
+            f"{plan_dir}: holds symbolic links ({shown}{more}); a plan folder's own files must not be "
+            "links: delete them (or copy the real files in) and retry"
+        )
+
+
+def _clean_debris(plan_dir: Path) -> list[Path]:
+    """Remove temporary files and staging folders of killed runs (called under the lock)."""
+    from fieldplan.write.safe import _pid_alive, clean_stale_stages
+
+    removed = clean_stale_stages(plan_dir)
+    for entry in plan_dir.iterdir():
+        match = _TMP.match(entry.name)
+        if (match is not None and not _pid_alive(int(match["pid"]))) or _LEGACY_TMP.match(entry.name):
+            _remove(entry)
+            removed.append(entry)
+    # Staging folders of 'mark' before the store had a lock sat beside the plan folder.
+    for entry in plan_dir.parent.glob(f".{plan_dir.name}.*.mark"):
+        _remove(entry)
+        removed.append(entry)
+    return removed
+
+
+def _remove(entry: Path) -> None:
+    if entry.is_dir() and not entry.is_symlink():
+        shutil.rmtree(entry, ignore_errors=True)
+    else:
+        entry.unlink(missing_ok=True)
+
+
+_active = threading.local()
+
+
+@contextmanager
+def locked(plan_dir: str | Path, *, timeout: float | None = None) -> Iterator[Path]:
+    """Hold a plan folder's write lock, with the folder checked and consistent; yield the folder.
+
+    On entry (the outermost one in this thread): refuses a folder holding
+    symbolic links (:func:`refuse_links`), removes debris of killed runs and
+    rebuilds derived files found out of step with ``plan.gpkg``. Re-entrant in
+    one thread; other threads and processes wait up to ``timeout`` seconds,
+    then :class:`~fieldplan.lock.PlanBusyError` ("plan is busy, retry").
+    """
+    from fieldplan.lock import holds_lock
+
+    plan_dir = Path(plan_dir)
+    if not (plan_dir / GPKG_NAME).is_file():
+        raise PlanDirError(f"{plan_dir}: no {GPKG_NAME} here; give a folder made by 'fieldplan plan'")
+    outer = not holds_lock(plan_dir)
+    with plan_lock(plan_dir, timeout=timeout):
+        if outer:
+            refuse_links(plan_dir)
+            _clean_debris(plan_dir)
+            if _out_of_step(plan_dir):
+                rebuild_outputs(plan_dir)
+        yield plan_dir
+
+
+@dataclass
+class Transaction:
+    """An open change of a plan folder (see :func:`transaction`).
+
+    Attributes
+    ----------
+    plan_dir : pathlib.Path
+    plan : fieldplan.plan.Plan
+        The plan as stored when the transaction began (read under the lock).
+    """
+
+    plan_dir: Path
+    plan: object
+    _edits: list = field(default_factory=list, repr=False)
+    _files: dict = field(default_factory=dict, repr=False)
+    committed: int | None = None
+    #: The plan as the derived files of this change should show it; by default the
+    #: stored plan read back after the commit (what a rebuild after a crash gives).
+    view: object = None
+
+    def set_layer(self, name: str, frame, *, geometry_type: str | None = None) -> None:
+        """Replace (or add) layer ``name`` of plan.gpkg with ``frame`` at commit."""
+        from fieldplan.write.gpkg import write_layer
+
+        self.edit(lambda path: write_layer(path, name, frame, geometry_type=geometry_type))
+
+    def edit(self, change: Callable[[Path], object]) -> None:
+        """Run ``change(path)`` on the private copy of plan.gpkg at commit (e.g. an append)."""
+        self._check_open()
+        self._edits.append(change)
+
+    def write_file(self, name: str, text: str | bytes) -> None:
+        """Write a further derived file (e.g. positions.csv) with the rebuilt ones at commit."""
+        self._check_open()
+        self._files[name] = text
+
+    def _check_open(self) -> None:
+        if self.committed is not None:
+            raise RuntimeError("this plan transaction is already committed")
+
+    def commit(self) -> int:
+        """Store the changes in one rename of plan.gpkg, then rebuild the derived files.
+
+        Returns the new store generation. Called by :func:`transaction` on a normal
+        exit if not called before; the lock stays held until the ``with`` ends.
+        """
+        self._check_open()
+        if not self._edits and not self._files:
+            self.committed = store_generation(self.plan_dir)
+            return self.committed
+        generation = self._swap_store() if self._edits else store_generation(self.plan_dir)
+        view = self.view if self.view is not None else _outputs_view(_read_plan(self.plan_dir))
+        write_outputs(view, self.plan_dir, generation, extra=self._files)
+        self.committed = generation
+        return generation
+
+    def _swap_store(self) -> int:
+        gpkg = self.plan_dir / GPKG_NAME
+        before = os.stat(gpkg)
+        # GDAL wants a .gpkg ending; the process id lets a later run tell debris from a live copy.
+        fd, name = tempfile.mkstemp(prefix=f".{GPKG_NAME}.{os.getpid()}.", suffix=".tmp.gpkg", dir=self.plan_dir)
+        tmp = Path(name)
+        try:
+            with os.fdopen(fd, "wb") as out, open(gpkg, "rb") as src:
+                shutil.copyfileobj(src, out, 1 << 20)
+            for change in self._edits:
+                change(tmp)
+            generation = _bump_generation(tmp)
+            _keep_owner_and_mode(tmp, before)
+            _fsync(tmp)
+            os.replace(tmp, gpkg)
+        except BaseException:
+            tmp.unlink(missing_ok=True)
+            raise
+        _fsync(self.plan_dir)
+        return generation
+
+
+@contextmanager
+def transaction(plan_dir: str | Path, *, timeout: float | None = None) -> Iterator[Transaction]:
+    """Change a plan folder: lock it, load the plan, and commit the changes atomically on exit.
+
+    Examples
+    --------
+    >>> with transaction("plan-2027") as txn:  # doctest: +SKIP
+    ...     events = read_events(...)          # read under the lock
+    ...     txn.set_layer("notes", frame)      # staged on a private copy
+    ...                                        # committed here: one rename, files rebuilt
+
+    An exception inside the block leaves the folder as it was. A transaction
+    opened inside another one on the same folder in the same thread joins it
+    (one commit, at the outer end), so library functions that open their own
+    can be combined into one change.
+    """
+    plan_dir = Path(plan_dir)
+    key = os.path.realpath(plan_dir)
+    txns = getattr(_active, "txns", None)
+    if txns is None:
+        txns = _active.txns = {}
+    if key in txns:
+        yield txns[key]
+        return
+    with locked(plan_dir, timeout=timeout):
+        txn = Transaction(plan_dir, _read_plan(plan_dir))
+        txns[key] = txn
+        try:
+            yield txn
+            if txn.committed is None:
+                txn.commit()
+        finally:
+            del txns[key]
+
+
+def _bump_generation(path: Path) -> int:
+    """Count one more change in the copy's ``plan_info`` (plain SQL on an attribute table)."""
+    con = sqlite3.connect(path)
+    try:
+        with con:
+            row = con.execute("SELECT value FROM plan_info WHERE key = ?", (GENERATION_KEY,)).fetchone()
+            current = int(json.loads(row[0])) if row else 1
+            if row:
+                con.execute(
+                    "UPDATE plan_info SET value = ? WHERE key = ?", (json.dumps(current + 1), GENERATION_KEY)
+                )
+            else:
+                con.execute(
+                    "INSERT INTO plan_info (key, value) VALUES (?, ?)", (GENERATION_KEY, json.dumps(current + 1))
+                )
+    finally:
+        con.close()
+    return current + 1
+
+
+def _keep_owner_and_mode(path: Path, before: os.stat_result) -> None:
+    # mkstemp makes an owner-only file; the store keeps the mode (and, run as root, the owner) it had.
+    if hasattr(os, "chown") and os.geteuid() == 0:
+        try:
+            os.chown(path, before.st_uid, before.st_gid)
+        except OSError:
+            pass
+    os.chmod(path, before.st_mode & 0o7777)
+
+
+def _fsync(path: Path) -> None:
+    try:
+        fd = os.open(path, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def _outputs_view(plan):
+    """The plan as the derived files show it: without the audit-trail layers."""
+    layers = {k: v for k, v in plan.layers.items() if k not in _RECORD_ONLY_LAYERS}
+    return replace(plan, layers=layers)
+
+
+def write_outputs(plan, plan_dir: str | Path, generation: int, *, extra: dict | None = None) -> None:
+    """Re-write every derived file of ``plan_dir`` from ``plan`` (all writers but plan.gpkg).
+
+    Files are written into a staging folder inside the plan folder and moved in
+    one by one; then ``.fieldplan-state.json`` records ``generation``. Until it
+    does, the folder reads as out of step and the next command rebuilds.
+    ``extra`` maps further file names to their text or bytes.
+    """
+    from fieldplan.write.gpkg import write_gpkg
+
+    plan_dir = Path(plan_dir)
+    stage = Path(tempfile.mkdtemp(prefix=f".{plan_dir.name}.{os.getpid()}.", suffix=".stage", dir=plan_dir))
+    try:
+        with shared_lonlat(getattr(plan, "points", None)):
+            for writer in WRITERS:
+                if writer is not write_gpkg:
+                    writer(plan, stage)
+        extra = dict(extra or {})
+        actual = plan.layers.get("actual")
+        if actual is not None and len(actual):
+            from fieldplan.field.record import POSITIONS_NAME, positions_text
+
+            extra.setdefault(POSITIONS_NAME, positions_text(actual))
+        for name, data in extra.items():
+            (stage / name).write_bytes(data.encode("utf-8") if isinstance(data, str) else data)
+        for path in sorted(p for p in stage.rglob("*") if p.is_file()):
+            target = plan_dir / path.relative_to(stage)
+            target.parent.mkdir(parents=True, exist_ok=True)
+            if target.exists() and not target.is_symlink():
+                os.chmod(path, os.stat(target).st_mode & 0o7777)
+            else:
+                os.chmod(path, 0o666 & ~_umask())
+            os.replace(path, target)
+    finally:
+        shutil.rmtree(stage, ignore_errors=True)
+    from fieldplan.write.safe import atomic_write_text
+
+    atomic_write_text(plan_dir / STATE_NAME, json.dumps({GENERATION_KEY: int(generation)}) + "\n")
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def rebuild_outputs(plan_dir: str | Path) -> int:
+    """Re-write the derived files from plan.gpkg (call under :func:`locked`); return the generation."""
+    plan_dir = Path(plan_dir)
+    generation = store_generation(plan_dir)
+    write_outputs(_outputs_view(_read_plan(plan_dir)), plan_dir, generation)
+    return generation

@@ -79,7 +79,9 @@ def plan_dir(written, tmp_path, monkeypatch):
 
 
 def _files(folder):
-    return {p.name: p.read_bytes() for p in sorted(folder.iterdir()) if p.is_file() and p.name != "plan.gpkg"}
+    # Hidden files are the store's bookkeeping (lock, generation), not outputs.
+    keep = [p for p in sorted(folder.iterdir()) if p.is_file() and p.name != "plan.gpkg"]
+    return {p.name: p.read_bytes() for p in keep if not p.name.startswith(".")}
 
 
 def _status(folder):

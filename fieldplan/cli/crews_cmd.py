@@ -66,22 +66,24 @@ def crews(
     points.geojson, points.gpx and map.html.
     """
     from fieldplan.route.folder import plan_crews, refuse_existing, write_crews
-    from fieldplan.store import load_plan
+    from fieldplan.store import load_plan, locked
 
     lonlat = parse_lonlat(start) if start is not None else None
-    plan = load_plan(plan_dir)
-    refuse_existing(plan, plan_dir, force=force)
-    run = plan_crews(
-        plan,
-        n_crews=n_crews,
-        start_lonlat=lonlat,
-        walk_kmh=walk_speed,
-        minutes_per_point=minutes_per_point,
-        max_hours=max_hours,
-        return_to_start=return_to_start,
-        across_factor=across_factor,
-    )
-    write_crews(plan_dir, run, links=_links(plan_dir, run, link_base))
+    # Read, route and write under the plan's lock, so a mark made meanwhile is not overwritten.
+    with locked(plan_dir):
+        plan = load_plan(plan_dir)
+        refuse_existing(plan, plan_dir, force=force)
+        run = plan_crews(
+            plan,
+            n_crews=n_crews,
+            start_lonlat=lonlat,
+            walk_kmh=walk_speed,
+            minutes_per_point=minutes_per_point,
+            max_hours=max_hours,
+            return_to_start=return_to_start,
+            across_factor=across_factor,
+        )
+        write_crews(plan_dir, run, links=_links(plan_dir, run, link_base))
     from fieldplan.route.folder import save_rerun
 
     # The options, so that advice printed after a later change can repeat them exactly.

@@ -15,6 +15,7 @@ __all__ = [
     "progress_callback",
     "echo_err",
     "Force",
+    "report_replaced",
     "Seed",
     "Quiet",
     "parse_lonlat",
@@ -92,3 +93,15 @@ def parse_lonlat(text: str) -> tuple[float, float]:
     if not (-180 <= lon <= 180 and -90 <= lat <= 90):
         raise OptionError(f"{text!r} is not a longitude,latitude pair (longitude first)")
     return lon, lat
+
+
+def report_replaced(meta: dict, out) -> None:
+    """Say where a replaced plan holding history was moved (``previous_plan`` in the manifest)."""
+    from pathlib import Path
+
+    aside = meta.get("previous_plan")
+    if aside:
+        echo_err(
+            f"note: {out}: the plan it replaced held results or field records; it was moved to "
+            f"{Path(out).parent / aside}, not deleted (--discard-history deletes it instead)"
+        )

@@ -19,7 +19,7 @@ from typing import Annotated, Any
 
 import typer
 
-from fieldplan.cli.options import echo_err, handle_errors, progress_callback
+from fieldplan.cli.options import echo_err, handle_errors, progress_callback, report_replaced
 
 __all__ = ["register", "plan", "run_plan", "build_spec"]
 
@@ -162,6 +162,20 @@ def _fixed_parameters() -> list[inspect.Parameter]:
             ],
         ),
         inspect.Parameter(
+            "discard_history",
+            kw,
+            default=False,
+            annotation=Annotated[
+                bool,
+                typer.Option(
+                    "--discard-history",
+                    help="With --force: delete a replaced plan holding results, events, positions, crews or "
+                    "lab sheets (otherwise it is moved aside to NAME.replaced-<time>).",
+                    rich_help_panel=outputs,
+                ),
+            ],
+        ),
+        inspect.Parameter(
             "quiet",
             kw,
             default=False,
@@ -234,6 +248,7 @@ def _plan(
     like: Path | None = None,
     seed: int | None = None,
     force: bool = False,
+    discard_history: bool = False,
     quiet: bool = False,
     **values: Any,
 ) -> None:
@@ -246,7 +261,9 @@ def _plan(
 
     try:
         spec, seed = build_spec(ctx, values, recipe=recipe, like=like, seed=seed)
-        run_plan(blocks_file, spec, out=out, seed=seed, force=force, quiet=quiet)
+        run_plan(
+            blocks_file, spec, out=out, seed=seed, force=force, quiet=quiet, discard_history=discard_history
+        )
     except SpecError as err:
         # The library names parameters; here they are flags.
         raise OptionError(err.render(flag_of)) from None
@@ -293,7 +310,9 @@ def _spec_and_seed(given: dict, *, recipe: Path | None, like: Path | None, seed:
     return spec, (0 if seed is None else seed)
 
 
-def run_plan(blocks_file: Path, spec, *, out: Path, seed: int, force: bool, quiet: bool):
+def run_plan(
+    blocks_file: Path, spec, *, out: Path, seed: int, force: bool, quiet: bool, discard_history: bool = False
+):
     """Check the output folder and resources, read, plan, write and report one spec."""
     from fieldplan.engine import check_engine
     from fieldplan.plan import make_plan
@@ -344,7 +363,10 @@ def run_plan(blocks_file: Path, spec, *, out: Path, seed: int, force: bool, quie
             previous=previous,
         )
     set_cautions(result, cautions)
-    write_plan(result, out, force=force, formats=list(spec.outputs.formats))
+    write_plan(
+        result, out, force=force, formats=list(spec.outputs.formats), discard_history=discard_history
+    )
+    report_replaced(result.meta, out)
     if not quiet:
         report(result, out)
     return result

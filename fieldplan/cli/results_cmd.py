@@ -102,46 +102,54 @@ def results(
     if file is None:
         raise OptionError("give a results file to import (CSV or .xlsx), or --remove-round N")
 
+    from fieldplan.field.record import POSITIONS_NAME, record_positions
     from fieldplan.results import append_round, format_outliers, format_problems, prepare_import
-    from fieldplan.store import load_plan
+    from fieldplan.store import transaction
 
-    # Read and check every input before the first write: a refused import stores nothing.
-    plan = load_plan(plan_dir)
-    ready = prepare_import(
-        plan,
-        file,
-        value_columns=value,
-        sheet=sheet,
-        date_format=date_format,
-        allow_duplicate=allow_duplicate,
-        positions=positions,
-        max_offset=max_offset,
-    )
-    table = ready.table
-    for note in table.notes:
-        echo_err(f"note: {file.name}: {note}")
-    if not table.problems.empty:
-        echo_err(f"{len(table.problems)} problem(s) in {file.name}:")
-        echo_err(format_problems(table.problems))
-    if len(ready.suspects):
-        echo_err(
-            f"{len(ready.suspects)} value(s) far from the rest of the round "
-            "(modified z-score beyond 3.5, Iglewicz & Hoaglin 1993), e.g. a decimal slip:"
+    # Read and check every input before the first write: a refused import stores nothing. The
+    # round and its positions are one change of the plan, made under its lock (the rounds
+    # already stored are read under it) and written only when the block ends.
+    with transaction(plan_dir) as txn:
+        ready = prepare_import(
+            txn.plan,
+            file,
+            value_columns=value,
+            sheet=sheet,
+            date_format=date_format,
+            allow_duplicate=allow_duplicate,
+            positions=positions,
+            max_offset=max_offset,
         )
-        echo_err(format_outliers(ready.suspects))
-        if not accept_outliers:
-            raise InputError(
-                f"{file}: nothing stored; correct the values listed above, or give --accept-outliers "
-                "if they are real"
+        table = ready.table
+        for note in table.notes:
+            echo_err(f"note: {file.name}: {note}")
+        if not table.problems.empty:
+            echo_err(f"{len(table.problems)} problem(s) in {file.name}:")
+            echo_err(format_problems(table.problems))
+        if len(ready.suspects):
+            echo_err(
+                f"{len(ready.suspects)} value(s) far from the rest of the round "
+                "(modified z-score beyond 3.5, Iglewicz & Hoaglin 1993), e.g. a decimal slip:"
             )
-    stored = append_round(
-        plan_dir,
-        table,
-        existing=ready.existing,
-        imported_utc=_now_utc(),
-        allow_duplicate=allow_duplicate,
-        round_no=ready.round_no,
-    )
+            echo_err(format_outliers(ready.suspects))
+            if not accept_outliers:
+                raise InputError(
+                    f"{file}: nothing stored; correct the values listed above, or give --accept-outliers "
+                    "if they are real"
+                )
+        stored = append_round(
+            plan_dir,
+            table,
+            existing=ready.existing,
+            imported_utc=_now_utc(),
+            allow_duplicate=allow_duplicate,
+            round_no=ready.round_no,
+        )
+        report = None
+        if ready.positions is not None:
+            report = record_positions(
+                plan_dir, ready.positions, max_offset=ready.max_offset, round_no=stored, recorded_utc=_now_utc()
+            )
     if not quiet:
         cols = ", ".join(table.value_columns)
         typer.echo(
@@ -154,23 +162,15 @@ def results(
                 f"use or marked inaccessible), stored but worth a check: {', '.join(ready.inactive[:10])}"
                 + (" ..." if len(ready.inactive) > 10 else "")
             )
-    if ready.positions is not None:
-        _positions(plan_dir, ready.positions, limit=ready.max_offset, round_no=stored, quiet=quiet)
-
-
-def _positions(plan_dir: Path, actual, *, limit: float, round_no: int, quiet: bool) -> None:
-    """Store the recorded positions (checked by prepare_import) and report the far ones."""
-    from fieldplan.field.record import POSITIONS_NAME, record_positions
-
-    report = record_positions(plan_dir, actual, max_offset=limit, round_no=round_no, recorded_utc=_now_utc())
-    far = report[report["beyond_max_offset"]]
-    for row in far.head(50).itertuples(index=False):
-        echo_err(f"warning: point {row.point_id} was sampled {row.offset_m:.1f} m from its planned spot")
-    if not quiet:
-        typer.echo(
-            f"Positions: {len(report)} recorded, {len(far)} more than {limit:g} m from the plan "
-            f"-> {Path(plan_dir) / POSITIONS_NAME}"
-        )
+    if report is not None:
+        far = report[report["beyond_max_offset"]]
+        for row in far.head(50).itertuples(index=False):
+            echo_err(f"warning: point {row.point_id} was sampled {row.offset_m:.1f} m from its planned spot")
+        if not quiet:
+            typer.echo(
+                f"Positions: {len(report)} recorded, {len(far)} more than {ready.max_offset:g} m from the "
+                f"plan -> {Path(plan_dir) / POSITIONS_NAME}"
+            )
 
 
 def _remove(plan_dir: Path, round_no: int, *, reason: str, by: str | None, quiet: bool) -> None:

@@ -30,6 +30,9 @@ __all__ = [
     "current_user",
     "make_events",
     "read_events",
+    "stored_events",
+    "number_events",
+    "write_numbered_events",
     "append_events",
 ]
 
@@ -91,6 +94,14 @@ def make_events(
     )
 
 
+def _typed(frame: pd.DataFrame) -> pd.DataFrame:
+    frame = frame[list(EVENT_COLUMNS)].copy()
+    frame["event_id"] = frame["event_id"].astype("int64")
+    for column in EVENT_COLUMNS[1:]:
+        frame[column] = frame[column].fillna("").astype(str).astype(object)
+    return frame.sort_values("event_id", kind="stable").reset_index(drop=True)
+
+
 def read_events(gpkg: str | Path) -> pd.DataFrame:
     """The events table in recording order; empty (with its columns) if none was recorded yet."""
     import pyogrio
@@ -100,26 +111,42 @@ def read_events(gpkg: str | Path) -> pd.DataFrame:
         raise PlanDirError(f"{gpkg}: no plan.gpkg; give a folder made by 'fieldplan plan'")
     if EVENTS_LAYER not in {row[0] for row in pyogrio.list_layers(gpkg)}:
         return _empty()
-    frame = pyogrio.read_dataframe(gpkg, layer=EVENTS_LAYER, read_geometry=False)
-    frame = frame[list(EVENT_COLUMNS)].copy()
-    frame["event_id"] = frame["event_id"].astype("int64")
-    for column in EVENT_COLUMNS[1:]:
-        frame[column] = frame[column].fillna("").astype(str).astype(object)
-    return frame.sort_values("event_id", kind="stable").reset_index(drop=True)
+    return _typed(pyogrio.read_dataframe(gpkg, layer=EVENTS_LAYER, read_geometry=False))
 
 
-def append_events(gpkg: str | Path, events: pd.DataFrame) -> pd.DataFrame:
-    """Append rows to the events table, numbering them after the last recorded event.
+def stored_events(plan) -> pd.DataFrame:
+    """The events table of a loaded plan (``Plan.layers``), like :func:`read_events`."""
+    frame = plan.layers.get(EVENTS_LAYER)
+    if frame is None or len(frame) == 0:
+        return _empty()
+    return _typed(pd.DataFrame(frame).drop(columns="geometry", errors="ignore"))
 
-    Returns the rows as stored (with their ``event_id``).
-    """
-    import pyogrio
 
-    gpkg = Path(gpkg)
-    existing = read_events(gpkg)
+def number_events(existing: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
+    """New rows numbered after the last of ``existing`` (read under the plan's lock)."""
     start = int(existing["event_id"].max()) + 1 if len(existing) else 1
     rows = events[list(EVENT_COLUMNS)].copy()
     rows["event_id"] = pd.Series(range(start, start + len(rows)), index=rows.index, dtype="int64")
-    if len(rows):
-        pyogrio.write_dataframe(rows, gpkg, layer=EVENTS_LAYER, driver="GPKG", append=len(existing) > 0)
     return rows.reset_index(drop=True)
+
+
+def write_numbered_events(gpkg: str | Path, rows: pd.DataFrame, *, append: bool) -> None:
+    """Add numbered rows to the events table of ``gpkg`` (a store copy inside a transaction)."""
+    import pyogrio
+
+    if len(rows):
+        pyogrio.write_dataframe(rows, Path(gpkg), layer=EVENTS_LAYER, driver="GPKG", append=append)
+
+
+def append_events(gpkg: str | Path, events: pd.DataFrame) -> pd.DataFrame:
+    """Append rows to the events table of ``gpkg``, numbering them after the last recorded event.
+
+    Writes straight into ``gpkg``: use it on the private copy inside a
+    :func:`fieldplan.store.transaction` (``txn.edit``), or prefer
+    :func:`number_events` on the events read under the lock (as ``mark`` does).
+    Returns the rows as stored (with their ``event_id``).
+    """
+    existing = read_events(gpkg)
+    rows = number_events(existing, events)
+    write_numbered_events(gpkg, rows, append=len(existing) > 0)
+    return rows

@@ -17,9 +17,6 @@ sampled), ``spare`` (not needed), ``replacement`` (a spare now needed),
 
 from __future__ import annotations
 
-import os
-import shutil
-import tempfile
 from dataclasses import dataclass, replace
 from datetime import datetime
 from pathlib import Path
@@ -34,9 +31,10 @@ from fieldplan.field.events import (
     EVENTS_LAYER,
     INACCESSIBLE,
     RESTORE,
-    append_events,
     make_events,
-    read_events,
+    number_events,
+    stored_events,
+    write_numbered_events,
 )
 from fieldplan.field.spares import SELECTED, SPARE
 from fieldplan.field.substitutes import SUBSTITUTES_LAYER, SUFFIX
@@ -224,25 +222,6 @@ def _normalised_blocks(blocks: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
     return out
 
 
-def _rewrite_outputs(plan, plan_dir: Path) -> None:
-    """Re-run every registered writer but the GeoPackage one; replace each file atomically."""
-    from fieldplan.store import WRITERS
-    from fieldplan.write.gpkg import write_gpkg
-
-    stage = Path(tempfile.mkdtemp(prefix=f".{plan_dir.name}.", suffix=".mark", dir=plan_dir.parent))
-    try:
-        for writer in WRITERS:
-            if writer is write_gpkg:
-                continue
-            writer(plan, stage)
-        for path in sorted(p for p in stage.rglob("*") if p.is_file()):
-            target = plan_dir / path.relative_to(stage)
-            target.parent.mkdir(parents=True, exist_ok=True)
-            os.replace(path, target)
-    finally:
-        shutil.rmtree(stage, ignore_errors=True)
-
-
 def mark_points(
     plan_dir: str | Path,
     point_ids: list[str],
@@ -266,8 +245,7 @@ def mark_points(
     by : str, optional
         Who; defaults to ``$USER``.
     """
-    from fieldplan.store import load_plan
-    from fieldplan.write.gpkg import GPKG_NAME, write_layer
+    from fieldplan.store import transaction
 
     if action not in (INACCESSIBLE, RESTORE):
         raise OptionError(f"action must be {INACCESSIBLE!r} or {RESTORE!r}; got {action!r}")
@@ -275,71 +253,69 @@ def mark_points(
     ids = list(dict.fromkeys(str(p).strip() for p in point_ids if str(p).strip()))
     if not ids:
         raise OptionError("give at least one point id (see points.csv), or --from a file of ids")
-    plan = load_plan(plan_dir)
-    gpkg = plan_dir / GPKG_NAME
-    events = read_events(gpkg)
-    planned_layer = plan.layers.get(PLANNED_LAYER)
-    first_mark = planned_layer is None
-    planned = (
-        plan.points if first_mark else gpd.GeoDataFrame(planned_layer).set_crs(plan.crs, allow_override=True)
-    )
-    substitutes = plan.layers.get(SUBSTITUTES_LAYER)
-    known = set(planned["point_id"].astype(str))
-    if substitutes is not None and len(substitutes):
-        known |= set(substitutes["substitute_id"].astype(str))
-    ids = _canonical_ids(ids, known)
-    unknown = [p for p in ids if p not in known]
-    if unknown:
-        raise OptionError(f"{plan_dir}: point {unknown[0]!r} is not in this plan; check the id in points.csv")
-    off = inaccessible_set(events)
-    if action == INACCESSIBLE:
-        again = [p for p in ids if p in off]
-        if again:
-            raise OptionError(f"point {again[0]!r} is already marked inaccessible; restore it first")
-        after_off = off + ids
-    else:
-        missing = [p for p in ids if p not in off]
-        if missing:
-            raise OptionError(f"point {missing[0]!r} is not marked inaccessible; nothing to restore")
-        after_off = [p for p in off if p not in ids]
-    before = field_points(planned, off, substitutes)
-    after = field_points(planned, after_off, substitutes)
-    # Soil plans: a substitute in use gets its own cores; those of points given up are retired.
-    cores, after, moved = field_cores(plan, after)
-    repl = _replacements(before, after, ids, planned)
-    # With crews, a point brought in joins the crew (and takes the place) of the one it replaces.
-    after = inherit_crews(plan.points, after, ids, repl, restore=action == RESTORE)
-    rows = make_events([action] * len(ids), ids, replacement_ids=repl, reason=reason, user=by, now=now)
-    notes = []
-    if action == INACCESSIBLE:
-        notes = [
-            f"{p}: no spare or substitute left in its stratum"
-            for p, r in zip(ids, repl, strict=True)
-            if not r
-        ]
+    # The plan and its events are read under the folder's lock and the change is committed
+    # before it is released, so two marks at once cannot both build on the same events.
+    with transaction(plan_dir) as txn:
+        plan = txn.plan
+        events = stored_events(plan)
+        planned_layer = plan.layers.get(PLANNED_LAYER)
+        first_mark = planned_layer is None
+        planned = (
+            plan.points if first_mark else gpd.GeoDataFrame(planned_layer).set_crs(plan.crs, allow_override=True)
+        )
+        substitutes = plan.layers.get(SUBSTITUTES_LAYER)
+        known = set(planned["point_id"].astype(str))
+        if substitutes is not None and len(substitutes):
+            known |= set(substitutes["substitute_id"].astype(str))
+        ids = _canonical_ids(ids, known)
+        unknown = [p for p in ids if p not in known]
+        if unknown:
+            raise OptionError(
+                f"{plan_dir}: point {unknown[0]!r} is not in this plan; check the id in points.csv"
+            )
+        off = inaccessible_set(events)
+        if action == INACCESSIBLE:
+            again = [p for p in ids if p in off]
+            if again:
+                raise OptionError(f"point {again[0]!r} is already marked inaccessible; restore it first")
+            after_off = off + ids
+        else:
+            missing = [p for p in ids if p not in off]
+            if missing:
+                raise OptionError(f"point {missing[0]!r} is not marked inaccessible; nothing to restore")
+            after_off = [p for p in off if p not in ids]
+        before = field_points(planned, off, substitutes)
+        after = field_points(planned, after_off, substitutes)
+        # Soil plans: a substitute in use gets its own cores; those of points given up are retired.
+        cores, after, moved = field_cores(plan, after)
+        repl = _replacements(before, after, ids, planned)
+        # With crews, a point brought in joins the crew (and takes the place) of the one it replaces.
+        after = inherit_crews(plan.points, after, ids, repl, restore=action == RESTORE)
+        rows = make_events([action] * len(ids), ids, replacement_ids=repl, reason=reason, user=by, now=now)
+        notes = []
+        if action == INACCESSIBLE:
+            notes = [
+                f"{p}: no spare or substitute left in its stratum"
+                for p, r in zip(ids, repl, strict=True)
+                if not r
+            ]
 
-    # plan.gpkg is the record: update a copy and swap it in before re-writing the other files.
-    tmp = Path(tempfile.mkstemp(prefix=".plan.", suffix=".gpkg", dir=plan_dir)[1])
-    try:
-        shutil.copyfile(gpkg, tmp)
-        write_layer(tmp, "points", after, geometry_type="Point")
+        stored = number_events(events, rows)
+        # plan.gpkg is the record: the layers go into the store's private copy, swapped in at commit.
+        txn.set_layer("points", after, geometry_type="Point")
         if first_mark:
-            write_layer(tmp, PLANNED_LAYER, planned, geometry_type="Point")
+            txn.set_layer(PLANNED_LAYER, planned, geometry_type="Point")
         if cores is not None:
-            write_layer(tmp, "cores", cores, geometry_type="Point")
-        stored = append_events(tmp, rows)
-        os.replace(tmp, gpkg)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
-    layers = {k: v for k, v in plan.layers.items() if k not in _OWN_LAYERS}
-    if cores is not None:
-        layers["cores"] = cores
-    notes += [f"block {b}: {text}" for b, texts in moved.items() for text in texts]
-    view = replace(
-        plan, points=after, blocks=with_notes(_normalised_blocks(plan.blocks), moved), layers=layers
-    )
-    _rewrite_outputs(view, plan_dir)
+            txn.set_layer("cores", cores, geometry_type="Point")
+        txn.edit(lambda path: write_numbered_events(path, stored, append=len(events) > 0))
+        layers = {k: v for k, v in plan.layers.items() if k not in _OWN_LAYERS}
+        if cores is not None:
+            layers["cores"] = cores
+        notes += [f"block {b}: {text}" for b, texts in moved.items() for text in texts]
+        # The derived files of this change also carry the notes on moved cores.
+        txn.view = replace(
+            plan, points=after, blocks=with_notes(_normalised_blocks(plan.blocks), moved), layers=layers
+        )
     return MarkResult(stored, after, notes)
 
 

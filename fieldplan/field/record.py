@@ -8,10 +8,6 @@ beyond the limit. The map draws the layer as recorded positions.
 
 from __future__ import annotations
 
-import os
-import shutil
-import tempfile
-from dataclasses import replace
 from pathlib import Path
 
 import geopandas as gpd
@@ -19,7 +15,7 @@ import pandas as pd
 
 from fieldplan.field.positions import position_report
 
-__all__ = ["ACTUAL_LAYER", "POSITIONS_NAME", "record_positions"]
+__all__ = ["ACTUAL_LAYER", "POSITIONS_NAME", "record_positions", "positions_text"]
 
 ACTUAL_LAYER = "actual"
 POSITIONS_NAME = "positions.csv"
@@ -51,43 +47,39 @@ def record_positions(
     pandas.DataFrame
         This round's comparison (see :func:`fieldplan.field.positions.compare_positions`).
     """
-    from fieldplan.field.mark import _OWN_LAYERS, _normalised_blocks, _rewrite_outputs
-    from fieldplan.store import load_plan
-    from fieldplan.write.gpkg import GPKG_NAME, write_layer
-    from fieldplan.write.safe import atomic_write_text, neutralise_frame
+    from fieldplan.store import transaction
 
     plan_dir = Path(plan_dir)
-    plan = load_plan(plan_dir)
-    report = position_report(plan, actual, max_offset=max_offset)
-    block = plan.points.drop_duplicates("point_id").set_index("point_id")["block"]
-    table = report.assign(
-        block=report["point_id"].map(block).to_numpy(), round=int(round_no), recorded_utc=recorded_utc
-    )
-    layer = gpd.GeoDataFrame(
-        table,
-        geometry=gpd.points_from_xy(table["actual_lon"], table["actual_lat"]),
-        crs=4326,
-    ).to_crs(plan.crs)
-    old = plan.layers.get(ACTUAL_LAYER)
-    if old is not None and len(old):
-        old = gpd.GeoDataFrame(old).to_crs(plan.crs)
-        layer = pd.concat(
-            [old[~old["point_id"].isin(layer["point_id"])], layer[old.columns]], ignore_index=True
+    # Read, compare and store under the folder's lock (joining the caller's transaction if
+    # it holds one, as 'fieldplan results' does to store a round and its positions together).
+    with transaction(plan_dir) as txn:
+        plan = txn.plan
+        report = position_report(plan, actual, max_offset=max_offset)
+        block = plan.points.drop_duplicates("point_id").set_index("point_id")["block"]
+        table = report.assign(
+            block=report["point_id"].map(block).to_numpy(), round=int(round_no), recorded_utc=recorded_utc
         )
-        layer = gpd.GeoDataFrame(layer, geometry=old.geometry.name, crs=plan.crs)
-    gpkg = plan_dir / GPKG_NAME
-    tmp = Path(tempfile.mkstemp(prefix=".plan.", suffix=".gpkg", dir=plan_dir)[1])
-    try:
-        shutil.copyfile(gpkg, tmp)
-        write_layer(tmp, ACTUAL_LAYER, layer, geometry_type="Point")
-        os.replace(tmp, gpkg)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
-    columns = [c for c in layer.columns if c != layer.geometry.name]
-    text = neutralise_frame(pd.DataFrame(layer[columns])).to_csv(index=False, lineterminator="\n")
-    atomic_write_text(plan_dir / POSITIONS_NAME, text)
-    layers = {k: v for k, v in plan.layers.items() if k not in _OWN_LAYERS}
-    layers[ACTUAL_LAYER] = layer
-    _rewrite_outputs(replace(plan, blocks=_normalised_blocks(plan.blocks), layers=layers), plan_dir)
+        layer = gpd.GeoDataFrame(
+            table,
+            geometry=gpd.points_from_xy(table["actual_lon"], table["actual_lat"]),
+            crs=4326,
+        ).to_crs(plan.crs)
+        old = plan.layers.get(ACTUAL_LAYER)
+        if old is not None and len(old):
+            old = gpd.GeoDataFrame(old).to_crs(plan.crs)
+            layer = pd.concat(
+                [old[~old["point_id"].isin(layer["point_id"])], layer[old.columns]], ignore_index=True
+            )
+            layer = gpd.GeoDataFrame(layer, geometry=old.geometry.name, crs=plan.crs)
+        # positions.csv is derived from this layer when the transaction commits.
+        txn.set_layer(ACTUAL_LAYER, layer, geometry_type="Point")
     return report
+
+
+def positions_text(layer) -> str:
+    """positions.csv: the ``actual`` layer as a table, cells neutralised for spreadsheets."""
+    from fieldplan.write.safe import neutralise_frame
+
+    layer = gpd.GeoDataFrame(layer)
+    columns = [c for c in layer.columns if c != layer.geometry.name]
+    return neutralise_frame(pd.DataFrame(layer[columns])).to_csv(index=False, lineterminator="\n")

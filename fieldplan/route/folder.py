@@ -14,8 +14,6 @@ and ``map.html``.
 from __future__ import annotations
 
 import dataclasses
-import os
-import shutil
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -237,19 +235,12 @@ def plan_crews(
 
 
 def _swap_gpkg(plan_dir: Path, points, routes) -> None:
-    """Rewrite the points and routes layers through a copy swapped in atomically."""
-    from fieldplan.write.gpkg import GPKG_NAME, write_layer
+    """Store the points and routes layers as one change of the plan (see ``fieldplan.store.transaction``)."""
+    from fieldplan.store import transaction
 
-    path = plan_dir / GPKG_NAME
-    tmp = path.with_name(f".crews-tmp-{path.name}")
-    shutil.copy2(path, tmp)
-    try:
-        write_layer(tmp, "points", points, geometry_type="Point")
-        write_layer(tmp, "routes", routes, geometry_type="LineString")
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+    with transaction(plan_dir) as txn:
+        txn.set_layer("points", points, geometry_type="Point")
+        txn.set_layer("routes", routes, geometry_type="LineString")
 
 
 def _sheet_rows(points, order: np.ndarray) -> list[dict]:

@@ -6,6 +6,7 @@ import ctypes
 import os
 import re
 import shutil
+import stat
 import sys
 import tempfile
 import time
@@ -82,7 +83,8 @@ def atomic_write_bytes(path: Path, data: bytes | Iterable[bytes]) -> None:
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    # The process id in the name lets a later run tell a killed writer's debris from a live one.
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.{os.getpid()}.", suffix=".tmp", dir=path.parent)
     try:
         with os.fdopen(fd, "wb") as handle:
             if isinstance(data, bytes | bytearray | memoryview):
@@ -92,8 +94,15 @@ def atomic_write_bytes(path: Path, data: bytes | Iterable[bytes]) -> None:
                     handle.write(chunk)
             handle.flush()
             os.fsync(handle.fileno())
-        # mkstemp makes owner-only files; plan files are meant to be shared like any other.
-        os.chmod(tmp, 0o666 & ~_umask())
+        # mkstemp makes owner-only files; plan files are meant to be shared like any other,
+        # and a file being replaced keeps the mode it had. os.replace swaps a link planted
+        # under the name for the file; it never writes through the link.
+        try:
+            old = os.stat(path, follow_symlinks=False)
+            mode = old.st_mode & 0o7777 if stat.S_ISREG(old.st_mode) else 0o666 & ~_umask()
+        except FileNotFoundError:
+            mode = 0o666 & ~_umask()
+        os.chmod(tmp, mode)
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
@@ -252,7 +261,7 @@ def check_out_dir(out_dir: Path, *, force: bool = False) -> None:
 
 
 @contextmanager
-def staged_folder(out_dir: Path, *, force: bool = False) -> Iterator[Path]:
+def staged_folder(out_dir: Path, *, force: bool = False, aside: Path | None = None) -> Iterator[Path]:
     """Yield a temporary folder beside ``out_dir``; on success swap it into place.
 
     A failure (or a kill) before the swap leaves ``out_dir`` as it was. With
@@ -261,6 +270,9 @@ def staged_folder(out_dir: Path, *, force: bool = False) -> Iterator[Path]:
     renamed aside and only deleted after the new folder is in place, and a run
     killed between the two renames has the old plan put back by the next run.
     Staging folders of killed runs are removed on the next write.
+
+    With ``aside`` an existing plan is not deleted but renamed to ``aside``
+    (beside ``out_dir``) just before the new folder takes its place.
     """
     out_dir = Path(out_dir)
     clean_stale_stages(out_dir)
@@ -274,6 +286,11 @@ def staged_folder(out_dir: Path, *, force: bool = False) -> Iterator[Path]:
         shutil.rmtree(stage, ignore_errors=True)
         raise
     os.chmod(stage, 0o777 & ~_umask())
+    if aside is not None and out_dir.exists():
+        os.rename(out_dir, aside)
+        os.replace(stage, out_dir)
+        _fsync_dir(out_dir.parent)
+        return
     if out_dir.exists() and _exchange(stage, out_dir):
         _fsync_dir(out_dir.parent)
         shutil.rmtree(stage, ignore_errors=True)
