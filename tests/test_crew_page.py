@@ -402,6 +402,17 @@ def test_page_distance_and_bearing_match_pyproj(served, tmp_path):
         shown_m = float(page.locator("#distance").get_attribute("data-metres"))
         shown_deg = float(page.locator("#bearing").get_attribute("data-degrees"))
         assert "±7 m" in page.locator("#accuracy").inner_text()
+        # Recording this far from the spot: the page warns with the distance and the plan's limit first.
+        page.click("#btn-cautions-close")
+        page.click("#btn-taken")
+        page.fill("#sample-id", first["sample_id"])
+        page.click("#btn-save-taken")
+        warning = page.locator("#offset-warning")
+        warning.wait_for(state="visible")
+        assert f"{round(shown_m)} m from the planned spot (limit 10" in warning.inner_text()
+        assert page.locator("#btn-save-taken").inner_text() == "Save anyway"
+        assert page.locator("#unsynced-count").inner_text() == "0"  # nothing kept yet
+        page.click("#btn-cancel-taken")
         context.close()
     az, _, dist = Geod(ellps="WGS84").inv(here[1], here[0], first["lon"], first["lat"])
     # reference: pyproj.Geod, within 0.5 m / 0.5 degrees

@@ -370,6 +370,11 @@
         (answer.events || []).forEach(function (e) {
           if (e.replacement_id) msg += " " + e.point_id + " \u2192 " + e.replacement_id + ".";
         });
+        var far = (answer.positions || []).filter(function (p) { return p.beyond_max_offset; });
+        if (far.length) {
+          msg += " " + far.length + " sample(s) more than " + state.data.max_offset_m + " m from the planned spot: " +
+            far.map(function (p) { return p.point_id + " (" + Math.round(p.offset_m) + " m)"; }).join(", ") + ".";
+        }
         if ((answer.conflicts || []).length) msg += " " + answer.conflicts.length + " conflict(s) for the office.";
         say(msg, !refused);
         update();

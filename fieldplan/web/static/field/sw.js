@@ -59,9 +59,15 @@ self.addEventListener("fetch", function (event) {
   if (request.method !== "GET" || !sameOrigin(request.url)) return;
   var url = new URL(request.url);
   if (url.pathname.indexOf("/field/static/") === 0) {
-    // Scripts and styles: the kept copy first (they change only with a new version).
+    // Scripts and styles: the kept copy at once, refreshed in the background when there is a
+    // signal, so a new fieldplan version reaches the phone on the next opening.
     event.respondWith(fromCache(request, false).then(function (hit) {
-      return hit || fetch(request).then(function (r) { return keep(request, r); });
+      var fresh = fetch(request).then(function (r) { return keep(request, r); });
+      if (hit) {
+        event.waitUntil(fresh.catch(function () { return null; }));
+        return hit;
+      }
+      return fresh;
     }));
     return;
   }
