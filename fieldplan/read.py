@@ -894,32 +894,44 @@ def check_spacing_profiles(
     profiles = [load_profile(name) for name in shipped_profiles()]
     by_crop = {crop.casefold(): p for p in profiles for crop in p.crops}
     fallback = load_profile(crop_profile) if crop_profile is not None else None
+    candidates = [*profiles, fallback]  # the last is "no profile" when fallback is None
+    index_of = {crop: profiles.index(p) for crop, p in by_crop.items()}
     n = len(blocks)
-    crops = (
-        blocks["crop"].to_numpy(dtype=object) if "crop" in blocks.columns else np.full(n, None, dtype=object)
-    )
-    chosen = [by_crop.get(str(c).strip().casefold(), fallback) if c is not None else fallback for c in crops]
+    if "crop" in blocks.columns:
+        keys = blocks["crop"].astype("string").str.strip().str.casefold()
+        which = keys.map(index_of).fillna(len(profiles)).to_numpy(dtype=int)
+    else:
+        which = np.full(n, len(profiles), dtype=int)
     names = blocks["block"].astype(str).to_numpy()
     for name, role in (("row_spacing_m", "row_spacing"), ("plant_spacing_m", "plant_spacing")):
         if name not in blocks.columns:
             continue
+        ranges = np.array(
+            [
+                getattr(p, name, None) or (np.nan, np.nan) if p is not None else (np.nan, np.nan)
+                for p in candidates
+            ],
+            dtype=float,
+        )
+        low, high = ranges[which, 0], ranges[which, 1]
         values = pd.to_numeric(blocks[name], errors="coerce").to_numpy(dtype=float)
-        for i in np.flatnonzero(np.isfinite(values) & (values > 0)):
-            profile = chosen[i]
-            limits = getattr(profile, name, None) if profile is not None else None
-            if not limits:
-                continue
-            low, high = limits
-            value = float(values[i])
-            if low <= value <= high:
-                continue
-            field = (sources or {}).get(role)
-            origin = f" (field {field}" + (f", read in {length_unit}" if length_unit != "m" else "") + ")"
-            origin = origin if field and (field != name or length_unit != "m") else ""
-            raise InvalidBlocksError(
-                f"{source}: block {names[i]!r} has {name}={value:.4g}{origin}, outside {low:g} to {high:g} m "
-                f"for {profile.name} ({profile.spacing_basis}); {_unit_hint(value, low, high, length_unit)}"
-            )
+        bad = np.flatnonzero(
+            np.isfinite(values) & (values > 0) & np.isfinite(low) & ((values < low) | (values > high))
+        )
+        if not len(bad):
+            continue
+        i = int(bad[0])
+        profile = candidates[which[i]]
+        value = float(values[i])
+        more = f" (and {len(bad) - 1} more)" if len(bad) > 1 else ""
+        field = (sources or {}).get(role)
+        origin = f" (field {field}" + (f", read in {length_unit}" if length_unit != "m" else "") + ")"
+        origin = origin if field and (field != name or length_unit != "m") else ""
+        raise InvalidBlocksError(
+            f"{source}: block {names[i]!r}{more} has {name}={value:.4g}{origin}, outside {low[i]:g} to "
+            f"{high[i]:g} m for {profile.name} ({profile.spacing_basis}); "
+            f"{_unit_hint(value, low[i], high[i], length_unit)}"
+        )
 
 
 def _unit_hint(value: float, low: float, high: float, length_unit: str) -> str:

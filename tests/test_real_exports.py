@@ -115,7 +115,7 @@ def test_feet_read_as_metres_are_refused_with_block_and_value(tmp_path):
         read_blocks(path, columns={"block": "BLOCK_NAME", "row_spacing": "RowSpacing"})
     message = str(err.value)
     # common practice, no source: wine grape rows 1.5-4 m (the shipped profile's range).
-    assert "block 'Blk 1' has row_spacing_m=8 (field RowSpacing)" in message
+    assert "block 'Blk 1' (and 2 more) has row_spacing_m=8 (field RowSpacing)" in message
     assert "outside 1.5 to 4 m for wine-grapes" in message
     assert "--length-unit ft" in message
     assert "\n" not in message
