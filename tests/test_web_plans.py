@@ -345,3 +345,31 @@ def test_api_docs_page_lists_every_route(ws):
     for path in ("/api/plans", "/api/plans/{name}", "/api/plans/{name}/crews", "/api/plans/{name}/results",
                  "/api/plans/{name}/marks", "/api/plans/{name}/estimates"):  # fmt: skip
         assert path in schema["paths"]
+
+
+def test_estimates_saved_as_the_cli_writes_them(ws, tmp_path):
+    client, web, ref = ws
+    ids = pd.read_csv(web / "points.csv")
+    ids = ids[ids["status"] == "selected"]["point_id"].astype(str).tolist()
+    csv = tmp_path / "r.csv"
+    csv.write_text(
+        "point_id,brix,ta,date\n"
+        + "".join(
+            f"{p},{21 + (i % 5) * 0.5:.1f},{7 - (i % 4) * 0.3:.1f},2027-02-01\n" for i, p in enumerate(ids)
+        )
+    )
+    assert client.post("/api/plans/p/results", files={"file": ("r.csv", csv.read_bytes())}).status_code == 200
+    _cli("results", ref, csv, "-q")
+    r = client.post("/api/plans/p/estimates", params={"value": "ta", "target": 6.5, "by": "variety"})
+    assert r.status_code == 200 and r.json()["saved"] == "estimates.csv"
+    _cli("estimate", ref, "--value", "ta", "--target", "6.5", "--by", "variety", "-q")
+    # reference: `fieldplan estimate` writes the same estimates.csv (acidity reached from above)
+    assert (web / "estimates.csv").read_bytes() == (ref / "estimates.csv").read_bytes()
+    assert (
+        r.json()["direction"]
+        != client.get(
+            "/api/plans/p/estimates", params={"value": "ta", "target": 6.5, "target_below": False}
+        ).json()["direction"]
+    )
+    home = client.get("/api/plans").json()["plans"][0]
+    assert home["last_estimate"]["variable"] == "ta"

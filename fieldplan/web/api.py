@@ -174,20 +174,60 @@ def post_marks(request: Request, name: str, body: MarksRequest) -> dict:
     return service.mark(folder, body.point_ids, action=body.action, reason=body.reason, by=body.by)
 
 
+def _estimates(request, name, value, by, confidence, target, target_below, round_no, local_variance, save):
+    folder = _folder(request, name)
+    return service.estimates(
+        folder,
+        value=value,
+        by=by,
+        confidence=confidence,
+        target=target,
+        target_below=target_below,
+        round_no=round_no,
+        local_variance=local_variance,
+        save=save,
+    )
+
+
+ValueQ = Annotated[str, Query(min_length=1, max_length=100, description="Variable, e.g. brix.")]
+ByQ = Annotated[Literal["block", "stratum", "variety", "farm"], Query()]
+ConfidenceQ = Annotated[float, Query(gt=0, lt=1)]
+TargetQ = Annotated[float | None, Query(description="Adds P(mean reached target) and a projected date.")]
+BelowQ = Annotated[
+    bool | None, Query(description="Target reached from above (falling, e.g. acidity); default by variable.")
+]
+RoundQ = Annotated[int | None, Query(alias="round", ge=1, description="Round to report (default the latest).")]
+LocalQ = Annotated[bool, Query()]
+
+
 @router.get("/plans/{name}/estimates", summary="Estimates with confidence intervals (fieldplan estimate)")
 def get_estimates(
     request: Request,
     name: str,
-    value: Annotated[str, Query(min_length=1, max_length=100, description="Variable, e.g. brix.")],
-    by: Annotated[Literal["block", "stratum", "variety", "farm"], Query()] = "block",
-    confidence: Annotated[float, Query(gt=0, lt=1)] = 0.95,
-    target: Annotated[float | None, Query(description="Adds P(mean >= target) and a projected date.")] = None,
-    local_variance: Annotated[bool, Query()] = False,
+    value: ValueQ,
+    by: ByQ = "block",
+    confidence: ConfidenceQ = 0.95,
+    target: TargetQ = None,
+    target_below: BelowQ = None,
+    round_no: RoundQ = None,
+    local_variance: LocalQ = False,
 ) -> dict:
-    folder = _folder(request, name)
-    return service.estimates(
-        folder, value=value, by=by, confidence=confidence, target=target, local_variance=local_variance
-    )
+    return _estimates(request, name, value, by, confidence, target, target_below, round_no, local_variance, False)
+
+
+@router.post("/plans/{name}/estimates", summary="Estimates, also written to estimates.csv (as the CLI does)")
+def post_estimates(
+    request: Request,
+    name: str,
+    value: ValueQ,
+    by: ByQ = "block",
+    confidence: ConfidenceQ = 0.95,
+    target: TargetQ = None,
+    target_below: BelowQ = None,
+    round_no: RoundQ = None,
+    local_variance: LocalQ = False,
+) -> dict:
+    return _estimates(request, name, value, by, confidence, target, target_below, round_no, local_variance, True)
 
 
 @router.get("/plans/{name}/coverage", summary="Coverage per block (fieldplan check)")

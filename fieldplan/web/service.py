@@ -328,9 +328,18 @@ def mark(folder: Path, point_ids: list[str], *, action: str, reason: str = "", b
     with plan_lock(folder):
         result = mark_points(folder, list(point_ids), action=action, reason=str(reason), by=by or None)
     notes = list(result.notes)
-    if (folder / "crews.csv").exists():
-        notes.append("crew routes were made before this change; assign crews again")
-    return {"events": records(result.events), "notes": notes}
+    events = records(result.events)
+    if (folder / "crews.csv").exists() and "crew" in result.points.columns:
+        crew_of = dict(zip(result.points["point_id"].astype(str), result.points["crew"].astype(int), strict=True))
+        for event in events:
+            brought = event.get("replacement_id") if event.get("action") == "inaccessible" else event.get("point_id")
+            if brought and event.get("replacement_id"):
+                event["crew"] = crew_of.get(str(brought), 0)
+        notes.append(
+            "the point brought in joins the crew of the point it replaces (points.csv, points.gpx); the crew GPX "
+            "files and sheets still show the routes made before: assign crews again, replacing them, to re-route"
+        )
+    return {"events": events, "notes": notes}
 
 
 # --- estimates (fieldplan estimate) --------------------------------------------------------
@@ -343,9 +352,13 @@ def estimates(
     by: str = "block",
     confidence: float = 0.95,
     target: float | None = None,
+    target_below: bool | None = None,
+    round_no: int | None = None,
     local_variance: bool = False,
+    save: bool = False,
 ) -> dict:
-    """``fieldplan estimate`` without writing estimates.csv: the table, and readiness per block."""
+    """``fieldplan estimate``: the table, and readiness per block; ``save`` writes estimates.csv as it does."""
+    from fieldplan.estimate.readiness import target_direction
     from fieldplan.estimate.table import estimate_table
     from fieldplan.field.mark import substitution_notes
     from fieldplan.results import normalise_column, stored_results
@@ -355,37 +368,63 @@ def estimates(
     results = stored_results(plan.layers)
     if results.empty:
         raise WebError(409, "this plan has no results yet; upload a results file first", parameter="value")
+    variable = normalise_column(value)
+    direction, why = target_direction(variable, below=target_below)
     table = estimate_table(
         plan.points,
         plan.blocks,
         results,
-        value=normalise_column(value),
+        value=variable,
         design=design,
         by=by,
         confidence=confidence,
         target=target,
         local_variance=local_variance,
+        round_no=round_no,
+        direction=direction,
     )
+    if save:
+        _write_estimates(folder, table, variable=variable, confidence=confidence)
     rows = records(table)
     if target is not None and "p_reached" in table:
         for row in rows:
             row["readiness_class"] = readiness_class(row.get("p_reached"))
     notes = list(substitution_notes(plan))
+    if target is not None and why:
+        notes.append(str(why))
     if design in ("grid", "balanced") and not local_variance:
         notes.append(
             "grid/balanced points are treated as a simple random sample, which is conservative on patchy "
             "fields; the local-difference estimate adds a second, usually narrower interval"
         )
     return {
-        "value": normalise_column(value),
+        "value": variable,
         "by": by,
         "confidence": confidence,
         "target": target,
+        "direction": direction,
         "design": design,
         "round": int(table["round"].iloc[0]) if len(table) else None,
         "rows": rows,
         "notes": notes,
+        "saved": "estimates.csv" if save else None,
     }
+
+
+def _write_estimates(folder: Path, table: pd.DataFrame, *, variable: str, confidence: float) -> None:
+    """estimates.csv exactly as ``fieldplan estimate`` writes it."""
+    from fieldplan.cli.estimate_cmd import ESTIMATES_NAME
+    from fieldplan.write.safe import atomic_write_text, neutralise_frame
+
+    out = table.copy()
+    out.insert(0, "variable", variable)
+    out.insert(1, "confidence", confidence)
+    for c in ("date", "target_date", "date_lower", "date_upper"):
+        if c in out:
+            out[c] = out[c].map(lambda t: "" if t is None or t != t else f"{t:%Y-%m-%d}")
+    csv = neutralise_frame(out).to_csv(index=False, float_format="%.6g", lineterminator="\n")
+    with plan_lock(folder):
+        atomic_write_text(folder / ESTIMATES_NAME, csv)
 
 
 def readiness_class(p) -> int | None:

@@ -109,7 +109,7 @@ def _stamp(path: Path) -> _Stamp:
 
 def _gpkg_facts(path: Path) -> dict:
     """Rounds of results and marked points, read straight from the GeoPackage (no geometry)."""
-    facts = {"rounds": 0, "inaccessible": 0, "events": 0}
+    facts = {"rounds": 0, "inaccessible": 0, "events": 0, "spares": 0}
     try:
         con = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=2.0)
     except sqlite3.Error:
@@ -189,6 +189,7 @@ def plan_summary(path: Path) -> dict:
         "crews": _crews(path),
         "rounds": facts["rounds"],
         "inaccessible": facts["inaccessible"],
+        "spares": facts["spares"],
         "last_estimate": _last_estimate(path),
     }
     _SUMMARIES[str(path)] = (stamp, summary)

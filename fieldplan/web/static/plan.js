@@ -230,10 +230,13 @@
     var msg = document.getElementById("estimates-msg");
     var out = FP.clear(document.getElementById("estimates-out"));
     if (!q.value) { FP.say(msg, "error", "No results yet: upload a results file first."); return; }
+    var save = !!q.save;
+    delete q.save;
     var params = new URLSearchParams();
     Object.keys(q).forEach(function (k) { if (q[k] !== false) { params.set(k, q[k]); } });
     msg.hidden = true;
-    FP.api("GET", base + "/estimates?" + params.toString()).then(function (res) {
+    FP.api(save ? "POST" : "GET", base + "/estimates?" + params.toString()).then(function (res) {
+      if (res.saved) { FP.say(msg, "ok", "Written to " + res.saved + " (as 'fieldplan estimate' does)."); }
       var pct = Math.round(res.confidence * 1000) / 10 + "%";
       var cols = [["group", res.by === "farm" ? "Farm" : res.by.charAt(0).toUpperCase() + res.by.slice(1)], ["n", "n"], ["mean", "Mean", 2], ["se", "SE", 3],
         ["lower", pct + " low", 2], ["upper", pct + " high", 2]];
