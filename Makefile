@@ -34,8 +34,9 @@ demo: $(STAMP)
 	$(FP) plan $(EST) --spacing 60 --purpose ripeness --crop-profile wine-grapes --select "crop=wine grape" --seed 7 --out $(DEMO_OUT)/ripeness --force -q
 	$(FP) labels $(DEMO_OUT)/ripeness --layout letter-3x10 -q
 	$(FP) zones $(EST) --covariates demo_plots/estate_eca_survey.csv demo_plots/estate_ndvi.tif --exclude $(EXCL) --zones auto --method fuzzy --min-zone-ha 0.3 --seed 7 --out $(DEMO_OUT)/zones/zones.gpkg --force -q
+	$(FP) plan $(EST) --exclude $(EXCL) --zones $(DEMO_OUT)/zones/zones.gpkg --strata-by zone --design random --n 40 --allocation neyman --purpose soil --core-buffer 10 --seed 7 --out $(DEMO_OUT)/zone-soil --force -q
 	@echo
-	@echo "Demo plans written under $(DEMO_OUT)/: plan (grid, crews, results), soil (cores, labels, lab sheet), ripeness"
+	@echo "Demo plans written under $(DEMO_OUT)/: plan (grid, crews, results), soil (cores, labels, lab sheet), ripeness, zones and zone-soil (soil samples by management zone)"
 	@echo "Map: $$(cd $(DEMO_OUT)/plan && pwd)/map.html"
 	@echo "Workspace in the browser: $(FP) serve $(DEMO_OUT)   (then open http://127.0.0.1:8750/)"
 

@@ -262,14 +262,23 @@ def _run_params(spec: PlanSpec, seed: int) -> dict:
         "max_points": spec.scale.max_points,
         "spares": spec.replacements.spares,
     }
-    if spec.design != "grid":
+    if spec.design == "clhs":
+        run["design_options"] = {
+            "covariates": [c.strip() for c in (size.covariates or "").split(",") if c.strip()],
+            "n": size.n,
+            "cell": size.covariate_cell,
+            "clhs_iterations": size.clhs_iterations,
+            "cost": size.cost_covariate,
+        }
+    elif spec.design != "grid":
         options = {
             "per_block": size.per_block,
             "per_ha": size.per_ha,
             "n": size.n,
             "allocation": size.allocation,
             "size_field": size.size_field,
-            "sd_field": size.sd_field,
+            # With zones, each zone's covariate SD stands in for the target's (fieldplan.zones_plan).
+            "sd_field": size.sd_field or ("zone_sd" if size.zones else None),
             "cost_field": size.cost_field,
             "min_per_stratum": size.min_per_stratum,
             "candidates": size.candidates,
@@ -392,6 +401,22 @@ def make_plan(
     areas = sample_areas(blocks, edge_buffer=edge_buffer, exclusions=exclusions)
     exclusion_union = shapely.union_all(exclusions.geometry.values) if len(exclusions) else None
     run["rows_frame"] = rows
+    if spec.size.zones:
+        # Block-zone pieces become the units the design samples (fieldplan.zones_plan).
+        from fieldplan.zones import read_zones
+        from fieldplan.zones_plan import ZONE_STRATUM_FIELD, split_by_zones
+
+        blocks, areas, zone_notes = split_by_zones(
+            blocks,
+            areas,
+            read_zones(spec.size.zones, crs=crs),
+            across=spec.size.strata_across_blocks,
+            sd_covariate=spec.size.zone_sd,
+            source=str(spec.size.zones),
+        )
+        blocks.attrs["notes"] = [*blocks.attrs.get("notes", []), *zone_notes]
+        if strata_by in (None, "zone"):
+            strata_by = ZONE_STRATUM_FIELD
     if strata_by is not None or "stratum" not in blocks.columns:
         blocks = blocks.copy()
         blocks["stratum"] = strata_labels(blocks, strata_by)
@@ -457,7 +482,7 @@ def make_plan(
         "crs_name": crs.name,
         "created_utc": _utc_now(),
         "counts": {"blocks": int(len(out_blocks)), "points": int(len(points))},
-        "notes": list(blocks.attrs.get("notes", [])),
+        "notes": list(blocks.attrs.get("notes", [])) + list(table.attrs.get("notes", [])),
     }
     # The plan's code (in every sample id) comes from what decides the points only,
     # so the engine or the output formats never change the ids.

@@ -180,6 +180,16 @@ register_design(
         sizes=("per_block", "per_ha", "n", "target_units"),
     )
 )
+register_design(
+    DesignInfo(
+        "clhs",
+        "conditioned Latin hypercube over covariate cells (needs covariates)",
+        "fieldplan.zones_plan:clhs_design",
+        sizes=("n",),
+        spares=False,
+        stratified=False,
+    )
+)
 
 
 # ----------------------------------------------------------------------------
@@ -446,7 +456,7 @@ class SizeSpec(_Section):
     n: int | None = _param(
         kind="integer",
         minimum=1,
-        designs=_STRATIFIED,
+        designs=(*_STRATIFIED, "clhs"),
         panel="size",
         help="Total points, allocated over strata.",
     )
@@ -496,9 +506,61 @@ class SizeSpec(_Section):
         panel="size",
         help="balanced: lattice points to choose from (default 200 per point, 2,000-20,000).",
     )
+    zones: str | None = _param(
+        kind="path",
+        designs=_STRATIFIED,
+        panel="size",
+        help="Zones GeoPackage from 'fieldplan zones': sample each block's zones as strata (docs/zones.md).",
+    )
+    strata_across_blocks: bool = _param(
+        False,
+        kind="boolean",
+        designs=_STRATIFIED,
+        panel="size",
+        help="With {zones}: one stratum per zone across blocks, not per zone and block.",
+    )
+    zone_sd: str | None = _param(
+        kind="string",
+        designs=_STRATIFIED,
+        panel="size",
+        help="With {zones}: covariate whose zone SD stands in for the target's SD (neyman; default the first).",
+    )
+    covariates: str | None = _param(
+        kind="string",
+        designs=("clhs",),
+        panel="size",
+        help="clhs: covariate files, comma-separated: GeoTIFF rasters, CSV/GeoJSON surveys (FILE:COLUMN).",
+    )
+    covariate_cell: float = _param(
+        5.0,
+        kind="number",
+        unit="m",
+        above=0,
+        designs=("clhs",),
+        panel="size",
+        help="clhs: grid cell side for the covariates.",
+    )
+    clhs_iterations: int = _param(
+        10_000,
+        kind="integer",
+        minimum=100,
+        designs=("clhs",),
+        panel="size",
+        help="clhs: simulated annealing steps.",
+    )
+    cost_covariate: str | None = _param(
+        kind="string",
+        designs=("clhs",),
+        panel="size",
+        help="clhs: covariate giving each cell's sampling cost (e.g. metres from a track).",
+    )
 
     def _check(self) -> None:
-        if self.allocation in ("neyman", "optimal") and self.sd_field is None:
+        if self.zones is None:
+            for name in ("strata_across_blocks", "zone_sd"):
+                if getattr(self, name) not in (None, False):
+                    raise SpecError(name, "{" + name + "} applies with {zones} only")
+        if self.allocation in ("neyman", "optimal") and self.sd_field is None and self.zones is None:
             raise SpecError(
                 "sd_field", "{allocation} " + self.allocation + " needs {sd_field} (a standard deviation per block)"
             )

@@ -97,3 +97,76 @@ def test_clhs_design_places_points_at_cell_centres_inside_blocks(tmp_path):
     assert again.equals(table)  # same seed, same points
     with pytest.raises(OptionError, match="--n"):
         clhs_design(blocks, areas, {"seed": 1, "design_options": {"covariates": ["a.tif"]}}, None, None)
+
+
+def _zones_file(tmp_path) -> str:
+    path = tmp_path / "zones.gpkg"
+    _zones().to_file(path, layer="zones", driver="GPKG")
+    return str(path)
+
+
+def test_plan_by_zone_neyman_with_the_zone_sd_as_stand_in(tmp_path):
+    from fieldplan.plan import make_plan
+
+    plan = make_plan(
+        _blocks(),
+        {"design": "random", "n": 30, "zones": _zones_file(tmp_path), "strata_by": "zone", "allocation": "neyman",
+         "min_per_stratum": 0},
+        seed=4,
+    )
+    b = plan.blocks.set_index("block")
+    assert list(b.index) == ["A-z1", "A-z2", "B-z2"] and list(b["parent_block"]) == ["A", "A", "B"]
+    # reference: Neyman allocation (Cochran 1977, eq. 5.26): n_h = n N_h S_h / sum N_h S_h, with the
+    # zone's covariate SD as S_h and the piece's area as N_h
+    area = np.array([1.2, 0.8, 1.0])
+    sd = np.array([1.0, 3.0, 2.0])
+    np.testing.assert_allclose(b["n_target_exact"], 30 * area * sd / (area * sd).sum(), rtol=1e-3)
+    assert b["n_points"].sum() == 30
+    assert set(plan.points["block"]) <= set(b.index)
+    pts = plan.points
+    owner = dict(zip(plan.blocks["block"], plan.blocks.geometry, strict=True))
+    # reference: shapely contains; each point lies in its block-zone piece
+    assert all(owner[k].covers(p) for k, p in zip(pts["block"], pts.geometry, strict=True))
+
+
+def test_plan_across_blocks_and_area_weighted_estimate(tmp_path):
+    import pandas as pd
+
+    from fieldplan.estimate.table import estimate_table
+    from fieldplan.plan import make_plan
+
+    plan = make_plan(
+        _blocks(),
+        {"design": "random", "n": 20, "zones": _zones_file(tmp_path), "strata_by": "zone",
+         "strata_across_blocks": True},
+        seed=2,
+    )
+    b = plan.blocks.set_index("block")
+    assert list(b["stratum"]) == ["zone 1", "zone 2", "zone 2"]
+    # proportional to zone area across blocks: zone 1 1.2 ha, zone 2 1.8 ha (reference: Cochran 5.3)
+    assert b.loc["A-z1", "n_target_exact"] == pytest.approx(20 * 1.2 / 3.0, rel=1e-3)
+    pts = plan.points
+    values = np.where(pts["block"].str.endswith("z1"), 10.0, 20.0) + np.arange(len(pts)) * 0.1
+    results = pd.DataFrame({"round": 1, "date": "2027-03-01", "point_id": pts["point_id"], "unit": "",
+                            "value": values, "units_measured": 1, "variable": "ph"})
+    est = estimate_table(pts, plan.blocks, results, value="ph", design="random")
+    overall = est[est["group"] == est["group"].iloc[-1]].iloc[0]
+    # reference: Cochran 1977, eq. 5.1 - the mean of the piece means weighted by sampled area
+    means = pd.Series(values).groupby(pts["block"].to_numpy()).mean()
+    w = b.loc[means.index, "sampled_area_ha"] / b.loc[means.index, "sampled_area_ha"].sum()
+    assert overall["mean"] == pytest.approx(float((w * means).sum()), rel=1e-9)
+
+
+def test_plan_clhs_design_through_the_spec(tmp_path):
+    from rasterio.transform import from_origin
+
+    from fieldplan.plan import make_plan
+
+    rng = np.random.default_rng(1)
+    _write_tif(tmp_path / "a.tif", rng.uniform(size=(30, 70)), from_origin(X0 - 20, Y0 + 120, 5, 5))
+    plan = make_plan(_blocks(), {"design": "clhs", "n": 15, "covariates": str(tmp_path / "a.tif"),
+                                 "clhs_iterations": 2000}, seed=9)
+    assert len(plan.points) == 15 and set(plan.points["design"]) == {"clhs"}
+    assert any("quantile strata hit once per covariate: a 15/15" in n for n in plan.meta["notes"])
+    with pytest.raises(OptionError, match="covariates"):
+        make_plan(_blocks(), {"design": "clhs", "n": 15}, seed=9)
