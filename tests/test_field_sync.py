@@ -458,17 +458,30 @@ def test_later_round_labels_are_the_same_bag(plan_dir):
 
 
 def test_busy_plan_answers_a_clear_error(plan_dir):
-    from filelock import FileLock
-
-    from fieldplan.errors import PlanDirError
-    from fieldplan.field.sync import LOCK_NAME
+    """A sync waits for the plan's write lock (held here by another thread, as `mark` would)."""
+    from fieldplan.lock import PlanBusyError
+    from fieldplan.store import locked
 
     pts, ll = crew_points(plan_dir, 1)
     row = next(pts.itertuples(index=False))._asdict()
-    with FileLock(str(plan_dir / LOCK_NAME)):
-        with pytest.raises(PlanDirError, match="another sync of this plan"):
-            apply_records(plan_dir, [taken(row, ll[0])], crew=1, lock_timeout=0.2)
+    holding, release = threading.Event(), threading.Event()
+
+    def hold():
+        with locked(plan_dir):
+            holding.set()
+            release.wait(10)
+
+    holder = threading.Thread(target=hold)
+    holder.start()
+    holding.wait(10)
+    try:
+        with pytest.raises(PlanBusyError):
+            apply_records(plan_dir, [taken(row, ll[0])], crew=1, lock_timeout=0.3)
+    finally:
+        release.set()
+        holder.join()
     assert not (plan_dir / JOURNAL_NAME).exists()  # nothing half-kept
+    assert apply_records(plan_dir, [taken(row, ll[0])], crew=1).stored  # and fine once free
 
 
 def test_a_late_day_is_stored_with_a_note(plan_dir):

@@ -28,8 +28,9 @@ Where a record goes
   ends with ``[record <uuid>]``, so the events table itself says whether a record
   was applied.
 
-Records are applied under a lock on the plan folder (one sync at a time per
-plan); a sync interrupted between the journal and the plan is finished by the
+Records are applied under the plan folder's write lock (:func:`fieldplan.store.locked`,
+the lock of ``fieldplan mark`` and ``fieldplan results``), held from reading the journal
+to the last write; a sync interrupted between the journal and the plan is finished by the
 next one, because whether a record reached the plan is read back from the plan
 (round digests, event reasons), not assumed.
 
@@ -52,7 +53,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from fieldplan.errors import InputError, PlanDirError
+from fieldplan.errors import InputError
 
 __all__ = [
     "JOURNAL_NAME",
@@ -74,7 +75,6 @@ __all__ = [
 ]
 
 JOURNAL_NAME = "field_records.jsonl"
-LOCK_NAME = ".field_records.lock"
 TAKEN = "taken"
 UNREACHABLE = "unreachable"
 KINDS = (TAKEN, UNREACHABLE)
@@ -323,38 +323,16 @@ def _append_journal(plan_dir: Path, entries: Sequence[Mapping]) -> None:
         os.close(fd)
 
 
-class _Lock:
-    """One sync at a time per plan folder (across processes); a clear error when busy."""
+def _lock(plan_dir: Path, timeout: float):
+    """The plan folder's write lock (:func:`fieldplan.store.locked`), held across the whole sync.
 
-    def __init__(self, plan_dir: Path, timeout: float) -> None:
-        from filelock import FileLock
+    The library functions called under it take the same lock again (it is re-entrant in
+    one thread), so nothing changes the plan between reading its state and writing to it;
+    a busy plan gives :class:`fieldplan.lock.PlanBusyError` ("plan is busy, retry").
+    """
+    from fieldplan.store import locked
 
-        self.plan_dir = plan_dir
-        self.timeout = timeout
-        self.lock = FileLock(str(plan_dir / LOCK_NAME), timeout=timeout)
-
-    def __enter__(self):
-        from filelock import Timeout
-
-        if not self.plan_dir.is_dir():
-            raise PlanDirError(
-                f"{self.plan_dir}: no such plan folder; give a folder made by 'fieldplan plan'"
-            )
-        try:
-            self.lock.acquire()
-        except Timeout:
-            raise PlanDirError(
-                f"{self.plan_dir}: another sync of this plan has been running for {self.timeout:g} s; "
-                "try again in a minute (the records stay on the phone meanwhile)"
-            ) from None
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.lock.release()
-
-
-def _lock(plan_dir: Path, timeout: float) -> _Lock:
-    return _Lock(plan_dir, timeout)
+    return locked(plan_dir, timeout=timeout)
 
 
 def _points_table(plan) -> pd.DataFrame:
