@@ -898,8 +898,13 @@ def check_spacing_profiles(
     index_of = {crop: profiles.index(p) for crop, p in by_crop.items()}
     n = len(blocks)
     if "crop" in blocks.columns:
-        keys = blocks["crop"].astype("string").str.strip().str.casefold()
-        which = keys.map(index_of).fillna(len(profiles)).to_numpy(dtype=int)
+        # One look-up per distinct crop value, not per block.
+        codes, uniques = pd.factorize(blocks["crop"], use_na_sentinel=True)
+        per_value = np.array(
+            [index_of.get(str(v).strip().casefold(), len(profiles)) for v in uniques] + [len(profiles)],
+            dtype=int,
+        )
+        which = per_value[codes]  # code -1 (no crop) takes the last entry: no profile
     else:
         which = np.full(n, len(profiles), dtype=int)
     names = blocks["block"].astype(str).to_numpy()
