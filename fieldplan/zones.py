@@ -187,8 +187,14 @@ def nce(u: np.ndarray) -> float:
 
 
 def cluster(
-    x: np.ndarray, k: int, *, method: str = "kmeans", m: float = 1.5, rng: np.random.Generator
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    x: np.ndarray,
+    k: int,
+    *,
+    method: str = "kmeans",
+    m: float = 1.5,
+    rng: np.random.Generator,
+    with_memberships: bool = True,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
     """Cluster rows of ``x`` into ``k`` groups.
 
     k-means is scikit-learn's ``KMeans`` (Lloyd, one k-means++ start as its default, seeded from
@@ -201,8 +207,8 @@ def cluster(
     labels : numpy.ndarray
         0-based cluster of each row.
     centres : numpy.ndarray
-    u : numpy.ndarray
-        Memberships.
+    u : numpy.ndarray or None
+        Memberships (None for k-means with ``with_memberships=False``).
     """
     if method == "kmeans":
         from sklearn.cluster import KMeans
@@ -212,7 +218,8 @@ def cluster(
         # and one thread sums in one order, so the labels do not depend on the core count.
         with threadpool_limits(1):
             km = KMeans(n_clusters=k, n_init=1, random_state=int(rng.integers(2**31 - 1))).fit(x)
-        return km.labels_.astype(np.int64), km.cluster_centers_, memberships(x, km.cluster_centers_, m)
+        u = memberships(x, km.cluster_centers_, m) if with_memberships else None
+        return km.labels_.astype(np.int64), km.cluster_centers_, u
     if method == "fuzzy":
         centres, u = fuzzy_kmeans(x, k, m=m, rng=rng)
         return np.argmax(u, axis=1), centres, u
@@ -460,7 +467,7 @@ def delineate(
                 labels = np.zeros(len(members), dtype=np.int64)
                 kk = 1
             else:
-                labels, _, _ = cluster(z, kk, method=method, m=m, rng=rng)
+                labels, _, _ = cluster(z, kk, method=method, m=m, rng=rng, with_memberships=False)
         # Number zones by their mean first feature so numbering does not depend on the solver.
         order = np.argsort(np.bincount(labels, weights=z[:, 0], minlength=kk) / np.maximum(
             np.bincount(labels, minlength=kk), 1), kind="stable")
