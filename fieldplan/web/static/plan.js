@@ -165,7 +165,7 @@
     var out = document.getElementById("coverage-out");
     FP.api("GET", base + "/coverage?" + params.toString()).then(function (res) {
       FP.clear(out);
-      out.appendChild(FP.table(res.blocks, [["block", "Block"], ["n_points", "Points"], ["expected_points", "Area share", 1],
+      out.appendChild(FP.table(res.blocks, [["block", "Block"], ["n_points", "Points"], ["expected_points", "Area share", 2],
         ["max_gap_m", "Largest gap (m)", 1], ["outside", "Outside"], ["in_exclusion", "In exclusion"], ["status", "Status"], ["notes", "Notes"]], "fp-coverage"));
       var lines = res.failures.concat(res.warnings);
       if (lines.length) {
