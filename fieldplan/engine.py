@@ -64,8 +64,11 @@ def partition_keys(design: str, blocks: pd.DataFrame, n_parts: int) -> np.ndarra
     Groups (blocks, or strata) are dealt to partitions in input order so that
     each partition holds about the same number of blocks.
     """
+    from fieldplan.spec import DESIGNS
+
     n_parts = max(1, int(n_parts))
-    if design == "grid" or "stratum" not in blocks.columns:
+    info = DESIGNS.get(design)
+    if (info is not None and not info.stratified) or "stratum" not in blocks.columns:
         groups = np.arange(len(blocks))
     else:
         groups = pd.factorize(blocks["stratum"].astype(str), sort=False)[0]
@@ -140,7 +143,9 @@ def _run_dask(design, blocks, areas, params, exclusion_union, *, client, n_parts
     frame[_AREA] = gpd.GeoSeries(list(areas), index=frame.index, crs=blocks.crs)
     frame[_ORDER] = np.arange(len(frame), dtype=np.int64)
     frame[_PART] = partition_keys(design, blocks, n_parts)
-    if design == "grid":
+    from fieldplan.spec import DESIGNS
+
+    if not DESIGNS[design].stratified:
         # Blocks are independent: plain row chunks, no sorting pass.
         parts = dask_geopandas.from_geopandas(frame, npartitions=n_parts, sort=False)
     else:
@@ -214,7 +219,7 @@ def run_design(
     if design == "grid" and params.get("spacing"):
         params.setdefault("grid_origin", grid_origin(blocks.total_bounds, params["spacing"]))
     opts = params.get("design_options") or {}
-    global_allocation = design != "grid" and opts.get("n") is not None
+    global_allocation = DESIGNS[design].stratified and opts.get("n") is not None
     if engine == "local" or global_allocation or len(blocks) < 2:
         return DESIGNS[design].load()(blocks, areas, params, exclusion_union, progress)
 
@@ -231,11 +236,12 @@ def run_design(
     table, flags = _merge(results, blocks, len(blocks), design)
     max_points = params.get("max_points")
     if max_points is not None and len(table) > max_points:
-        from fieldplan.errors import DesignError
+        from fieldplan.spec import SpecDesignError
 
-        raise DesignError(
+        raise SpecDesignError(
+            "spacing",
             f"the plan would hold {len(table):,} points, more than {max_points:,}; "
-            "use a wider --spacing or lower --per-ha"
+            "use a wider {spacing} or lower {per_ha}",
         )
     if progress is not None:
         progress(len(blocks), len(blocks))

@@ -22,10 +22,10 @@ from pyproj import CRS
 
 from fieldplan import __version__
 from fieldplan.design.grid import cell_area, grid_points_many, spacing_for_density
-from fieldplan.errors import DesignError, InvalidBlocksError, OptionError
+from fieldplan.errors import InvalidBlocksError
 from fieldplan.field.substitutes import SUBSTITUTES_LAYER, substitutes_layer
 from fieldplan.rng import stream
-from fieldplan.spec import PlanSpec, SpecError
+from fieldplan.spec import PlanSpec, SpecDesignError, SpecError
 from fieldplan.stratified import STRATIFIED_DESIGNS, check_design_options, strata_labels
 
 __all__ = ["Plan", "PlanSpec", "make_plan", "sample_areas", "DESIGNS", "DEFAULT_MAX_POINTS"]
@@ -111,7 +111,7 @@ def sample_areas(
     Returns an object array of (possibly empty) polygons aligned with ``blocks``.
     """
     if edge_buffer < 0:
-        raise OptionError(f"--edge-buffer must be zero or positive metres, got {edge_buffer}")
+        raise SpecError("edge_buffer", f"{{edge_buffer}} must be zero or positive metres, got {edge_buffer}")
     geoms = blocks.geometry.values
     areas = shapely.buffer(geoms, -edge_buffer, join_style="mitre") if edge_buffer > 0 else geoms
     if exclusions is not None and len(exclusions):
@@ -229,9 +229,11 @@ def _grid_design(
     over = np.flatnonzero(running > params["max_points"])
     if over.size:
         i = int(over[0])
-        raise DesignError(
+        raise SpecDesignError(
+            "spacing",
             f"the plan would hold more than {params['max_points']:,} points "
-            f"(already {int(running[i]):,} after block {names[i]!r}); use a wider --spacing or lower --per-ha"
+            f"(already {int(running[i]):,} after block {names[i]!r}); ".replace("{", "{{").replace("}", "}}")
+            + "use a wider {spacing} or lower {per_ha}",
         )
     return pd.DataFrame({"block": pd.Series(names[owner], dtype="str"), "x": xy[:, 0], "y": xy[:, 1]}), flags
 
@@ -394,9 +396,10 @@ def make_plan(
     total_area = float(shapely.area(blocks.geometry.values).sum())
     expected = total_area / cell_area(spacing, layout) if design == "grid" else 0.0
     if expected > max_points:
-        raise DesignError(
-            f"the grid would create about {expected:,.0f} points, more than the limit of "
-            f"{max_points:,}; use a wider --spacing or a lower --per-ha (or raise --max-points)"
+        raise SpecDesignError(
+            "spacing",
+            f"the grid would create about {expected:,.0f} points, more than the limit of {max_points:,}; "
+            "use a wider {spacing} or a lower {per_ha} (or raise {max_points})",
         )
     areas = sample_areas(blocks, edge_buffer=edge_buffer, exclusions=exclusions)
     exclusion_union = shapely.union_all(exclusions.geometry.values) if len(exclusions) else None

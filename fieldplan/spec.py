@@ -37,10 +37,11 @@ from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field, fields
 from typing import Any, ClassVar
 
-from fieldplan.errors import OptionError
+from fieldplan.errors import DesignError, OptionError
 
 __all__ = [
     "SpecError",
+    "SpecDesignError",
     "DesignInfo",
     "DESIGNS",
     "register_design",
@@ -66,12 +67,11 @@ __all__ = [
 RUNTIME_KEYS = ("seed", "plan_id", "spacing_m")
 
 
-class SpecError(OptionError):
-    """A plan parameter is missing, out of range or does not fit the others.
+class _NamedParam:
+    """An error about a plan parameter: ``param`` names it, ``template`` words the message.
 
-    ``param`` is the parameter's name in the spec (``spacing``, ``per_block``);
-    :meth:`render` words the message with other names, e.g. command-line flags.
-    The message template refers to parameters as ``{name}`` fields.
+    The template refers to parameters as ``{name}`` fields; :meth:`render` fills
+    them with other names, e.g. command-line flags (``str(err)`` uses the spec's).
     """
 
     def __init__(self, param: str, template: str) -> None:
@@ -83,6 +83,18 @@ class SpecError(OptionError):
         """The message with each parameter named by ``namer`` (default: its spec name)."""
         namer = namer or (lambda name: name)
         return string.Formatter().vformat(self.template, (), _Names(namer))
+
+
+class SpecError(_NamedParam, OptionError):
+    """A plan parameter is missing, out of range or does not fit the others.
+
+    ``param`` is the parameter's name in the spec (``spacing``, ``per_block``);
+    :meth:`render` words the message with other names, e.g. command-line flags.
+    """
+
+
+class SpecDesignError(_NamedParam, DesignError):
+    """A design cannot be carried out with these blocks and parameters; ``param`` names the one to change."""
 
 
 class _Names(dict):

@@ -63,15 +63,24 @@ def strata_labels(blocks: pd.DataFrame, strata_by: str | None) -> np.ndarray:
     """Stratum of each block: its ``strata_by`` value, or the block id."""
     if strata_by is None:
         return blocks["block"].astype(str).to_numpy(dtype=object)
+    from fieldplan.spec import SpecError
+
+    def text(value: str) -> str:
+        return value.replace("{", "{{").replace("}", "}}")
+
     if strata_by not in blocks.columns:
-        fields = ", ".join(c for c in blocks.columns if c != "geometry")
-        raise OptionError(f"--strata-by {strata_by!r}: no such field in the blocks; fields are {fields}")
+        fields = ", ".join(str(c) for c in blocks.columns if c != "geometry")
+        raise SpecError(
+            "strata_by", "{strata_by} " + text(f"{strata_by!r}: no such field in the blocks; fields are {fields}")
+        )
     values = blocks[strata_by]
     missing = np.flatnonzero(values.isna().to_numpy())
     if missing.size:
-        raise OptionError(
-            f"--strata-by {strata_by!r}: block {blocks['block'].iloc[missing[0]]!r} has no value; "
-            "fill it in or choose another field"
+        raise SpecError(
+            "strata_by",
+            "{strata_by} "
+            + text(f"{strata_by!r}: block {blocks['block'].iloc[missing[0]]!r} has no value; ")
+            + "fill it in or choose another field",
         )
     return values.astype(str).to_numpy(dtype=object)
 

@@ -256,8 +256,8 @@ def _plan(
 
     Example: fieldplan plan blocks.geojson --spacing 40 --edge-buffer 8 --seed 7 --out plan-2027
     """
-    from fieldplan.errors import OptionError
-    from fieldplan.spec import SpecError, flag_of
+    from fieldplan.errors import DesignError, OptionError
+    from fieldplan.spec import SpecDesignError, SpecError, flag_of
 
     try:
         spec, seed = build_spec(ctx, values, recipe=recipe, like=like, seed=seed)
@@ -267,6 +267,8 @@ def _plan(
     except SpecError as err:
         # The library names parameters; here they are flags.
         raise OptionError(err.render(flag_of)) from None
+    except SpecDesignError as err:
+        raise DesignError(err.render(flag_of)) from None
 
 
 def _command() -> Any:

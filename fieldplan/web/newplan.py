@@ -36,7 +36,7 @@ __all__ = [
 ]
 
 #: Spec parameters the web form does not offer (files on the server, where the work runs).
-FORM_EXCLUDED = ("exclude", "rows", "cautions", "engine", "scheduler", "zones", "covariates")
+FORM_EXCLUDED = ("exclude", "rows", "cautions", "engine", "scheduler", "zones", "covariates", "revisit")
 #: Column roles a user can map file columns to (the reader's names for them).
 ROLES = (
     ("block", "Block id"),
