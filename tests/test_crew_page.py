@@ -236,6 +236,12 @@ def test_offline_day_then_one_sync(served, tmp_path):
             assert offer["replacement_id"] in page.locator("#offer-text").inner_text()
         page.click("#btn-offer-close")
         assert page.locator("#unsynced-count").inner_text() == "6"
+        # No server all day: Export saves the records to a file (applied below, after the sync).
+        with page.expect_download() as saved:
+            page.click("#btn-export")
+        export = tmp_path / saved.value.suggested_filename
+        saved.value.save_as(export)
+        assert export.name == "fieldplan-vintage-crew1-records.json"
 
         # Reload with no signal: the worker serves the page, IndexedDB still has every record.
         page.reload()
@@ -290,6 +296,16 @@ def test_offline_day_then_one_sync(served, tmp_path):
         assert all(again)
         assert hashlib.sha256((plan_dir / GPKG_NAME).read_bytes()).hexdigest() == before
         assert len(journal_records(read_journal(plan_dir))) == 6
+
+        # The exported file holds the same records: applied with the CLI it adds nothing either.
+        from typer.testing import CliRunner
+
+        from fieldplan.cli.main import app as cli
+
+        applied = CliRunner().invoke(cli, ["field-records", str(plan_dir), str(export)])
+        assert applied.exit_code == 0, applied.output
+        assert "0 new record(s), 6 already stored" in applied.output
+        assert hashlib.sha256((plan_dir / GPKG_NAME).read_bytes()).hexdigest() == before
 
         # The plan page shows the same records: one round, five recorded positions, one point given up.
         office = context.new_page()
