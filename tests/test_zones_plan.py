@@ -170,3 +170,23 @@ def test_plan_clhs_design_through_the_spec(tmp_path):
     assert any("quantile strata hit once per covariate: a 15/15" in n for n in plan.meta["notes"])
     with pytest.raises(OptionError, match="covariates"):
         make_plan(_blocks(), {"design": "clhs", "n": 15}, seed=9)
+
+
+def test_plan_command_by_zone_and_its_errors(tmp_path):
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import app
+
+    blocks = tmp_path / "blocks.geojson"
+    _blocks().to_crs("EPSG:4326").to_file(blocks, driver="GeoJSON")
+    zones = _zones_file(tmp_path)
+    run = CliRunner().invoke(app, ["plan", str(blocks), "--zones", zones, "--strata-by", "zone",
+                                   "--strata-across-blocks", "--design", "random", "--n", "12", "--seed", "3",
+                                   "--out", str(tmp_path / "p"), "-q"])
+    assert run.exit_code == 0, run.output
+    summary = (tmp_path / "p" / "summary.csv").read_text()
+    assert "A-z1" in summary and "zone 2" in summary
+    bad = CliRunner().invoke(app, ["plan", str(blocks), "--strata-across-blocks", "--design", "random",
+                                   "--n", "12", "--out", str(tmp_path / "q")])
+    assert bad.exit_code == 2 and "--strata-across-blocks applies with --zones" in bad.output
+    assert "Traceback" not in bad.output and not (tmp_path / "q").exists()
