@@ -8,6 +8,7 @@ from typing import Annotated
 import typer
 
 from fieldplan.cli.options import Quiet, handle_errors
+from fieldplan.words import plural
 
 __all__ = ["register", "lab_sheet"]
 
@@ -51,7 +52,7 @@ def lab_sheet(
 
         rows = sample_rows(plan.points, include_spares=include_spares)
         n_spare = int((rows["status"] == "spare").sum())
-        samples = f"{len(rows)} samples" + (f" ({n_spare} spare(s))" if n_spare else "")
+        samples = plural(len(rows), "sample") + (f" ({plural(n_spare, 'spare')})" if n_spare else "")
         typer.echo(f"{samples}, analyses {', '.join(names)} -> " + ", ".join(str(p) for p in paths))
         if plan.params.get("purpose") == "soil":
             typer.echo("\n".join("Caution: " + c for c in CAUTIONS if "buried" in c))

@@ -8,6 +8,7 @@ from typing import Annotated
 import typer
 
 from fieldplan.cli.options import Quiet, handle_errors
+from fieldplan.words import plural
 
 __all__ = ["register", "labels"]
 
@@ -87,7 +88,7 @@ def labels(
         n_spare = int((records["status"] == "spare").sum())
         extra = f" ({n_spare} spare(s), marked SPARE, at the end)" if n_spare else ""
         typer.echo(
-            f"{len(records)} labels{extra} on {sheets} {sheet.name} sheet(s) -> {pdf_path}\n"
+            f"{plural(len(records), 'label')}{extra} on {plural(sheets, sheet.name + ' sheet')} -> {pdf_path}\n"
             "Print at 100 % (no 'fit to page') so labels line up with the sheet."
         )
 

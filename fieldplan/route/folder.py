@@ -24,6 +24,7 @@ import shapely
 from fieldplan.errors import OutputExistsError
 from fieldplan.route.crews import DEFAULT_MINUTES_PER_POINT, DEFAULT_WALK_KMH, CrewPlan, assign_crews
 from fieldplan.route.metric import DEFAULT_ACROSS_FACTOR
+from fieldplan.words import plural
 
 __all__ = [
     "RERUN_NAME",
@@ -336,7 +337,7 @@ def write_crews(
                 points_xy=xy[members],
                 rows=_sheet_rows(points, members),
                 summary=(
-                    f"{int(row['points'])} points, {row['km']:.2f} km walking, "
+                    f"{plural(int(row['points']), 'point')}, {row['km']:.2f} km walking, "
                     f"about {row['hours']:.1f} h{start_note}"
                 ),
                 start_xy=run.start_xy,
