@@ -135,9 +135,12 @@ _NOT_DECIMAL = frozenset(
 )
 # Plan and paperwork columns that may ride along in a results file but are not
 # measurements; they are never picked as value columns unless named.
+# Columns the plan itself writes to points.csv (and crews add): a points.csv sent back with
+# measurements added must not have these read as measurements.
 DESCRIPTIVE_COLUMNS = (
     "sample_id", "block", "stratum", "variety", "row", "plant", "units", "depth_cm",
     "round", "x", "y", "lon", "lat", "crew", "visit_order", "purpose", "design",
+    "moved_m", "spare_rank", "part", "status", "per_sample", "instructions", "crs",
 )  # fmt: skip
 PROBLEM_COLUMNS = ["row", "point_id", "column", "problem", "detail"]
 _DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
