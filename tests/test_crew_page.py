@@ -250,6 +250,17 @@ def test_offline_day_then_one_sync(served, tmp_path):
         assert "Offline" in page.locator("#sync-state").inner_text()
         assert not (plan_dir / "field_records.jsonl").exists()
 
+        # The browser closed and started again (a restarted phone), still with no signal.
+        context.close()
+        context, log = open_context(pw, tmp_path / "phone", server.url)
+        context.set_offline(True)
+        page = context.new_page()
+        page.on("pageerror", lambda e: log["errors"].append(str(e)))
+        page.goto(link)
+        _wait_ready(page)
+        wait_until(page, "document.getElementById('unsynced-count').textContent === '6'")
+        assert page.locator("#cautions").is_hidden()  # read once, remembered on the phone
+
         # Signal again: the page syncs by itself on the 'online' event.
         server.start()
         context.set_offline(False)
