@@ -1113,6 +1113,7 @@ def read_exclusions(path: str | Path, *, crs: CRS, layer: str | None = None) -> 
     out = gpd.GeoDataFrame(
         {"name": names}, geometry=gpd.GeoSeries(geoms, crs=frame.crs).to_crs(crs).values, crs=crs
     )
+    out.attrs["notes"] = list(frame.attrs.get("notes", []))  # e.g. Z dropped, for the plan's notes
     return out
 
 

@@ -345,6 +345,12 @@ def test_exclusions_with_z_are_flattened(tmp_path):
     ex.write_text(json.dumps(data))
     frame = read_exclusions(ex, crs="EPSG:32734")
     assert not frame.geometry.has_z.any()
+    assert any("dropped the Z" in n for n in frame.attrs["notes"])
+    out = tmp_path / "plan"
+    result = plan_cli([str(path), "--exclude", str(ex), "--spacing", "30", "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    # Once for the blocks file and once for the exclusions file, each named.
+    assert result.output.count("dropped the Z") == 2 and "wet.geojson: dropped the Z" in result.output
 
 
 @pytest.mark.parametrize("maker", [rx.kml_file, rx.kmz_file])

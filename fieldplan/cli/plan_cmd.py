@@ -352,6 +352,8 @@ def run_plan(
     if spec.input.select is not None:
         blocks = select_blocks(blocks, spec.input.select)
     exclusions = read_exclusions(spec.input.exclude, crs=blocks.crs) if spec.input.exclude else None
+    if exclusions is not None and exclusions.attrs.get("notes"):
+        blocks.attrs["notes"] = [*blocks.attrs.get("notes", []), *exclusions.attrs["notes"]]
     rows = read_rows(spec.clusters.rows, crs=blocks.crs) if spec.clusters.rows else None
     with progress_callback("Planning blocks", quiet=quiet) as progress:
         result = make_plan(
