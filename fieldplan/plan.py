@@ -514,19 +514,21 @@ def make_plan(
         params["spacing_m"] = round(float(spacing), 6)
     plan = _keep_design_columns(plan, replace(purposed, params=params))
     if spec.replacements.substitute == "within-cell":
-        plan.layers[SUBSTITUTES_LAYER] = _grid_substitutes(plan, blocks, areas, {**params, **run})
+        # From the design's positions: a soil point the core buffer moved inward keeps the
+        # substitute of its own lattice cell.
+        plan.layers[SUBSTITUTES_LAYER] = _grid_substitutes(points, blocks, areas, {**params, **run})
     return plan
 
 
-def _grid_substitutes(plan: Plan, blocks, areas: np.ndarray, params: dict) -> gpd.GeoDataFrame:
-    """One within-cell substitute per grid point (see fieldplan.field.substitutes)."""
-    index = pd.Index(blocks["block"]).get_indexer(plan.points["block"])
+def _grid_substitutes(points: gpd.GeoDataFrame, blocks, areas: np.ndarray, params: dict) -> gpd.GeoDataFrame:
+    """One within-cell substitute per grid point at its design position (see fieldplan.field.substitutes)."""
+    index = pd.Index(blocks["block"]).get_indexer(points["block"])
     if params["angle"] == "rows":
         bearing = blocks["row_bearing_deg"].astype(float).fillna(0.0).to_numpy()[index]
     else:
         bearing = np.full(len(index), float(params["angle"]))
     return substitutes_layer(
-        plan.points,
+        points,
         np.asarray(areas, dtype=object)[index],
         bearing,
         seed=params["seed"],
