@@ -60,6 +60,8 @@ __all__ = [
     "store_generation",
     "outputs_generation",
     "rebuild_outputs",
+    "rewrite_outputs",
+    "plan_formats",
     "write_outputs",
     "refuse_links",
     "plan_history",
@@ -175,11 +177,25 @@ def write_plan(
             staged_folder(out_dir, force=force, aside=aside) as stage,
             shared_lonlat(getattr(plan, "points", None)),
         ):
-            for writer in WRITERS:
-                kind = FORMATS.get(getattr(writer, "__name__", ""))
-                if chosen is None or kind is None or kind in chosen:
-                    writer(plan, stage)
+            for writer in _writers(chosen):
+                writer(plan, stage)
     return out_dir
+
+
+def _writers(chosen: set[str] | None) -> list[Callable]:
+    """The writers of the formats ``chosen`` (``None``: all); unlisted writers always run."""
+    out = []
+    for writer in WRITERS:
+        kind = FORMATS.get(getattr(writer, "__name__", ""))
+        if chosen is None or kind is None or kind in chosen:
+            out.append(writer)
+    return out
+
+
+def plan_formats(plan) -> set[str] | None:
+    """The formats a plan was written with (its manifest's ``formats``); ``None`` for all."""
+    chosen = (getattr(plan, "meta", None) or {}).get("formats")
+    return set(chosen) | set(REQUIRED_FORMATS) if chosen else None
 
 
 @contextmanager
@@ -570,7 +586,7 @@ def _outputs_view(plan):
 
 
 def write_outputs(plan, plan_dir: str | Path, generation: int, *, extra: dict | None = None) -> None:
-    """Re-write every derived file of ``plan_dir`` from ``plan`` (all writers but plan.gpkg).
+    """Re-write the derived files of ``plan_dir`` from ``plan`` (its formats' writers but plan.gpkg).
 
     Files are written into a staging folder inside the plan folder and moved in
     one by one; then ``.fieldplan-state.json`` records ``generation``. Until it
@@ -583,7 +599,8 @@ def write_outputs(plan, plan_dir: str | Path, generation: int, *, extra: dict | 
     stage = Path(tempfile.mkdtemp(prefix=f".{plan_dir.name}.{os.getpid()}.", suffix=".stage", dir=plan_dir))
     try:
         with shared_lonlat(getattr(plan, "points", None)):
-            for writer in WRITERS:
+            # Only the formats the plan was written with: a --formats core plan stays core.
+            for writer in _writers(plan_formats(plan)):
                 if writer is not write_gpkg:
                     writer(plan, stage)
         extra = dict(extra or {})
@@ -613,6 +630,17 @@ def _umask() -> int:
     mask = os.umask(0)
     os.umask(mask)
     return mask
+
+
+def rewrite_outputs(plan, plan_dir: str | Path) -> int:
+    """Re-write the derived files of ``plan_dir`` from ``plan`` (call under :func:`locked`).
+
+    Honours the formats the plan was written with (``plan.meta["formats"]``);
+    plan.gpkg is not touched. Returns the store generation recorded.
+    """
+    generation = store_generation(plan_dir)
+    write_outputs(plan, plan_dir, generation)
+    return generation
 
 
 def rebuild_outputs(plan_dir: str | Path) -> int:
