@@ -222,3 +222,15 @@ def test_serve_command_binds_loopback_and_needs_a_token_elsewhere(tmp_path, monk
     result = runner.invoke(cli, ["serve", str(tmp_path / "ws"), "--max-upload-mb", "5", "--token", TOKEN])
     app, _ = calls[-1]
     assert app.state.max_upload_bytes == 5_000_000 and app.state.token == TOKEN
+
+
+def test_staged_uploads_removed_when_the_server_stops(workspace):
+    from fieldplan.demo import demo_blocks_path
+
+    with TestClient(create_app(workspace), base_url=LOCAL) as client:
+        client.headers.update(_csrf(client))
+        r = client.post("/api/uploads", files={"file": ("b.geojson", demo_blocks_path().read_bytes())})
+        assert r.status_code == 201
+        staged = client.app.state.uploads.get(r.json()["upload"]).folder
+        assert staged.is_dir() and workspace not in staged.parents
+    assert not staged.exists()

@@ -18,6 +18,7 @@ Layout of the application
 
 from __future__ import annotations
 
+import contextlib
 import importlib
 import logging
 from pathlib import Path
@@ -83,7 +84,15 @@ def create_app(
         token = new_token()
     secret = load_secret(workspace)
 
+    @contextlib.asynccontextmanager
+    async def lifespan(app):
+        yield
+        # Staged uploads are private temporary files: gone with the server.
+        app.state.uploads.close()
+        app.state.executor.shutdown(wait=False, cancel_futures=True)
+
     app = FastAPI(
+        lifespan=lifespan,
         title="fieldplan workspace",
         version=__version__,
         summary="Sampling plans for fields, vineyards and orchards: plan folders over HTTP.",
