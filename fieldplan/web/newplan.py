@@ -128,6 +128,8 @@ def describe_upload(staged: Staged, *, layer: str | None = None) -> dict:
     check = {"ok": True, "message": "", "parameter": None, "notes": [], "id_field": None}
     try:
         blocks = read_blocks(staged.path, layer=layer)
+        # Kept for the preview when it reads the file the same way (most previews do).
+        staged.info[_read_key({"layer": layer, "id_field": None, "repair": False})] = blocks
         check["notes"] = list(blocks.attrs.get("notes", []))
         check["id_field"] = blocks.attrs.get("id_field")
         check["blocks"] = int(len(blocks))
@@ -191,13 +193,24 @@ def _read(staged: Staged, spec, exclusions: Staged | None):
     unit = options.pop("length_unit", "m") if "length_unit" not in _reader_params() else "m"
     if mapped and "block" in mapped and options.get("id_field") is None:
         options["id_field"] = mapped.pop("block")
-    blocks = read_blocks(staged.path, **options)
+    key = _read_key(options)
+    blocks = staged.info.get(key)
+    if blocks is None:
+        blocks = read_blocks(staged.path, **options)
+        staged.info[key] = blocks
+    attrs = dict(blocks.attrs)
+    blocks = blocks.copy()
+    blocks.attrs.update(attrs)
     if mapped:
         blocks = _apply_roles(blocks, mapped, unit)
     if spec.input.select is not None:
         blocks = select_blocks(blocks, spec.input.select)
     excl = read_exclusions(exclusions.path, crs=blocks.crs) if exclusions is not None else None
     return blocks, excl
+
+
+def _read_key(options: dict) -> str:
+    return "read:" + json.dumps(options, sort_keys=True, default=str)
 
 
 def _reader_params() -> set[str]:

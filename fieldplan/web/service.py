@@ -569,7 +569,9 @@ def crew_links(folder: Path, base_url: str, secret: bytes) -> list[dict]:
 def conflicts(folder: Path) -> list[dict]:
     """Field records that disagree (two crews on one point, taken but marked inaccessible)."""
     try:
-        from fieldplan.field.sync import field_conflicts
+        from fieldplan.field.sync import JOURNAL_NAME, field_conflicts
     except ImportError:
         return []
+    if not (folder / JOURNAL_NAME).exists():
+        return []  # no field records yet: nothing can disagree
     return field_conflicts(folder)
