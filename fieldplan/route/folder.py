@@ -24,6 +24,7 @@ import shapely
 from fieldplan.errors import OutputExistsError
 from fieldplan.route.crews import DEFAULT_MINUTES_PER_POINT, DEFAULT_WALK_KMH, CrewPlan, assign_crews
 from fieldplan.route.metric import DEFAULT_ACROSS_FACTOR
+from fieldplan.sorting import natural_order
 from fieldplan.words import plural
 
 __all__ = [
@@ -106,8 +107,9 @@ def incomplete_blocks(points, crew: np.ndarray, active: np.ndarray) -> list[str]
     """One line per block whose active points are only partly assigned to a crew."""
     blocks = points["block"].astype(str).to_numpy()
     frame = pd.DataFrame({"block": blocks[active], "left": (crew[active] == 0)})
-    counts = frame.groupby("block", sort=True)["left"].agg(["sum", "size"])
+    counts = frame.groupby("block", sort=False)["left"].agg(["sum", "size"])
     counts = counts[counts["sum"] > 0]
+    counts = counts.iloc[natural_order(counts.index)]  # Blk 2 before Blk 10
     return [
         f"block {b}: {int(r['sum'])} of {int(r['size'])} point(s) not visited"
         + (" (the whole block)" if r["sum"] == r["size"] else "")
