@@ -1267,3 +1267,32 @@ def spec_schema() -> dict[str, Any]:
 def params_in_panel(panel: str) -> Iterable[str]:
     """Parameter names shown in ``panel``."""
     return [n for n, m in _FIELD_META.items() if m["panel"] == panel]
+
+
+def parameters_markdown() -> str:
+    """The table of every plan parameter in ``docs/parameters.md`` (kept current by a test)."""
+    lines = [
+        "# Plan parameters",
+        "",
+        "Every parameter of a plan, as `fieldplan plan` flags, recipe keys, `PlanSpec.from_dict` keys",
+        "and the web form's fields. Generated from `fieldplan.spec` (`spec_schema()`); do not edit by hand:",
+        "`python -c 'from fieldplan.spec import parameters_markdown as m; print(m(), end=\"\")' > docs/parameters.md`.",
+        "",
+    ]
+    schema = spec_schema()
+    lines += ["Designs: " + "; ".join(f"`{d['name']}` ({d['help']})" for d in schema["designs"]) + ".", ""]
+    for panel in schema["panels"]:
+        rows = [f for f in schema["fields"] if f["panel"] == panel["id"]]
+        if not rows:
+            continue
+        lines += [f"## {panel['title']}", "", "| parameter | flag | default | unit | designs | meaning |", "|---|---|---|---|---|---|"]
+        for f in rows:
+            default = f["effective_default"]
+            shown = "" if default in (None, {}, []) else ",".join(default) if isinstance(default, list) else str(default)
+            designs = "all" if f["designs"] == [d["name"] for d in schema["designs"]] else ", ".join(f["designs"])
+            choices = f" One of: {', '.join(f['choices'])}." if f["choices"] else ""
+            former = f" Former flag: {', '.join(f['aliases'])}." if f["aliases"] else ""
+            text = (f["help"] + choices + former).replace("|", "\\|")
+            lines.append(f"| `{f['name']}` | `{f['flag']}` | {shown} | {f['unit'] or ''} | {designs} | {text} |")
+        lines.append("")
+    return "\n".join(lines)

@@ -248,3 +248,13 @@ def test_package_lists_its_lazy_names():
     for name in ("PlanSpec", "make_plan", "read_blocks", "spec_schema", "__version__"):
         assert name in names
     assert "importlib" not in names
+
+
+def test_parameters_doc_is_current():
+    from pathlib import Path
+
+    from fieldplan.spec import parameters_markdown
+
+    doc = Path(__file__).resolve().parents[1] / "docs" / "parameters.md"
+    # The doc is generated from the spec: regenerate it when a parameter changes (command in its header).
+    assert doc.read_text(encoding="utf-8") == parameters_markdown()
