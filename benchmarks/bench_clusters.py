@@ -12,9 +12,9 @@ loop, so the ratio shows the cost of listing plants, not of the interpreter.
 
 from __future__ import annotations
 
-import numpy as np
 import shapely
 
+from benchmarks.baselines import enumerate_and_choose
 from benchmarks.timing import Result, fast_vs_slow, peak_memory
 from benchmarks.workloads import estate
 from fieldplan.design.clusters import pick_plants, row_segments
@@ -28,26 +28,6 @@ PICKS = 30
 def plant_estate(n_blocks: int, *, seed: int):
     """Blocks with close vine/orchard spacings (2–3 m rows, 1–1.6 m plants)."""
     return estate(n_blocks, seed=seed, row_spacing_m=(2.0, 3.0), plant_spacing_m=(1.0, 1.6))
-
-
-def enumerate_and_choose(
-    polygon, *, row_spacing_m: float, plant_spacing_m: float, row_bearing_deg: float, n: int, rng
-) -> np.ndarray:
-    """Every plant position in the block, then ``n`` of them at random: ``(n, 2)`` coordinates."""
-    theta = np.radians(row_bearing_deg)
-    u = np.array([np.sin(theta), np.cos(theta)])
-    v = np.array([np.cos(theta), -np.sin(theta)])
-    xy = shapely.get_coordinates(polygon)
-    pu, pv = xy @ u, xy @ v
-    across = np.arange(pv.min() + row_spacing_m / 2.0, pv.max(), row_spacing_m)
-    along = np.arange(pu.min() + plant_spacing_m / 2.0, pu.max(), plant_spacing_m)
-    a, b = np.meshgrid(along, across)
-    px = a.ravel() * u[0] + b.ravel() * v[0]
-    py = a.ravel() * u[1] + b.ravel() * v[1]
-    shapely.prepare(polygon)
-    inside = shapely.contains_xy(polygon, px, py)
-    plants = np.column_stack([px[inside], py[inside]])
-    return plants[rng.choice(len(plants), size=n, replace=False)]
 
 
 def _each(fn, rows):

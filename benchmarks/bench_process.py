@@ -116,27 +116,21 @@ def _plant_listing_script(tmp: Path, blocks: Path) -> list[str]:
         tmp,
         "list_plants",
         f"""
-        import geopandas as gpd, numpy as np, shapely
+        import sys
+        sys.path.insert(0, {str(HERE.parent)!r})
+        import geopandas as gpd, numpy as np
+        from benchmarks.baselines import enumerate_and_choose
         blocks = gpd.read_file({str(blocks)!r}, engine="pyogrio")
         rng = np.random.default_rng(1)
-        picked = []
-        for poly, rs, ps, bearing in zip(
-            blocks.geometry.values, blocks["row_spacing_m"], blocks["plant_spacing_m"], blocks["row_bearing_deg"]
-        ):
-            theta = np.radians(bearing)
-            u = np.array([np.sin(theta), np.cos(theta)])
-            v = np.array([np.cos(theta), -np.sin(theta)])
-            xy = shapely.get_coordinates(poly)
-            pu, pv = xy @ u, xy @ v
-            across = np.arange(pv.min() + rs / 2, pv.max(), rs)
-            along = np.arange(pu.min() + ps / 2, pu.max(), ps)
-            a, b = np.meshgrid(along, across)
-            px = a.ravel() * u[0] + b.ravel() * v[0]
-            py = a.ravel() * u[1] + b.ravel() * v[1]
-            shapely.prepare(poly)
-            inside = shapely.contains_xy(poly, px, py)
-            plants = np.column_stack([px[inside], py[inside]])
-            picked.append(plants[rng.choice(len(plants), size=min({PICKS}, len(plants)), replace=False)])
+        picked = [
+            enumerate_and_choose(
+                poly, row_spacing_m=rs, plant_spacing_m=ps, row_bearing_deg=bearing, n={PICKS}, rng=rng
+            )
+            for poly, rs, ps, bearing in zip(
+                blocks.geometry.values, blocks["row_spacing_m"], blocks["plant_spacing_m"],
+                blocks["row_bearing_deg"],
+            )
+        ]
         pts = np.concatenate(picked)
         gpd.GeoDataFrame(geometry=gpd.points_from_xy(pts[:, 0], pts[:, 1]), crs=blocks.crs).to_crs(4326).to_file(
             {str(tmp / "plants.geojson")!r}, driver="GeoJSON", engine="pyogrio"
