@@ -29,6 +29,7 @@ _LAZY = {
     "prepare_blocks": "fieldplan.notebook",
     "SpecError": "fieldplan.spec",
     "spec_schema": "fieldplan.spec",
+    "explore": "fieldplan.explore",
 }
 
 __all__ = ["__version__", *_LAZY]

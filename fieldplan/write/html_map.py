@@ -1,14 +1,24 @@
-"""map.html: one self-contained, offline Leaflet map of a plan.
+"""map.html: one self-contained, offline map of a plan, built with folium.
 
-The page inlines Leaflet's JavaScript and CSS (read from the ``xstatic-leaflet``
-package at write time) and the plan data as JSON, so opening it makes no network
-request. An OpenStreetMap base layer can be switched on from the layer control
-when online; it is off by default and the plan reads fully on a plain background.
+The map is a ``folium.Map`` (made by :func:`fieldplan.explore.plan_map`, the same
+map :func:`fieldplan.explore` gives notebooks) saved as a page that inlines
+Leaflet's JavaScript and CSS (read from the ``xstatic-leaflet`` package at write
+time) and the plan data as JSON, so opening it makes no network request. An
+OpenStreetMap layer can be switched on from the layer control when online; it is
+off by default and the plan reads fully on a plain background. folium is
+imported only when a map is written.
 
 Input text (block names, varieties, instructions) only ever reaches the page as
-JSON inside ``<script type="application/json">`` with ``<``, ``>`` and ``&``
-escaped, and the page script builds DOM text with ``textContent``. A
-Content-Security-Policy allows only the page's own two scripts (by hash).
+JSON inside ``<script type="application/json">`` or folium's ``tojson``, with
+``<``, ``>`` and ``&`` escaped, and the page script builds DOM text with
+``textContent``. A Content-Security-Policy allows only the page's own two
+scripts (by hash). The page's JavaScript, CSS and templates are package data
+in ``fieldplan/data/map/`` (listed in :mod:`fieldplan.explore`).
+
+This module also holds the map's symbols that other writers reuse
+(:data:`PALETTE`, :data:`SHAPES`, :func:`stratum_styles`, :func:`plan_caption`,
+:func:`optional_layer`) and :func:`map_data`, the JSON document the page and the
+web workspace render.
 
 Call :func:`write_map` to (re)write a map, e.g. after crews and routes change::
 
@@ -18,13 +28,10 @@ Call :func:`write_map` to (re)write a map, e.g. after crews and routes change::
 
 from __future__ import annotations
 
-import base64
 import hashlib
-import html
 import json
 import math
 import re
-from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
@@ -146,33 +153,6 @@ def stratum_styles(strata) -> dict[str, dict[str, str]]:
     }
 
 
-@lru_cache(maxsize=1)
-def _leaflet_assets() -> tuple[str, str]:
-    import xstatic.pkg.leaflet as xl
-
-    base = Path(xl.BASE_DIR)
-    js = (base / "leaflet.js").read_text(encoding="utf-8")
-    css = (base / "leaflet.css").read_text(encoding="utf-8")
-    # A source-map comment makes developer tools fetch a file that is not there.
-    js = "\n".join(ln for ln in js.splitlines() if not ln.startswith("//# sourceMappingURL"))
-    # Image URLs in the stylesheet would be requests; the layer-toggle icon becomes
-    # an inline SVG and the rest are dropped (default icons are never used).
-    layers_svg = (
-        "<svg xmlns='http://www.w3.org/2000/svg' width='26' height='26' viewBox='0 0 26 26'>"
-        "<path d='M13 4 24 10 13 16 2 10Z' fill='#555'/>"
-        "<path d='M4 14 13 19 22 14 24 15.5 13 22 2 15.5Z' fill='#999'/></svg>"
-    )
-    uri = "data:image/svg+xml;base64," + base64.b64encode(layers_svg.encode()).decode()
-    css = css.replace("url(images/layers.png)", f'url("{uri}")')
-    css = css.replace("url(images/layers-2x.png)", f'url("{uri}")')
-    css = css.replace("url(images/marker-icon.png)", "none")
-    css = css.replace("behavior: url(#default#VML);", "")
-    for text, closer in ((js, "</script"), (css, "</style")):
-        if closer in text.lower():
-            raise RuntimeError(f"Leaflet asset contains {closer!r}; cannot inline it safely")
-    return js, css
-
-
 def _json_value(value: Any) -> Any:
     if value is None:
         return None
@@ -194,20 +174,65 @@ def _json_value(value: Any) -> Any:
     return str(value)
 
 
+def _ring_lists(coords: list, offsets) -> list:
+    """Split a flat coordinate list at ``offsets`` (the ragged-array layout)."""
+    bounds = offsets.tolist()
+    return [coords[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
+
+
+def _geojson_geometries(geoms: np.ndarray, decimals: int) -> list[dict]:
+    """GeoJSON geometry dicts of ``geoms`` (no empties), coordinates rounded to ``decimals``.
+
+    The same objects as ``shapely.geometry.mapping`` (lists for tuples), built per
+    geometry type from shapely's ragged arrays: one ``tolist`` for all coordinates
+    rather than a Python iteration over each vertex.
+    """
+    out: list[dict | None] = [None] * len(geoms)
+    kinds = shapely.get_type_id(geoms)
+    names = {
+        0: "Point",
+        1: "LineString",
+        3: "Polygon",
+        4: "MultiPoint",
+        5: "MultiLineString",
+        6: "MultiPolygon",
+    }
+    for kind, name in names.items():
+        idx = np.flatnonzero(kinds == kind)
+        if len(idx) == 0:
+            continue
+        _, coords, offsets = shapely.to_ragged_array(geoms[idx], include_z=False)
+        flat = np.round(coords, decimals).tolist()
+        if kind == 0:
+            parts = flat
+        elif kind in (1, 4):
+            parts = _ring_lists(flat, offsets[0])
+        elif kind in (3, 5):
+            parts = _ring_lists(_ring_lists(flat, offsets[0]), offsets[1])
+        else:
+            parts = _ring_lists(_ring_lists(_ring_lists(flat, offsets[0]), offsets[1]), offsets[2])
+        for i, part in zip(idx.tolist(), parts, strict=True):
+            out[i] = {"type": name, "coordinates": part}
+    for i in np.flatnonzero(kinds == 7).tolist():  # geometry collections: rare, one by one
+        rounded = shapely.transform(geoms[i], lambda c: np.round(c, decimals))
+        out[i] = json.loads(json.dumps(shapely.geometry.mapping(rounded)))
+    return out
+
+
 def _features(gdf, columns: tuple[str, ...] | list[str], *, decimals: int = COORD_DECIMALS) -> dict:
     """GeoJSON FeatureCollection in WGS84 with rounded coordinates and the chosen properties."""
     if gdf is None or len(gdf) == 0:
         return {"type": "FeatureCollection", "features": []}
     wgs = gdf.to_crs(4326) if gdf.crs is not None else gdf
-    geoms = shapely.transform(np.asarray(wgs.geometry.values, dtype=object), lambda c: np.round(c, decimals))
+    geoms = np.asarray(wgs.geometry.values, dtype=object)
+    keep = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
     cols = [c for c in columns if c in wgs.columns]
-    records = wgs[cols].to_dict("records") if cols else [{}] * len(wgs)
-    features = []
-    for geom, rec in zip(geoms, records, strict=True):
-        if geom is None or shapely.is_empty(geom):
-            continue
-        props = {k: _json_value(v) for k, v in rec.items()}
-        features.append({"type": "Feature", "properties": props, "geometry": shapely.geometry.mapping(geom)})
+    records = wgs.loc[keep, cols].to_dict("records") if cols else [{}] * int(keep.sum())
+    shapes = _geojson_geometries(geoms[keep], decimals)
+    features = [
+        {"type": "Feature", "properties": {k: _json_value(v) for k, v in rec.items()}, "geometry": geom}
+        for rec, geom in zip(records, shapes, strict=True)
+    ]
     return {"type": "FeatureCollection", "features": features}
 
 
@@ -360,43 +385,16 @@ def map_data(plan: Any, *, routes=None, spares=None, actual=None, markers: str =
     }
 
 
-def _csp(scripts: list[str]) -> str:
-    hashes = " ".join(
-        "'sha256-" + base64.b64encode(hashlib.sha256(s.encode("utf-8")).digest()).decode() + "'"
-        for s in scripts
-    )
-    return (
-        "default-src 'none'; "
-        f"script-src {hashes}; "
-        "style-src 'unsafe-inline'; "
-        "img-src data: https://tile.openstreetmap.org; "
-        "base-uri 'none'; form-action 'none'"
-    )
-
-
 def map_html(plan: Any, *, routes=None, spares=None, actual=None, markers: str = "auto") -> str:
     """Return the complete map page as text (see :func:`write_map`)."""
     if markers not in MARKER_MODES:
         from fieldplan.errors import OptionError
 
         raise OptionError(f"markers must be one of {', '.join(MARKER_MODES)}; got {markers!r}")
-    js, css = _leaflet_assets()
+    from fieldplan.explore import plan_map, render_offline
+
     data = map_data(plan, routes=routes, spares=spares, actual=actual, markers=markers)
-    caption = data["caption"]
-    title = html.escape(f"fieldplan map {caption['plan_id']}", quote=True)
-    leaflet_script = "\n" + js + "\n"
-    app_script = "\n" + _APP_JS + "\n"
-    page = (
-        _TEMPLATE.replace("@@CSP@@", html.escape(_csp([leaflet_script, app_script]), quote=True))
-        .replace("@@TITLE@@", title)
-        .replace("@@LEAFLET_CSS@@", css)
-        .replace("@@PAGE_CSS@@", _PAGE_CSS)
-        .replace("@@DATA@@", _jsonify_for_script(data))
-    )
-    # Scripts go in last so no placeholder text inside them can be replaced.
-    head, tail = page.split("@@LEAFLET_JS@@")
-    tail_a, tail_b = tail.split("@@APP_JS@@")
-    return head + leaflet_script + tail_a + app_script + tail_b
+    return render_offline(plan_map(plan, data=data, offline=True))
 
 
 def write_map(
@@ -442,390 +440,3 @@ def write_map(
 def map_writer(plan: Any, folder: Path) -> None:
     """Plan-folder writer (``fieldplan.store.WRITERS``): ``map.html``."""
     write_map(plan, Path(folder) / "map.html")
-
-
-_TEMPLATE = """<!DOCTYPE html>
-<html lang="en">
-<head>
-<meta charset="utf-8">
-<meta http-equiv="Content-Security-Policy" content="@@CSP@@">
-<meta name="viewport" content="width=device-width, initial-scale=1">
-<meta name="referrer" content="no-referrer">
-<title>@@TITLE@@</title>
-<style>
-@@LEAFLET_CSS@@
-</style>
-<style>
-@@PAGE_CSS@@
-</style>
-</head>
-<body>
-<div id="map" role="application" aria-label="Sampling plan map"></div>
-<script type="application/json" id="fp-data">@@DATA@@</script>
-<script>@@LEAFLET_JS@@</script>
-<script>@@APP_JS@@</script>
-</body>
-</html>
-"""
-
-_PAGE_CSS = """
-html, body { height: 100%; margin: 0; }
-#map { height: 100%; width: 100%; background: #f4f3ee; }
-.fp-panel { background: #fff; padding: 6px 8px; border-radius: 4px; max-width: 320px;
-  box-shadow: 0 1px 5px rgba(0,0,0,0.4); font: 12px/1.4 sans-serif; color: #222; }
-.fp-panel h2 { font-size: 13px; margin: 0 0 4px; }
-.fp-panel ul { margin: 4px 0 0; padding-left: 16px; }
-.fp-legend-row { display: flex; align-items: center; gap: 6px; margin: 2px 0; }
-.fp-point, .fp-spare, .fp-actual, .fp-inaccessible { background: none; border: none; }
-.fp-point svg, .fp-spare svg, .fp-actual svg, .fp-inaccessible svg { display: block; overflow: visible; }
-.fp-label { display: none; position: absolute; left: 17px; top: 0; white-space: nowrap;
-  font: bold 11px sans-serif; color: #111; text-shadow: 0 0 2px #fff, 0 0 2px #fff; }
-.fp-show-labels .fp-label { display: block; }
-.fp-block-label { background: none; border: none; }
-.fp-block-label span { display: inline-block; transform: translate(-50%, -50%);
-  white-space: nowrap; text-align: center; font: bold 12px sans-serif; color: #222;
-  text-shadow: 0 0 3px #fff, 0 0 3px #fff, 0 0 3px #fff; pointer-events: none; }
-.fp-block-label small { display: block; font-weight: normal; }
-.fp-popup table { border-collapse: collapse; }
-.fp-popup th { text-align: left; padding-right: 8px; font-weight: 600; }
-@media print { .leaflet-control-layers { display: none; } }
-"""
-
-_APP_JS = r"""
-(function () {
-  "use strict";
-  var data = JSON.parse(document.getElementById("fp-data").textContent);
-  var SVGNS = "http://www.w3.org/2000/svg";
-  var map = L.map("map", { maxZoom: 22, zoomSnap: 0.5, preferCanvas: false });
-  // The view must exist before any layer is added, or the SVG renderer has no container yet.
-  map.fitBounds(data.bounds, { padding: [20, 20], maxZoom: 20 });
-  var renderer = L.svg();
-  renderer.addTo(map);
-
-  function el(tag, text, cls) {
-    var node = document.createElement(tag);
-    if (text !== undefined && text !== null) { node.textContent = String(text); }
-    if (cls) { node.className = cls; }
-    return node;
-  }
-
-  // Marker outlines as polygons in a unit box (-1..1, y down); the circle is drawn as an arc.
-  var SHAPE_POINTS = {
-    "square": [[-0.72, -0.72], [0.72, -0.72], [0.72, 0.72], [-0.72, 0.72]],
-    "triangle": [[0, -0.88], [0.85, 0.78], [-0.85, 0.78]],
-    "diamond": [[0, -0.92], [0.92, 0], [0, 0.92], [-0.92, 0]],
-    "triangle-down": [[-0.85, -0.78], [0.85, -0.78], [0, 0.88]],
-    "hexagon": [[-0.45, -0.8], [0.45, -0.8], [0.9, 0], [0.45, 0.8], [-0.45, 0.8], [-0.9, 0]],
-    "cross": [[-0.28, -0.9], [0.28, -0.9], [0.28, -0.28], [0.9, -0.28], [0.9, 0.28], [0.28, 0.28],
-      [0.28, 0.9], [-0.28, 0.9], [-0.28, 0.28], [-0.9, 0.28], [-0.9, -0.28], [-0.28, -0.28]],
-    "x": [[-0.75, -0.5], [-0.5, -0.75], [0, -0.25], [0.5, -0.75], [0.75, -0.5], [0.25, 0],
-      [0.75, 0.5], [0.5, 0.75], [0, 0.25], [-0.5, 0.75], [-0.75, 0.5], [-0.25, 0]]
-  };
-
-  // "circle-x": a circle struck through by an X, for points no one should walk to.
-  var STRIKE = [[-0.6, -0.6, 0.6, 0.6], [-0.6, 0.6, 0.6, -0.6]];
-
-  function shapeSvg(shape, fill, size, stroke) {
-    var svg = document.createElementNS(SVGNS, "svg");
-    svg.setAttribute("width", size); svg.setAttribute("height", size);
-    svg.setAttribute("viewBox", "0 0 16 16");
-    if (shape === "circle-x") {
-      var struck = shapeSvg("circle", fill, size, stroke);
-      STRIKE.forEach(function (q) {
-        var ln = document.createElementNS(SVGNS, "line");
-        ln.setAttribute("x1", (8 + 7 * q[0]).toFixed(2)); ln.setAttribute("y1", (8 + 7 * q[1]).toFixed(2));
-        ln.setAttribute("x2", (8 + 7 * q[2]).toFixed(2)); ln.setAttribute("y2", (8 + 7 * q[3]).toFixed(2));
-        ln.setAttribute("stroke", stroke || "#1a1a1a"); ln.setAttribute("stroke-width", "2");
-        ln.setAttribute("class", "fp-strike");
-        struck.appendChild(ln);
-      });
-      return struck;
-    }
-    var s;
-    if (shape === "circle" || !SHAPE_POINTS[shape]) {
-      s = document.createElementNS(SVGNS, "circle");
-      s.setAttribute("cx", "8"); s.setAttribute("cy", "8"); s.setAttribute("r", "6");
-    } else {
-      s = document.createElementNS(SVGNS, "path");
-      s.setAttribute("d", "M" + SHAPE_POINTS[shape].map(function (p) {
-        return (8 + 7 * p[0]).toFixed(2) + " " + (8 + 7 * p[1]).toFixed(2);
-      }).join("L") + "Z");
-    }
-    s.setAttribute("fill", fill);
-    s.setAttribute("stroke", stroke || "#1a1a1a");
-    s.setAttribute("stroke-width", "1.3");
-    svg.appendChild(s);
-    return svg;
-  }
-
-  function popupFor(props) {
-    var wrap = el("div", null, "fp-popup");
-    var table = el("table");
-    var names = [["point_id", "Point"], ["block", "Block"], ["stratum", "Stratum"],
-      ["design", "Design"], ["row", "Row"], ["plant", "Plant"], ["units", "Units"],
-      ["depth_cm", "Depth (cm)"], ["status", "Status"], ["crew", "Crew"], ["visit_order", "Visit no."],
-      ["instructions", "Instructions"],
-      ["recorded_utc", "Recorded"], ["offset_m", "Offset (m)"]];
-    names.forEach(function (pair) {
-      var v = props[pair[0]];
-      if (v === undefined || v === null || v === "") { return; }
-      var tr = el("tr");
-      tr.appendChild(el("th", pair[1]));
-      tr.appendChild(el("td", v));
-      table.appendChild(tr);
-    });
-    wrap.appendChild(table);
-    return wrap;
-  }
-
-  var styleOf = {};
-  data.strata.forEach(function (s) { styleOf[s.name] = s; });
-
-  function propsAt(layer, i) {
-    var out = {};
-    Object.keys(layer.props).forEach(function (k) { out[k] = layer.props[k][i]; });
-    return out;
-  }
-
-  // Canvas marker: the stratum's shape drawn on a shared canvas; point ids drawn with
-  // fillText (plain text by construction) when zoomed in far enough.
-  var ShapeMarker = L.CircleMarker.extend({
-    _updatePath: function () {
-      var r = this._renderer;
-      if (!r._ctx) { r._updateCircle(this); return; }
-      if (!r._drawing || this._empty()) { return; }
-      var p = this._point, ctx = r._ctx, rad = this._radius, pts = SHAPE_POINTS[this.options.shape];
-      ctx.beginPath();
-      if (!pts) {
-        ctx.arc(p.x, p.y, rad, 0, Math.PI * 2, false);
-      } else {
-        pts.forEach(function (q, j) {
-          var x = p.x + q[0] * rad, y = p.y + q[1] * rad;
-          if (j === 0) { ctx.moveTo(x, y); } else { ctx.lineTo(x, y); }
-        });
-        ctx.closePath();
-      }
-      r._fillStroke(ctx, this);
-      if (this.options.shape === "circle-x") {
-        ctx.beginPath();
-        STRIKE.forEach(function (q) {
-          ctx.moveTo(p.x + q[0] * rad, p.y + q[1] * rad); ctx.lineTo(p.x + q[2] * rad, p.y + q[3] * rad);
-        });
-        ctx.globalAlpha = 1; ctx.lineWidth = 2; ctx.strokeStyle = this.options.color; ctx.stroke();
-      }
-      if (this.options.label && this._map && this._map.getZoom() >= LABEL_ZOOM) {
-        ctx.globalAlpha = 1;
-        ctx.font = "bold 11px sans-serif";
-        ctx.lineWidth = 3; ctx.strokeStyle = "#ffffff"; ctx.fillStyle = "#111111";
-        ctx.strokeText(this.options.label, p.x + rad + 3, p.y + 4);
-        ctx.fillText(this.options.label, p.x + rad + 3, p.y + 4);
-      }
-    }
-  });
-  var LABEL_ZOOM = 18;
-  var canvasPane = map.createPane("fp-points");
-  canvasPane.style.zIndex = 450;
-  var canvasRenderer = L.canvas({ pane: "fp-points", padding: 0.3 });
-
-  function pointMarker(props, latlng, cls, shape, colour, size) {
-    var title = String(props.point_id === null || props.point_id === undefined ? "" : props.point_id);
-    var m;
-    if (data.marker_mode === "canvas") {
-      m = new ShapeMarker(latlng, { renderer: canvasRenderer, radius: size / 2 - 1, shape: shape,
-        fillColor: colour, fillOpacity: 1, color: "#1a1a1a", weight: 1.2, label: title,
-        className: cls });
-    } else {
-      var box = el("div");
-      box.appendChild(shapeSvg(shape, colour, size));
-      box.appendChild(el("span", title, "fp-label"));
-      var icon = L.divIcon({ html: box, className: cls, iconSize: [size, size],
-        iconAnchor: [size / 2, size / 2], popupAnchor: [0, -size / 2] });
-      m = L.marker(latlng, { icon: icon, title: title, keyboard: true, alt: title });
-    }
-    m.bindPopup(function () { return popupFor(props); });
-    return m;
-  }
-
-  function pointLayer(layer, make) {
-    var markers = [];
-    for (var i = 0; i < layer.n; i++) {
-      markers.push(make(propsAt(layer, i), L.latLng(layer.lat[i], layer.lon[i])));
-    }
-    return L.featureGroup(markers);
-  }
-
-  var overlays = [];
-
-  // Blocks
-  var blocks = L.geoJSON(data.blocks, { renderer: renderer,
-    style: function () { return { color: "#333333", weight: 2, fillColor: "#ffffff", fillOpacity: 0.55 }; },
-    onEachFeature: function (f, layer) {
-      var p = f.properties, box = el("div", null, "fp-popup");
-      box.appendChild(el("strong", "Block " + (p.block === null ? "" : p.block)));
-      if (p.variety) { box.appendChild(el("div", "Variety: " + p.variety)); }
-      if (p.stratum) { box.appendChild(el("div", "Stratum: " + p.stratum)); }
-      if (p.area_ha !== undefined && p.area_ha !== null) { box.appendChild(el("div", "Area: " + Number(p.area_ha).toFixed(2) + " ha")); }
-      if (p.n_points !== undefined && p.n_points !== null) { box.appendChild(el("div", "Points: " + p.n_points)); }
-      layer.bindPopup(function () { return box; });
-    } }).addTo(map);
-  // Block labels sit above the point markers (their own pane) and let clicks through.
-  map.createPane("fp-block-labels").style.zIndex = 640;
-  map.getPane("fp-block-labels").style.pointerEvents = "none";
-  var labels = L.geoJSON(data.block_labels, { pointToLayer: function (f, latlng) {
-      var span = el("span", f.properties.block);
-      if (f.properties.variety) { span.appendChild(el("small", f.properties.variety)); }
-      return L.marker(latlng, { interactive: false, keyboard: false, pane: "fp-block-labels",
-        icon: L.divIcon({ html: span, className: "fp-block-label", iconSize: null }) });
-    } });
-  var blockGroup = L.layerGroup([blocks, labels]).addTo(map);
-  overlays.push(["Blocks", blockGroup]);
-
-  // Exclusions: hatched with an SVG pattern in the renderer's own <svg>.
-  var exclusions = L.geoJSON(data.exclusions, { renderer: renderer,
-    style: function () { return { color: "#555555", weight: 1.5, dashArray: "6 4",
-      fillColor: "url(#fp-hatch)", fillOpacity: 1 }; },
-    onEachFeature: function (f, layer) {
-      layer.bindPopup(function () { return el("div", "Excluded: " + (f.properties.name || "")); });
-    } });
-  if (data.exclusions.features.length) {
-    var svgRoot = renderer._container;
-    var defs = document.createElementNS(SVGNS, "defs");
-    var pat = document.createElementNS(SVGNS, "pattern");
-    pat.setAttribute("id", "fp-hatch"); pat.setAttribute("patternUnits", "userSpaceOnUse");
-    pat.setAttribute("width", "8"); pat.setAttribute("height", "8");
-    pat.setAttribute("patternTransform", "rotate(45)");
-    var bg = document.createElementNS(SVGNS, "rect");
-    bg.setAttribute("width", "8"); bg.setAttribute("height", "8"); bg.setAttribute("fill", "#d9d9d9");
-    var line = document.createElementNS(SVGNS, "line");
-    line.setAttribute("x1", "0"); line.setAttribute("y1", "0"); line.setAttribute("x2", "0");
-    line.setAttribute("y2", "8"); line.setAttribute("stroke", "#6b6b6b"); line.setAttribute("stroke-width", "3");
-    pat.appendChild(bg); pat.appendChild(line); defs.appendChild(pat);
-    svgRoot.insertBefore(defs, svgRoot.firstChild);
-    exclusions.addTo(map);
-    overlays.push(["Exclusions (not sampled)", exclusions]);
-  }
-
-  // Routes, one toggle per crew.
-  data.crews.forEach(function (crew) {
-    var fc = { type: "FeatureCollection", features: data.routes.features.filter(function (f) {
-      return String(f.properties.crew) === crew.name; }) };
-    var layer = L.geoJSON(fc, { renderer: renderer, style: function () {
-      return { color: crew.colour, weight: 3, opacity: 0.9, dashArray: crew.dash }; },
-      onEachFeature: function (f, l) {
-        var p = f.properties, parts = ["Crew " + crew.name];
-        if (p.points !== undefined && p.points !== null) { parts.push(p.points + " points"); }
-        if (p.length_m !== undefined && p.length_m !== null) { parts.push((p.length_m / 1000).toFixed(2) + " km"); }
-        if (p.hours !== undefined && p.hours !== null) { parts.push("about " + Number(p.hours).toFixed(1) + " h"); }
-        l.bindTooltip(el("span", parts.join(" \u00b7 ")), { sticky: true });
-      } });
-    layer.addTo(map);
-    overlays.push(["Route: crew " + crew.name, layer]);
-  });
-
-  // Sample points, spare points, recorded positions.
-  var layers = { blocks: blocks, exclusions: exclusions };
-  var points = pointLayer(data.points, function (props, latlng) {
-    var st = styleOf[String(props.stratum)] || { colour: "#bbbbbb", shape: "circle" };
-    return pointMarker(props, latlng, "fp-point", st.shape, st.colour, 16);
-  }).addTo(map);
-  layers.points = points;
-  overlays.push(["Sample points", points]);
-  if (data.spares.n) {
-    layers.spares = pointLayer(data.spares, function (props, latlng) {
-      return pointMarker(props, latlng, "fp-spare", "cross", "#ffffff", 14);
-    });
-    overlays.push(["Spare points", layers.spares]);
-  }
-  if (data.inaccessible.n) {
-    // Shown by default: knowing where not to go matters as much as where to go.
-    layers.inaccessible = pointLayer(data.inaccessible, function (props, latlng) {
-      var st = data.inaccessible_style;
-      return pointMarker(props, latlng, "fp-inaccessible", st.shape, st.colour, 14);
-    }).addTo(map);
-    overlays.push(["Inaccessible points (not sampled)", layers.inaccessible]);
-  }
-  if (data.actual.n) {
-    layers.actual = pointLayer(data.actual, function (props, latlng) {
-      return pointMarker(props, latlng, "fp-actual", "x", "#111111", 12);
-    }).addTo(map);
-    overlays.push(["Recorded positions", layers.actual]);
-  }
-
-  // Online base layer: listed but off, so nothing is fetched unless asked for.
-  var osm = L.tileLayer(data.osm.url, { maxZoom: 19, maxNativeZoom: 19, attribution: data.osm.attribution });
-  overlays.push(["OpenStreetMap (online only)", osm]);
-
-  // Leaflet's layer control inserts names as HTML, so names are escaped first.
-  function escapeHtml(text) {
-    return String(text).replace(/&/g, "&amp;").replace(/</g, "&lt;").replace(/>/g, "&gt;")
-      .replace(/"/g, "&quot;").replace(/'/g, "&#39;");
-  }
-  var control = L.control.layers(null, null, { collapsed: false, position: "topright" });
-  overlays.forEach(function (o) { control.addOverlay(o[1], escapeHtml(o[0])); });
-  control.addTo(map);
-  L.control.scale({ metric: true, imperial: false, maxWidth: 200 }).addTo(map);
-
-  // Plan caption and cautions.
-  var Info = L.Control.extend({ options: { position: "topleft" }, onAdd: function () {
-    var box = el("div", null, "fp-panel");
-    var c = data.caption;
-    box.appendChild(el("h2", "Sampling plan " + c.plan_id));
-    box.appendChild(el("div", "Seed " + c.seed + (c.date ? " \u00b7 " + c.date : "") + (c.design ? " \u00b7 " + c.design : "")));
-    box.appendChild(el("div", data.points.n + " sample points in " + data.blocks.features.length + " blocks"));
-    var det = el("details"); det.appendChild(el("summary", "Cautions"));
-    var ul = el("ul");
-    data.cautions.forEach(function (t) { ul.appendChild(el("li", t)); });
-    det.appendChild(ul); box.appendChild(det);
-    L.DomEvent.disableClickPropagation(box); L.DomEvent.disableScrollPropagation(box);
-    return box;
-  } });
-  new Info().addTo(map);
-
-  // Legend: every symbol has a shape and a text, not only a colour.
-  var Legend = L.Control.extend({ options: { position: "bottomright" }, onAdd: function () {
-    var box = el("div", null, "fp-panel fp-legend");
-    box.appendChild(el("h2", "Legend"));
-    function row(svg, text) {
-      var r = el("div", null, "fp-legend-row"); r.appendChild(svg); r.appendChild(el("span", text)); box.appendChild(r);
-    }
-    data.strata.forEach(function (s) { row(shapeSvg(s.shape, s.colour, 14), "Stratum " + s.name); });
-    var blk = document.createElementNS(SVGNS, "svg"); blk.setAttribute("width", "14"); blk.setAttribute("height", "14");
-    var r1 = document.createElementNS(SVGNS, "rect"); r1.setAttribute("x", "1"); r1.setAttribute("y", "1");
-    r1.setAttribute("width", "12"); r1.setAttribute("height", "12"); r1.setAttribute("fill", "#ffffff");
-    r1.setAttribute("stroke", "#333333"); r1.setAttribute("stroke-width", "2"); blk.appendChild(r1);
-    row(blk, "Block (id, variety)");
-    if (data.exclusions.features.length) {
-      var ex = blk.cloneNode(true); ex.firstChild.setAttribute("fill", "#bdbdbd");
-      ex.firstChild.setAttribute("stroke-dasharray", "3 2"); ex.firstChild.setAttribute("stroke", "#555555");
-      row(ex, "Exclusion (hatched on map)");
-    }
-    if (data.spares.n) { row(shapeSvg("cross", "#ffffff", 14), "Spare point (off by default)"); }
-    if (data.inaccessible.n) {
-      var ist = data.inaccessible_style;
-      row(shapeSvg(ist.shape, ist.colour, 14), ist.legend);
-    }
-    if (data.actual.n) { row(shapeSvg("x", "#111111", 12), "Recorded position"); }
-    data.crews.forEach(function (crew) {
-      var svg = document.createElementNS(SVGNS, "svg"); svg.setAttribute("width", "24"); svg.setAttribute("height", "10");
-      var ln = document.createElementNS(SVGNS, "line"); ln.setAttribute("x1", "0"); ln.setAttribute("y1", "5");
-      ln.setAttribute("x2", "24"); ln.setAttribute("y2", "5"); ln.setAttribute("stroke", crew.colour);
-      ln.setAttribute("stroke-width", "3"); if (crew.dash) { ln.setAttribute("stroke-dasharray", crew.dash); }
-      svg.appendChild(ln); row(svg, "Route: crew " + crew.name);
-    });
-    box.appendChild(el("div", "Point ids show from zoom 18."));
-    L.DomEvent.disableClickPropagation(box); L.DomEvent.disableScrollPropagation(box);
-    return box;
-  } });
-  new Legend().addTo(map);
-
-  function syncLabels() {
-    var on = map.getZoom() >= LABEL_ZOOM;
-    var box = map.getContainer();
-    if (on) { L.DomUtil.addClass(box, "fp-show-labels"); } else { L.DomUtil.removeClass(box, "fp-show-labels"); }
-  }
-  map.on("zoomend", syncLabels);
-  syncLabels();
-  window.fieldplanLayers = layers;
-  window.fieldplanMap = map;
-})();
-"""
