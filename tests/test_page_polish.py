@@ -91,8 +91,37 @@ def _assert_clear(fig, plan):
         assert not inside.any(), shown[inside][:3]
 
 
-def test_north_arrow_moves_off_points_in_the_top_right(many_strata_plan):
+def test_north_arrow_clear_of_points_on_a_many_block_page(many_strata_plan):
     _assert_clear(plan_figure(many_strata_plan), many_strata_plan)
+
+
+def test_north_arrow_moves_off_points_in_the_top_corners(tmp_path):
+    # A strip of vines along the top of the page and one block bottom left: both top
+    # corners hold points, the bottom right is empty.
+    from tests.geoms import E0, N0
+
+    frame = blocks_frame(
+        {
+            "Top": shapely.box(E0, N0 + 250, E0 + 400, N0 + 400),
+            "Low": shapely.box(E0, N0, E0 + 150, N0 + 150),
+        }
+    )
+    plan = make_plan(
+        read_blocks(write_geojson(frame, tmp_path / "b.geojson")), spacing=10.0, seed=2, command=["t"]
+    )
+    fig = plan_figure(plan)
+    ax = fig.axes[0]
+    frac = ax.transAxes.inverted().transform(_points_display(fig, plan))
+
+    def points_near(cx, cy):
+        return int(((np.abs(frac[:, 0] - cx) <= 0.05) & (np.abs(frac[:, 1] - cy) <= 0.10)).sum())
+
+    assert points_near(0.94, 0.88) > 0 and points_near(0.06, 0.88) > 0  # the usual spot is taken
+    _assert_clear(fig, plan)
+    arrow = _north_arrow_boxes(fig)[0]
+    box = ax.get_window_extent()
+    assert box.x0 < arrow.x0 and arrow.x1 < box.x1  # still on the map
+    assert arrow.y1 < (box.y0 + box.y1) / 2  # moved to the bottom right
 
 
 def test_north_arrow_leaves_the_map_when_every_corner_has_points(tmp_path):
