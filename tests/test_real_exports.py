@@ -552,3 +552,23 @@ def test_kml_folders_become_a_field_to_select_on(tmp_path):
     for name, expected in geodesic_ha(rx.PHONE).items():
         got = again.loc[again["block"] == f"Block {name}"].geometry.area.iloc[0] / 10_000
         assert got == pytest.approx(expected, rel=1e-3)  # reference: pyproj.Geod
+
+
+@pytest.mark.parametrize(
+    "options",
+    [
+        {"spacing": 40.0},
+        {"design": "random", "design_options": {"n": 6}, "spares": 1},
+        {"design": "balanced", "design_options": {"per_block": 2}},
+    ],
+)
+def test_every_column_the_plan_adds_is_reserved(tmp_path, options):
+    """A column the plan writes on its blocks must be in PLAN_COLUMNS, or a file field could collide."""
+    from fieldplan.plan import make_plan
+
+    path = rx.state_plane_shapefile(tmp_path)
+    blocks = read_blocks(path, columns={"block": "BLOCK_NAME"})
+    plan = make_plan(blocks, seed=1, command=["test"], **options)
+    added = {str(c).lower() for c in plan.blocks.columns} - {str(c).lower() for c in blocks.columns}
+    assert added, "the plan adds its own columns"
+    assert added <= set(PLAN_COLUMNS), sorted(added - set(PLAN_COLUMNS))
