@@ -24,6 +24,7 @@ def test_web_benchmark_smoke(tmp_path):
     assert [v[0] for v in web_bench.verdicts(figures)] == [
         "home",
         "plan_page",
+        "plan_page_uncached",
         "preview_demo",
         "preview_1000",
         "concurrent",
