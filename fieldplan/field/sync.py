@@ -343,11 +343,7 @@ def _points_table(plan) -> pd.DataFrame:
 
 def _day_table(records: Sequence[Mapping], day: str) -> tuple[pd.DataFrame, list[str], str]:
     """The wide results table of one day's field values, its value columns and digest."""
-    rows = [
-        r
-        for r in records
-        if r["kind"] == TAKEN and r.get("applied", True) and r["value"] is not None and r["date"] == day
-    ]
+    rows = [r for r in records if r["kind"] == TAKEN and r["value"] is not None and r["date"] == day]
     rows.sort(key=lambda r: (r["time_utc"], r["id"]))
     variables = sorted({r["variable"] for r in rows})
     frame = pd.DataFrame(

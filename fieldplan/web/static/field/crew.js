@@ -467,6 +467,10 @@
     });
     drawMap();
     update();
+    if ((data.conflicts || []).length) {
+      say("The office has " + data.conflicts.length + " open question(s) on this crew's points: " +
+        data.conflicts.map(function (c) { return c.point_id + " (" + c.kind + ")"; }).join(", ") + ".");
+    }
   }
   function loadData() {
     return fetch(API + "/data?t=" + encodeURIComponent(TOKEN)).then(function (resp) {
