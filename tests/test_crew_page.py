@@ -342,6 +342,12 @@ def test_offline_day_then_one_sync(served, tmp_path):
         assert kept and all(u.startswith(server.url + "/") for u in kept)
         assert any("/field/static/leaflet/leaflet.js" in u for u in kept)
         assert any("/api/field/vintage/1/data" in u for u in kept)
+        # The worker's own filter (other origins cannot even be asked for: the page's CSP
+        # allows 'self' only, so this checks the worker on its own).
+        workers = context.service_workers
+        assert len(workers) == 1
+        assert workers[0].evaluate("sameOrigin('https://tiles.example.org/1/2/3.png')") is False
+        assert workers[0].evaluate("sameOrigin(self.location.origin + '/field/static/crew.js')") is True
         assert log["blocked"] == []
         assert log["errors"] == [] or all("Failed to load resource" in e for e in log["errors"])
         context.close()
