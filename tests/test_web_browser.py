@@ -200,6 +200,7 @@ def run_season(page, base: str, workspace: Path, tmp: Path, *, shots: Path | Non
     page.wait_for_selector(".fp-stepped-in")
     seen["stepped_in"] = page.locator(".fp-stepped-in").get_attribute("title")
     seen["inaccessible"] = page.locator(".fp-inaccessible").count()
+    seen["events"] = page.inner_text("#events-out")
     seen["spare_popup"] = (
         page.inner_text(".leaflet-popup-content") if page.locator(".leaflet-popup-content").count() else ""
     )
@@ -291,6 +292,12 @@ def test_mark_a_point_and_see_the_spare(season):
     assert seen["target"] in seen["mark_msg"] and "steps in" in seen["mark_msg"]
     assert seen["stepped_in"] and seen["stepped_in"] in seen["mark_msg"]
     assert seen["inaccessible"] == 1
+    # The events table lists the change with who made it, as `fieldplan mark --by` records it.
+    assert (
+        seen["target"] in seen["events"]
+        and "Thandi" in seen["events"]
+        and seen["stepped_in"] in seen["events"]
+    )
     points = pd.read_csv(workspace / "harvest-2027" / "points.csv").set_index("point_id")
     assert points.loc[seen["target"], "status"] == "inaccessible"
     assert points.loc[seen["stepped_in"], "status"] == "replacement"

@@ -373,3 +373,15 @@ def test_estimates_saved_as_the_cli_writes_them(ws, tmp_path):
     )
     home = client.get("/api/plans").json()["plans"][0]
     assert home["last_estimate"]["variable"] == "ta"
+
+
+def test_summary_counts_spares_and_marked_points(ws):
+    client, web, _ = ws
+    points = pd.read_csv(web / "points.csv")
+    plan = client.get("/api/plans/p").json()["plan"]
+    # reference: points.csv of the plan, one row per point with its status
+    assert plan["spares"] == int((points["status"] == "spare").sum()) > 0
+    target = points[points["status"] == "selected"]["point_id"].iloc[0]
+    client.post("/api/plans/p/marks", json={"point_ids": [target], "reason": "gate locked"})
+    plan = client.get("/api/plans").json()["plans"][0]
+    assert plan["inaccessible"] == 1 and plan["spares"] == int((points["status"] == "spare").sum()) - 1

@@ -205,7 +205,9 @@ TargetQ = Annotated[float | None, Query(description="Adds P(mean reached target)
 BelowQ = Annotated[
     bool | None, Query(description="Target reached from above (falling, e.g. acidity); default by variable.")
 ]
-RoundQ = Annotated[int | None, Query(alias="round", ge=1, description="Round to report (default the latest).")]
+RoundQ = Annotated[
+    int | None, Query(alias="round", ge=1, description="Round to report (default the latest).")
+]
 LocalQ = Annotated[bool, Query()]
 
 
@@ -221,7 +223,9 @@ def get_estimates(
     round_no: RoundQ = None,
     local_variance: LocalQ = False,
 ) -> dict:
-    return _estimates(request, name, value, by, confidence, target, target_below, round_no, local_variance, False)
+    return _estimates(
+        request, name, value, by, confidence, target, target_below, round_no, local_variance, False
+    )
 
 
 @router.post("/plans/{name}/estimates", summary="Estimates, also written to estimates.csv (as the CLI does)")
@@ -236,7 +240,9 @@ def post_estimates(
     round_no: RoundQ = None,
     local_variance: LocalQ = False,
 ) -> dict:
-    return _estimates(request, name, value, by, confidence, target, target_below, round_no, local_variance, True)
+    return _estimates(
+        request, name, value, by, confidence, target, target_below, round_no, local_variance, True
+    )
 
 
 @router.get("/plans/{name}/coverage", summary="Coverage per block (fieldplan check)")

@@ -199,8 +199,12 @@ def plan_detail(folder: Path) -> dict:
     status_counts = {}
     if "status" in plan.points.columns:
         status_counts = {str(k): int(v) for k, v in plan.points["status"].astype(str).value_counts().items()}
+    from fieldplan.field.events import stored_events
+
+    events = stored_events(plan)
     return {
         "plan": plan_summary(folder),
+        "events": records(events.tail(200)),
         "parameters": {k: _jsonable(v) for k, v in plan.params.items()},
         "notes": list(plan.meta.get("notes", [])) if isinstance(plan.meta, dict) else [],
         "map": data,
@@ -330,9 +334,15 @@ def mark(folder: Path, point_ids: list[str], *, action: str, reason: str = "", b
     notes = list(result.notes)
     events = records(result.events)
     if (folder / "crews.csv").exists() and "crew" in result.points.columns:
-        crew_of = dict(zip(result.points["point_id"].astype(str), result.points["crew"].astype(int), strict=True))
+        crew_of = dict(
+            zip(result.points["point_id"].astype(str), result.points["crew"].astype(int), strict=True)
+        )
         for event in events:
-            brought = event.get("replacement_id") if event.get("action") == "inaccessible" else event.get("point_id")
+            brought = (
+                event.get("replacement_id")
+                if event.get("action") == "inaccessible"
+                else event.get("point_id")
+            )
             if brought and event.get("replacement_id"):
                 event["crew"] = crew_of.get(str(brought), 0)
         notes.append(

@@ -125,10 +125,9 @@ def _gpkg_facts(path: Path) -> dict:
         if "points" in tables:
             cols = {r[1] for r in con.execute("PRAGMA table_info(points)")}
             if "status" in cols:
-                facts["inaccessible"] = int(
-                    con.execute("SELECT COUNT(*) FROM points WHERE status = 'inaccessible'").fetchone()[0]
-                    or 0
-                )
+                counts = dict(con.execute("SELECT status, COUNT(*) FROM points GROUP BY status").fetchall())
+                facts["inaccessible"] = int(counts.get("inaccessible", 0))
+                facts["spares"] = int(counts.get("spare", 0))
     except sqlite3.Error:
         pass
     finally:

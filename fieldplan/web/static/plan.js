@@ -124,6 +124,14 @@
     if (rows.length) { out.appendChild(FP.table(rows, [["point_id", "Point"], ["kind", "What"], ["records", "Records"], ["note", "Note"]], "fp-conflicts")); }
   }
 
+  function showEvents(detail) {
+    var out = FP.clear(document.getElementById("events-out"));
+    var rows = (detail.events || []).slice().reverse();
+    if (!rows.length) { out.appendChild(el("p", "No point marked yet.", "fp-muted")); return; }
+    out.appendChild(FP.table(rows, [["event_id", "No."], ["time_utc", "When (UTC)"], ["user", "Who"], ["action", "What"],
+      ["point_id", "Point"], ["replacement_id", "Instead"], ["reason", "Why"]], "fp-events"));
+  }
+
   function showFiles(detail) {
     var list = FP.clear(document.getElementById("files"));
     detail.files.forEach(function (f) {
@@ -151,6 +159,7 @@
       drawMap(detail);
       showCrews(detail);
       showFiles(detail);
+      showEvents(detail);
       showResultsState(detail);
       document.body.setAttribute("data-loaded", String(Date.now()));
       return detail;
