@@ -35,7 +35,7 @@ _LAZY = {
 __all__ = ["__version__", *_LAZY]
 
 
-def __getattr__(name: str):
+def __getattr__(name: str) -> object:
     if name in _LAZY:
         return getattr(importlib.import_module(_LAZY[name]), name)
     raise AttributeError(f"module 'fieldplan' has no attribute {name!r}")

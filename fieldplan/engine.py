@@ -18,8 +18,9 @@ Results are identical to the in-process engine for the same seed.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -52,7 +53,7 @@ def check_engine(engine: str, scheduler: str | None = None) -> str:
     return engine
 
 
-def grid_origin(total_bounds, spacing: float) -> tuple[float, float]:
+def grid_origin(total_bounds: Sequence[float] | np.ndarray, spacing: float) -> tuple[float, float]:
     """Field-wide lattice anchor: the farm's lower-left corner rounded down to the spacing."""
     minx, miny = float(total_bounds[0]), float(total_bounds[1])
     return (math.floor(minx / spacing) * spacing, math.floor(miny / spacing) * spacing)
@@ -79,7 +80,7 @@ def partition_keys(design: str, blocks: pd.DataFrame, n_parts: int) -> np.ndarra
     return part_of_group[groups].astype(np.int64)
 
 
-def _plan_partition(part, design: str, params: dict, exclusion_union) -> tuple:
+def _plan_partition(part: pd.DataFrame, design: str, params: dict, exclusion_union: Any) -> tuple:
     """Worker side: run the design on one partition's blocks."""
     from fieldplan.spec import DESIGNS
 
@@ -133,7 +134,16 @@ def dask_client(scheduler: str | None = None, *, n_workers: int = 2) -> Iterator
         cluster.close()
 
 
-def _run_dask(design, blocks, areas, params, exclusion_union, *, client, n_parts) -> tuple:
+def _run_dask(
+    design: str,
+    blocks: pd.DataFrame,
+    areas: np.ndarray,
+    params: dict,
+    exclusion_union: Any,
+    *,
+    client: Any,
+    n_parts: int,
+) -> tuple:
     import dask
     import dask_geopandas
     import geopandas as gpd
@@ -160,7 +170,7 @@ def _run_dask(design, blocks, areas, params, exclusion_union, *, client, n_parts
     return client.gather(futures)
 
 
-def _merge(results, blocks, n_blocks: int, design: str) -> tuple[pd.DataFrame, list[list[str]]]:
+def _merge(results: list[tuple], blocks: pd.DataFrame, n_blocks: int, design: str) -> tuple[pd.DataFrame, list[list[str]]]:
     tables = [t for t, _, _ in results if t is not None]
     flags_by_index: dict[int, list[str]] = {}
     for _, flags, _ in results:
@@ -185,15 +195,15 @@ def _merge(results, blocks, n_blocks: int, design: str) -> tuple[pd.DataFrame, l
 
 def run_design(
     design: str,
-    blocks,
+    blocks: pd.DataFrame,
     areas: np.ndarray,
     params: dict,
-    exclusion_union,
+    exclusion_union: Any,
     progress: Callable[[int, int], None] | None = None,
     *,
     engine: str = "local",
     scheduler: str | None = None,
-    client=None,
+    client: Any = None,
     partitions: int | None = None,
 ) -> tuple[pd.DataFrame, list[list[str]]]:
     """Run ``design`` over ``blocks`` with the chosen engine; same result either way.
@@ -223,7 +233,7 @@ def run_design(
     if engine == "local" or global_allocation or len(blocks) < 2:
         return DESIGNS[design].load()(blocks, areas, params, exclusion_union, progress)
 
-    def go(c) -> tuple:
+    def go(c: Any) -> tuple:
         workers = max(1, len(c.scheduler_info().get("workers", {})) or 1)
         n_parts = min(len(blocks), partitions or 4 * workers)
         return _run_dask(design, blocks, areas, params, exclusion_union, client=c, n_parts=n_parts)

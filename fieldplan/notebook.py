@@ -219,7 +219,7 @@ def prepare_blocks(
     return out
 
 
-def _polygons(geom):
+def _polygons(geom: shapely.Geometry) -> shapely.Geometry:
     parts = shapely.get_parts(geom)
     polys = [p for p in parts if shapely.get_type_id(p) in (3, 6)]
     return shapely.union_all(polys) if polys else shapely.Polygon()

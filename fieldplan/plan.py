@@ -10,9 +10,10 @@ import math
 import os
 import shlex
 import sys
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
+from typing import Any
 
 import geopandas as gpd
 import numpy as np
@@ -120,7 +121,9 @@ def sample_areas(
     return np.asarray(areas, dtype=object)
 
 
-def _fallback_point(block_geom, area, exclusion_union, rng: np.random.Generator):
+def _fallback_point(
+    block_geom: shapely.Geometry, area: shapely.Geometry | None, exclusion_union: shapely.Geometry | None, rng: np.random.Generator
+) -> tuple[np.ndarray | None, str]:
     """One point for a block the grid missed: random inside the sampled area, else a safe spot.
 
     Returns ``(None, note)`` when exclusions cover the whole block: no spot is safe.
@@ -154,7 +157,7 @@ def _grid_design(
     blocks: gpd.GeoDataFrame,
     areas: np.ndarray,
     params: dict,
-    exclusion_union,
+    exclusion_union: shapely.Geometry | None,
     progress: Callable[[int, int], None] | None,
 ) -> tuple[pd.DataFrame, list[list[str]]]:
     seed = params["seed"]
@@ -297,7 +300,7 @@ def _run_params(spec: PlanSpec, seed: int) -> dict:
     return run
 
 
-def _as_spec(spec, options: dict) -> tuple[PlanSpec, object]:
+def _as_spec(spec: PlanSpec | Mapping | None, options: dict) -> tuple[PlanSpec, object]:
     """The spec to plan with, and a rows frame passed the old way (in ``design_options``)."""
     if options:
         if spec is not None:
@@ -321,7 +324,7 @@ def make_plan(
     command: list[str] | None = None,
     progress: Callable[[int, int], None] | None = None,
     previous: Plan | None = None,
-    **options,
+    **options: Any,
 ) -> Plan:
     """Plan samples over blocks.
 
@@ -520,7 +523,7 @@ def make_plan(
     return plan
 
 
-def _grid_substitutes(points: gpd.GeoDataFrame, blocks, areas: np.ndarray, params: dict) -> gpd.GeoDataFrame:
+def _grid_substitutes(points: gpd.GeoDataFrame, blocks: pd.DataFrame, areas: np.ndarray, params: dict) -> gpd.GeoDataFrame:
     """One within-cell substitute per grid point at its design position (see fieldplan.field.substitutes)."""
     index = pd.Index(blocks["block"]).get_indexer(points["block"])
     if params["angle"] == "rows":

@@ -222,7 +222,7 @@ def revisit_plan(
     return replace(purposed, params=params, layers=layers)
 
 
-def _earlier_cores(new: gpd.GeoDataFrame, old, crs) -> gpd.GeoDataFrame:
+def _earlier_cores(new: gpd.GeoDataFrame, old: pd.DataFrame, crs: CRS) -> gpd.GeoDataFrame:
     """This round's cores at the earlier cores' spots, where the earlier plan had them.
 
     Cores are matched by site and core number (by block for one composite per

@@ -15,11 +15,15 @@ import enum
 import inspect
 import sys
 from pathlib import Path
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 
 from fieldplan.cli.options import echo_err, handle_errors, progress_callback, report_replaced
+
+if TYPE_CHECKING:
+    from fieldplan.plan import Plan
+    from fieldplan.spec import PlanSpec
 
 __all__ = ["register", "plan", "run_plan", "build_spec"]
 
@@ -218,7 +222,9 @@ def _plain(value: Any) -> Any:
     return value
 
 
-def build_spec(ctx: typer.Context, values: dict[str, Any], *, recipe: Path | None, like: Path | None, seed: int | None):
+def build_spec(
+    ctx: typer.Context, values: dict[str, Any], *, recipe: Path | None, like: Path | None, seed: int | None
+) -> tuple[PlanSpec, int]:
     """The spec and seed from a recipe or earlier plan, overridden by the flags typed."""
     from fieldplan.errors import OptionError
     from fieldplan.spec import flag_of
@@ -283,7 +289,9 @@ def _command() -> Any:
 plan = _command()
 
 
-def _spec_and_seed(given: dict, *, recipe: Path | None, like: Path | None, seed: int | None):
+def _spec_and_seed(
+    given: dict, *, recipe: Path | None, like: Path | None, seed: int | None
+) -> tuple[PlanSpec, int]:
     """The spec from a recipe or earlier plan overridden by the flags given, and the seed to use."""
     from fieldplan.errors import OptionError
     from fieldplan.recipe import merge, plan_recipe, read_recipe
@@ -313,8 +321,15 @@ def _spec_and_seed(given: dict, *, recipe: Path | None, like: Path | None, seed:
 
 
 def run_plan(
-    blocks_file: Path, spec, *, out: Path, seed: int, force: bool, quiet: bool, discard_history: bool = False
-):
+    blocks_file: Path,
+    spec: PlanSpec,
+    *,
+    out: Path,
+    seed: int,
+    force: bool,
+    quiet: bool,
+    discard_history: bool = False,
+) -> Plan:
     """Check the output folder and resources, read, plan, write and report one spec."""
     from fieldplan.engine import check_engine
     from fieldplan.plan import make_plan
@@ -376,7 +391,7 @@ def run_plan(
     return result
 
 
-def report(result, out: Path) -> None:
+def report(result: Plan, out: Path) -> None:
     """Print what was planned, notes and flags, and the cautions."""
     from fieldplan.safety import cautions_text, plan_cautions
     from fieldplan.words import plural

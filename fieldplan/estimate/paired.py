@@ -15,11 +15,16 @@ plants of a cluster, several readings of a sample).
 from __future__ import annotations
 
 import math
+from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
 
 from fieldplan.errors import InputError, OptionError
+
+if TYPE_CHECKING:
+    from fieldplan.plan import Plan
 
 __all__ = [
     "site_values",
@@ -141,13 +146,13 @@ def paired_table(
 
 
 def paired_estimates(
-    plan,
+    plan: Plan,
     *,
     value: str,
     by: str = "block",
     confidence: float = 0.95,
     round_no: int | None = None,
-    previous=None,
+    previous: Plan | None = None,
     compare_round: int | None = None,
 ) -> tuple[pd.DataFrame, str]:
     """The change in ``value`` at the same sites, per group and overall, and a one-line heading.
@@ -196,7 +201,15 @@ CHANGES_NAME = "changes.csv"
 
 
 def report_change(
-    plan_dir, value: str, *, by: str, confidence: float, round_no, previous, compare_round, quiet: bool
+    plan_dir: str | Path,
+    value: str,
+    *,
+    by: str,
+    confidence: float,
+    round_no: int | None,
+    previous: str | Path | None,
+    compare_round: int | None,
+    quiet: bool,
 ) -> None:
     """``fieldplan estimate --previous/--compare-round``: write changes.csv and print the table."""
     from pathlib import Path
