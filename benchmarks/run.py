@@ -45,6 +45,7 @@ STUDIES: dict[str, Callable[..., list[Result]]] = {
     "dask": _study("bench_dask"),
     "process": _study("bench_process"),
     "zones": _study("zones_bench"),
+    "map": _study("bench_map"),
 }
 
 #: Studies kept in other modules; run through their ``main(argv)`` when present.

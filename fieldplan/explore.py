@@ -53,6 +53,8 @@ import base64
 import hashlib
 import html
 import re
+import sys
+import types
 from functools import cache, lru_cache
 from importlib import resources
 from pathlib import Path
@@ -127,6 +129,19 @@ class _Text(Element):
         return self.text
 
 
+class _Island(_Text):
+    """The plan's data document, ``<script type="application/json" id="fp-data">``.
+
+    The offline page renders a placeholder here and puts the document in last:
+    it is most of the page, and every step of rendering would copy it again.
+    """
+
+    PLACEHOLDER = "@@FIELDPLAN_DATA@@"
+
+    def render(self, **kwargs) -> str:
+        return self.PLACEHOLDER if kwargs.get("island_placeholder") else self.text
+
+
 class _KitControl(MacroElement):
     """A call of ``fieldplanKit.<function>(map, options)``: controls and page glue."""
 
@@ -160,9 +175,22 @@ class _OfflineMap(folium.Map):
 
 
 class _OfflinePage(Figure):
-    """The page around the offline map: language, CSP placeholder, the two scripts."""
+    """The page around the offline map: language, CSP, the two scripts, stable names.
+
+    Rendering it (``Map.save``, a notebook's display, :func:`render_offline`) gives
+    the finished page, so every way of saving the offline map gives the same bytes.
+    """
 
     _template = Template(_asset("page.html.j2"))
+    island: _Island | None = None
+
+    def render(self, **kwargs) -> str:
+        text = _finish_offline(self, super().render(island_placeholder=True, **kwargs))
+        if self.island is not None:
+            # The body's first placeholder is the island (the title, in the head, is input text).
+            head, body = text.split("<body>", 1)
+            text = head + "<body>" + body.replace(_Island.PLACEHOLDER, self.island.text, 1)
+        return text
 
 
 def _geojson(key: str, index: list[int] | None = None, **kwargs) -> folium.GeoJson:
@@ -243,7 +271,10 @@ def plan_map(
         m = folium.Map(location=centre, tiles=None, zoom_start=15, **MAP_OPTIONS)
         page = m.get_root()
     page.header.add_child(_Text(f"<style>\n{_asset('fieldplan-map.css')}</style>"), name="fieldplan_css")
-    page.html.add_child(_Text(island), name="fieldplan_data")
+    island_element = _Island(island)
+    page.html.add_child(island_element, name="fieldplan_data")
+    if isinstance(page, _OfflinePage):
+        page.island = island_element
     page.script.add_child(_Text("\n" + _asset("fieldplan-map.js")), name="fieldplan_kit")
 
     m.fit_bounds([[s, w], [n, e]], padding=FIT_PADDING, max_zoom=FIT_MAX_ZOOM)
@@ -351,15 +382,10 @@ def _csp(scripts: list[str]) -> str:
     )
 
 
-def render_offline(m: folium.Map) -> str:
-    """The offline map page as text: stable element names and a CSP pinning its two scripts."""
-    page = m.get_root()
-    text = page.render()
+def _finish_offline(page: Figure, text: str) -> str:
+    """Stable element names and the CSP pinning the page's two scripts."""
     # folium's ids are random: renumber the ones its elements carry, in order of
-    # appearance. The data island (most of the page) holds none and is left out.
-    head, rest = text.split(_ISLAND_OPEN, 1)
-    island, body = rest.split("</script>", 1)  # the island's JSON has "<" escaped
-    island = _ISLAND_OPEN + island + "</script>"
+    # appearance (the data island is not in the text yet and holds none).
     ids = _element_ids(page.to_dict(), set())
     numbers: dict[str, str] = {}
 
@@ -369,11 +395,16 @@ def render_offline(m: folium.Map) -> str:
             return token
         return numbers.setdefault(token, str(len(numbers) + 1))
 
-    text = _HEX_ID.sub(renumber, head) + island + _HEX_ID.sub(renumber, body)
+    text = _HEX_ID.sub(renumber, text)
     js, _ = leaflet_assets()
     app = text.rsplit("<script>", 1)[1].split("</script>", 1)[0]
     csp = html.escape(_csp(["\n" + js + "\n", app]), quote=True)
     return text.replace("@@CSP@@", csp, 1)
+
+
+def render_offline(m: folium.Map) -> str:
+    """The page of a map made with ``plan_map(..., offline=True)``, as text."""
+    return m.get_root().render()
 
 
 def explore(
@@ -415,3 +446,18 @@ def explore(
     return plan_map(
         plan, routes=routes, spares=spares, actual=actual, markers=markers, offline=offline, basemap=basemap
     )
+
+
+class _CallableModule(types.ModuleType):
+    """This module, callable as :func:`explore`.
+
+    ``fieldplan.explore`` names both this module and its function: once the module
+    is imported, Python binds the package attribute to the module, so calling the
+    module keeps ``fieldplan.explore(plan)`` working either way.
+    """
+
+    def __call__(self, *args, **kwargs) -> folium.Map:
+        return explore(*args, **kwargs)
+
+
+sys.modules[__name__].__class__ = _CallableModule

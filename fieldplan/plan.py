@@ -96,6 +96,12 @@ class Plan:
         """The plan's specification, rebuilt from ``params`` (plans of older versions too)."""
         return PlanSpec.from_dict(self.params, strict=False)
 
+    def explore(self, **kwargs):
+        """The plan's map as a ``folium.Map`` for notebooks (see :func:`fieldplan.explore.explore`)."""
+        from fieldplan.explore import explore
+
+        return explore(self, **kwargs)
+
 
 def _utc_now() -> str:
     # SOURCE_DATE_EPOCH makes the manifest reproducible too (reproducible-builds convention).

@@ -73,3 +73,13 @@ def test_run_writes_table_with_targets(tmp_path):
     for r in data["results"]:
         assert isinstance(r["passed"], bool) and r["target"] > 0
         assert r["name"] in text
+
+
+def test_map_study_runs_on_a_tiny_plan():
+    from benchmarks import bench_map
+
+    size, timing = bench_map.study(smoke=True)
+    assert size.unit == "KB" and 0 < size.ratio and size.target == 400.0
+    assert math.isfinite(timing.ratio) and timing.ratio > 0 and timing.target == 1.5
+    # reference: the former hand-written writer (benchmarks/baseline_map.py) carries the same data document
+    assert timing.details["same_data"]

@@ -236,3 +236,36 @@ def test_inaccessible_points_get_their_own_layer_symbol_and_legend(plan):
     # Without marks nothing changes: no inaccessible layer, every point drawn as planned.
     plain = _data(map_html(plan))
     assert plain["inaccessible"]["n"] == 0 and plain["points"]["n"] == len(plan.points)
+
+
+def test_folium_element_names_are_stable_across_processes(tmp_path):
+    import subprocess
+    import sys
+
+    code = (
+        "import sys; from fieldplan.demo import make_demo_plan; "
+        "from fieldplan.write.html_map import write_map; write_map(make_demo_plan(), sys.argv[1])"
+    )
+    pages = []
+    for name in ("a.html", "b.html"):
+        subprocess.run([sys.executable, "-c", code, str(tmp_path / name)], check=True)
+        pages.append((tmp_path / name).read_bytes())
+    # common practice, no source: reproducible outputs compare byte for byte
+    assert pages[0] == pages[1]
+    page = pages[0].decode("utf-8")
+    # branca names elements <kind>_<32 random hex digits>; none is left in the page.
+    assert not re.search(r"_[0-9a-f]{32}\b", page)
+    assert re.search(r"var map_1 = L\.map\(", page)
+
+
+def test_demo_map_size_and_no_cdn_asset():
+    import folium
+
+    from fieldplan.demo import make_demo_plan
+
+    page = map_html(make_demo_plan())
+    assert len(page.encode("utf-8")) <= 400_000  # the project's size budget for the demo map
+    # reference: folium.Map.default_js / default_css, the CDN assets folium's own page loads
+    for _, url in (*folium.Map.default_js, *folium.Map.default_css):
+        assert url not in page
+    assert "cdn" not in page.lower()
