@@ -159,8 +159,15 @@
       arrow.classList.add("none");
     } else {
       $("next-id").textContent = "#" + t.n + " " + t.point_id;
-      $("next-where").textContent = "Block " + t.block + (t.row ? ", row " + t.row : "") +
-        (t.plant ? ", plant " + t.plant : "") + (t.sample_id ? " \u00b7 bag " + t.sample_id : "");
+      var where = $("next-where");
+      where.textContent = "Block " + t.block + (t.row ? ", row " + t.row : "") + (t.plant ? ", plant " + t.plant : "");
+      if (t.sample_id) {
+        var bag = document.createElement("span");
+        bag.className = "bag";
+        bag.textContent = "bag " + t.sample_id;
+        where.appendChild(document.createTextNode(" \u00b7 "));
+        where.appendChild(bag);
+      }
       if (state.fix) {
         var c = state.fix.coords, g = FC.inverse(c.latitude, c.longitude, t.lat, t.lon);
         $("distance").textContent = metres(g.distance);
