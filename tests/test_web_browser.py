@@ -320,6 +320,9 @@ def save_screenshots(out: Path = DOCS) -> list[Path]:
         tmp = Path(tmp)
         workspace = tmp / "ws"
         workspace.mkdir()
+        from benchmarks.web_bench import demo_workspace
+
+        demo_workspace(workspace)  # the demo plans of `make demo` beside the one made here
         server = LiveServer(workspace)
         try:
             with sync_playwright() as pw:

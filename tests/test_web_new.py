@@ -104,6 +104,16 @@ def test_preview_then_save_equals_the_cli(client, tmp_path, monkeypatch):
     for name in (*POINT_FILES, "cores.geojson"):
         # reference: `fieldplan plan` with the same file, parameters and seed
         assert (client.ws / "web" / name).read_bytes() == (tmp_path / "cli" / name).read_bytes(), name
+    manifest = json.loads((client.ws / "web" / "manifest.json").read_text())
+    assert manifest["input_file"] == "estate_blocks.geojson" and "fieldplan-upload" not in json.dumps(
+        manifest
+    )
+    assert "fieldplan-upload" not in (client.ws / "web" / "README.txt").read_text()
+    # The manifest's command is the CLI's, with the flags given above.
+    assert manifest["command"] == (
+        "fieldplan plan estate_blocks.geojson --design random --edge-buffer 5 --per-block 3 --purpose soil "
+        "--spares 2 --exclude estate_exclusions.geojson --seed 7 --out PLAN_FOLDER"
+    )
 
 
 def test_multipart_plan_grid_equals_the_cli(client, tmp_path):

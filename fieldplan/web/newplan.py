@@ -201,6 +201,10 @@ def _read(staged: Staged, spec, exclusions: Staged | None):
     attrs = dict(blocks.attrs)
     blocks = blocks.copy()
     blocks.attrs.update(attrs)
+    # The manifest names the file the user gave, not the private upload folder.
+    from fieldplan.write.safe import safe_filename
+
+    blocks.attrs["source"] = safe_filename(Path(staged.original_name).name, default="blocks")
     if mapped:
         blocks = _apply_roles(blocks, mapped, unit)
     if spec.input.select is not None:
@@ -278,11 +282,42 @@ def plan_from_upload(
         spec,
         seed=int(seed),
         exclusions=excl,
-        command=["fieldplan", "serve", f"(new plan from {staged.original_name}, seed {int(seed)})"],
+        command=cli_command(spec, blocks.attrs["source"], seed=int(seed)),
         progress=progress,
     )
     set_cautions(plan, None)
     return plan
+
+
+def cli_command(spec, blocks_name: str, *, seed: int, out: str = "PLAN_FOLDER") -> list[str]:
+    """The ``fieldplan plan`` command giving the same points, for the manifest and README.
+
+    Only parameters that differ from their defaults are spelled out, with the CLI's flags.
+    """
+    from fieldplan.spec import flag_of, spec_schema
+
+    defaults = {f["name"]: f["default"] for f in spec_schema()["fields"]}
+    args = ["fieldplan", "plan", blocks_name]
+    for name, value in spec.to_dict().items():
+        default = defaults.get(name)
+        if isinstance(value, tuple):
+            value = list(value)
+        if value is None or value == default or (isinstance(value, dict | list) and not value):
+            continue
+        if isinstance(value, bool):
+            if value:
+                args.append(flag_of(name))
+            continue
+        if isinstance(value, dict):
+            for role, source in value.items():
+                args += [flag_of(name), f"{role}={source}"]
+            continue
+        if isinstance(value, list):
+            value = ",".join(str(v) for v in value)
+        if isinstance(value, float) and value.is_integer():
+            value = int(value)
+        args += [flag_of(name), str(value)]
+    return [*args, "--seed", str(int(seed)), "--out", out]
 
 
 def preview_payload(plan) -> dict:
