@@ -533,3 +533,55 @@ def test_crew_sheet_carries_the_crew_link_as_a_qr_code(tmp_path):
             assert not check_crew_token(secret, "vintage", 3 - k, token)
         browser.close()
     assert len(found) == 2
+
+
+def test_scanning_the_bag_label_fills_the_id(served, tmp_path):
+    """Where the browser has a barcode detector, Scan reads the bag's QR code into the id field.
+
+    Headless Chromium on Linux has no detector, so a stand-in returns the label a camera would
+    read; the fake camera of Chromium supplies the video. What is checked is the page's part:
+    the camera opens, the code read fills the field, the id check then applies.
+    """
+    from playwright.sync_api import sync_playwright
+
+    server, app, _ = served
+    with sync_playwright() as pw:
+        context = pw.chromium.launch_persistent_context(
+            str(tmp_path / "phone"),
+            executable_path=str(CHROMIUM),
+            headless=True,
+            args=[*ARGS, "--use-fake-device-for-media-stream", "--use-fake-ui-for-media-stream"],
+            viewport={"width": 412, "height": 860},
+            permissions=["geolocation", "camera"],
+            geolocation={"latitude": -33.9285, "longitude": 18.862, "accuracy": 4},
+        )
+        blocked = []
+        context.route(
+            "**/*",
+            lambda r: (
+                r.continue_()
+                if r.request.url.startswith(server.url + "/")
+                else (blocked.append(r.request.url), r.abort())
+            ),
+        )
+        context.add_init_script(
+            """window.BarcodeDetector = class {
+                 constructor(options) { this.formats = options.formats; }
+                 async detect(video) {
+                   return video.readyState >= 2 && window.__label ? [{ rawValue: window.__label }] : [];
+                 }
+               };"""
+        )
+        page = context.new_page()
+        page.goto(crew_link(app, "vintage", 2, server.url))
+        _wait_ready(page)
+        page.click("#btn-cautions-close")
+        target = page.evaluate("window.fieldplanCrew.state.target")
+        page.click("#btn-taken")
+        assert page.locator("#btn-scan").is_visible()
+        page.evaluate(f"window.__label = {target['sample_id']!r}")
+        page.click("#btn-scan")
+        wait_until(page, f"document.getElementById('sample-id').value === {target['sample_id']!r}")
+        assert page.locator("#scan-video").is_hidden()  # camera closed after the read
+        context.close()
+    assert blocked == []

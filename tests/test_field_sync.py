@@ -492,3 +492,28 @@ def test_a_late_day_is_stored_with_a_note(plan_dir):
     report = apply_records(plan_dir, [late], crew=2)
     assert report.round_no == 2
     assert any("2027-02-19 arrived after field values of 2027-02-20" in n for n in report.notes)
+
+
+def test_grid_offers_the_cells_substitute_as_mark_does(tmp_path, monkeypatch):
+    """Grid plans with within-cell substitutes: the page offers the point's own substitute."""
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "1800000000")
+    blocks = tmp_path / "blocks.geojson"
+    blocks.write_text(json.dumps(BLOCKS))
+    plan_dir = tmp_path / "workspace" / "grid"
+    runner = CliRunner()
+    for args in (
+        ["plan", str(blocks), "--spacing", "90", "--substitute", "within-cell", "--seed", "8",
+         "--formats", "core", "--out", str(plan_dir), "-q"],
+        ["crews", str(plan_dir), "--crews", "1", "-q"],
+    ):  # fmt: skip
+        result = runner.invoke(cli, args)
+        assert result.exit_code == 0, result.output
+    plan = load_plan(plan_dir)
+    pid = str(plan.points["point_id"].iloc[2])
+    offer = replacement_offers(plan, [pid])[pid]
+    assert offer["kind"] == "substitute" and offer["replacement_id"] == pid + "-S"
+    sub = plan.layers["substitutes"].set_index("point_id").to_crs(4326).geometry[pid]
+    assert abs(offer["lon"] - sub.x) < 1e-6 and abs(offer["lat"] - sub.y) < 1e-6
+    report = apply_records(plan_dir, [unreachable({"point_id": pid})], crew=1)
+    # reference: `fieldplan mark` (within-cell substitute, docs/field-changes.md)
+    assert report.events[0]["replacement_id"] == offer["replacement_id"]
