@@ -12,14 +12,18 @@ map is either saved as the self-contained ``map.html`` (``offline=True``, what
     m.save("estate.html")
 
 What comes from folium: the map, the layer control, block polygons, exclusions
-and crew routes (``GeoJson``), block labels (``GeoJson`` of anchor points with a
-``Marker``/``DivIcon``), the two map panes (``CustomPane``), the initial view
+and crew routes (``GeoJson`` with Leaflet styles), block labels (``GeoJson`` of
+anchor points with a ``Marker``/``DivIcon``), the "Blocks" group
+(``FeatureGroup``), the two map panes (``CustomPane``), the initial view
 (``FitBounds``), the OpenStreetMap layer (``TileLayer``, listed but off).
 
 What folium has no element for is JavaScript of our own, kept as package data
 in ``fieldplan/data/map/`` and called from two thin folium elements:
 
-* ``fieldplan-map.js`` (the ``fieldplanKit`` global): point layers with a shape
+* ``fieldplan-map.js`` (the ``fieldplanKit`` global): ``fill``, which hands the
+  GeoJson layers their features from the page's data document (folium would embed
+  them a second time, and branca re-parses every rendered script as a Jinja
+  template, which costs 0.3 s on the 1,000-block plan); point layers with a shape
   and colour per stratum drawn as elements or, for large plans, on one canvas
   (folium has no shaped markers that work offline, and one folium element per
   point would take seconds to render); popups, block labels and route tooltips
@@ -39,12 +43,16 @@ in ``fieldplan/data/map/`` and called from two thin folium elements:
 
 The plan data reach the page once, as escaped JSON in
 ``<script type="application/json" id="fp-data">`` (see
-:func:`fieldplan.write.html_map.map_data`); folium's GeoJson layers embed their
-features with Jinja's ``tojson``, which escapes ``<``, ``>``, ``&`` and ``'``.
+:func:`fieldplan.write.html_map.map_data`); what folium writes into its script
+goes through Jinja's ``tojson``, which escapes ``<``, ``>``, ``&`` and ``'``.
 Layer names go to Leaflet's layer control as HTML, so they are escaped here.
 
-folium names its elements with random ids; :func:`render_offline` renumbers them
-in order of appearance, so the same plan gives the same bytes.
+folium names its elements with random ids; the offline page renumbers them in
+order of appearance when it is rendered, so the same plan gives the same bytes.
+
+The offline map and page are subclasses of ``folium.Map`` and ``branca``'s
+``Figure`` with templates of their own and empty ``default_js``/``default_css``
+(folium's extension points for elements); nothing of folium is patched.
 """
 
 from __future__ import annotations

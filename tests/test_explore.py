@@ -108,3 +108,12 @@ def test_map_module_imports_no_folium():
     code = "import sys, fieldplan.write.html_map, fieldplan.write.gpx; print('folium' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"
+
+
+def test_explore_checks_marker_mode(plan):
+    from fieldplan.errors import OptionError
+
+    with pytest.raises(OptionError, match="markers must be one of"):
+        fieldplan.explore(plan, markers="webgl")
+    data = _island(fieldplan.explore(plan, markers="canvas").get_root().render())
+    assert data["marker_mode"] == "canvas"

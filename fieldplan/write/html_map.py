@@ -334,6 +334,10 @@ def _split_points(points, spares):
 
 def map_data(plan: Any, *, routes=None, spares=None, actual=None, markers: str = "auto") -> dict:
     """The JSON document the map page renders (exposed for tests and other front ends)."""
+    if markers not in MARKER_MODES:
+        from fieldplan.errors import OptionError
+
+        raise OptionError(f"markers must be one of {', '.join(MARKER_MODES)}; got {markers!r}")
     from fieldplan.safety import plan_cautions
 
     routes = routes if routes is not None else optional_layer(plan, "routes")
@@ -387,10 +391,6 @@ def map_data(plan: Any, *, routes=None, spares=None, actual=None, markers: str =
 
 def map_html(plan: Any, *, routes=None, spares=None, actual=None, markers: str = "auto") -> str:
     """Return the complete map page as text (see :func:`write_map`)."""
-    if markers not in MARKER_MODES:
-        from fieldplan.errors import OptionError
-
-        raise OptionError(f"markers must be one of {', '.join(MARKER_MODES)}; got {markers!r}")
     from fieldplan.explore import plan_map, render_offline
 
     data = map_data(plan, routes=routes, spares=spares, actual=actual, markers=markers)
