@@ -517,3 +517,24 @@ def test_grid_offers_the_cells_substitute_as_mark_does(tmp_path, monkeypatch):
     report = apply_records(plan_dir, [unreachable({"point_id": pid})], crew=1)
     # reference: `fieldplan mark` (within-cell substitute, docs/field-changes.md)
     assert report.events[0]["replacement_id"] == offer["replacement_id"]
+
+
+def test_crew_link_needs_no_workspace_token_and_opens_nothing_else(plan_dir):
+    """A workspace served beyond localhost has an access token; the crew link works without it."""
+    from fastapi.testclient import TestClient
+
+    from fieldplan.field.links import crew_token
+    from fieldplan.web.app import create_app
+
+    app = create_app(plan_dir.parent, token="office-key-0123456789", public=True)
+    http = TestClient(app, base_url="http://10.0.0.7:8750")
+    t = crew_token(app.state.secret, "harvest", 1)
+    assert http.get(f"/field/harvest/1/?t={t}").status_code == 200
+    assert http.get(f"/api/field/harvest/1/data?t={t}").status_code == 200
+    assert http.get("/field/static/crew.js").status_code == 200
+    posted = http.post("/api/field/harvest/1/records", json={"records": []}, headers={"x-crew-token": t})
+    assert posted.status_code == 200
+    # The crew token is no key to the workspace itself.
+    assert http.get(f"/api/plans?t={t}", headers={"x-crew-token": t}).status_code == 401
+    assert http.get("/plans/harvest", headers={"authorization": f"Bearer {t}"}).status_code == 401
+    assert http.get("/api/field/harvest/links", headers={"x-crew-token": t}).status_code == 403
