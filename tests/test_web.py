@@ -234,3 +234,13 @@ def test_staged_uploads_removed_when_the_server_stops(workspace):
         staged = client.app.state.uploads.get(r.json()["upload"]).folder
         assert staged.is_dir() and workspace not in staged.parents
     assert not staged.exists()
+
+
+def test_static_files_revalidated_pages_not_stored(client):
+    js = client.get("/static/leaflet/leaflet.js")
+    assert js.status_code == 200 and js.headers["cache-control"] == "no-cache" and js.headers.get("etag")
+    # reference: RFC 9110 section 13.1.2: If-None-Match with the current ETag answers 304
+    again = client.get("/static/leaflet/leaflet.js", headers={"If-None-Match": js.headers["etag"]})
+    assert again.status_code == 304
+    assert client.get("/").headers["cache-control"] == "no-store"
+    assert client.get("/api/plans").headers["cache-control"] == "no-store"

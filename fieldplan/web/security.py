@@ -228,7 +228,8 @@ class Guard:
                 headers += [(k, v) for k, v in SECURITY_HEADERS if k not in present]
                 headers += [(b"set-cookie", c.encode("latin-1")) for c in new_cookies]
                 if b"cache-control" not in present:
-                    headers.append((b"cache-control", b"no-store"))
+                    # Scripts and styles may be kept and revalidated (ETag); pages and data never kept.
+                    headers.append((b"cache-control", b"no-cache" if path.startswith("/static/") else b"no-store"))
                 message = {**message, "headers": headers}
             await send(message)
 
