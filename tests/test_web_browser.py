@@ -397,3 +397,43 @@ def test_hostile_names_stay_text(tmp_path):
     assert any(EVIL_BLOCK in t and EVIL_VARIETY in t for t in labels)
     assert EVIL_BLOCK in table and EVIL_VARIETY.strip() in table
     assert log["requests"] == [] and log["errors"] == []
+
+
+def test_large_plan_drawn_on_a_canvas(tmp_path):
+    """Above map.html's DOM_MARKER_LIMIT the plan page draws points on one canvas, with no errors."""
+    if not CHROMIUM.exists():
+        pytest.skip("needs Debian's chromium at /usr/bin/chromium")
+    import pandas as pd
+    from playwright.sync_api import sync_playwright
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import app as cli
+    from fieldplan.demo import demo_blocks_path
+    from fieldplan.write.html_map import DOM_MARKER_LIMIT
+
+    ws = tmp_path / "ws"
+    ws.mkdir()
+    result = CliRunner().invoke(
+        cli, ["plan", str(demo_blocks_path()), "--spacing", "14", "--out", str(ws / "dense"), "-q"]
+    )
+    assert result.exit_code == 0, result.output
+    n = len(pd.read_csv(ws / "dense" / "points.csv"))
+    assert n > DOM_MARKER_LIMIT
+    server = LiveServer(ws)
+    try:
+        with sync_playwright() as pw:
+            browser, page, log = open_browser(pw, server.base)
+            try:
+                page.goto(server.base + "/plans/dense")
+                page.wait_for_selector("body[data-loaded]")
+                page.wait_for_timeout(300)
+                dom_points = page.locator(".fp-point").count()
+                canvases = page.locator(".leaflet-fp-points-pane canvas").count()
+                legend = page.inner_text(".fp-legend")
+            finally:
+                browser.close()
+    finally:
+        server.stop()
+    assert dom_points == 0 and canvases == 1
+    assert "Stratum F01" in legend
+    assert log["requests"] == [] and log["errors"] == []

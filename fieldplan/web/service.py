@@ -185,7 +185,7 @@ def plan_detail(folder: Path) -> dict:
     if hit is not None and hit[1][0] is plan:
         data = hit[1][1]
     else:
-        data = map_data(plan, markers="dom")
+        data = map_data(plan, markers="auto")  # canvas markers above DOM_MARKER_LIMIT points
         _CACHE[key] = ((), (plan, data))
     from fieldplan.results import stored_results
 

@@ -88,6 +88,41 @@
   }
   FP.detailsTable = detailsTable;
 
+  // Canvas marker: a stratum's shape on a shared canvas; point ids drawn as text (fillText) from zoom 18.
+  var ShapeMarker = L.CircleMarker.extend({
+    _updatePath: function () {
+      var r = this._renderer;
+      if (!r._ctx) { r._updateCircle(this); return; }
+      if (!r._drawing || this._empty()) { return; }
+      var p = this._point, ctx = r._ctx, rad = this._radius, pts = SHAPE_POINTS[this.options.shape];
+      ctx.beginPath();
+      if (!pts) {
+        ctx.arc(p.x, p.y, rad, 0, Math.PI * 2, false);
+      } else {
+        pts.forEach(function (q, j) {
+          var x = p.x + q[0] * rad, y = p.y + q[1] * rad;
+          if (j === 0) { ctx.moveTo(x, y); } else { ctx.lineTo(x, y); }
+        });
+        ctx.closePath();
+      }
+      r._fillStroke(ctx, this);
+      if (this.options.shape === "circle-x") {
+        ctx.beginPath();
+        STRIKE.forEach(function (q) {
+          ctx.moveTo(p.x + q[0] * rad, p.y + q[1] * rad); ctx.lineTo(p.x + q[2] * rad, p.y + q[3] * rad);
+        });
+        ctx.globalAlpha = 1; ctx.lineWidth = 2; ctx.strokeStyle = this.options.color; ctx.stroke();
+      }
+      if (this.options.label && this._map && this._map.getZoom() >= 18) {
+        ctx.globalAlpha = 1;
+        ctx.font = "bold 11px sans-serif";
+        ctx.lineWidth = 3; ctx.strokeStyle = "#ffffff"; ctx.fillStyle = "#111111";
+        ctx.strokeText(this.options.label, p.x + rad + 3, p.y + 4);
+        ctx.fillText(this.options.label, p.x + rad + 3, p.y + 4);
+      }
+    }
+  });
+
   function escapeHtml(text) {
     return String(text).replace(/&/g, "&amp;").replace(/</g, "&lt;").replace(/>/g, "&gt;")
       .replace(/"/g, "&quot;").replace(/'/g, "&#39;");
@@ -173,14 +208,28 @@
       overlays.push(["Route: crew " + crew.name, layer]);
     });
 
+    // Large plans: every marker drawn on one canvas (same shapes and colours), as map.html does.
+    var canvasMode = data.marker_mode === "canvas";
+    var canvasRenderer = null;
+    if (canvasMode) {
+      map.createPane("fp-points").style.zIndex = 450;
+      canvasRenderer = L.canvas({ pane: "fp-points", padding: 0.3 });
+    }
+
     function marker(props, latlng, cls, shape, colour, size, kind) {
       var title = String(props.point_id === null || props.point_id === undefined ? "" : props.point_id);
-      var box = el("div");
-      box.appendChild(shapeSvg(shape, colour, size));
-      box.appendChild(el("span", title, "fp-label"));
-      var icon = L.divIcon({ html: box, className: cls, iconSize: [size, size],
-        iconAnchor: [size / 2, size / 2], popupAnchor: [0, -size / 2] });
-      var m = L.marker(latlng, { icon: icon, title: title, keyboard: true, alt: title });
+      var m;
+      if (canvasMode) {
+        m = new ShapeMarker(latlng, { renderer: canvasRenderer, radius: size / 2 - 1, shape: shape,
+          fillColor: colour, fillOpacity: 1, color: "#1a1a1a", weight: 1.2, label: title });
+      } else {
+        var box = el("div");
+        box.appendChild(shapeSvg(shape, colour, size));
+        box.appendChild(el("span", title, "fp-label"));
+        var icon = L.divIcon({ html: box, className: cls, iconSize: [size, size],
+          iconAnchor: [size / 2, size / 2], popupAnchor: [0, -size / 2] });
+        m = L.marker(latlng, { icon: icon, title: title, keyboard: true, alt: title });
+      }
       m.fpProps = props; m.fpKind = kind;
       m.bindPopup(function () {
         var wrap = el("div", null, "fp-popup");
