@@ -234,7 +234,14 @@ def test_offline_day_then_one_sync(served, tmp_path):
         offer = unreachable["offer"]
         if offer and offer["replacement_id"]:
             assert offer["replacement_id"] in page.locator("#offer-text").inner_text()
-        page.click("#btn-offer-close")
+        if offer and offer["replacement_id"]:
+            page.click("#btn-offer-go")  # the spare becomes the next point, with its own bag
+            wait_until(
+                page, f"document.getElementById('next-id').textContent.includes({offer['replacement_id']!r})"
+            )
+            assert offer["sample_id"] in page.locator("#next-where").inner_text()
+        else:
+            page.click("#btn-offer-close")
         assert page.locator("#unsynced-count").inner_text() == "6"
         # No server all day: Export saves the records to a file (applied below, after the sync).
         with page.expect_download() as saved:

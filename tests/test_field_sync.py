@@ -132,6 +132,8 @@ def test_records_apply_once_through_results_positions_and_mark(plan_dir):
     assert list(events["point_id"]) == [rows[3].point_id] and list(events["user"]) == ["crew 1"]
     # The spare the page offered is the one `mark` brought in.
     assert events["replacement_id"].iloc[0] == offers[rows[3].point_id]["replacement_id"] != ""
+    spare = load_plan(plan_dir).points.set_index("point_id").loc[events["replacement_id"].iloc[0]]
+    assert offers[rows[3].point_id]["sample_id"] == spare["sample_id"]  # the bag to use there
     before = digest(plan_dir / GPKG_NAME)
 
     again = apply_records(plan_dir, batch, crew=1)

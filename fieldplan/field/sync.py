@@ -659,8 +659,8 @@ def replacement_offers(plan, point_ids: Iterable[str] | None = None) -> dict[str
     Returns
     -------
     dict
-        point id -> ``{"replacement_id", "lon", "lat", "kind"}`` (``kind``:
-        ``spare``, ``substitute`` or ``none``).
+        point id -> ``{"replacement_id", "lon", "lat", "kind", "sample_id"}`` (``kind``:
+        ``spare``, ``substitute`` or ``none``; ``sample_id`` of the bag to use there).
     """
     import geopandas as gpd
 
@@ -706,6 +706,7 @@ def replacement_offers(plan, point_ids: Iterable[str] | None = None) -> dict[str
             "lon": round(float(lon), 7),
             "lat": round(float(lat), 7),
             "kind": "substitute" if pick.endswith(SUBSTITUTE_SUFFIX) else "spare",
+            "sample_id": _text(row["sample_id"].iloc[0], 40) if "sample_id" in row.columns else "",
         }
     return offers
 

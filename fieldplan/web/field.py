@@ -221,7 +221,7 @@ def crew_data(plan_dir: Path, crew: int) -> dict:
                 "instructions": text(row, "instructions"),
                 "row": text(row, "row"),
                 "plant": text(row, "plant"),
-                "offer": offers.get(pid),
+                "offer": _with_labels(offers.get(pid), labels),
             }
         )
     to_wgs = Transformer.from_crs(plan.crs, "EPSG:4326", always_xy=True)
@@ -266,6 +266,13 @@ def crew_data(plan_dir: Path, crew: int) -> dict:
         "recorded": recorded,
         "conflicts": [c for c in field_conflicts(plan_dir) if c["point_id"] in set(ids[keep])],
     }
+
+
+def _with_labels(offer: dict | None, labels: dict) -> dict | None:
+    """An offer with the bag labels of its replacement, so the phone checks that bag too."""
+    if not offer or not offer.get("replacement_id"):
+        return offer
+    return {**offer, "labels": labels.get(offer["replacement_id"], [])}
 
 
 @router.get("/api/field/{plan}/{crew}/data")

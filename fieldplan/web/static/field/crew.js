@@ -315,8 +315,8 @@
     if (!o) return show(null);
     var p = pointById(o.replacement_id);
     if (!p) {
-      p = { n: "+", point_id: o.replacement_id, block: (state.target && state.target.block) || "", sample_id: "",
-        status: o.kind, lon: o.lon, lat: o.lat, offer: null };
+      p = { n: "+", point_id: o.replacement_id, block: (state.target && state.target.block) || "", sample_id: o.sample_id || "",
+        labels: o.labels || [], status: o.kind, lon: o.lon, lat: o.lat, offer: null };
       var at = state.data.points.indexOf(state.target);
       state.data.points.splice(at < 0 ? state.data.points.length : at + 1, 0, p);
       putMeta("data:" + KEY, state.data);
