@@ -385,3 +385,35 @@ def test_summary_counts_spares_and_marked_points(ws):
     client.post("/api/plans/p/marks", json={"point_ids": [target], "reason": "gate locked"})
     plan = client.get("/api/plans").json()["plans"][0]
     assert plan["inaccessible"] == 1 and plan["spares"] == int((points["status"] == "spare").sum()) - 1
+
+
+def test_file_listing_and_summary_routes(ws):
+    client, web, _ = ws
+    files = client.get("/api/plans/p/files").json()["files"]
+    # reference: the plan folder itself (regular, visible files)
+    assert {f["name"] for f in files} == {
+        p.name for p in web.iterdir() if p.is_file() and not p.name.startswith(".")
+    }
+    summary = client.get("/api/plans/p/summary").json()
+    assert summary["name"] == "p" and summary["blocks"] == 14
+
+
+def test_every_route_of_the_workspace_is_exercised():
+    """Each route of the workspace's own routers appears in this module or its siblings' requests."""
+    import re
+
+    from fieldplan.web import api, pages
+
+    here = Path(__file__).resolve().parent
+    text = "".join(
+        (here / n).read_text()
+        for n in ("test_web.py", "test_web_plans.py", "test_web_new.py", "test_web_browser.py")
+    )
+    text += (here.parent / "fieldplan" / "web" / "static" / "plan.js").read_text()
+    text += (here.parent / "fieldplan" / "web" / "static" / "new.js").read_text()
+    for route in [*api.router.routes, *pages.router.routes]:
+        # /api/plans/{name}/crews -> a regular expression matching how tests and pages call it
+        pattern = re.escape(route.path)
+        pattern = re.sub(r"\\\{[a-z_]+\\\}", r"[^\"'/ ]+", pattern).replace("/api/plans/", "/api/plans/")
+        tail = route.path.rsplit("}", 1)[-1] or route.path
+        assert re.search(pattern, text) or tail in text, route.path
