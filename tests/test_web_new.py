@@ -62,6 +62,8 @@ def test_spec_form_offers_exactly_the_cli_choices(client):
         assert field["choices"] == reference[name]["choices"], name
         assert field["default"] == reference[name]["default"], name
     assert set(reference) - set(offered) == set(schema["not_offered"])
+    # No parameter naming a file on the server is offered.
+    assert not [f for f in offered.values() if f["kind"] == "path"]
     assert [d["name"] for d in schema["designs"]] == [d["name"] for d in spec_schema()["designs"]]
     assert "wine-grapes" in schema["crop_profiles"]
 
@@ -154,6 +156,9 @@ def test_multipart_plan_grid_equals_the_cli(client, tmp_path):
         ({"purpose": "ripeness", "spacing": 40, "crop_profile": "/etc/hosts"}, "crop_profile"),
         ({"spacing": 40, "engine": "dask"}, "engine"),
         ({"spacing": 40, "bogus": 1}, "bogus"),
+        ({"design": "random", "per_block": 2, "zones": "/etc/passwd"}, "zones"),
+        ({"spacing": 40, "revisit": "../other"}, "revisit"),
+        ({"design": "clhs", "covariates": "/etc/passwd"}, "covariates"),
     ],
 )
 def test_parameter_errors_name_the_parameter(client, params, parameter):

@@ -35,8 +35,19 @@ __all__ = [
     "save_plan",
 ]
 
-#: Spec parameters the web form does not offer (files on the server, where the work runs).
-FORM_EXCLUDED = ("exclude", "rows", "cautions", "engine", "scheduler", "zones", "covariates", "revisit")
+#: Spec parameters the web form does not offer (files on the server, where the work runs); every
+#: parameter of kind "path" is left out too (see :func:`server_side`).
+FORM_EXCLUDED = (
+    "exclude", "rows", "cautions", "engine", "scheduler", "zones", "covariates", "cost_covariate", "revisit",
+)  # fmt: skip
+
+
+def server_side() -> tuple[str, ...]:
+    """Parameters a browser may not set: :data:`FORM_EXCLUDED` and every file path of the spec."""
+    from fieldplan.spec import spec_schema
+
+    paths = [f["name"] for f in spec_schema()["fields"] if f["kind"] == "path"]
+    return tuple(dict.fromkeys([*FORM_EXCLUDED, *paths]))
 #: Column roles a user can map file columns to (the reader's names for them).
 ROLES = (
     ("block", "Block id"),
@@ -62,10 +73,11 @@ def form_schema() -> dict:
     from fieldplan.spec import spec_schema
 
     schema = spec_schema()
-    schema["fields"] = [f for f in schema["fields"] if f["name"] not in FORM_EXCLUDED]
+    hidden = server_side()
+    schema["fields"] = [f for f in schema["fields"] if f["name"] not in hidden]
     schema["roles"] = [{"role": r, "title": t} for r, t in ROLES]
     schema["crop_profiles"] = _profile_names()
-    schema["not_offered"] = list(FORM_EXCLUDED)
+    schema["not_offered"] = list(hidden)
     return schema
 
 
@@ -164,7 +176,7 @@ def build_spec(params: dict):
 
     if not isinstance(params, dict):
         raise WebError(422, "params must be a JSON object of plan parameters", parameter="params")
-    for name in FORM_EXCLUDED:
+    for name in server_side():
         if params.get(name) not in (None, "", [], {}) and not (
             name == "engine" and params.get(name) == "local"
         ):
