@@ -244,3 +244,14 @@ def test_static_files_revalidated_pages_not_stored(client):
     assert again.status_code == 304
     assert client.get("/").headers["cache-control"] == "no-store"
     assert client.get("/api/plans").headers["cache-control"] == "no-store"
+
+
+def test_json_answers_never_carry_nan():
+    import json
+    import math
+
+    from fieldplan.web.api import _dumps
+
+    # reference: RFC 8259 section 6: NaN and Infinity are not JSON numbers
+    text = _dumps({"a": [1.0, math.nan, {"b": math.inf}], "c": "x"}).decode()
+    assert json.loads(text) == {"a": [1.0, None, {"b": None}], "c": "x"}

@@ -34,8 +34,27 @@ def _json(payload, status: int = 200):
     generic encoder walks every coordinate of a large plan (seconds for a 1,000-block preview)."""
     from fastapi.responses import Response
 
-    body = json.dumps(payload, separators=(",", ":"), allow_nan=False, default=str)
-    return Response(body, status_code=status, media_type="application/json")
+    return Response(_dumps(payload), status_code=status, media_type="application/json")
+
+
+def _dumps(payload) -> bytes:
+    """Compact JSON; a NaN or infinity left anywhere becomes null (JSON has neither)."""
+    try:
+        return json.dumps(payload, separators=(",", ":"), allow_nan=False, default=str).encode()
+    except ValueError:
+        return json.dumps(_finite(payload), separators=(",", ":"), allow_nan=False, default=str).encode()
+
+
+def _finite(value):
+    import math
+
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_finite(v) for v in value]
+    return value
 
 
 def _folder(request: Request, name: str) -> Path:
@@ -59,7 +78,7 @@ def get_plan(request: Request, name: str):
     folder = _folder(request, name)
     base = str(request.base_url).rstrip("/")
     # The answer depends only on the folder's files: kept until one of them changes.
-    key = (str(folder), base, service.folder_stamp(folder))
+    key = (str(folder), base, hash(request.app.state.secret), service.folder_stamp(folder))
     cached = _DETAILS.get(str(folder))
     if cached is not None and cached[0] == key:
         return Response(cached[1], media_type="application/json")
@@ -67,7 +86,7 @@ def get_plan(request: Request, name: str):
     detail["crew_links"] = service.crew_links(folder, base, request.app.state.secret)
     detail["conflicts"] = service.conflicts(folder)
     # Already JSON-ready: skip FastAPI's generic encoder, which costs more than the plan itself.
-    body = json.dumps(detail, separators=(",", ":"), allow_nan=False, default=str).encode()
+    body = _dumps(detail)
     _DETAILS[str(folder)] = (key, body)
     return Response(body, media_type="application/json")
 

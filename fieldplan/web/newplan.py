@@ -48,6 +48,8 @@ def server_side() -> tuple[str, ...]:
 
     paths = [f["name"] for f in spec_schema()["fields"] if f["kind"] == "path"]
     return tuple(dict.fromkeys([*FORM_EXCLUDED, *paths]))
+
+
 #: Column roles a user can map file columns to (the reader's names for them).
 ROLES = (
     ("block", "Block id"),

@@ -229,7 +229,9 @@ class Guard:
                 headers += [(b"set-cookie", c.encode("latin-1")) for c in new_cookies]
                 if b"cache-control" not in present:
                     # Scripts and styles may be kept and revalidated (ETag); pages and data never kept.
-                    headers.append((b"cache-control", b"no-cache" if path.startswith("/static/") else b"no-store"))
+                    headers.append(
+                        (b"cache-control", b"no-cache" if path.startswith("/static/") else b"no-store")
+                    )
                 message = {**message, "headers": headers}
             await send(message)
 
