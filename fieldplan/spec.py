@@ -1214,6 +1214,8 @@ def param_info(name: str) -> dict[str, Any]:
         "maximum": meta["maximum"],
         "designs": list(meta["designs"]) if meta["designs"] else list(DESIGNS),
         "flag": flag_of(name),
+        # A file or folder on the machine that plans: a web form should not offer it.
+        "server_path": meta["kind"] == "path",
         "help": help_text(name),
         "aliases": list(meta["aliases"]),
     }
@@ -1250,7 +1252,7 @@ def spec_schema() -> dict[str, Any]:
         title, in display order), ``sections`` (the spec's sections) and
         ``fields``: one entry per parameter with ``name, section, panel, kind,
         choices, default, effective_default, unit, minimum, exclusive_minimum,
-        maximum, designs, flag, help``.
+        maximum, designs, flag, server_path, help, aliases``.
     """
     return {
         "version": 1,

@@ -258,3 +258,10 @@ def test_parameters_doc_is_current():
     doc = Path(__file__).resolve().parents[1] / "docs" / "parameters.md"
     # The doc is generated from the spec: regenerate it when a parameter changes (command in its header).
     assert doc.read_text(encoding="utf-8") == parameters_markdown()
+
+
+def test_schema_marks_server_paths():
+    by = {f["name"]: f for f in spec_schema()["fields"]}
+    # Files on the planning machine: exclusions, rows, cautions, an earlier plan to revisit.
+    assert all(by[name]["server_path"] for name in ("exclude", "rows", "cautions", "revisit"))
+    assert not by["spacing"]["server_path"] and not by["columns"]["server_path"]
