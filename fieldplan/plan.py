@@ -25,6 +25,7 @@ from fieldplan import __version__
 from fieldplan.design.grid import cell_area, grid_points_many, spacing_for_density
 from fieldplan.errors import InvalidBlocksError
 from fieldplan.field.substitutes import SUBSTITUTES_LAYER, substitutes_layer
+from fieldplan.limits import check_point_budget
 from fieldplan.rng import stream
 from fieldplan.spec import PlanSpec, SpecDesignError, SpecError
 from fieldplan.stratified import STRATIFIED_DESIGNS, check_design_options, strata_labels
@@ -410,6 +411,7 @@ def make_plan(
             f"the grid would create about {expected:,.0f} points, more than the limit of {max_points:,}; "
             "use a wider {spacing} or a lower {per_ha} (or raise {max_points})",
         )
+    check_point_budget(spec, blocks, max_points=max_points)  # every other design, before drawing
     areas = sample_areas(blocks, edge_buffer=edge_buffer, exclusions=exclusions)
     exclusion_union = shapely.union_all(exclusions.geometry.values) if len(exclusions) else None
     run["rows_frame"] = rows

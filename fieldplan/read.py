@@ -29,8 +29,17 @@ import pandas as pd
 import shapely
 from pyproj import CRS
 
-from fieldplan.crs import WGS84, utm_crs_for
+from fieldplan.crs import WGS84, check_lonlat_range, local_crs_for, unwrap_longitudes
 from fieldplan.errors import InputError, InvalidBlocksError, OptionError
+from fieldplan.limits import (
+    DEFAULT_MAX_BLOCKS,
+    check_block_count,
+    check_json_nul,
+    clean_names,
+    feature_count,
+    load_json,
+)
+from fieldplan.overlaps import resolve_overlaps
 from fieldplan.words import plural
 
 __all__ = [
@@ -173,7 +182,7 @@ def _check_geojson_text(path: Path) -> None:
     """
     text = path.read_bytes().decode("utf-8-sig", errors="replace")
     try:
-        data = json.loads(text)
+        data = load_json(text, path)  # nesting too deep for Python is a one-line error too
     except json.JSONDecodeError as err:
         raise InputError(
             f"{path}: GeoJSON syntax error at line {err.lineno}, column {err.colno} "
@@ -215,7 +224,9 @@ def _sniff_geojson(path: Path, raw: bytes) -> None:
 _HAS_ARROW = importlib.util.find_spec("pyarrow") is not None
 
 
-def read_frame(path: Path, *, layer: str | None = None) -> gpd.GeoDataFrame:
+def read_frame(
+    path: Path, *, layer: str | None = None, max_features: int | None = DEFAULT_MAX_BLOCKS
+) -> gpd.GeoDataFrame:
     """Read any supported vector file into a GeoDataFrame, turning library errors into InputError.
 
     Z (and M) coordinates are dropped: every distance and area fieldplan uses is on
@@ -229,10 +240,15 @@ def read_frame(path: Path, *, layer: str | None = None) -> gpd.GeoDataFrame:
         from fieldplan.read_kml import read_kml
 
         frame, notes = read_kml(path)
+        check_block_count(path, len(frame), max_blocks=max_features)
         return _drop_z(frame, path, notes)
     geojson = suffix in (".geojson", ".json")
     if suffix == ".gpkg":
         layer = _gpkg_layer(path, layer)
+    # Counted from the layer's header or index, before a single feature is read.
+    check_block_count(path, feature_count(path, layer), max_blocks=max_features)
+    if geojson:
+        check_json_nul(path)  # the reader would cut a text value at a NUL without a word
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -371,18 +387,14 @@ def _resolve_crs(frame: gpd.GeoDataFrame, path: Path, id_field: str) -> tuple[gp
     crs = CRS.from_user_input(frame.crs)
     if crs.is_geographic:
         lon = shapely.get_coordinates(frame.geometry.values)
-        bad = (np.abs(lon[:, 1]) > 90) | (np.abs(lon[:, 0]) > 180)
         if (np.abs(lon) > 360).any():
             x, y = lon[np.argmax(np.abs(lon).max(axis=1))]
             raise InvalidBlocksError(
                 f"{path}: coordinates such as ({x:.0f}, {y:.0f}) are not longitude/latitude, but the file "
                 "says (or, as GeoJSON, implies) WGS84; reproject it to WGS84 or save it with its real CRS"
             )
-        if bad.any():
-            raise InvalidBlocksError(
-                f"{path}: latitude outside ±90 degrees; longitude and latitude are probably swapped: "
-                "store longitude first (x) and latitude second (y)"
-            )
+        # Names the axis out of range (a latitude past 90, or a longitude past 180 at the antimeridian).
+        check_lonlat_range(frame.geometry.values, path, lambda i: _feature_label(frame, i, id_field))
         frame = frame.to_crs(WGS84) if not crs.equals(WGS84) else frame
     return frame, notes
 
@@ -728,6 +740,8 @@ def read_blocks(
     columns: dict[str, str] | None = None,
     length_unit: str = "m",
     crop_profile: str | None = None,
+    max_blocks: int | None = DEFAULT_MAX_BLOCKS,
+    overlaps: str = "refuse",
 ) -> gpd.GeoDataFrame:
     """Read block boundaries into a GeoDataFrame in a local metric CRS.
 
@@ -754,6 +768,12 @@ def read_blocks(
     crop_profile : str, optional
         Crop profile (shipped name or TOML file) whose spacing range checks blocks
         without a ``crop`` value matching a profile.
+    max_blocks : int, optional
+        Refuse a file with more features, counted before reading
+        (:data:`fieldplan.limits.DEFAULT_MAX_BLOCKS`); ``None`` for no limit.
+    overlaps : {"refuse", "first"}
+        Blocks overlapping beyond a sliver are refused, or each overlap stays in
+        the block listed first (:func:`fieldplan.overlaps.resolve_overlaps`).
 
     Returns
     -------
@@ -778,7 +798,7 @@ def read_blocks(
     path = Path(path)
     columns = check_columns(columns)
     unit = check_length_unit(length_unit)
-    frame = read_frame(path, layer=layer)
+    frame = read_frame(path, layer=layer, max_features=max_blocks)
     notes: list[str] = list(frame.attrs.get("notes", []))
     if len(frame) == 0:
         raise InvalidBlocksError(f"{path}: holds no features; export the block boundaries again")
@@ -792,14 +812,29 @@ def read_blocks(
     frame, crs_notes = _resolve_crs(frame, path, id_name)
     notes.extend(crs_notes)
     ids = _check_ids(frame, path, id_name)
+    clean_names(ids, path)  # no control characters, no ids thousands of characters long
 
     wgs = frame if CRS.from_user_input(frame.crs).is_geographic else frame.to_crs(WGS84)
+    # Blocks across the antimeridian are unwrapped (longitudes past 180) before anything
+    # measures them; a projected file is projected back as it was.
+    unwrapped, changed = unwrap_longitudes(wgs.geometry.values)
+    if changed:
+        wgs = wgs.set_geometry(gpd.GeoSeries(unwrapped, index=wgs.index, crs=wgs.crs))
+        frame = wgs if CRS.from_user_input(frame.crs).is_geographic else frame
     _check_far_features(wgs, path, id_name)
     if crs is None:
         minx, miny, maxx, maxy = wgs.total_bounds
-        crs = utm_crs_for((minx + maxx) / 2.0, (miny + maxy) / 2.0)
+        # UTM, or near a pole a projection centred on the blocks.
+        crs = local_crs_for((minx + maxx) / 2.0, (miny + maxy) / 2.0)
     local = frame.to_crs(crs)
     notes.extend(_repair_notes(repaired, frame, path, id_name, local, file_crs))
+    # Overlapping blocks would be sampled and weighted twice: refused, or given to the first.
+    clipped, overlap_notes = resolve_overlaps(
+        local.geometry.values, ids.to_numpy(dtype=object), path, mode=overlaps
+    )
+    if overlap_notes:
+        local = local.set_geometry(gpd.GeoSeries(clipped, index=local.index, crs=local.crs))
+        notes.extend(overlap_notes)
 
     area = shapely.area(local.geometry.values)
     tiny = np.flatnonzero(area <= 1e-6)

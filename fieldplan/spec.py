@@ -777,6 +777,15 @@ class InputSpec(_Section):
     repair: bool = _param(
         False, kind="boolean", panel="input", help="Repair invalid (self-intersecting) polygons instead of stopping."
     )
+    overlaps: str = _param(
+        "refuse",
+        kind="choice",
+        choices=("refuse", "first"),
+        panel="input",
+        identity=False,
+        help="Blocks overlapping each other: refuse (name the pair and the area) or first (the "
+        "overlap stays in the block listed first in the file; later blocks lose it).",
+    )
     columns: tuple[tuple[str, str], ...] = _param(
         (),
         kind="mapping",
@@ -887,6 +896,14 @@ class ScaleSpec(_Section):
         panel="scale",
         identity=False,
         help="Refuse plans with more points than this.",
+    )
+    max_blocks: int = _param(
+        100_000,
+        kind="integer",
+        minimum=1,
+        panel="scale",
+        identity=False,
+        help="Refuse block files with more features than this (counted before reading).",
     )
 
     def _check(self) -> None:

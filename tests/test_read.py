@@ -39,7 +39,7 @@ def test_geojson_gpkg_shapefile_and_zip_read_alike(tmp_path):
 
 
 def test_holes_and_multipolygons_kept(tmp_path):
-    frame = blocks_frame({"H": with_hole, "S": square})
+    frame = blocks_frame({"H": with_hole, "S": shapely.affinity.translate(square, 1000)})  # side by side
     blocks = read_blocks(write_geojson(frame, tmp_path / "b.geojson"))
     assert blocks.geometry.iloc[0].interiors or len(blocks.geometry.iloc[0].interiors) == 1
     assert blocks.geometry.area.iloc[0] == pytest.approx(with_hole.area, rel=1e-4)

@@ -357,7 +357,12 @@ def run_plan(
     )
     check_engine(spec.scale.engine, spec.scale.scheduler)  # a missing dask fails before any work
     previous = None
-    read_options = {**spec.input.read_options(), "crop_profile": samples.crop_profile}
+    read_options = {
+        **spec.input.read_options(),
+        "crop_profile": samples.crop_profile,
+        "max_blocks": spec.scale.max_blocks,
+        "overlaps": spec.input.overlaps,
+    }
     if spec.input.revisit:
         from fieldplan.store import load_plan
 
