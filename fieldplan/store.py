@@ -215,7 +215,7 @@ def _aside_name(out_dir: Path) -> Path:
 
 #: Layers of plan.gpkg that record what happened after planning.
 HISTORY_LAYERS = ("results", "events", "actual", "routes")
-_HISTORY_FILES = ("crews.csv", "lab_submission*.csv", "labels*.pdf", "positions.csv")
+_HISTORY_FILES = ("crews.csv", "lab_submission*.csv", "labels*.pdf", "positions.csv", "field_records.jsonl")
 
 
 def plan_history(plan_dir: str | Path) -> list[str]:
