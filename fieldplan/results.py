@@ -1214,7 +1214,7 @@ def remove_round(
         moved = rows.assign(removed_utc=stored["time_utc"].iloc[0], event_id=int(stored["event_id"].iloc[0]))
         if old is not None and len(old):
             moved = pd.concat([pd.DataFrame(old).drop(columns="geometry", errors="ignore"), moved], ignore_index=True)
-        txn.edit(lambda path: write_numbered_events(path, stored, append=len(earlier) > 0))
+        txn.edit(lambda path: write_numbered_events(path, stored, append=len(earlier) > 0), layers=("events",))
         txn.set_layer(REMOVED_LAYER, moved)
         txn.set_layer(RESULTS_LAYER, results[~gone].reset_index(drop=True))
     return {

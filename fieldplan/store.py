@@ -301,6 +301,8 @@ def _single_parts(geoms):
 GENERATION_KEY = "store_generation"
 #: Layers of plan.gpkg the derived files do not show (the audit trail and the points as planned).
 _RECORD_ONLY_LAYERS = ("events", "points_planned")
+#: Layers whose change alone leaves every derived file as it was (no writer reads them).
+RECORD_ONLY_LAYERS = ("events", "points_planned", "results", "results_removed")
 _TMP = re.compile(r"^\..+\.(?P<pid>\d+)\.[^.]+\.(?:tmp|stage|tmp\.gpkg)$")
 # Temporary names used before the store had a lock; only ever debris now.
 _LEGACY_TMP = re.compile(r"^\.(?:results|crews)-tmp-plan\.gpkg$|^\.plan\.[^.]+\.gpkg$")
@@ -438,6 +440,7 @@ class Transaction:
     plan: object
     _edits: list = field(default_factory=list, repr=False)
     _files: dict = field(default_factory=dict, repr=False)
+    _layers: set = field(default_factory=set, repr=False)
     committed: int | None = None
     #: The plan as the derived files of this change should show it; by default the
     #: stored plan read back after the commit (what a rebuild after a crash gives).
@@ -447,12 +450,17 @@ class Transaction:
         """Replace (or add) layer ``name`` of plan.gpkg with ``frame`` at commit."""
         from fieldplan.write.gpkg import write_layer
 
-        self.edit(lambda path: write_layer(path, name, frame, geometry_type=geometry_type))
+        self.edit(lambda path: write_layer(path, name, frame, geometry_type=geometry_type), layers=(name,))
 
-    def edit(self, change: Callable[[Path], object]) -> None:
-        """Run ``change(path)`` on the private copy of plan.gpkg at commit (e.g. an append)."""
+    def edit(self, change: Callable[[Path], object], *, layers: tuple[str, ...] | None = None) -> None:
+        """Run ``change(path)`` on the private copy of plan.gpkg at commit (e.g. an append).
+
+        ``layers`` names the layers it changes; unnamed, it is taken to change what the
+        derived files show, so they are rebuilt.
+        """
         self._check_open()
         self._edits.append(change)
+        self._layers.update(layers if layers is not None else ("?",))
 
     def write_file(self, name: str, text: str | bytes) -> None:
         """Write a further derived file (e.g. positions.csv) with the rebuilt ones at commit."""
@@ -474,8 +482,13 @@ class Transaction:
             self.committed = store_generation(self.plan_dir)
             return self.committed
         generation = self._swap_store() if self._edits else store_generation(self.plan_dir)
-        view = self.view if self.view is not None else _outputs_view(_read_plan(self.plan_dir))
-        write_outputs(view, self.plan_dir, generation, extra=self._files)
+        if self._layers <= set(RECORD_ONLY_LAYERS) and not self._files and self.view is None:
+            # Nothing the derived files show changed (a results round, an event): they are
+            # in step with the new generation as they are.
+            _write_state(self.plan_dir, generation)
+        else:
+            view = self.view if self.view is not None else _outputs_view(_read_plan(self.plan_dir))
+            write_outputs(view, self.plan_dir, generation, extra=self._files)
         self.committed = generation
         return generation
 
@@ -621,9 +634,13 @@ def write_outputs(plan, plan_dir: str | Path, generation: int, *, extra: dict | 
             os.replace(path, target)
     finally:
         shutil.rmtree(stage, ignore_errors=True)
+    _write_state(plan_dir, generation)
+
+
+def _write_state(plan_dir: Path, generation: int) -> None:
     from fieldplan.write.safe import atomic_write_text
 
-    atomic_write_text(plan_dir / STATE_NAME, json.dumps({GENERATION_KEY: int(generation)}) + "\n")
+    atomic_write_text(Path(plan_dir) / STATE_NAME, json.dumps({GENERATION_KEY: int(generation)}) + "\n")
 
 
 def _umask() -> int:

@@ -311,3 +311,15 @@ def test_force_over_plan_with_history_moves_it_aside(tmp_path):
 def test_locked_refuses_a_folder_without_a_store(tmp_path):
     with pytest.raises(PlanDirError, match="no plan.gpkg"), locked(tmp_path):
         pass
+
+
+def test_results_round_leaves_derived_files_alone_and_in_step(tmp_path):
+    # A round changes no file derived from the plan (no writer shows results): they are not
+    # re-written, and the folder still reads as in step with the store.
+    plan, ids = _plan(tmp_path)
+    before = {p.name: p.stat().st_mtime_ns for p in plan.iterdir() if not p.name.startswith(".")}
+    lab = _results_csv(tmp_path / "lab.csv", ids[:3])
+    assert runner.invoke(app, ["results", str(plan), str(lab)]).exit_code == 0
+    after = {p.name: p.stat().st_mtime_ns for p in plan.iterdir() if not p.name.startswith(".")}
+    assert {k: v for k, v in after.items() if k != "plan.gpkg"} == {k: v for k, v in before.items() if k != "plan.gpkg"}
+    assert store_generation(plan) == outputs_generation(plan) == 2

@@ -307,7 +307,7 @@ def mark_points(
             txn.set_layer(PLANNED_LAYER, planned, geometry_type="Point")
         if cores is not None:
             txn.set_layer("cores", cores, geometry_type="Point")
-        txn.edit(lambda path: write_numbered_events(path, stored, append=len(events) > 0))
+        txn.edit(lambda path: write_numbered_events(path, stored, append=len(events) > 0), layers=("events",))
         layers = {k: v for k, v in plan.layers.items() if k not in _OWN_LAYERS}
         if cores is not None:
             layers["cores"] = cores
