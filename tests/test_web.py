@@ -255,3 +255,17 @@ def test_json_answers_never_carry_nan():
     # reference: RFC 8259 section 6: NaN and Infinity are not JSON numbers
     text = _dumps({"a": [1.0, math.nan, {"b": math.inf}], "c": "x"}).decode()
     assert json.loads(text) == {"a": [1.0, None, {"b": None}], "c": "x"}
+
+
+def test_odd_characters_in_credentials_are_refused_not_errors(workspace):
+    app = create_app(workspace, token=TOKEN, public=True)
+    client = TestClient(app, base_url="http://192.0.2.10:8750")
+    # Header values outside ASCII (latin-1 bytes) must give 401/403, never a server error.
+    odd = "\u00e9t\u00e9-\u00e0-la-ferme".encode()
+    assert client.get("/api/plans", headers={"Authorization": b"Bearer " + odd}).status_code == 401
+    assert client.get("/api/plans", headers={"Cookie": b"fp_auth=" + odd}).status_code == 401
+    assert client.get("/api/plans?token=%C3%A9t%C3%A9").status_code == 401
+    local = TestClient(create_app(workspace), base_url=LOCAL)
+    local.get("/api/session")
+    r = local.post("/api/plans/x/marks", json={}, headers={"X-CSRF-Token": odd})
+    assert r.status_code == 403

@@ -99,6 +99,13 @@ def load_secret(workspace: Path) -> bytes:
     return data
 
 
+def _eq(given: str | None, expected: str | None) -> bool:
+    """Constant-time comparison of text from a request (any characters) with a secret value."""
+    if not given or not expected:
+        return False
+    return hmac.compare_digest(given.encode("utf-8", "surrogateescape"), expected.encode("utf-8"))
+
+
 def _sign(secret: bytes, purpose: str, value: str) -> str:
     return hmac.new(secret, f"{purpose}\0{value}".encode(), hashlib.sha256).hexdigest()
 
@@ -182,10 +189,10 @@ class Guard:
         if self.token and not self_authorised:
             authz = _header(scope, b"authorization") or ""
             bearer = authz[7:].strip() if authz[:7].lower() == "bearer " else ""
-            bearer_ok = bool(bearer) and hmac.compare_digest(bearer, self.token)
-            cookie_ok = hmac.compare_digest(cookies.get(AUTH_COOKIE, ""), self._auth_cookie)
+            bearer_ok = _eq(bearer, self.token)
+            cookie_ok = _eq(cookies.get(AUTH_COOKIE, ""), self._auth_cookie)
             query_token = _query_token(scope)
-            if query_token is not None and hmac.compare_digest(query_token, self.token):
+            if query_token is not None and _eq(query_token, self.token):
                 if scope["method"] in ("GET", "HEAD"):
                     # Trade the token in the link for a cookie and drop it from the address bar.
                     new_cookies.append(f"{AUTH_COOKIE}={self._auth_cookie}; Path=/; HttpOnly; SameSite=Lax")
@@ -208,9 +215,7 @@ class Guard:
                 await _plain(send, 403, "Cross-site request refused (Origin is not this workspace).", path)
                 return
             sent = _header(scope, CSRF_HEADER.encode()) or ""
-            if not (
-                cookies.get(SESSION_COOKIE) == session and hmac.compare_digest(sent, scope["state"]["csrf"])
-            ):
+            if not (cookies.get(SESSION_COOKIE) == session and _eq(sent, scope["state"]["csrf"])):
                 await _plain(
                     send,
                     403,
