@@ -41,11 +41,16 @@ SHAPE_TOLERANCE_M = 0.5
 DESIGN_COLUMNS = ("row", "plant", "units")
 
 
+#: Point statuses of sites sampled in the earlier round (fieldplan.field.mark); unused
+#: spares and points marked inaccessible were not, and are not kept.
+ACTIVE_STATUSES = ("selected", "replacement", "substitute")
+
+
 def _site_table(previous: Plan) -> gpd.GeoDataFrame:
     points = previous.points
     if "status" in points.columns:
-        # Unused spares were never sites; a used spare was marked and replaced a point.
-        points = points[points["status"].astype(str) != "spare"]
+        status = points["status"].fillna("selected").astype(str)
+        points = points[status.isin(ACTIVE_STATUSES).to_numpy()]
     if "sample_id" not in points.columns:
         raise PlanDirError("the earlier plan has no sample ids; re-plan it with this version of fieldplan")
     return points.reset_index(drop=True)

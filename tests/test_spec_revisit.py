@@ -151,3 +151,20 @@ def test_estimate_change_between_revisited_rounds(first, tmp_path):
     assert overall["n"] == len(pairs)
     assert overall["lower"] == pytest.approx(ci.low, rel=1e-5) and overall["upper"] == pytest.approx(ci.high, rel=1e-5)
     assert set(table["group"]) == {*new_plan.points["block"].astype(str), "all"}
+
+
+def test_revisit_keeps_the_sites_sampled_not_unused_spares_or_inaccessible_points(tmp_path):
+    first = tmp_path / "2026"
+    _run("plan", BLOCKS, "--design", "random", "--per-block", "2", "--spares", "1", "--seed", "2", "-q",
+         "--out", first)
+    old = load_plan(first)
+    gone = str(old.points.loc[old.points["status"] == "selected", "point_id"].iloc[0])
+    _run("mark", first, gone, "--inaccessible", "--reason", "flooded", "-q")
+    marked = load_plan(first)
+    active = set(marked.points.loc[marked.points["status"].isin(["selected", "replacement"]), "point_id"])
+    out = tmp_path / "2027"
+    _run("plan", BLOCKS, "--revisit", first, "--seed", "3", "-q", "--out", out)
+    new = load_plan(out)
+    # common practice, no source: a permanent site is where the sample was actually taken
+    assert set(new.points["point_id"]) == active
+    assert gone not in set(new.points["point_id"])
