@@ -167,7 +167,8 @@ def write_plan(
     chosen = selected_formats(formats)
     if chosen is not None:
         plan.meta["formats"] = sorted(chosen)
-    guard = locked(out_dir) if force and (out_dir / GPKG_NAME).is_file() else _nothing()
+    # The lock alone (no consistency rebuild): the folder is being replaced, however broken.
+    guard = plan_lock(out_dir) if force and (out_dir / GPKG_NAME).is_file() else _nothing()
     with guard:
         aside = None
         if force and not discard_history and plan_history(out_dir):

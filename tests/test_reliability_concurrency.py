@@ -65,7 +65,7 @@ def _run_workers(job_lists: list[list[list[str]]], step: float) -> list[list]:
     """Start one process per job list; round k of every process begins at the same instant."""
     env = {**os.environ, "PYTHONPATH": str(ROOT), "PYTHONWARNINGS": "ignore"}
     # Leave time for the imports (a few seconds on a loaded 2-core machine).
-    start = time.time() + 8.0
+    start = time.time() + 5.0
     procs = [
         subprocess.Popen(
             [sys.executable, "-c", WORKER, str(start), str(step), json.dumps(jobs)],
@@ -93,7 +93,7 @@ def test_concurrent_marks_all_recorded(tmp_path):
          for k in range(ROUNDS)]
         for w in range(2)
     ]  # fmt: skip
-    codes = _run_workers(jobs, step=1.0)
+    codes = _run_workers(jobs, step=0.5)
     assert codes == [[0] * ROUNDS, [0] * ROUNDS]
     events = pyogrio.read_dataframe(plan / "plan.gpkg", layer="events", read_geometry=False)
     # Every command's events are stored exactly once, numbered without gaps or repeats.
@@ -117,7 +117,7 @@ def test_concurrent_results_all_rounds_stored(tmp_path):
             path.write_text("point_id,ph\n" + "\n".join(rows) + "\n")
             files.append(path)
     jobs = [[["results", str(plan), str(files[w * n + k]), "--quiet"] for k in range(n)] for w in range(2)]
-    codes = _run_workers(jobs, step=1.5)
+    codes = _run_workers(jobs, step=0.8)
     assert codes == [[0] * n, [0] * n]
     stored = pyogrio.read_dataframe(plan / "plan.gpkg", layer="results", read_geometry=False)
     assert sorted(stored["round"].unique().tolist()) == list(range(1, 2 * n + 1))
