@@ -417,3 +417,58 @@ def test_every_route_of_the_workspace_is_exercised():
         pattern = re.sub(r"\\\{[a-z_]+\\\}", r"[^\"'/ ]+", pattern).replace("/api/plans/", "/api/plans/")
         tail = route.path.rsplit("}", 1)[-1] or route.path
         assert re.search(pattern, text) or tail in text, route.path
+
+
+def test_outliers_stop_the_import_until_accepted(ws, tmp_path):
+    client, web, ref = ws
+    ids = pd.read_csv(web / "points.csv")
+    ids = ids[ids["status"] == "selected"]["point_id"].astype(str).tolist()[:20]
+    values = [21.0 + (i % 5) * 0.2 for i in range(len(ids))]
+    values[4] = 2.14  # a decimal slip (21.4)
+    csv = tmp_path / "slip.csv"
+    csv.write_text("point_id,brix\n" + "".join(f"{p},{v:g}\n" for p, v in zip(ids, values, strict=True)))
+    r = client.post("/api/plans/p/results", files={"file": ("slip.csv", csv.read_bytes())})
+    body = r.json()
+    # reference: Iglewicz & Hoaglin 1993, modified z-score beyond 3.5 (as `fieldplan results` applies it)
+    assert r.status_code == 422 and body["parameter"] == "accept_outliers"
+    assert [o["point_id"] for o in body["outliers"]] == [ids[4]]
+    with sqlite3.connect(web / "plan.gpkg") as con:
+        assert "results" not in {t for (t,) in con.execute("SELECT table_name FROM gpkg_contents")}
+    refused = runner.invoke(cli, ["results", str(ref), str(csv), "-q"])
+    assert refused.exit_code == 2  # the command refuses the same file
+    ok = client.post(
+        "/api/plans/p/results",
+        files={"file": ("slip.csv", csv.read_bytes())},
+        data={"accept_outliers": "true"},
+    )
+    assert ok.status_code == 200 and ok.json()["round"] == 1
+
+
+def test_xlsx_results_and_zip_checks(ws, tmp_path):
+    import openpyxl
+
+    client, web, ref = ws
+    ids = pd.read_csv(web / "points.csv")
+    ids = ids[ids["status"] == "selected"]["point_id"].astype(str).tolist()[:8]
+    book = openpyxl.Workbook()
+    sheet = book.active
+    sheet.title = "lab"
+    sheet.append(["point_id", "ph"])
+    for i, pid in enumerate(ids):
+        sheet.append([pid, 6.0 + 0.1 * i])
+    path = tmp_path / "lab.xlsx"
+    book.save(path)
+    r = client.post(
+        "/api/plans/p/results", files={"file": ("lab.xlsx", path.read_bytes())}, data={"sheet": "lab"}
+    )
+    assert r.status_code == 200, r.text
+    _cli("results", ref, path, "--sheet", "lab", "-q")
+    with sqlite3.connect(web / "plan.gpkg") as a, sqlite3.connect(ref / "plan.gpkg") as b:
+        q = "SELECT round, point_id, variable, value FROM results ORDER BY fid"
+        # reference: `fieldplan results --sheet lab` on the same workbook
+        assert a.execute(q).fetchall() == b.execute(q).fetchall()
+    bad = io.BytesIO()
+    with zipfile.ZipFile(bad, "w") as z:
+        z.writestr("../xl/workbook.xml", "x")
+    r = client.post("/api/plans/p/results", files={"file": ("evil.xlsx", bad.getvalue())})
+    assert r.status_code == 422 and "unsafe" in r.json()["error"]

@@ -155,7 +155,7 @@ def post_results(
     request: Request,
     name: str,
     file: Annotated[
-        UploadFile, File(description="Results table (CSV): point_id, value columns, optional date.")
+        UploadFile, File(description="Results table (CSV or .xlsx): point_id or sample_id, values, date.")
     ],
     value: Annotated[list[str] | None, Form(description="Value columns to import (default all).")] = None,
     allow_duplicate: Annotated[
@@ -164,14 +164,30 @@ def post_results(
     max_offset: Annotated[
         float | None, Form(ge=0, description="Metres from the planned spot before a sample is flagged.")
     ] = None,
+    sheet: Annotated[str | None, Form(max_length=100, description="Sheet of an .xlsx workbook.")] = None,
+    date_format: Annotated[
+        str | None,
+        Form(max_length=40, description="Dates that are not ISO: dmy, mdy or a pattern like %d.%m.%Y."),
+    ] = None,
+    accept_outliers: Annotated[
+        bool, Form(description="Store values far from the rest of the round.")
+    ] = False,
+    positions: Annotated[
+        UploadFile | None, File(description="GPX waypoints named by point id: where samples were taken.")
+    ] = None,
 ) -> dict:
+    from fieldplan.web.uploads import check_zip, zip_limit
     from fieldplan.write.safe import safe_filename
 
     folder = _folder(request, name)
     original = file.filename or "results.csv"
-    if Path(original).suffix.lower() not in (".csv", ".txt", ".tsv"):
-        raise WebError(415, f"{original!r}: give the results as a CSV table (.csv)", parameter="file")
-    data = read_capped(file.file, request.app.state.max_upload_bytes)
+    suffix = Path(original).suffix.lower()
+    if suffix not in (".csv", ".txt", ".tsv", ".xlsx"):
+        raise WebError(
+            415, f"{original!r}: give the results as a CSV table or an .xlsx workbook", parameter="file"
+        )
+    cap = request.app.state.max_upload_bytes
+    data = read_capped(file.file, cap)
     if not data:
         raise WebError(422, f"{original!r}: the file is empty", parameter="file")
     tmp = Path(tempfile.mkdtemp(prefix="fieldplan-results-"))
@@ -179,9 +195,26 @@ def post_results(
         # The stored round names its source file: keep the sender's name, made safe.
         path = tmp / safe_filename(Path(original).name, default="results.csv")
         path.write_bytes(data)
+        if suffix == ".xlsx":
+            # A workbook is a zip archive: checked like any other before a reader opens it.
+            check_zip(path, max_unpacked=zip_limit(cap), parameter="file")
+        gpx = None
+        if positions is not None and positions.filename:
+            if Path(positions.filename).suffix.lower() != ".gpx":
+                raise WebError(415, "positions: give GPX waypoints (.gpx)", parameter="positions")
+            gpx = tmp / "positions.gpx"
+            gpx.write_bytes(read_capped(positions.file, cap, parameter="positions"))
         values = [v for item in (value or []) for v in str(item).split(",") if v.strip()]
         return service.import_results(
-            folder, path, value=values or None, allow_duplicate=allow_duplicate, max_offset=max_offset
+            folder,
+            path,
+            value=values or None,
+            allow_duplicate=allow_duplicate,
+            max_offset=max_offset,
+            sheet=sheet,
+            date_format=date_format,
+            accept_outliers=accept_outliers,
+            positions=gpx,
         )
     finally:
         shutil.rmtree(tmp, ignore_errors=True)

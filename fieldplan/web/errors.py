@@ -49,7 +49,7 @@ def install_error_handlers(app) -> None:
 
     @app.exception_handler(WebError)
     async def _web(request, err: WebError):
-        return respond(request, err.status, str(err), err.parameter)
+        return respond(request, err.status, str(err), err.parameter, **getattr(err, "extra", {}))
 
     @app.exception_handler(FieldplanError)
     async def _library(request, err: FieldplanError):

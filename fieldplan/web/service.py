@@ -283,39 +283,76 @@ def import_results(
     value: list[str] | None = None,
     allow_duplicate: bool = False,
     max_offset: float | None = None,
+    sheet: str | None = None,
+    date_format: str | None = None,
+    accept_outliers: bool = False,
+    positions: Path | None = None,
 ) -> dict:
-    """``fieldplan results``: check the table row by row, store it as the next round."""
-    from fieldplan.field.positions import default_max_offset, positions_from_csv
-    from fieldplan.field.record import record_positions
-    from fieldplan.results import append_round, read_results, refuse_duplicate, stored_results
-    from fieldplan.store import load_plan
+    """``fieldplan results``: check the whole file, then store it as the next round (one transaction).
 
-    with plan_lock(folder):
-        plan = load_plan(folder)
-        table = read_results(file, point_ids=plan.points["point_id"].astype(str), value_columns=value or None)
-        existing = stored_results(plan.layers)
-        refuse_duplicate(table, existing, allow_duplicate=allow_duplicate)
-        problems = records(table.problems)
-        round_no = append_round(
-            folder, table, existing=existing, imported_utc=_now_utc(), allow_duplicate=allow_duplicate
+    The same steps as the command: :func:`fieldplan.results.prepare_import` reads and checks
+    everything (problems by row, a repeated file, recorded positions, outliers) before the
+    first write; values far from the rest of the round stop the import unless
+    ``accept_outliers``; the round and its positions are stored in one change of the plan.
+    """
+    from fieldplan.field.record import record_positions
+    from fieldplan.results import append_round, prepare_import
+    from fieldplan.store import transaction
+
+    with plan_lock(folder), transaction(folder) as txn:
+        ready = prepare_import(
+            txn.plan,
+            file,
+            value_columns=value or None,
+            sheet=sheet or None,
+            date_format=date_format or None,
+            allow_duplicate=allow_duplicate,
+            positions=positions,
+            max_offset=max_offset,
         )
-        positions = None
-        actual = positions_from_csv(file)
-        if actual is not None:
-            limit = default_max_offset(plan.params) if max_offset is None else float(max_offset)
-            report = record_positions(
-                folder, actual, max_offset=limit, round_no=round_no, recorded_utc=_now_utc()
+        table = ready.table
+        problems = records(table.problems)
+        if len(ready.suspects) and not accept_outliers:
+            raise WebError(
+                422,
+                f"{file.name}: nothing stored; {len(ready.suspects)} value(s) lie far from the rest of the round "
+                "(modified z-score beyond 3.5, Iglewicz & Hoaglin 1993), e.g. a decimal slip: correct them, "
+                "or accept them if they are real",
+                parameter="accept_outliers",
+                extra={"outliers": records(ready.suspects), "problems": problems},
             )
-            far = report[report["beyond_max_offset"]]
-            positions = {"recorded": int(len(report)), "beyond": records(far.head(200)), "limit_m": limit}
-    return {
-        "round": int(round_no),
-        "matched": int(table.data["point_id"].nunique()),
-        "points": int(len(plan.points)),
+        stored = append_round(
+            folder,
+            table,
+            existing=ready.existing,
+            imported_utc=_now_utc(),
+            allow_duplicate=allow_duplicate,
+            round_no=ready.round_no,
+        )
+        report = None
+        if ready.positions is not None:
+            report = record_positions(
+                folder, ready.positions, max_offset=ready.max_offset, round_no=stored, recorded_utc=_now_utc()
+            )
+    out = {
+        "round": int(stored),
+        "matched": int(ready.matched),
+        "points": int(len(ready.active)),
         "values": list(table.value_columns),
         "problems": problems,
-        "positions": positions,
+        "notes": list(table.notes),
+        "outliers": records(ready.suspects) if len(ready.suspects) else [],
+        "inactive": list(ready.inactive),
+        "positions": None,
     }
+    if report is not None:
+        far = report[report["beyond_max_offset"]]
+        out["positions"] = {
+            "recorded": int(len(report)),
+            "beyond": records(far.head(200)),
+            "limit_m": ready.max_offset,
+        }
+    return out
 
 
 # --- marks (fieldplan mark) ------------------------------------------------------------------

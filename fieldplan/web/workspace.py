@@ -35,10 +35,13 @@ PLAN_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 class WebError(FieldplanError):
     """An error answered to a web client: HTTP status, message, and the parameter at fault."""
 
-    def __init__(self, status: int, message: str, *, parameter: str | None = None) -> None:
+    def __init__(
+        self, status: int, message: str, *, parameter: str | None = None, extra: dict | None = None
+    ) -> None:
         super().__init__(message)
         self.status = status
         self.parameter = parameter
+        self.extra = dict(extra or {})
 
 
 def check_plan_name(name: str, *, parameter: str = "name") -> str:

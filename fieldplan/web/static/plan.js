@@ -217,12 +217,20 @@
     if (!file) { return; }
     data.append("file", file);
     data.append("allow_duplicate", form.querySelector('input[name="allow_duplicate"]').checked ? "true" : "false");
+    data.append("accept_outliers", form.querySelector('input[name="accept_outliers"]').checked ? "true" : "false");
+    ["date_format", "sheet"].forEach(function (k) {
+      var v = form.querySelector('[name="' + k + '"]').value.trim();
+      if (v) { data.append(k, v); }
+    });
+    var gpx = form.querySelector('input[name="positions"]').files[0];
+    if (gpx) { data.append("positions", gpx); }
     var msg = document.getElementById("results-msg");
     var out = FP.clear(document.getElementById("results-problems"));
     FP.say(msg, "info", "Checking " + file.name + "\u2026");
     FP.api("POST", base + "/results", data).then(function (res) {
       var text = "Stored round " + res.round + ": " + res.matched + " of " + res.points + " plan points, values " + res.values.join(", ") + ".";
-      var extra = [];
+      var extra = (res.notes || []).slice();
+      if (res.inactive && res.inactive.length) { extra.push(res.inactive.length + " row(s) for points not in the active sample (spares not in use or marked inaccessible), stored but worth a check."); }
       if (res.positions) { extra.push("Positions: " + res.positions.recorded + " recorded, " + res.positions.beyond.length + " more than " + res.positions.limit_m + " m from the plan."); }
       FP.say(msg, res.problems.length ? "info" : "ok", text + (res.problems.length ? " " + res.problems.length + " problem(s), listed by row below; those cells were left out." : " No problems."), extra);
       if (res.problems.length) {
@@ -230,7 +238,18 @@
       }
       form.reset();
       return load();
-    }).catch(function (err) { FP.sayError(msg, err); });
+    }).catch(function (err) {
+      FP.sayError(msg, err);
+      var p = err.payload || {};
+      if (p.outliers && p.outliers.length) {
+        out.appendChild(el("h3", "Values far from the rest of the round"));
+        out.appendChild(FP.table(p.outliers, [["row", "Row"], ["point_id", "Point"], ["column", "Column"], ["value", "Value", 2], ["median", "Round median", 2], ["z", "Modified z", 1]], "fp-outliers"));
+      }
+      if (p.problems && p.problems.length) {
+        out.appendChild(el("h3", "Problems by row"));
+        out.appendChild(FP.table(p.problems, [["row", "Row"], ["point_id", "Point"], ["column", "Column"], ["problem", "Problem"], ["detail", "Detail"]], "fp-problems"));
+      }
+    });
   });
 
   document.getElementById("estimates-form").addEventListener("submit", function (e) {
