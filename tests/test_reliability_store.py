@@ -323,3 +323,60 @@ def test_results_round_leaves_derived_files_alone_and_in_step(tmp_path):
     after = {p.name: p.stat().st_mtime_ns for p in plan.iterdir() if not p.name.startswith(".")}
     assert {k: v for k, v in after.items() if k != "plan.gpkg"} == {k: v for k, v in before.items() if k != "plan.gpkg"}
     assert store_generation(plan) == outputs_generation(plan) == 2
+
+
+def test_lock_follows_a_folder_replaced_while_waiting(tmp_path):
+    # A waiter that locked the lock file of a folder since replaced (plan --force) must lock the
+    # new folder instead: after it returns, the new folder's lock file is the one held.
+    import fcntl
+
+    plan, _ = _plan(tmp_path)
+    holding, got = threading.Event(), {}
+
+    def waiter():
+        holding.wait(10)
+        with plan_lock(plan):
+            fd = os.open(plan / ".fieldplan.lock", os.O_RDWR)
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+                got["held"] = False  # nobody held the new folder's lock
+            except BlockingIOError:
+                got["held"] = True
+            finally:
+                os.close(fd)
+
+    thread = threading.Thread(target=waiter)
+    thread.start()
+    with plan_lock(plan):
+        holding.set()
+        time.sleep(0.3)  # the waiter now polls the old folder's lock file
+        os.rename(plan, tmp_path / "plan.old")
+        (tmp_path / "plan.old").rename(tmp_path / "plan.tmp")
+        plan.mkdir()
+        for name in ("plan.gpkg", "manifest.json"):
+            (plan / name).write_bytes((tmp_path / "plan.tmp" / name).read_bytes())
+    thread.join(20)
+    assert got == {"held": True}
+
+
+@pytest.mark.slow
+def test_sigkill_during_results_stores_the_round_once(tmp_path):
+    plan, ids = _plan(tmp_path, spacing=12)
+    lab = _results_csv(tmp_path / "lab.csv", ids[:50])
+    env = {**os.environ, "PYTHONPATH": str(ROOT), "PYTHONWARNINGS": "ignore"}
+    cmd = [sys.executable, "-m", "fieldplan", "results", str(plan), str(lab)]
+    proc = subprocess.Popen(cmd, cwd=ROOT, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.monotonic() + 90
+    while time.monotonic() < deadline and proc.poll() is None and not list(plan.glob(".plan.gpkg.*.tmp.gpkg")):
+        time.sleep(0.002)
+    proc.send_signal(signal.SIGKILL)
+    proc.wait(timeout=30)
+    layers = {row[0] for row in pyogrio.list_layers(plan / "plan.gpkg")}
+    stored = 0 if "results" not in layers else 1
+    # Killed before the swap: nothing stored and a re-run stores round 1; after it: a re-run
+    # is refused as a duplicate. Either way the round is stored exactly once.
+    again = runner.invoke(app, ["results", str(plan), str(lab)])
+    assert again.exit_code == (2 if stored else 0), again.output
+    rounds = pyogrio.read_dataframe(plan / "plan.gpkg", layer="results", read_geometry=False)
+    assert rounds["round"].unique().tolist() == [1] and len(rounds) == 50
+    assert _debris(plan) == []
