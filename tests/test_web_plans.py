@@ -102,7 +102,7 @@ def test_crews_same_as_cli(ws):
     assert r.status_code == 200, r.text
     assert [c["crew"] for c in r.json()["crews"]] == [1, 2]
     _cli("crews", ref, "--crews", "2", "--start", "18.89605,-33.86014", "--return", "-q")
-    for name in ("crews.csv", "points.csv", "crew_01.gpx", "crew_02.gpx", "points.gpx"):
+    for name in ("crews.csv", "points.csv", "crew_01.gpx", "crew_02.gpx", "points.gpx", "crews.json"):
         # reference: `fieldplan crews` with the same options on a copy of the plan
         assert (web / name).read_bytes() == (ref / name).read_bytes(), name
     again = client.post("/api/plans/p/crews", json={"crews": 3})
@@ -472,3 +472,21 @@ def test_xlsx_results_and_zip_checks(ws, tmp_path):
         z.writestr("../xl/workbook.xml", "x")
     r = client.post("/api/plans/p/results", files={"file": ("evil.xlsx", bad.getvalue())})
     assert r.status_code == 422 and "unsafe" in r.json()["error"]
+
+
+def test_public_server_puts_crew_links_on_the_sheets(ws):
+    _, web, _ = ws
+    token = "a-long-enough-test-token-0123456789"
+    client = TestClient(create_app(web.parent, token=token, public=True), base_url="http://192.0.2.7:8750")
+    client.headers["Authorization"] = f"Bearer {token}"
+    r = client.post("/api/plans/p/crews", json={"crews": 2})
+    assert r.status_code == 200 and r.json()["links"]
+    from fieldplan.field.links import crew_link, workspace_secret
+
+    sheets = (web / "crew_sheets.html").read_text(encoding="utf-8")
+    # reference: fieldplan.field.links.crew_link, the address the crew page checks
+    for crew in (1, 2):
+        link = crew_link("http://192.0.2.7:8750", workspace_secret(web.parent), "p", crew)
+        assert link.replace("&", "&amp;") in sheets or link in sheets
+    links = client.get("/api/plans/p").json()["crew_links"]
+    assert [c["crew"] for c in links] == [1, 2] and all("/field/p/" in c["url"] for c in links)

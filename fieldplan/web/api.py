@@ -147,6 +147,8 @@ def post_crews(request: Request, name: str, body: CrewsRequest) -> dict:
         return_to_start=body.return_to_start,
         across_rows=body.across_rows,
         force=body.force,
+        # Phones reach a server listening beyond this machine: the sheets then carry crew links.
+        link_base=str(request.base_url).rstrip("/") if request.app.state.public else None,
     )
 
 

@@ -236,16 +236,22 @@ def assign_crews(
     return_to_start: bool = False,
     across_rows: float = 1.5,
     force: bool = False,
+    link_base: str | None = None,
 ) -> dict:
-    """``fieldplan crews``: split the points among crews, route each, write the crew files."""
-    from fieldplan.route.folder import plan_crews, refuse_existing, write_crews
-    from fieldplan.store import load_plan
+    """``fieldplan crews``: split the points among crews, route each, write the crew files.
+
+    ``link_base`` (the server's address, when phones can reach it) puts each crew's page link
+    on its sheet, as ``--link-base`` does.
+    """
+    from fieldplan.route.folder import plan_crews, refuse_existing, save_rerun, write_crews
+    from fieldplan.store import load_plan, locked
 
     if start is not None:
         lon, lat = (float(v) for v in start)
         if not (-180 <= lon <= 180 and -90 <= lat <= 90):
             raise WebError(422, f"start {start!r} is not a longitude,latitude pair", parameter="start")
-    with plan_lock(folder):
+    # Read, route and write under the plan's lock, so a mark made meanwhile is not overwritten.
+    with plan_lock(folder), locked(folder):
         plan = load_plan(folder)
         refuse_existing(plan, folder, force=force)
         run = plan_crews(
@@ -258,18 +264,47 @@ def assign_crews(
             return_to_start=return_to_start,
             across_factor=across_rows,
         )
-        write_crews(folder, run)
+        links = None
+        if link_base:
+            from fieldplan.field.links import crew_link, workspace_secret
+
+            secret = workspace_secret(folder.parent)
+            links = {
+                int(k): crew_link(link_base, secret, folder.name, int(k)) for k in run.table["crew"].tolist()
+            }
+        write_crews(folder, run, links=links)
+    # The options as the command records them, so advice after a later change can repeat them.
+    rerun = ["--crews", str(int(crews))]
+    rerun += ["--start", f"{float(start[0])!r},{float(start[1])!r}"] if start is not None else []
+    rerun += ["--walk-speed", f"{walk_speed:g}"] if walk_speed != 4.0 else []
+    rerun += ["--minutes-per-point", f"{minutes_per_point:g}"] if minutes_per_point != 5.0 else []
+    rerun += ["--max-hours", f"{max_hours:g}"] if max_hours is not None else []
+    rerun += ["--return"] if return_to_start else []
+    rerun += ["--across-rows", f"{across_rows:g}"] if across_rows != 1.5 else []
+    rerun += ["--link-base", link_base] if link_base else []
+    save_rerun(folder, rerun)
     start_lonlat = None
     if run.start_xy is not None:
         from pyproj import Transformer
 
         lon, lat = Transformer.from_crs(plan.crs, "EPSG:4326", always_xy=True).transform(*run.start_xy)
         start_lonlat = [round(lon, 7), round(lat, 7)]
+    warnings = []
+    if run.unfitted_ids:
+        warnings.append(
+            f"{len(run.unfitted_ids)} point(s) do not fit in {max_hours:g} h per crew; these blocks would be "
+            "left part-sampled: "
+            + "; ".join(line.removeprefix("block ") for line in getattr(run, "incomplete", ()))
+            + ". The points left out are the far ends of the routes, so what is sampled of a block leans "
+            "toward the drop-off and its estimate is biased; sample the rest another day or add crews or hours"
+        )
     return {
         "crews": records(run.table),
         "unfitted": list(run.unfitted_ids),
+        "warnings": warnings,
         "start": start_lonlat,
         "start_source": run.start_source,
+        "links": bool(links),
     }
 
 

@@ -205,6 +205,7 @@
     FP.api("POST", base + "/crews", body).then(function (res) {
       var lines = res.crews.map(function (c) { return "Crew " + c.crew + ": " + c.points + " points, " + c.km.toFixed(2) + " km, about " + c.hours.toFixed(1) + " h"; });
       if (res.unfitted.length) { lines.push(res.unfitted.length + " point(s) do not fit in the longest day: " + res.unfitted.slice(0, 10).join(", ")); }
+      (res.warnings || []).forEach(function (w) { lines.push(w); });
       FP.say(msg, "ok", "Crews assigned. Routes are on the map; crew sheets and GPX files are in Downloads.", lines);
       return load();
     }).catch(function (err) { FP.sayError(msg, err); });
