@@ -277,6 +277,11 @@ def test_labels_and_lab_sheet_as_cli(ws):
     # reference: `fieldplan labels` writes the same PDF for the same plan and layout
     assert (web / "labels.pdf").read_bytes() == (ref / "labels.pdf").read_bytes()
     assert client.post("/api/plans/p/labels", json={"layout": "nonsense"}).status_code == 400
+    r = client.post("/api/plans/p/labels", json={"layout": "letter-3x10", "round": 2, "include_spares": True})
+    assert r.status_code == 200 and r.json()["file"] == "labels_r2.pdf" and r.json()["spares"] > 0
+    _cli("labels", ref, "--layout", "letter-3x10", "--round", "2", "--include-spares", "-q")
+    # reference: `fieldplan labels --round 2 --include-spares`
+    assert (web / "labels_r2.pdf").read_bytes() == (ref / "labels_r2.pdf").read_bytes()
     assert client.post("/api/plans/p/lab-sheet", json={"analyses": "pH,P,K"}).status_code == 200
     _cli("lab-sheet", ref, "--analyses", "pH,P,K", "-q")
     assert (web / "lab_submission.csv").read_bytes() == (ref / "lab_submission.csv").read_bytes()

@@ -317,20 +317,38 @@ class LabelsRequest(BaseModel):
     skip: int = Field(
         default=0, ge=0, le=1000, description="Label positions already used on the first sheet."
     )
+    round: int = Field(default=1, ge=1, le=99, description="Sampling round: later rounds get their own ids.")
+    include_spares: bool = Field(
+        default=False, description="Add the unused spares after the samples, marked SPARE."
+    )
 
 
 @router.post("/plans/{name}/labels", summary="Write labels.pdf (fieldplan labels)")
 def post_labels(request: Request, name: str, body: LabelsRequest) -> dict:
-    return service.make_labels(_folder(request, name), layout=body.layout, date=body.date, skip=body.skip)
+    return service.make_labels(
+        _folder(request, name),
+        layout=body.layout,
+        date=body.date,
+        skip=body.skip,
+        round_no=body.round,
+        include_spares=body.include_spares,
+    )
 
 
 class LabSheetRequest(BaseModel):
     analyses: str = Field(min_length=1, max_length=500, description='Comma-separated, e.g. "pH,P,K".')
+    round: int = Field(default=1, ge=1, le=99, description="Sampling round: later rounds get their own ids.")
+    include_spares: bool = Field(default=False, description="Add the unused spares after the samples.")
 
 
 @router.post("/plans/{name}/lab-sheet", summary="Write lab_submission.csv and results_template.csv")
 def post_lab_sheet(request: Request, name: str, body: LabSheetRequest) -> dict:
-    return service.make_lab_sheet(_folder(request, name), analyses=body.analyses)
+    return service.make_lab_sheet(
+        _folder(request, name),
+        analyses=body.analyses,
+        round_no=body.round,
+        include_spares=body.include_spares,
+    )
 
 
 @router.get("/plans/{name}/files", summary="Files of the plan folder")

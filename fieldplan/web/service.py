@@ -550,8 +550,16 @@ def coverage(
 # --- labels and lab sheet (fieldplan labels / lab-sheet) ---------------------------------------
 
 
-def make_labels(folder: Path, *, layout: str = "a4-3x8", date: str | None = None, skip: int = 0) -> dict:
-    """``fieldplan labels``: labels.pdf in the plan folder."""
+def make_labels(
+    folder: Path,
+    *,
+    layout: str = "a4-3x8",
+    date: str | None = None,
+    skip: int = 0,
+    round_no: int = 1,
+    include_spares: bool = False,
+) -> dict:
+    """``fieldplan labels``: labels.pdf (labels_rN.pdf for later rounds) in the plan folder."""
     from datetime import date as _date
 
     from fieldplan.errors import OptionError
@@ -564,21 +572,30 @@ def make_labels(folder: Path, *, layout: str = "a4-3x8", date: str | None = None
         except ValueError:
             raise OptionError(f"--date takes YYYY-MM-DD, e.g. 2027-03-01; got {date!r}") from None
     sheet = parse_layout(layout)
+    name = "labels.pdf" if round_no == 1 else f"labels_r{int(round_no)}.pdf"
     with plan_lock(folder):
         plan = load(folder)
-        recs = label_records(plan.points, plan_id=plan.params.get("plan_id", ""), round_no=1)
-        atomic_write_bytes(folder / "labels.pdf", labels_pdf(recs, sheet, date=date or None, skip=int(skip)))
-    return {"file": "labels.pdf", "labels": len(recs), "layout": sheet.name}
+        recs = label_records(
+            plan.points,
+            plan_id=plan.params.get("plan_id", ""),
+            round_no=int(round_no),
+            include_spares=include_spares,
+        )
+        atomic_write_bytes(folder / name, labels_pdf(recs, sheet, date=date or None, skip=int(skip)))
+    n_spare = int((recs["status"] == "spare").sum()) if "status" in recs else 0
+    return {"file": name, "labels": len(recs), "spares": n_spare, "layout": sheet.name}
 
 
-def make_lab_sheet(folder: Path, *, analyses: str) -> dict:
+def make_lab_sheet(folder: Path, *, analyses: str, round_no: int = 1, include_spares: bool = False) -> dict:
     """``fieldplan lab-sheet``: lab_submission.csv and results_template.csv."""
     from fieldplan.samples.lab import parse_analyses, write_lab_sheet
 
     names = parse_analyses(analyses)
     with plan_lock(folder):
         plan = load(folder)
-        paths = write_lab_sheet(plan, folder, analyses=names, round_no=1)
+        paths = write_lab_sheet(
+            plan, folder, analyses=names, round_no=int(round_no), include_spares=include_spares
+        )
     return {"files": [Path(p).name for p in paths], "analyses": names}
 
 

@@ -289,7 +289,7 @@
     e.preventDefault();
     var msg = document.getElementById("downloads-msg");
     FP.api("POST", base + "/labels", FP.formJSON(e.target)).then(function (res) {
-      FP.say(msg, "ok", res.labels + " labels on " + res.layout + " sheets in " + res.file + ". Print at 100 % (no fit to page).");
+      FP.say(msg, "ok", res.labels + " labels" + (res.spares ? " (" + res.spares + " spares, marked SPARE, at the end)" : "") + " on " + res.layout + " sheets in " + res.file + ". Print at 100 % (no fit to page).");
       return load();
     }).catch(function (err) { FP.sayError(msg, err); });
   });
