@@ -495,3 +495,26 @@ def test_public_server_puts_crew_links_on_the_sheets(ws):
         assert link.replace("&", "&amp;") in sheets or link in sheets
     links = client.get("/api/plans/p").json()["crew_links"]
     assert [c["crew"] for c in links] == [1, 2] and all("/field/p/" in c["url"] for c in links)
+
+
+def test_remove_round_as_the_cli(ws, tmp_path, monkeypatch):
+    client, web, ref = ws
+    ids = pd.read_csv(web / "points.csv")
+    ids = ids[ids["status"] == "selected"]["point_id"].astype(str).tolist()[:10]
+    csv = tmp_path / "r.csv"
+    csv.write_text("point_id,brix\n" + "".join(f"{p},{21 + i * 0.1:.1f}\n" for i, p in enumerate(ids)))
+    assert client.post("/api/plans/p/results", files={"file": ("r.csv", csv.read_bytes())}).status_code == 200
+    _cli("results", ref, csv, "-q")
+    r = client.post("/api/plans/p/results/remove", json={"round": 1, "reason": "wrong batch", "by": "tester"})
+    assert r.status_code == 200 and r.json()["round"] == 1 and r.json()["values"] == 10
+    _cli("results", ref, "--remove-round", "1", "--reason", "wrong batch", "--by", "tester")
+    q = "SELECT round, point_id, variable, value FROM results_removed ORDER BY fid"
+    with sqlite3.connect(web / "plan.gpkg") as a, sqlite3.connect(ref / "plan.gpkg") as b:
+        # reference: `fieldplan results --remove-round 1` keeps the same rows aside
+        assert a.execute(q).fetchall() == b.execute(q).fetchall()
+        assert (
+            a.execute("SELECT action, reason, user FROM events").fetchall()
+            == b.execute("SELECT action, reason, user FROM events").fetchall()
+        )
+    again = client.post("/api/plans/p/results/remove", json={"round": 1})
+    assert again.status_code == 400

@@ -222,6 +222,22 @@ def post_results(
         shutil.rmtree(tmp, ignore_errors=True)
 
 
+class RemoveRoundRequest(BaseModel):
+    """Options of ``fieldplan results --remove-round``."""
+
+    round: int = Field(ge=1, description="Round to take out (kept in layer results_removed).")
+    reason: str = Field(default="", max_length=500, description="Why, for the events table.")
+    by: str | None = Field(default=None, max_length=120, description="Who.")
+
+
+@router.post(
+    "/plans/{name}/results/remove",
+    summary="Take a round out of the results (fieldplan results --remove-round)",
+)
+def post_remove_round(request: Request, name: str, body: RemoveRoundRequest) -> dict:
+    return service.remove_round(_folder(request, name), body.round, reason=body.reason, by=body.by)
+
+
 class MarksRequest(BaseModel):
     """Options of ``fieldplan mark``."""
 

@@ -390,6 +390,18 @@ def import_results(
     return out
 
 
+def remove_round(folder: Path, round_no: int, *, reason: str = "", by: str | None = None) -> dict:
+    """``fieldplan results --remove-round``: the round moves to ``results_removed``, an event records it."""
+    from fieldplan.results import remove_round as _remove
+
+    with plan_lock(folder):
+        done = _remove(folder, int(round_no), reason=reason, by=by or None)
+    notes = []
+    if (folder / "estimates.csv").exists():
+        notes.append("estimates.csv was made before the removal; estimate again and keep it")
+    return {**{k: _jsonable(v) for k, v in done.items()}, "notes": notes}
+
+
 # --- marks (fieldplan mark) ------------------------------------------------------------------
 
 

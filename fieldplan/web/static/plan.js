@@ -253,6 +253,16 @@
     });
   });
 
+  document.getElementById("remove-round-form").addEventListener("submit", function (e) {
+    e.preventDefault();
+    var msg = document.getElementById("results-msg");
+    FP.api("POST", base + "/results/remove", FP.formJSON(e.target)).then(function (res) {
+      FP.say(msg, "ok", "Round " + res.round + " (" + res.source + ", " + res.values + " values) taken out; kept in layer results_removed, event " + res.event_id + ".", res.notes);
+      e.target.reset();
+      return load();
+    }).catch(function (err) { FP.sayError(msg, err); });
+  });
+
   document.getElementById("estimates-form").addEventListener("submit", function (e) {
     e.preventDefault();
     var q = FP.formJSON(e.target);
