@@ -437,3 +437,36 @@ def test_large_plan_drawn_on_a_canvas(tmp_path):
     assert dom_points == 0 and canvases == 1
     assert "Stratum F01" in legend
     assert log["requests"] == [] and log["errors"] == []
+
+
+def test_plan_made_in_the_browser_equals_the_cli(season, tmp_path, monkeypatch):
+    """The plan saved from the page has the point files `fieldplan plan` writes for the same choices."""
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import app as cli
+    from fieldplan.demo import demo_blocks_path, demo_exclusions_path
+
+    _, _, workspace = season
+    # The exclusions are recorded by file name: run the command beside them, as a user would.
+    monkeypatch.chdir(demo_exclusions_path().parent)
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "1800000000")
+    result = CliRunner().invoke(
+        cli,
+        ["plan", str(demo_blocks_path()), "--exclude", demo_exclusions_path().name, "--design", "random",
+         "--per-block", "3", "--spares", "2", "--purpose", "ripeness", "--seed", "7",
+         "--out", str(tmp_path / "cli"), "-q"],
+    )  # fmt: skip
+    assert result.exit_code == 0, result.output
+    import geopandas as gpd
+
+    # The browser's plan was changed afterwards (crews, a mark): compare the planned points kept in
+    # plan.gpkg, and the summary written at save time, with the command's.
+    planned = gpd.read_file(workspace / "harvest-2027" / "plan.gpkg", layer="points_planned")
+    cli_points = gpd.read_file(tmp_path / "cli" / "plan.gpkg", layer="points")
+    # reference: `fieldplan plan` with the same file, parameters and seed
+    assert planned["point_id"].tolist() == cli_points["point_id"].tolist()
+    assert planned["sample_id"].tolist() == cli_points["sample_id"].tolist()
+    assert planned.geometry.geom_equals_exact(cli_points.geometry, tolerance=0).all()
+    assert (workspace / "harvest-2027" / "summary.csv").read_bytes() == (
+        tmp_path / "cli" / "summary.csv"
+    ).read_bytes()

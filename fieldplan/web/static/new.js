@@ -216,7 +216,10 @@
       out[input.name] = v;
     });
     var roles = roleParams();
-    if (roles.id_field) { out.id_field = roles.id_field; }
+    // The column the reader finds by itself is its default: naming it would change the recorded
+    // parameters (and the plan code) without changing the plan.
+    var found = state.upload && state.upload.check ? state.upload.check.id_field : null;
+    if (roles.id_field && roles.id_field !== found) { out.id_field = roles.id_field; }
     if (Object.keys(roles.columns).length) { out.columns = roles.columns; }
     return out;
   }
