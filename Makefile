@@ -14,7 +14,7 @@ $(BIN)/python:
 $(STAMP): pyproject.toml | $(BIN)/python
 	$(BIN)/python -m pip install --quiet -e ".[test,dask,bench,web]"
 	@# Tests check kriging against scikit-gstat; it pins scipy<1.17, so it comes without dependencies
-	@# (it imports only numpy, scipy, pandas, numba, scikit-learn and matplotlib, all installed above).
+	@# (what it imports is installed above: the test extra lists imageio and tqdm for it).
 	$(BIN)/python -m pip install --quiet --no-deps scikit-gstat
 	touch $(STAMP)
 
