@@ -53,12 +53,14 @@ class LiveServer:
 
         from fieldplan.web.app import create_app
 
-        with socket.socket() as s:
-            s.bind(("127.0.0.1", 0))
-            self.port = s.getsockname()[1]
+        # The socket is bound here and handed to uvicorn: no other process can take the port between.
+        self.sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+        self.sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        self.sock.bind(("127.0.0.1", 0))
+        self.port = self.sock.getsockname()[1]
         config = uvicorn.Config(create_app(workspace), host="127.0.0.1", port=self.port, log_level="warning")
         self.server = uvicorn.Server(config)
-        self.thread = threading.Thread(target=self.server.run, daemon=True)
+        self.thread = threading.Thread(target=self.server.run, kwargs={"sockets": [self.sock]}, daemon=True)
         self.thread.start()
         end = time.monotonic() + 30
         while not self.server.started:
@@ -70,6 +72,7 @@ class LiveServer:
     def stop(self) -> None:
         self.server.should_exit = True
         self.thread.join(timeout=10)
+        self.sock.close()
 
 
 def demo_workspace(root: Path) -> Path:

@@ -44,14 +44,16 @@ class LiveServer:
 
         from fieldplan.web.app import create_app
 
-        with socket.socket() as s:
-            s.bind(("127.0.0.1", 0))
-            self.port = s.getsockname()[1]
+        # The socket is bound here and handed to uvicorn: no other process can take the port between.
+        self.sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+        self.sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        self.sock.bind(("127.0.0.1", 0))
+        self.port = self.sock.getsockname()[1]
         self.app = create_app(workspace, **options)
         self.server = uvicorn.Server(
             uvicorn.Config(self.app, host="127.0.0.1", port=self.port, log_level="warning")
         )
-        self.thread = threading.Thread(target=self.server.run, daemon=True)
+        self.thread = threading.Thread(target=self.server.run, kwargs={"sockets": [self.sock]}, daemon=True)
         self.thread.start()
         end = time.monotonic() + 20
         while not self.server.started:
@@ -63,6 +65,7 @@ class LiveServer:
     def stop(self) -> None:
         self.server.should_exit = True
         self.thread.join(timeout=10)
+        self.sock.close()
 
 
 def open_browser(pw, base: str, *, size=(1400, 900)):
@@ -80,6 +83,7 @@ def open_browser(pw, base: str, *, size=(1400, 900)):
 
     context.route("**/*", route)
     page = context.new_page()
+    page.set_default_timeout(60_000)  # a shared, busy machine: waits are generous, never timed results
     page.on("console", lambda m: log["errors"].append(m.text) if m.type == "error" else None)
     page.on("pageerror", lambda e: log["errors"].append(str(e)))
     return browser, page, log
