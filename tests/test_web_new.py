@@ -288,7 +288,7 @@ def test_column_roles_map_differently_named_columns(client, tmp_path):
     assert labels == original
 
 
-def test_size_helper_matches_the_formula(client):
+def test_size_calculator_matches_the_formula(client):
     from scipy import stats
 
     r = client.get("/api/size", params={"cv": 25, "margin": 10})

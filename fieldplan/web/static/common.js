@@ -1,4 +1,4 @@
-/* fieldplan workspace: helpers shared by every page (no data of its own, no inline script). */
+/* fieldplan workspace: functions shared by every page (no data of its own, no inline script). */
 (function () {
   "use strict";
   var FP = window.FP = window.FP || {};

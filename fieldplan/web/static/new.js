@@ -1,5 +1,5 @@
 /* New plan page: upload, attribute table with column roles, the plan form built from the
-   plan specification (GET /api/spec), sample-size helper, preview, save. */
+   plan specification (GET /api/spec), sample-size calculator, preview, save. */
 (function () {
   "use strict";
   var FP = window.FP, el = FP.el;
@@ -291,7 +291,7 @@
     }).catch(function (err) { FP.sayError(msg, err); });
   });
 
-  // ---- sample-size helper -------------------------------------------------------------------
+  // ---- sample-size calculator ----------------------------------------------------------------
   document.getElementById("size-form").addEventListener("submit", function (e) {
     e.preventDefault();
     var q = FP.formJSON(e.target), params = new URLSearchParams();
