@@ -207,6 +207,8 @@ def check_json_nul(path) -> None:
     from fieldplan.errors import InputError
 
     raw = Path(path).read_bytes()
+    if b"\\u0000" not in raw and b"\\U0000" not in raw:  # a plain search first: the usual case
+        return
     found = _NUL_ESCAPE.search(raw)
     if found is None:
         return

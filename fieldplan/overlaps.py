@@ -41,14 +41,17 @@ def find_overlaps(geoms) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     tree = shapely.STRtree(geoms)
     # Interiors meet when blocks overlap or one lies inside the other; blocks that only share
     # an edge (the usual case) are not intersected at all.
-    pairs = [tree.query(geoms, predicate=p) for p in ("overlaps", "contains", "within")]
-    left = np.concatenate([q[0] for q in pairs])
-    right = np.concatenate([q[1] for q in pairs])
-    keep = left != right
-    left, right = np.minimum(left[keep], right[keep]), np.maximum(left[keep], right[keep])
+    # Pairs whose bounding boxes meet, each once (i < j); the predicates then run on those pairs
+    # only, never on a block against itself (which is most of the work of a predicate query).
+    left, right = tree.query(geoms)
+    keep = left < right
+    left, right = left[keep], right[keep]
     if left.size:
-        unique = np.unique(np.column_stack([left, right]), axis=0)
-        left, right = unique[:, 0], unique[:, 1]
+        a, b = geoms[left], geoms[right]
+        meet = shapely.overlaps(a, b) | shapely.contains(a, b) | shapely.within(a, b)
+        left, right = left[meet], right[meet]
+        order = np.lexsort((right, left))
+        left, right = left[order], right[order]
     if left.size == 0:
         return left, right, np.zeros(0)
     area = shapely.area(shapely.intersection(geoms[left], geoms[right]))
