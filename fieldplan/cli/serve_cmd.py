@@ -12,14 +12,15 @@ from fieldplan.cli.options import echo_err, handle_errors
 __all__ = ["register", "serve", "workspace_url"]
 
 
-def workspace_url(host: str, port: int, token: str | None) -> str:
-    """The address to open: ``http://HOST:PORT/`` plus ``?token=`` when a token is needed."""
+def workspace_url(host: str, port: int, token: str | None, *, https: bool = False) -> str:
+    """The address to open: ``http(s)://HOST:PORT/`` plus ``?token=`` when a token is needed."""
     shown = f"[{host}]" if ":" in host and not host.startswith("[") else host
     if shown in ("0.0.0.0", "[::]"):
         import socket
 
         shown = socket.gethostname()
-    return f"http://{shown}:{port}/" + (f"?token={token}" if token else "")
+    scheme = "https" if https else "http"
+    return f"{scheme}://{shown}:{port}/" + (f"?token={token}" if token else "")
 
 
 @handle_errors
@@ -45,6 +46,17 @@ def serve(
     max_upload_mb: Annotated[
         float, typer.Option("--max-upload-mb", min=0.001, help="Largest upload accepted, in megabytes.")
     ] = 50.0,
+    tls_cert: Annotated[
+        Path | None,
+        typer.Option(
+            "--tls-cert",
+            help="Certificate file (PEM) to serve over HTTPS, with --tls-key. Phones give a page their "
+            "position and offline storage only over HTTPS (or on this machine).",
+        ),
+    ] = None,
+    tls_key: Annotated[
+        Path | None, typer.Option("--tls-key", help="Private key file (PEM) of --tls-cert.")
+    ] = None,
 ) -> None:
     """Serve a workspace of plan folders in the browser: plan, assign crews, bring results back.
 
@@ -70,6 +82,11 @@ def serve(
             ) from None
         if not token:
             token = new_token()
+    if (tls_cert is None) != (tls_key is None):
+        raise OptionError("--tls-cert and --tls-key go together: give both files, or neither")
+    for option, path in (("--tls-cert", tls_cert), ("--tls-key", tls_key)):
+        if path is not None and not path.is_file():
+            raise OptionError(f"{option} {path}: no such file")
     if token is not None and len(token) < 16:
         raise OptionError("--token must be at least 16 characters (or leave it out to get a generated one)")
 
@@ -84,7 +101,7 @@ def serve(
     from fieldplan.web.app import create_app
 
     app = create_app(workspace, token=token, public=public, max_upload_mb=max_upload_mb)
-    url = workspace_url(host, port, token)
+    url = workspace_url(host, port, token, https=tls_cert is not None)
     typer.echo(f"fieldplan workspace {workspace.resolve()}")
     typer.echo(f"Open {url}")
     if public:
@@ -93,7 +110,8 @@ def serve(
             "these plans. Use it on a trusted network and share the link only with the team."
         )
     typer.echo("Press Ctrl+C to stop.")
-    uvicorn.run(app, host=host.strip("[]"), port=port, log_level="warning", server_header=False)
+    tls = {"ssl_certfile": str(tls_cert), "ssl_keyfile": str(tls_key)} if tls_cert is not None else {}
+    uvicorn.run(app, host=host.strip("[]"), port=port, log_level="warning", server_header=False, **tls)
 
 
 def register(app: typer.Typer) -> None:
