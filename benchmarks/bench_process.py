@@ -121,6 +121,7 @@ def _plant_listing_script(tmp: Path, blocks: Path) -> list[str]:
         import geopandas as gpd, numpy as np
         from benchmarks.baselines import enumerate_and_choose
         blocks = gpd.read_file({str(blocks)!r}, engine="pyogrio")
+        blocks = blocks.to_crs(blocks.estimate_utm_crs())  # GeoJSON is in degrees; plants are in metres
         rng = np.random.default_rng(1)
         picked = [
             enumerate_and_choose(
@@ -132,6 +133,7 @@ def _plant_listing_script(tmp: Path, blocks: Path) -> list[str]:
             )
         ]
         pts = np.concatenate(picked)
+        assert len(pts) == {PICKS} * len(blocks), len(pts)  # every block gave its plants
         gpd.GeoDataFrame(geometry=gpd.points_from_xy(pts[:, 0], pts[:, 1]), crs=blocks.crs).to_crs(4326).to_file(
             {str(tmp / "plants.geojson")!r}, driver="GeoJSON", engine="pyogrio"
         )

@@ -235,6 +235,8 @@ def write_points_csv(plan, folder: Path) -> None:
 
 
 _CSV_QUOTE = re.compile(r'[,"\r\n]')
+# What the csv module quotes with the "\n" line terminator plan files use (a lone "\r" is not).
+_CELL_QUOTE = re.compile(r'[,"\n]')
 _FORMULA_START = re.compile("^[" + re.escape("".join(_FORMULA_PREFIXES)) + "]", re.MULTILINE)
 
 
@@ -242,8 +244,7 @@ def _csv_text(table: pd.DataFrame) -> str | None:
     """The text ``neutralise_frame(table).to_csv(index=False, lineterminator="\\n")`` gives.
 
     Built column by column. None (use pandas) for an empty table, a column of
-    another type, or a cell that the csv module would quote; the fast path only
-    covers cells written as they are.
+    another type, or a column name that would need quotes.
     """
     if len(table) == 0:
         return None
@@ -252,16 +253,20 @@ def _csv_text(table: pd.DataFrame) -> str | None:
     if any(c is None for c in columns):
         return None
     text = [c for c, dtype in zip(columns, table.dtypes, strict=True) if not _is_number(dtype)]
-    if _CSV_QUOTE.search("".join(names)) or (
-        text and _CSV_QUOTE.search("".join(np.concatenate(text).tolist()))
-    ):
+    if _CSV_QUOTE.search("".join(names)):
         return None
     for cells in text:
-        # As neutralise_frame does to text cells (numbers stay as they are). No cell
-        # holds a line break now, so one search over the column finds any to change.
+        # As neutralise_frame does to text cells (numbers stay as they are). One search over
+        # the column finds out whether any cell may need it (a line start inside a cell is a
+        # false alarm the per-cell check then clears).
         if _FORMULA_START.search("\n".join(cells.tolist())):
             hit = pd.Series(cells, dtype=object).str.startswith(_FORMULA_PREFIXES).to_numpy(dtype=bool)
             cells[hit] = "'" + cells[hit]
+        # Then quoted as the csv module's QUOTE_MINIMAL does (what pandas writes): a cell with a
+        # comma, quote or line break goes in quotes, its quotes doubled.
+        if _CELL_QUOTE.search("".join(cells.tolist())):
+            quote = pd.Series(cells, dtype=object).str.contains(_CELL_QUOTE).to_numpy(dtype=bool)
+            cells[quote] = ['"' + v.replace('"', '""') + '"' for v in cells[quote].tolist()]
     pieces = np.empty((len(table), 2 * len(columns)), dtype=object)
     pieces[:, 1::2] = ","
     pieces[:, -1] = "\n"
