@@ -8,8 +8,8 @@ the parameter's name (``spacing``, ``per_block``...), so the command line can
 name its flag (``--spacing``) and a web form its field.
 
 The sections are frozen dataclasses rather than pydantic models: they need no
-new dependency, import in well under a millisecond (``fieldplan --help`` and
-the web's form page stay quick), and the few rules that matter here (choices,
+new dependency, import nothing outside the standard library (``fieldplan
+--help`` and the web's form page stay quick), and the few rules that matter here (choices,
 ranges, which design a parameter belongs to, parameters that go together) read
 more plainly as code than as validators. Each field's ``metadata`` describes it
 for forms and help: kind, choices, default, unit, help text, designs, flag.
