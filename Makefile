@@ -24,15 +24,15 @@ EXCL := demo_plots/estate_exclusions.geojson
 
 demo: $(STAMP)
 	$(FP) demo --out $(DEMO_OUT)/plan --force
-	$(FP) crews $(DEMO_OUT)/plan --crews 3 --start 18.89605,-33.86014 --return --force -q
+	$(FP) crews $(DEMO_OUT)/plan --crews 3 --drop-off 18.89605,-33.86014 --return --force -q
 	$(FP) results $(DEMO_OUT)/plan demo_plots/results_round1.csv || true
 	$(FP) results $(DEMO_OUT)/plan demo_plots/results_round2.csv || true
-	$(FP) estimate $(DEMO_OUT)/plan --value brix --target 23
+	$(FP) estimate $(DEMO_OUT)/plan --variable brix --target 23
 	$(FP) plan $(EST) --exclude $(EXCL) --spacing 100 --purpose soil --seed 7 --out $(DEMO_OUT)/soil --force -q
-	$(FP) labels $(DEMO_OUT)/soil --layout a4-3x8 -q
+	$(FP) labels $(DEMO_OUT)/soil --label-sheet a4-3x8 -q
 	$(FP) lab-sheet $(DEMO_OUT)/soil --analyses "pH,P,K" -q
 	$(FP) plan $(EST) --spacing 60 --purpose ripeness --crop-profile wine-grapes --select "crop=wine grape" --seed 7 --out $(DEMO_OUT)/ripeness --force -q
-	$(FP) labels $(DEMO_OUT)/ripeness --layout letter-3x10 -q
+	$(FP) labels $(DEMO_OUT)/ripeness --label-sheet letter-3x10 -q
 	$(FP) zones $(EST) --covariates demo_plots/estate_eca_survey.csv demo_plots/estate_ndvi.tif --exclude $(EXCL) --zones auto --method fuzzy --min-zone-ha 0.3 --seed 7 --out $(DEMO_OUT)/zones/zones.gpkg --force -q
 	$(FP) plan $(EST) --exclude $(EXCL) --zones $(DEMO_OUT)/zones/zones.gpkg --strata-by zone --design random --n 40 --allocation neyman --purpose soil --core-buffer 10 --seed 7 --out $(DEMO_OUT)/zone-soil --force -q
 	@echo

@@ -357,7 +357,7 @@ reported standard error over the true standard deviation of the estimate: above
   surface (plateaus of equal value around each of the 155 samples, skewed
   values) {CLUSTERS} clusters are effectively {CLUSTERS} skewed values and coverage
   drops to about 83 %: a cluster plan needs more clusters, sized with the
-  observed intra-cluster correlation (`fieldplan size --from PLAN_DIR`).
+  observed intra-cluster correlation (`fieldplan size --from-plan PLAN_DIR`).
 
 ## Data
 

@@ -86,10 +86,10 @@ def demo_workspace(root: Path) -> Path:
     demo_dir = HERE.parent / "demo_plots"
     steps = [
         ["demo", "--out", str(root / "plan"), "--force", "-q"],
-        ["crews", str(root / "plan"), "--crews", "3", "--start", "18.89605,-33.86014", "--return", "--force", "-q"],
+        ["crews", str(root / "plan"), "--crews", "3", "--drop-off", "18.89605,-33.86014", "--return", "--force", "-q"],
         ["results", str(root / "plan"), str(demo_dir / "results_round1.csv"), "-q"],
         ["results", str(root / "plan"), str(demo_dir / "results_round2.csv"), "-q"],
-        ["estimate", str(root / "plan"), "--value", "brix", "--target", "23", "-q"],
+        ["estimate", str(root / "plan"), "--variable", "brix", "--target", "23", "-q"],
         ["plan", str(demo_blocks_path()), "--exclude", str(demo_exclusions_path()), "--spacing", "100",
          "--purpose", "soil", "--seed", "7", "--out", str(root / "soil"), "-q"],
     ]  # fmt: skip

@@ -291,7 +291,7 @@ def coverage(
                 "max_gap_m": round(float(gap), 2) if math.isfinite(gap) else gap,
                 "outside": n_out,
                 "in_exclusion": n_excl,
-                "status": "FAIL" if failed else "ok",
+                "status": "fail" if failed else "pass",
                 "notes": "; ".join(failed + notes),
             }
         )

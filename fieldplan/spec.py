@@ -224,6 +224,7 @@ def _param(
     shown_default: Any = None,
     identity: bool = True,
     aliases: tuple[str, ...] = (),
+    former_values: dict[str, str] | None = None,
 ) -> Any:
     """A dataclass field with the metadata forms and help need.
 
@@ -250,6 +251,7 @@ def _param(
         "shown_default": shown_default,
         "identity": identity,
         "aliases": aliases,
+        "former_values": dict(former_values or {}),
     }
     if isinstance(default, dict | list):
         raise TypeError("use a tuple default")
@@ -293,6 +295,8 @@ def _check_value(name: str, value: Any, meta: Mapping) -> Any:
     if kind == "choice":
         choices = _choices(meta)
         text = str(value).strip().lower()
+        # A former spelling of a choice (kept for one release) reads as the new one.
+        text = meta["former_values"].get(text, text)
         if text not in choices:
             raise _fail(name, f"must be one of {', '.join(choices)}; got {_q(value)}")
         return text
@@ -691,10 +695,11 @@ class SampleSpec(_Section):
     )
     composite: str | None = _param(
         kind="choice",
-        choices=("cell", "zone"),
+        choices=("cell", "block"),
         panel="samples",
         shown_default="cell",
-        help="Soil: 'cell' (one composite per point) or 'zone' (one per block, zig-zag cores).",
+        former_values={"zone": "block"},
+        help="Soil: 'cell' (one composite per point) or 'block' (one per block, zig-zag cores).",
     )
     core_buffer: float | None = _param(
         kind="number",
@@ -1235,6 +1240,7 @@ def param_info(name: str) -> dict[str, Any]:
         "server_path": meta["kind"] == "path",
         "help": help_text(name),
         "aliases": list(meta["aliases"]),
+        "former_values": dict(meta["former_values"]),
     }
 
 

@@ -91,7 +91,7 @@ def test_untouched_plan_passes(plan_dir):
     assert "checked plan.gpkg" in result.output
     rows = list(csv.DictReader((plan_dir / "coverage.csv").open()))
     assert [r["block"] for r in rows] == ["'=1+1", "A1"]  # reference: OWASP CSV Injection
-    assert all(r["status"] == "ok" and r["outside"] == "0" for r in rows)
+    assert all(r["status"] == "pass" and r["outside"] == "0" for r in rows)
     # reference: spacing s grid covers its area with gaps of at least s*sqrt(2)/2
     assert all(float(r["max_gap_m"]) >= 30 * math.sqrt(2) / 2 - 1e-6 for r in rows)
 
@@ -109,7 +109,7 @@ def test_hand_moved_point_outside_its_block_is_reported(plan, plan_dir):
     assert f"point {pid} (block {moved['properties']['block']}) lies outside its block" in (result.output)
     rows = {r["block"].lstrip("'"): r for r in csv.DictReader((plan_dir / "coverage.csv").open())}
     assert rows[moved["properties"]["block"]]["outside"] == "1"
-    assert rows[moved["properties"]["block"]]["status"] == "FAIL"
+    assert rows[moved["properties"]["block"]]["status"] == "fail"
 
 
 def test_point_in_exclusion_and_min_per_block(plan):
@@ -131,7 +131,7 @@ def test_unsampled_block_fails_and_share_is_flagged(plan):
     keep = plan.points[plan.points["block"] != small]
     report = coverage(plan, points=keep)
     row = report.table.set_index("block").loc[small]
-    assert row["n_points"] == 0 and row["status"] == "FAIL" and "not sampled" in row["notes"]
+    assert row["n_points"] == 0 and row["status"] == "fail" and "not sampled" in row["notes"]
     # reference: proportional allocation n_h = n * A_h / A (Cochran 1977, section 5.3)
     other = report.table.set_index("block").drop(small)
     assert other["expected_points"].iloc[0] == pytest.approx(
@@ -139,9 +139,9 @@ def test_unsampled_block_fails_and_share_is_flagged(plan):
         abs=0.01,
     )
     assert "by area share" in other["notes"].iloc[0]
-    assert other["status"].iloc[0] == "ok"
+    assert other["status"].iloc[0] == "pass"
     strict = coverage(plan, points=keep, proportional=True)
-    assert strict.table.set_index("block").drop(small)["status"].iloc[0] == "FAIL"
+    assert strict.table.set_index("block").drop(small)["status"].iloc[0] == "fail"
 
 
 def test_max_gap_rule(plan_dir):

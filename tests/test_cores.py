@@ -232,7 +232,7 @@ def test_cli_soil_plan_writes_cores(tmp_path):
 
     runner = CliRunner()
     args = ["plan", str(demo_blocks_path()), "--exclude", str(demo_exclusions_path()), "--spacing", "100"]
-    soil = [*args, "--purpose", "soil", "--composite", "zone", "--cores", "20", "--depth", "0-20"]
+    soil = [*args, "--purpose", "soil", "--composite", "block", "--cores", "20", "--depth", "0-20"]
     result = runner.invoke(app, [*soil, "--seed", "1", "--out", str(tmp_path / "z"), "-q"])
     assert result.exit_code == 0, result.output
     data = json.loads((tmp_path / "z" / "cores.geojson").read_text())
@@ -243,7 +243,7 @@ def test_cli_soil_plan_writes_cores(tmp_path):
         app, [*args, "--purpose", "soil", "--composite", "ring", "--out", str(tmp_path / "r")]
     )
     # The choice is checked while parsing, listing the valid ones.
-    assert result.exit_code == 2 and "'ring' is not one of 'cell', 'zone'" in result.output
+    assert result.exit_code == 2 and "'ring' is not one of 'cell', 'block'" in result.output
     result = runner.invoke(app, [*args, "--purpose", "ripeness", "--out", str(tmp_path / "g"), "-q"])
     assert result.exit_code == 0 and not (tmp_path / "g" / "cores.geojson").exists()
 
@@ -357,7 +357,7 @@ def test_substitute_gets_its_own_cores_and_the_old_ones_are_retired(tmp_path, mo
         assert (cores.loc[cores["point_id"] == pid, "status"] == "retired").sum() == 15
         mine = cores[cores["point_id"] == sub]
         assert len(mine) == 15 and (mine["status"] == "active").all()
-        assert mine["core_id"].str.contains("/S").all() and mine["core_id"].is_unique
+        assert mine["core_id"].str.contains("-S").all() and mine["core_id"].is_unique
         assert points.loc[points["point_id"] == sub, "status"].item() == "substitute"
     assert cores["core_id"].is_unique
     assert (cores["status"] == "active").sum() == 15 * int(

@@ -70,7 +70,7 @@ def test_results_rounds_append_and_refuse_reimport(plan_dir):
 def test_estimate_block_intervals_and_readiness(plan_dir):
     for f in (ROUND1, ROUND2):
         assert runner.invoke(app, ["results", str(plan_dir), str(f)]).exit_code == 0
-    res = runner.invoke(app, ["estimate", str(plan_dir), "--value", "brix", "--target", "23"])
+    res = runner.invoke(app, ["estimate", str(plan_dir), "--variable", "brix", "--target", "23"])
     assert res.exit_code == 0, res.output
     assert "V09" in res.stdout and "no interval (1 point)" in res.stdout
     est = pd.read_csv(plan_dir / "estimates.csv").set_index("group")
@@ -90,16 +90,16 @@ def test_estimate_block_intervals_and_readiness(plan_dir):
 
 def test_estimate_unknown_variable_is_one_line_error(plan_dir):
     assert runner.invoke(app, ["results", str(plan_dir), str(ROUND2)]).exit_code == 0
-    res = runner.invoke(app, ["estimate", str(plan_dir), "--value", "yan"])
+    res = runner.invoke(app, ["estimate", str(plan_dir), "--variable", "yan"])
     assert res.exit_code == 2 and "stored variables" in res.stderr
-    bad = runner.invoke(app, ["estimate", str(plan_dir), "--value", "brix", "--by", "row"])
-    assert bad.exit_code == 2 and "--by must be one of" in bad.stderr
+    bad = runner.invoke(app, ["estimate", str(plan_dir), "--variable", "brix", "--group-by", "row"])
+    assert bad.exit_code == 2 and "--group-by must be one of" in bad.stderr
 
 
 def test_size_from_plan_uses_observed_sd(plan_dir):
     assert runner.invoke(app, ["results", str(plan_dir), str(ROUND2)]).exit_code == 0
     res = runner.invoke(
-        app, ["size", "--from", str(plan_dir), "--value", "brix", "--margin-abs", "0.3", "--json"]
+        app, ["size", "--from-plan", str(plan_dir), "--variable", "brix", "--margin-abs", "0.3", "--json"]
     )
     assert res.exit_code == 0, res.output
     raw = pd.read_csv(ROUND2)

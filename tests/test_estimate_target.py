@@ -76,7 +76,7 @@ def plan_dir(demo_with_rounds, tmp_path):
 
 
 def test_round_option_reports_an_earlier_round(plan_dir):
-    res = runner.invoke(app, ["estimate", str(plan_dir), "--value", "brix", "--round", "1"])
+    res = runner.invoke(app, ["estimate", str(plan_dir), "--variable", "brix", "--round", "1"])
     assert res.exit_code == 0, res.output
     assert "round 1 of 2026-02-03" in res.stdout
     est = pd.read_csv(plan_dir / "estimates.csv").set_index("group")
@@ -87,23 +87,23 @@ def test_round_option_reports_an_earlier_round(plan_dir):
     assert est.loc["V02", "round"] == 1
     assert est.loc["V02", "mean"] == pytest.approx(v02.mean(), rel=1e-6)
     assert est.loc["V02", "lower"] == pytest.approx(lo, rel=1e-5)
-    missing = runner.invoke(app, ["estimate", str(plan_dir), "--value", "brix", "--round", "5"])
+    missing = runner.invoke(app, ["estimate", str(plan_dir), "--variable", "brix", "--round", "5"])
     assert missing.exit_code == 2 and "stored rounds: 1, 2" in missing.stderr
 
 
 def test_printed_dates_carry_years_and_far_target_is_one_line(plan_dir):
-    res = runner.invoke(app, ["estimate", str(plan_dir), "--value", "brix", "--target", "23"])
+    res = runner.invoke(app, ["estimate", str(plan_dir), "--variable", "brix", "--target", "23"])
     assert res.exit_code == 0, res.output
     # ISO 8601 calendar dates (YYYY-MM-DD) everywhere, also both ends of the range
     full = re.findall(r"\d{4}-\d{2}-\d{2} \(\d{4}-\d{2}-\d{2} – \d{4}-\d{2}-\d{2}\)", res.stdout)
     assert len(full) >= 5
     assert not re.search(r"\(\d{2}-\d{2} –", res.stdout)  # no range end without its year
-    far = runner.invoke(app, ["estimate", str(plan_dir), "--value", "brix", "--target", "230"])
+    far = runner.invoke(app, ["estimate", str(plan_dir), "--variable", "brix", "--target", "230"])
     assert far.exit_code == 2 and "far outside" in far.stderr and far.stderr.count("\n") == 1
 
 
 def test_target_below_on_the_command_line(plan_dir):
-    res = runner.invoke(app, ["estimate", str(plan_dir), "--value", "ph", "--target", "3.3", "--target-below"])
+    res = runner.invoke(app, ["estimate", str(plan_dir), "--variable", "ph", "--target", "3.3", "--target-below"])
     assert res.exit_code == 0, res.output
     assert "P(≤ target)" in res.stdout
     est = pd.read_csv(plan_dir / "estimates.csv").set_index("group")
@@ -116,7 +116,7 @@ def test_target_below_on_the_command_line(plan_dir):
 
 
 def test_size_from_a_grid_plan_prints_a_density(plan_dir):
-    res = runner.invoke(app, ["size", "--from", str(plan_dir), "--value", "brix", "--margin-abs", "0.4", "--json"])
+    res = runner.invoke(app, ["size", "--from-plan", str(plan_dir), "--variable", "brix", "--margin-abs", "0.4", "--json"])
     assert res.exit_code == 0, res.output
     out = json.loads(res.stdout)
     import pyogrio

@@ -235,7 +235,7 @@ def test_cli_plan_labels_and_lab_sheet(tmp_path):
     result = runner.invoke(app, [*args, "--cores", "15", "--out", str(out), "-q"])
     assert result.exit_code == 0, result.output
     result = runner.invoke(
-        app, ["labels", str(out), "--layout", "letter-3x10", "--date", "2027-03-01", "--preview"]
+        app, ["labels", str(out), "--label-sheet", "letter-3x10", "--date", "2027-03-01", "--preview"]
     )
     assert result.exit_code == 0, result.output
     assert (out / "labels.pdf").read_bytes().startswith(b"%PDF-")
@@ -285,7 +285,7 @@ def test_labels_and_lab_sheet_hold_active_samples_spares_only_on_request(tmp_pat
     records = label_records(points, plan_id="X")
     assert set(records["sample_id"]) == set(active["sample_id"]) and len(records) == n_active
     assert gone not in set(points.loc[points["sample_id"].isin(records["sample_id"]), "point_id"])
-    result = runner.invoke(app, ["labels", str(out), "--layout", "4x10", "--preview"])
+    result = runner.invoke(app, ["labels", str(out), "--label-sheet", "4x10", "--preview"])
     assert result.exit_code == 0 and f"{n_active} labels on" in result.output
     decoded = {r.text for r in zxingcpp.read_barcodes(Image.open(out / "labels_preview.png"))}
     assert decoded == set(active["sample_id"])

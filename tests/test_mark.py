@@ -202,12 +202,12 @@ def test_cli_mark_and_restore(plan_dir, tmp_path, no_png):
     ids = tmp_path / "ids.txt"
     ids.write_text("point_id\nA-003\n", encoding="utf-8")
     out = runner.invoke(
-        app, ["mark", str(plan_dir), "--from", str(ids), "--inaccessible", "--reason", "=cmd"]
+        app, ["mark", str(plan_dir), "--ids-file", str(ids), "--inaccessible", "--reason", "=cmd"]
     )
     assert out.exit_code == 0, out.output
     assert "A-003: inaccessible" in out.output
     assert read_events(plan_dir / "plan.gpkg")["reason"].tolist() == ["=cmd"]
-    out = runner.invoke(app, ["mark", str(plan_dir), "A-003", "--restore", "--by", "ben"])
+    out = runner.invoke(app, ["mark", str(plan_dir), "A-003", "--restore", "--recorded-by", "ben"])
     assert out.exit_code == 0, out.output
     assert read_events(plan_dir / "plan.gpkg")["user"].tolist()[-1] == "ben"
     out = runner.invoke(app, ["mark", str(plan_dir), "A-003", "--inaccessible"])

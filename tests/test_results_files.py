@@ -342,7 +342,7 @@ def test_remove_round_is_logged_and_kept_aside(plan_dir, tmp_path):
     second = _ph_file(tmp_path / "r2.csv", ids, [6.6, 6.7, 6.5, 6.8, 6.6, 6.7])
     assert runner.invoke(app, ["results", str(plan_dir), str(first)]).exit_code == 0
     assert runner.invoke(app, ["results", str(plan_dir), str(second)]).exit_code == 0
-    gone = runner.invoke(app, ["results", str(plan_dir), "--remove-round", "1", "--reason", "wrong plan", "--by", "ana"])
+    gone = runner.invoke(app, ["results", str(plan_dir), "--remove-round", "1", "--reason", "wrong plan", "--recorded-by", "ana"])
     assert gone.exit_code == 0, gone.output
     assert "Removed round 1 (r1.csv, 6 values)" in gone.stdout and "event 1" in gone.stdout
     kept = _layer_or_none(plan_dir, "results")

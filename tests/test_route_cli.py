@@ -39,7 +39,7 @@ def plan_dir(small_plan, tmp_path) -> Path:
 
 
 def test_crews_writes_everything(plan_dir):
-    result = runner.invoke(app, ["crews", str(plan_dir), "--crews", "3", "--start", START, "--return"])
+    result = runner.invoke(app, ["crews", str(plan_dir), "--crews", "3", "--drop-off", START, "--return"])
     assert result.exit_code == 0, result.output
     plan = load_plan(plan_dir)
     pts = plan.points
@@ -195,10 +195,10 @@ def test_spares_and_inaccessible_points_get_no_crew(plan_dir):
 @pytest.mark.parametrize(
     ("args", "needle"),
     [
-        (["crews", "{dir}", "--crews", "2", "--start", "200,1"], "longitude"),
-        (["schedule", "{dir}", "--start", "2026-13-01"], "YYYY-MM-DD"),
-        (["schedule", "{dir}", "--start", "2026-03-02", "--every", "7x"], "7d"),
-        (["schedule", "{dir}", "--start", "2026-03-02", "--days", "someday"], "mon-fri"),
+        (["crews", "{dir}", "--crews", "2", "--drop-off", "200,1"], "longitude"),
+        (["schedule", "{dir}", "--first-day", "2026-13-01"], "YYYY-MM-DD"),
+        (["schedule", "{dir}", "--first-day", "2026-03-02", "--every", "7x"], "7d"),
+        (["schedule", "{dir}", "--first-day", "2026-03-02", "--days", "someday"], "mon-fri"),
     ],
 )
 def test_bad_options_one_line_exit_2(plan_dir, args, needle):
@@ -214,9 +214,9 @@ def test_drop_off_far_from_every_block_is_refused(plan_dir):
 
     geod = Geod(ellps="WGS84")
     lonlat = load_plan(plan_dir).blocks.to_crs(4326).get_coordinates()
-    lost = runner.invoke(app, ["crews", str(plan_dir), "--crews", "2", "--start", "18.8905,33.8620"])
+    lost = runner.invoke(app, ["crews", str(plan_dir), "--crews", "2", "--drop-off", "18.8905,33.8620"])
     assert lost.exit_code == 2 and "Traceback" not in lost.output
-    assert "did you mean --start 18.8905,-33.862?" in lost.output
+    assert "did you mean --drop-off 18.8905,-33.862?" in lost.output
     x, y = lonlat.x.to_numpy(), lonlat.y.to_numpy()
     _, _, d = geod.inv(np.full(len(x), 18.8905), np.full(len(x), 33.862), x, y)
     assert f"is {d.min() / 1000:,.0f} km from the nearest block" in lost.output
@@ -225,7 +225,7 @@ def test_drop_off_far_from_every_block_is_refused(plan_dir):
     for km, ok in ((45, True), (55, False)):
         lon, lat, _ = geod.fwd(west.x, west.y, 270.0, km * 1000.0)
         result = runner.invoke(
-            app, ["crews", str(plan_dir), "--crews", "2", "--start", f"{lon},{lat}", "--force"]
+            app, ["crews", str(plan_dir), "--crews", "2", "--drop-off", f"{lon},{lat}", "--force"]
         )
         assert (result.exit_code == 0) == ok, result.output
 
@@ -233,7 +233,7 @@ def test_drop_off_far_from_every_block_is_refused(plan_dir):
 def test_max_hours_names_the_blocks_left_part_sampled(plan_dir):
     # common practice, no source: dropping the far end of a route samples the part of a block
     # nearer the drop-off, so the user is told which blocks are incomplete and why it matters.
-    args = ["crews", str(plan_dir), "--crews", "2", "--max-hours", "1.5", "--start", START]
+    args = ["crews", str(plan_dir), "--crews", "2", "--max-hours", "1.5", "--drop-off", START]
     result = runner.invoke(app, args)
     assert result.exit_code == 0, result.output
     pts = load_plan(plan_dir).points
@@ -251,7 +251,7 @@ def test_each_block_is_sampled_by_one_crew(plan_dir, k, hours):
     # common practice, no source: one crew per block (one drive, one set of hands per block),
     # as long as the days stay balanced (longest crew within 15 % of the mean, as above) or,
     # with --max-hours, the block fits in the day.
-    args = ["crews", str(plan_dir), "--crews", str(k), "--start", START, "--return"]
+    args = ["crews", str(plan_dir), "--crews", str(k), "--drop-off", START, "--return"]
     result = runner.invoke(app, args + (["--max-hours", hours] if hours else []))
     assert result.exit_code == 0, result.output
     pts = load_plan(plan_dir).points
@@ -273,7 +273,7 @@ def test_after_mark_the_replacement_keeps_the_crew_and_the_advice_runs_as_printe
     out = tmp_path / "spares"
     args = ["plan", str(demo_blocks_path()), "--design", "random", "--per-block", "4", "--spares", "2"]
     assert runner.invoke(app, [*args, "--seed", "3", "--out", str(out), "-q"]).exit_code == 0
-    crews = ["crews", str(out), "--crews", "3", "--start", START, "--return", "--max-hours", "9"]
+    crews = ["crews", str(out), "--crews", "3", "--drop-off", START, "--return", "--max-hours", "9"]
     assert runner.invoke(app, crews).exit_code == 0
     before = load_plan(out).points.set_index("point_id")
     gone = before.index[(before["block"] == "V01") & (before["status"] == "selected")][1]

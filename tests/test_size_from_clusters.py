@@ -1,4 +1,4 @@
-"""`fieldplan size --from PLAN` on a cluster plan: sized in clusters, per block or per stratum,
+"""`fieldplan size --from-plan PLAN` on a cluster plan: sized in clusters, per block or per stratum,
 with the plan options that realise it."""
 
 from __future__ import annotations
@@ -60,7 +60,7 @@ def test_per_plant_results_size_in_clusters_per_block(plans, tmp_path):
     data = _per_plant(plan, tmp_path / "plants.csv")
     imported = runner.invoke(app, ["results", str(plan), str(tmp_path / "plants.csv"), "-q", "--accept-outliers"])
     assert imported.exit_code == 0, imported.output
-    res = runner.invoke(app, ["size", "--from", str(plan), "--value", "brix", "--margin-abs", "0.5", "--json"])
+    res = runner.invoke(app, ["size", "--from-plan", str(plan), "--variable", "brix", "--margin-abs", "0.5", "--json"])
     assert res.exit_code == 0, res.output
     out = json.loads(res.stdout)
     # reference: one-way ANOVA ICC within blocks (Donner 1986), computed here from the file
@@ -75,7 +75,7 @@ def test_per_plant_results_size_in_clusters_per_block(plans, tmp_path):
     assert out["plan_options"] == (
         f"fieldplan plan BLOCKS --design clusters --per-block {k} --plants-per-cluster {M} --out NEW_PLAN"
     )
-    text = runner.invoke(app, ["size", "--from", str(plan), "--value", "brix", "--margin-abs", "0.5"]).stdout
+    text = runner.invoke(app, ["size", "--from-plan", str(plan), "--variable", "brix", "--margin-abs", "0.5"]).stdout
     assert f"Result: {k} clusters of {M} plants per block" in text and "This is per block" in text
 
 
@@ -87,7 +87,7 @@ def test_composite_results_size_in_clusters_from_their_spread(plans, tmp_path):
     # Invented normal values: accept the tail values the outlier check rightly points at.
     imported = runner.invoke(app, ["results", str(plan), str(tmp_path / "composite.csv"), "-q", "--accept-outliers"])
     assert imported.exit_code == 0, imported.output
-    res = runner.invoke(app, ["size", "--from", str(plan), "--value", "brix", "--margin-abs", "0.5", "--json"])
+    res = runner.invoke(app, ["size", "--from-plan", str(plan), "--variable", "brix", "--margin-abs", "0.5", "--json"])
     assert res.exit_code == 0, res.output
     out = json.loads(res.stdout)
     g = comp.groupby("block")["brix"]
@@ -106,7 +106,7 @@ def test_stratified_plan_sizes_per_stratum(plans, tmp_path):
     _per_plant(plan, tmp_path / "plants.csv", seed=5)
     imported = runner.invoke(app, ["results", str(plan), str(tmp_path / "plants.csv"), "-q", "--accept-outliers"])
     assert imported.exit_code == 0, imported.output
-    res = runner.invoke(app, ["size", "--from", str(plan), "--value", "brix", "--margin-abs", "0.5"])
+    res = runner.invoke(app, ["size", "--from-plan", str(plan), "--variable", "brix", "--margin-abs", "0.5"])
     assert res.exit_code == 0, res.output
     k = int(res.stdout.split("Result: ")[1].split(" clusters")[0])
     assert "per stratum" in res.stdout and "This is per stratum (variety)" in res.stdout

@@ -140,7 +140,7 @@ def test_estimate_change_between_revisited_rounds(first, tmp_path):
     base = rng.normal(6.0, 0.3, 100)
     _, old = _results(first, tmp_path / "r2026.csv", lambda n: np.round(base[:n], 2))
     new_plan, new = _results(out, tmp_path / "r2027.csv", lambda n: np.round(base[:n] + 0.2 + rng.normal(0, 0.05, n), 2))
-    result = _run("estimate", out, "--value", "ph", "--previous", first, "--confidence", "0.95")
+    result = _run("estimate", out, "--variable", "ph", "--previous", first, "--confidence", "0.95")
     assert "change at the same sites" in result.output
     table = pd.read_csv(out / "changes.csv")
     overall = table[table["group"] == "all"].iloc[0]

@@ -296,7 +296,7 @@ def test_mark_a_point_and_see_the_spare(season):
     assert seen["target"] in seen["mark_msg"] and "steps in" in seen["mark_msg"]
     assert seen["stepped_in"] and seen["stepped_in"] in seen["mark_msg"]
     assert seen["inaccessible"] == 1
-    # The events table lists the change with who made it, as `fieldplan mark --by` records it.
+    # The events table lists the change with who made it, as `fieldplan mark --recorded-by` records it.
     assert (
         seen["target"] in seen["events"]
         and "Thandi" in seen["events"]

@@ -101,7 +101,7 @@ def test_crews_same_as_cli(ws):
     )
     assert r.status_code == 200, r.text
     assert [c["crew"] for c in r.json()["crews"]] == [1, 2]
-    _cli("crews", ref, "--crews", "2", "--start", "18.89605,-33.86014", "--return", "-q")
+    _cli("crews", ref, "--crews", "2", "--drop-off", "18.89605,-33.86014", "--return", "-q")
     for name in ("crews.csv", "points.csv", "crew_01.gpx", "crew_02.gpx", "points.gpx", "crews.json"):
         # reference: `fieldplan crews` with the same options on a copy of the plan
         assert (web / name).read_bytes() == (ref / name).read_bytes(), name
@@ -166,7 +166,7 @@ def test_mark_brings_in_the_spare_as_the_cli_does(ws):
     assert r.status_code == 200, r.text
     event = r.json()["events"][0]
     assert event["point_id"] == target and event["replacement_id"]
-    _cli("mark", ref, target, "--inaccessible", "--reason", "flooded", "--by", "tester", "-q")
+    _cli("mark", ref, target, "--inaccessible", "--reason", "flooded", "--recorded-by", "tester", "-q")
     # reference: `fieldplan mark` picks the same spare and writes the same points
     assert (web / "points.csv").read_bytes() == (ref / "points.csv").read_bytes()
     after = pd.read_csv(web / "points.csv").set_index("point_id")
@@ -231,7 +231,7 @@ def test_estimates_and_readiness_match_the_cli(ws, tmp_path):
     r = client.get("/api/plans/p/estimates", params={"value": "brix", "target": 22})
     assert r.status_code == 200, r.text
     rows = {row["group"]: row for row in r.json()["rows"]}
-    _cli("estimate", ref, "--value", "brix", "--target", "22", "-q")
+    _cli("estimate", ref, "--variable", "brix", "--target", "22", "-q")
     expected = pd.read_csv(ref / "estimates.csv")
     for e in expected.itertuples(index=False):
         # reference: estimates.csv of `fieldplan estimate` (6 significant digits)
@@ -273,13 +273,13 @@ def test_coverage_matches_check(ws):
 def test_labels_and_lab_sheet_as_cli(ws):
     client, web, ref = ws
     assert client.post("/api/plans/p/labels", json={"layout": "a4-3x8"}).status_code == 200
-    _cli("labels", ref, "--layout", "a4-3x8", "-q")
+    _cli("labels", ref, "--label-sheet", "a4-3x8", "-q")
     # reference: `fieldplan labels` writes the same PDF for the same plan and layout
     assert (web / "labels.pdf").read_bytes() == (ref / "labels.pdf").read_bytes()
     assert client.post("/api/plans/p/labels", json={"layout": "nonsense"}).status_code == 400
     r = client.post("/api/plans/p/labels", json={"layout": "letter-3x10", "round": 2, "include_spares": True})
     assert r.status_code == 200 and r.json()["file"] == "labels_r2.pdf" and r.json()["spares"] > 0
-    _cli("labels", ref, "--layout", "letter-3x10", "--round", "2", "--include-spares", "-q")
+    _cli("labels", ref, "--label-sheet", "letter-3x10", "--round", "2", "--include-spares", "-q")
     # reference: `fieldplan labels --round 2 --include-spares`
     assert (web / "labels_r2.pdf").read_bytes() == (ref / "labels_r2.pdf").read_bytes()
     assert client.post("/api/plans/p/lab-sheet", json={"analyses": "pH,P,K"}).status_code == 200
@@ -367,7 +367,7 @@ def test_estimates_saved_as_the_cli_writes_them(ws, tmp_path):
     _cli("results", ref, csv, "-q")
     r = client.post("/api/plans/p/estimates", params={"value": "ta", "target": 6.5, "by": "variety"})
     assert r.status_code == 200 and r.json()["saved"] == "estimates.csv"
-    _cli("estimate", ref, "--value", "ta", "--target", "6.5", "--by", "variety", "-q")
+    _cli("estimate", ref, "--variable", "ta", "--target", "6.5", "--group-by", "variety", "-q")
     # reference: `fieldplan estimate` writes the same estimates.csv (acidity reached from above)
     assert (web / "estimates.csv").read_bytes() == (ref / "estimates.csv").read_bytes()
     assert (
@@ -507,7 +507,7 @@ def test_remove_round_as_the_cli(ws, tmp_path, monkeypatch):
     _cli("results", ref, csv, "-q")
     r = client.post("/api/plans/p/results/remove", json={"round": 1, "reason": "wrong batch", "by": "tester"})
     assert r.status_code == 200 and r.json()["round"] == 1 and r.json()["values"] == 10
-    _cli("results", ref, "--remove-round", "1", "--reason", "wrong batch", "--by", "tester")
+    _cli("results", ref, "--remove-round", "1", "--reason", "wrong batch", "--recorded-by", "tester")
     q = "SELECT round, point_id, variable, value FROM results_removed ORDER BY fid"
     with sqlite3.connect(web / "plan.gpkg") as a, sqlite3.connect(ref / "plan.gpkg") as b:
         # reference: `fieldplan results --remove-round 1` keeps the same rows aside

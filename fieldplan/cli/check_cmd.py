@@ -93,7 +93,7 @@ def check(
                 elif key == "expected_points":
                     value = f"{value:.2f}"  # as the table holds it, and as the notes quote it
                 cells.append(str(value))
-            style = "bold red" if row["status"] == "FAIL" else None
+            style = "bold red" if row["status"] == "fail" else None
             # Names come from input files: print them literally, never as rich markup.
             table.add_row(*(_plain(c) for c in cells), style=style)
         console.print(table)

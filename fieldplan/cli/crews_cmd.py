@@ -7,7 +7,7 @@ from typing import Annotated
 
 import typer
 
-from fieldplan.cli.options import Force, Quiet, echo_err, handle_errors, parse_lonlat
+from fieldplan.cli.options import Quiet, echo_err, handle_errors, parse_lonlat
 
 __all__ = ["register", "crews"]
 
@@ -19,9 +19,9 @@ def crews(
     start: Annotated[
         str | None,
         typer.Option(
-            "--start",
+            "--drop-off",
             help=(
-                "Drop-off point LON,LAT where every crew begins. With --return and no --start, "
+                "Drop-off point LON,LAT where every crew begins. With --return and no --drop-off, "
                 "the centroid of the union of the plan's blocks."
             ),
         ),
@@ -37,7 +37,7 @@ def crews(
     return_to_start: Annotated[
         bool,
         typer.Option(
-            "--return", help="Crews walk back to the drop-off (--start, else the blocks' centroid)."
+            "--return", help="Crews walk back to the drop-off (--drop-off, else the blocks' centroid)."
         ),
     ] = False,
     across_factor: Annotated[
@@ -56,7 +56,9 @@ def crews(
             ),
         ),
     ] = None,
-    force: Force = False,
+    force: Annotated[
+        bool, typer.Option("--force", help="Replace the crews, routes and crew files this plan already has.")
+    ] = False,
     quiet: Quiet = False,
 ) -> None:
     """Assign points to crews, balanced by estimated time, and route each crew.
@@ -88,7 +90,7 @@ def crews(
 
     # The options, so that advice printed after a later change can repeat them exactly.
     rerun = ["--crews", str(n_crews)]
-    rerun += ["--start", start] if start is not None else []
+    rerun += ["--drop-off", start] if start is not None else []
     rerun += ["--walk-speed", f"{walk_speed:g}"] if walk_speed != 4.0 else []
     rerun += ["--minutes-per-point", f"{minutes_per_point:g}"] if minutes_per_point != 5.0 else []
     rerun += ["--max-hours", f"{max_hours:g}"] if max_hours is not None else []
@@ -131,11 +133,11 @@ def _links(plan_dir: Path, run, base: str | None) -> dict | None:
 
 
 def _start_line(run, crs) -> str:
-    """Say which drop-off the crews start from, in LON,LAT as --start takes it."""
+    """Say which drop-off the crews start from, in LON,LAT as --drop-off takes it."""
     from pyproj import Transformer
 
     lon, lat = Transformer.from_crs(crs, "EPSG:4326", always_xy=True).transform(*run.start_xy)
-    where = "--start" if run.start_source == "given" else "centroid of the plan's blocks (no --start given)"
+    where = "--drop-off" if run.start_source == "given" else "centroid of the plan's blocks (no --drop-off given)"
     return f"Drop-off: {lon:.6f},{lat:.6f} ({where})"
 
 

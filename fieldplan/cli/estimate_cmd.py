@@ -77,8 +77,8 @@ def format_estimates(table, *, confidence: float) -> str:
 @handle_errors
 def estimate(
     plan_dir: Annotated[Path, typer.Argument(help="Plan folder with imported results.")],
-    value: Annotated[str, typer.Option("--value", help="Variable to estimate, e.g. brix.")],
-    by: Annotated[str, typer.Option("--by", help="Group by block, stratum, variety or farm.")] = "block",
+    value: Annotated[str, typer.Option("--variable", help="Variable to estimate, e.g. brix.")],
+    by: Annotated[str, typer.Option("--group-by", help="Group by block, stratum, variety or farm.")] = "block",
     confidence: Annotated[float, typer.Option("--confidence", help="Two-sided confidence level.")] = 0.95,
     target: Annotated[
         float | None,

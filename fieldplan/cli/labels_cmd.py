@@ -32,6 +32,7 @@ def labels(
     layout: Annotated[
         str,
         typer.Option(
+            "--label-sheet",
             help="Sheet: a4-3x8, letter-3x10, or COLSxROWS (columns x rows, e.g. 4x10 or letter-2x7)."
         ),
     ] = "a4-3x8",
@@ -62,7 +63,7 @@ def labels(
 
     Round 2 and later (--round) write labels_r2.pdf etc. with that round's ids.
 
-    Example: fieldplan labels plan-2027-soil --layout letter-3x10 --date 2027-03-01
+    Example: fieldplan labels plan-2027-soil --label-sheet letter-3x10 --date 2027-03-01
     """
     from fieldplan.samples.labels import label_records, labels_pdf, labels_png, parse_layout
     from fieldplan.store import load_plan

@@ -79,6 +79,11 @@ for _command in (
 ):
     _command.register(app)
 
+# Former option names keep working, hidden, for one release (fieldplan.cli.renames).
+from fieldplan.cli import renames as _renames  # noqa: E402
+
+_renames.install(app)
+
 
 def run() -> None:
     """Console-script entry point."""

@@ -47,9 +47,9 @@ def mark(
     ] = False,
     reason: Annotated[str, typer.Option("--reason", help="Why (kept in the plan's events table).")] = "",
     from_file: Annotated[
-        Path | None, typer.Option("--from", help="File of point ids: one per line, or CSV with point_id.")
+        Path | None, typer.Option("--ids-file", help="File of point ids: one per line, or CSV with point_id.")
     ] = None,
-    by: Annotated[str | None, typer.Option("--by", help="Who records this (default: $USER).")] = None,
+    by: Annotated[str | None, typer.Option("--recorded-by", help="Who records this (default: $USER).")] = None,
     quiet: Quiet = False,
 ) -> None:
     """Mark points inaccessible (activating spares or within-cell substitutes) or restore them.

@@ -429,6 +429,20 @@ class _PanelCommand(typer.core.TyperCommand):
         super().__init__(*args, **kwargs)
         self.rich_markup_mode = "rich"
 
+    def parse_args(self, ctx: typer.Context, args: list[str]) -> list[str]:
+        # Former spellings of choices (the spec's former_values), before click checks them.
+        from fieldplan.spec import flag_of, spec_schema
+
+        former = {flag_of(f["name"]): f["former_values"] for f in spec_schema()["fields"] if f["former_values"]}
+        out = list(args)
+        for i, arg in enumerate(out[:-1]):
+            values = former.get(arg)
+            if values and out[i + 1].lower() in values:
+                new = values[out[i + 1].lower()]
+                echo_err(f"note: {arg} {out[i + 1]} is now {arg} {new}; the former value goes in the next release")
+                out[i + 1] = new
+        return super().parse_args(ctx, out)
+
 
 def register(app: typer.Typer) -> None:
     app.command("plan", cls=_PanelCommand)(plan)

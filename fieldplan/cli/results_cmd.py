@@ -33,7 +33,7 @@ def results(
     ] = None,
     value: Annotated[
         list[str] | None,
-        typer.Option("--value", help="Value column to import (repeat for several; default all)."),
+        typer.Option("--variable", help="Value column to import (repeat for several; default all)."),
     ] = None,
     allow_duplicate: Annotated[
         bool,
@@ -78,7 +78,7 @@ def results(
         ),
     ] = None,
     reason: Annotated[str, typer.Option("--reason", help="With --remove-round: why, for the events table.")] = "",
-    by: Annotated[str | None, typer.Option("--by", help="With --remove-round: who (default $USER).")] = None,
+    by: Annotated[str | None, typer.Option("--recorded-by", help="With --remove-round: who (default $USER).")] = None,
     quiet: Quiet = False,
 ) -> None:
     """Check a results file against the plan's points and store it as the next round.

@@ -7,7 +7,7 @@ from typing import Annotated
 
 import typer
 
-from fieldplan.cli.options import Force, Quiet, echo_err, handle_errors
+from fieldplan.cli.options import Quiet, echo_err, handle_errors
 from fieldplan.words import plural
 
 __all__ = ["register", "schedule"]
@@ -45,7 +45,7 @@ def _block_table(path: Path):
 
 
 def _readiness(plan_dir: Path) -> dict[str, dict]:
-    """Block readiness from estimates.csv ('fieldplan estimate --by block --target ...')."""
+    """Block readiness from estimates.csv ('fieldplan estimate --group-by block --target ...')."""
     import pandas as pd
 
     path = plan_dir / "estimates.csv"
@@ -78,7 +78,7 @@ def _float(text, what: str) -> float | None:
 @handle_errors
 def schedule(
     plan_dir: Annotated[Path, typer.Argument(help="Plan folder made by 'fieldplan plan'.")],
-    start: Annotated[str, typer.Option("--start", help="First day, YYYY-MM-DD.")],
+    start: Annotated[str, typer.Option("--first-day", help="First day, YYYY-MM-DD.")],
     n_crews: Annotated[int, typer.Option("--crews", min=1, help="Crews available each day.")] = 1,
     hours_per_day: Annotated[
         float, typer.Option("--hours-per-day", min=0.5, max=24, help="Working hours per crew and day.")
@@ -103,7 +103,9 @@ def schedule(
     minutes_per_point: Annotated[
         float, typer.Option("--minutes-per-point", min=0.0, help="Minutes at each point.")
     ] = 5.0,
-    force: Force = False,
+    force: Annotated[
+        bool, typer.Option("--force", help="Replace the schedule (schedule.csv, schedule.ics) already in the plan folder.")
+    ] = False,
     quiet: Quiet = False,
 ) -> None:
     """Place block sampling rounds on crew working days; write schedule.csv and schedule.ics.
@@ -112,7 +114,7 @@ def schedule(
     time, unless the --blocks table gives them. Rounds due together go to the
     blocks closest to their target first when readiness is known (probability
     or projected date in --blocks, or estimates.csv from 'fieldplan estimate
-    --by block --target ...').
+    --group-by block --target ...').
     """
     import shapely
 
@@ -125,7 +127,7 @@ def schedule(
     plan = load_plan(plan_dir)
     if (plan_dir / "schedule.ics").exists() and not force:
         raise OutputExistsError(f"{plan_dir}: schedule.ics exists; add --force to replace it")
-    first = _date(start, "--start")
+    first = _date(start, "--first-day")
     last = _date(until, "--until")
     due_all = _date(due, "--due")
     workdays = parse_workdays(days)

@@ -59,13 +59,13 @@ def size(
     as_json: Annotated[bool, typer.Option("--json", help="Print the result as JSON.")] = False,
     from_plan: Annotated[
         Path | None,
-        typer.Option("--from", help="Plan folder with results: take SD/CV and ICC from its last round."),
+        typer.Option("--from-plan", help="Plan folder with results: take SD/CV and ICC from its last round."),
     ] = None,
-    value: Annotated[str | None, typer.Option("--value", help="Variable to size for (with --from).")] = None,
+    value: Annotated[str | None, typer.Option("--variable", help="Variable to size for (with --from-plan).")] = None,
 ) -> None:
     """Sample size for estimating a mean (Cochran), with clusters (Kish design effect).
 
-    With --from a plan with results, the spread (and for clusters the ICC and plants per
+    With --from-plan, a plan with results, the spread (and for clusters the ICC and plants per
     cluster) come from its last round; a cluster plan is sized in clusters, per block (or per
     stratum), and the plan options that give that size are printed.
 

@@ -119,7 +119,7 @@ def plan_variability(
 
 @dataclass(frozen=True)
 class SizingInputs:
-    """What ``fieldplan size --from PLAN`` takes from a plan and its results.
+    """What ``fieldplan size --from-plan PLAN`` takes from a plan and its results.
 
     ``clusters`` is true for cluster plans: the size is then a number of
     clusters. ``per_plant`` says the results hold one value per plant (so an
@@ -198,7 +198,7 @@ def describe_for_sizing(
     from fieldplan.store import load_plan
 
     if not value:
-        raise OptionError("--from needs --value naming the variable to size for, e.g. --value brix")
+        raise OptionError("--from-plan needs --variable naming the variable to size for, e.g. --variable brix")
     plan = load_plan(plan_dir)
     params = dict(plan.params)
     name = normalise_column(value)

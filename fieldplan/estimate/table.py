@@ -248,10 +248,10 @@ def estimate_table(
     """
     c = check_confidence(confidence)
     if by not in GROUPINGS:
-        raise OptionError(f"--by must be one of {', '.join(GROUPINGS)}; got {by!r}")
+        raise OptionError(f"--group-by must be one of {', '.join(GROUPINGS)}; got {by!r}")
     d = point_values(points, blocks, results, value=value)
     if by == "farm" and "farm" not in blocks:
-        raise OptionError("--by farm needs a 'farm' column in the blocks; use block or stratum")
+        raise OptionError("--group-by farm needs a 'farm' column in the blocks; use block or stratum")
     stored = sorted(int(r) for r in d["round"].unique())
     if round_no is None:
         latest = stored[-1]

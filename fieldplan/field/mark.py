@@ -252,7 +252,7 @@ def mark_points(
     plan_dir = Path(plan_dir)
     ids = list(dict.fromkeys(str(p).strip() for p in point_ids if str(p).strip()))
     if not ids:
-        raise OptionError("give at least one point id (see points.csv), or --from a file of ids")
+        raise OptionError("give at least one point id (see points.csv), or --ids-file, a file of ids")
     # The plan and its events are read under the folder's lock and the change is committed
     # before it is released, so two marks at once cannot both build on the same events.
     with transaction(plan_dir) as txn:

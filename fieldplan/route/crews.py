@@ -251,7 +251,7 @@ def assign_crews(
     if max_hours is not None and not max_hours > 0:
         raise OptionError(f"--max-hours must be above 0, got {max_hours}")
     if return_to_start and start is None:
-        raise OptionError("--return needs a drop-off point: give --start LON,LAT")
+        raise OptionError("--return needs a drop-off point: give --drop-off LON,LAT")
     minutes = np.broadcast_to(np.asarray(minutes_per_point, dtype=float), (n,)).copy()
     if np.any(~np.isfinite(minutes)) or np.any(minutes < 0):
         raise OptionError("--minutes-per-point must be a number >= 0")

@@ -60,7 +60,7 @@ class CrewRun:
     routes: object  # GeoDataFrame
     unfitted_ids: list[str]
     start_xy: np.ndarray | None
-    start_source: str = ""  # "given" (--start), "centroid" (default for --return) or "" (none)
+    start_source: str = ""  # "given" (--drop-off), "centroid" (default for --return) or "" (none)
     incomplete: tuple[str, ...] = ()  # one line per block that max_hours leaves part-sampled
 
 
@@ -83,9 +83,9 @@ def check_drop_off(plan, lonlat: tuple[float, float], *, max_km: float = MAX_DRO
     guesses = [(lon, -lat), (-lon, lat), (-lon, -lat), (lat, lon)]
     near = [g for g in guesses if -180 <= g[0] <= 180 and -90 <= g[1] <= 90]
     near = [g for g in near if _drop_off_km(plan, g, Geod(ellps="WGS84"), Transformer) <= max_km]
-    hint = f"; did you mean --start {near[0][0]:g},{near[0][1]:g}?" if near else ""
+    hint = f"; did you mean --drop-off {near[0][0]:g},{near[0][1]:g}?" if near else ""
     raise OptionError(
-        f"--start {lon:g},{lat:g} is {km:,.0f} km from the nearest block, more than {max_km:g} km: "
+        f"--drop-off {lon:g},{lat:g} is {km:,.0f} km from the nearest block, more than {max_km:g} km: "
         "check the signs (south and west are negative) and the order LON,LAT" + hint
     )
 

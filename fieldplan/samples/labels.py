@@ -112,7 +112,7 @@ def parse_layout(text: str, *, page: str = "a4", margin: float = 10.0, gap: floa
     match = _CUSTOM.match(key)
     if not match:
         raise OptionError(
-            f"--layout {text!r} is not known; use {', '.join(LAYOUTS)} or COLSxROWS "
+            f"--label-sheet {text!r} is not known; use {', '.join(LAYOUTS)} or COLSxROWS "
             "(columns across x rows down, e.g. 4x10 or letter-2x7)"
         )
     page = match.group(1) or page
@@ -121,12 +121,12 @@ def parse_layout(text: str, *, page: str = "a4", margin: float = 10.0, gap: floa
     cols, rows = int(match.group(2)), int(match.group(3))
     page_w, page_h = PAGES[page]
     if cols < 1 or rows < 1:
-        raise OptionError(f"--layout {text!r}: columns and rows must be at least 1")
+        raise OptionError(f"--label-sheet {text!r}: columns and rows must be at least 1")
     label_w = (page_w - 2 * margin - (cols - 1) * gap) / cols
     label_h = (page_h - 2 * margin - (rows - 1) * gap) / rows
     if label_w < _MIN_LABEL_MM[0] or label_h < _MIN_LABEL_MM[1]:
         raise OptionError(
-            f"--layout {text!r} gives labels of {label_w:.1f} x {label_h:.1f} mm; a label needs at "
+            f"--label-sheet {text!r} gives labels of {label_w:.1f} x {label_h:.1f} mm; a label needs at "
             f"least {_MIN_LABEL_MM[0]:g} x {_MIN_LABEL_MM[1]:g} mm for a readable QR code and text, "
             "so use fewer columns or rows"
         )

@@ -43,7 +43,7 @@ __all__ = [
 ]
 
 PURPOSES = ("general", "soil", "ripeness")
-COMPOSITES = ("cell", "zone")
+COMPOSITES = ("cell", "block")
 DEFAULT_PROFILE = "wine-grapes"
 # "0-15", "0-15cm", "0 - 15 cm", "0–15 cm" (en dash): the unit is optional but must be cm.
 _DEPTH = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*(?:cm)?\s*[-\u2013]\s*(\d+(?:\.\d+)?)\s*(?:cm)?\s*$", re.I)
@@ -98,7 +98,7 @@ _CORE_COLUMNS = ["core_id", "sample_id", "core", "block", "point_id", "composite
 #: Point statuses whose cores are taken (fieldplan.field.mark); the others' cores are kept, not used.
 _ACTIVE = ("selected", "replacement", "substitute")
 #: Substitute cores are numbered S01, S02, ... after their sample id, apart from the retired ones.
-_SUBSTITUTE_CORE = "/S"
+_SUBSTITUTE_CORE = "-S"  # core ids carry no "/": they become file names and URLs
 
 
 def _block_core_area(block: str, geom, exclusions: np.ndarray, buffer_m: float):
@@ -139,7 +139,7 @@ def _move_notes(
     return notes
 
 
-def _cores_frame(sample, core, block, point, composite, depth, xy, moved, crs, *, prefix: str = "/"):
+def _cores_frame(sample, core, block, point, composite, depth, xy, moved, crs, *, prefix: str = "-"):
     table = pd.DataFrame(
         {
             "sample_id": sample,
@@ -456,6 +456,8 @@ def resolve_purpose(
         if not buffer_m >= 0:
             raise OptionError(f"--core-buffer must be zero or positive metres, got {core_buffer}")
         composite = composite or "cell"
+        if composite == "zone":
+            composite = "block"  # its former name (zone now means a management zone); one release
         if composite not in COMPOSITES:
             raise OptionError(f"--composite must be one of {', '.join(COMPOSITES)}; got {composite!r}")
         out.update(cores=n, core_radius_m=radius, composite=composite, core_buffer_m=buffer_m)
@@ -489,8 +491,8 @@ def apply_purpose(
         Cores per composite (soil; default 16, trade advice 15-20).
     core_radius : float, optional, keyword-only
         Metres around each point within which its cores lie (soil, cell composites; default 10).
-    composite : {"cell", "zone"}, optional, keyword-only
-        ``cell``: one composite per plan point, cores around it. ``zone``: one
+    composite : {"cell", "block"}, optional, keyword-only
+        ``cell``: one composite per plan point, cores around it. ``block``: one
         composite per block, cores along a zig-zag over the block's long axis.
     depth : str, optional, keyword-only
         Depth range in cm (soil default ``0-15``).
@@ -533,7 +535,7 @@ def apply_purpose(
     points = plan.points.drop(columns=[c for c in _OWN_COLUMNS if c in plan.points.columns])
     points["purpose"] = purpose
     points["depth_cm"] = depth_text
-    if purpose == "soil" and composite == "zone":
+    if purpose == "soil" and composite == "block":
         blocks = points["block"].astype(str)
         order = pd.unique(blocks)
         ids = dict(zip(order, make_sample_ids(len(order), code=code), strict=True))

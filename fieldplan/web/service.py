@@ -275,7 +275,7 @@ def assign_crews(
         write_crews(folder, run, links=links)
     # The options as the command records them, so advice after a later change can repeat them.
     rerun = ["--crews", str(int(crews))]
-    rerun += ["--start", f"{float(start[0])!r},{float(start[1])!r}"] if start is not None else []
+    rerun += ["--drop-off", f"{float(start[0])!r},{float(start[1])!r}"] if start is not None else []
     rerun += ["--walk-speed", f"{walk_speed:g}"] if walk_speed != 4.0 else []
     rerun += ["--minutes-per-point", f"{minutes_per_point:g}"] if minutes_per_point != 5.0 else []
     rerun += ["--max-hours", f"{max_hours:g}"] if max_hours is not None else []
