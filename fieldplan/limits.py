@@ -196,7 +196,7 @@ def clean_names(names, path, *, max_chars: int = MAX_NAME_CHARS, what: str = "bl
 _NUL_ESCAPE = re.compile(rb"(?<!\\)(?:\\\\)*\\u0000", re.IGNORECASE)
 
 
-def check_json_nul(path) -> None:
+def check_json_nul(path, raw: bytes | None = None) -> None:
     """Refuse a JSON file whose text holds an escaped NUL (``\\u0000``).
 
     The vector reader cuts a text value at a NUL without a word, so a block
@@ -206,7 +206,8 @@ def check_json_nul(path) -> None:
 
     from fieldplan.errors import InputError
 
-    raw = Path(path).read_bytes()
+    if raw is None:
+        raw = Path(path).read_bytes()
     if b"\\u0000" not in raw and b"\\U0000" not in raw:  # a plain search first: the usual case
         return
     found = _NUL_ESCAPE.search(raw)

@@ -245,10 +245,18 @@ def read_frame(
     geojson = suffix in (".geojson", ".json")
     if suffix == ".gpkg":
         layer = _gpkg_layer(path, layer)
-    # Counted from the layer's header or index, before a single feature is read.
-    check_block_count(path, feature_count(path, layer), max_blocks=max_features)
     if geojson:
-        check_json_nul(path)  # the reader would cut a text value at a NUL without a word
+        raw = path.read_bytes()
+        # Every feature object names its type "Feature", so counting that word bounds the
+        # features from above in a millisecond; GDAL's own count parses the whole file.
+        count = raw.count(b'"Feature"')
+        if max_features is not None and count > max_features:
+            count = feature_count(path, layer)
+        check_block_count(path, count, max_blocks=max_features)
+        check_json_nul(path, raw)  # the reader would cut a text value at a NUL without a word
+    else:
+        # Counted from the layer's header or index, before a single feature is read.
+        check_block_count(path, feature_count(path, layer), max_blocks=max_features)
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
