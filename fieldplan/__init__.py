@@ -19,8 +19,8 @@ __version__ = "0.1.0"
 _LAZY = {
     "read_blocks": "fieldplan.read",
     "read_exclusions": "fieldplan.read",
-    "make_plan": "fieldplan.plan",
-    "Plan": "fieldplan.plan",
+    "make_plan": "fieldplan.planning.plan",
+    "Plan": "fieldplan.planning.plan",
     "write_plan": "fieldplan.store",
     "load_plan": "fieldplan.store",
     "FieldplanError": "fieldplan.errors",

@@ -27,7 +27,7 @@ def demo_exclusions_path() -> Path:
 
 def make_demo_plan(*, seed: int | None = None, progress=None, command: list[str] | None = None):
     """Plan the demo estate with :data:`DEMO_OPTIONS` and return the Plan."""
-    from fieldplan.plan import make_plan
+    from fieldplan.planning.plan import make_plan
     from fieldplan.read import read_blocks, read_exclusions
 
     blocks = read_blocks(demo_blocks_path())

@@ -259,7 +259,7 @@ def sample_points(
         design's columns) in ``gdf``'s CRS.
     """
     from fieldplan.crs import utm_crs_for
-    from fieldplan.plan import make_plan
+    from fieldplan.planning.plan import make_plan
 
     if not isinstance(gdf, gpd.GeoDataFrame):
         raise BlocksParamError("gdf", f"gdf must be a GeoDataFrame, got {type(gdf).__name__}")

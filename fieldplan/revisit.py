@@ -27,7 +27,7 @@ from pyproj import CRS
 from fieldplan.errors import DesignError, PlanDirError
 
 if TYPE_CHECKING:
-    from fieldplan.plan import Plan
+    from fieldplan.planning.plan import Plan
     from fieldplan.spec import PlanSpec
 
 __all__ = ["revisit_plan", "SHAPE_TOLERANCE_M", "DESIGN_COLUMNS"]
@@ -103,9 +103,9 @@ def revisit_plan(
         With ``revisit_changed="refuse"``, when a site is now outside its block,
         in an exclusion, or its block is gone (the message names the sites).
     """
-    from fieldplan.plan import Plan, _utc_now, sample_areas
+    from fieldplan.planning.plan import Plan, _utc_now, sample_areas
+    from fieldplan.planning.stratum_designs import strata_labels
     from fieldplan.samples.purpose import apply_purpose
-    from fieldplan.stratified import strata_labels
 
     crs = CRS.from_user_input(previous.crs)
     if CRS.from_user_input(blocks.crs) != crs:
@@ -178,7 +178,7 @@ def revisit_plan(
     data["site_note"] = np.where(kept["block"].astype(str).isin(list(changed)), "block boundary moved", "")
     points = gpd.GeoDataFrame(data, geometry=np.asarray(kept.geometry.values, dtype=object), crs=crs)
     if design == "clusters" and {"row", "plant", "units"} <= set(points.columns):
-        from fieldplan.stratified import DEFAULT_INSTRUCTIONS, format_instructions
+        from fieldplan.planning.stratum_designs import DEFAULT_INSTRUCTIONS, format_instructions
 
         template = spec.clusters.instructions or DEFAULT_INSTRUCTIONS
         points["instructions"] = format_instructions(template, points)

@@ -253,7 +253,7 @@ def _read_plan(plan_dir: str | Path):
     import pyogrio
     from pyproj import CRS
 
-    from fieldplan.plan import Plan
+    from fieldplan.planning.plan import Plan
 
     plan_dir = Path(plan_dir)
     path = plan_dir / GPKG_NAME

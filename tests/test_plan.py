@@ -186,7 +186,7 @@ def test_reloaded_plan_writes_the_same_files(tmp_path):
 def test_grid_progress_moves_batch_by_batch_and_points_do_not_depend_on_batches(monkeypatch):
     # common practice, no source: a long plan reports progress as it goes; batching is an
     # implementation detail and must not change a single point.
-    import fieldplan.plan as plan_module
+    import fieldplan.planning.grid as plan_module
 
     squares = {f"B{i:02d}": shapely.box(E0 + 120 * i, N0, E0 + 120 * i + 100, N0 + 100) for i in range(7)}
     blocks = blocks_frame(squares)

@@ -265,3 +265,17 @@ def test_schema_marks_server_paths():
     # Files on the planning machine: exclusions, rows, cautions, an earlier plan to revisit.
     assert all(by[name]["server_path"] for name in ("exclude", "rows", "cautions", "revisit"))
     assert not by["spacing"]["server_path"] and not by["columns"]["server_path"]
+
+
+def test_engine_does_not_import_the_plan_module():
+    import subprocess
+    import sys
+
+    code = "import sys, fieldplan.planning.engine; print('fieldplan.planning.plan' in sys.modules)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    # The engine finds designs in the registry; only make_plan imports the engine.
+    assert out.stdout.strip() == "False"
+    from fieldplan import plan, stratified
+    from fieldplan.planning import plan as moved
+
+    assert plan.make_plan is moved.make_plan and stratified.read_rows is not None  # former paths still work

@@ -22,7 +22,7 @@ import typer
 from fieldplan.cli.options import echo_err, handle_errors, progress_callback, report_replaced
 
 if TYPE_CHECKING:
-    from fieldplan.plan import Plan
+    from fieldplan.planning.plan import Plan
     from fieldplan.spec import PlanSpec
 
 __all__ = ["register", "plan", "run_plan", "build_spec"]
@@ -331,13 +331,13 @@ def run_plan(
     discard_history: bool = False,
 ) -> Plan:
     """Check the output folder and resources, read, plan, write and report one spec."""
-    from fieldplan.engine import check_engine
-    from fieldplan.plan import make_plan
+    from fieldplan.planning.engine import check_engine
+    from fieldplan.planning.plan import make_plan
+    from fieldplan.planning.stratum_designs import read_rows
     from fieldplan.read import read_blocks, read_exclusions, select_blocks
     from fieldplan.safety import load_cautions, set_cautions
     from fieldplan.samples.purpose import resolve_purpose
     from fieldplan.store import write_plan
-    from fieldplan.stratified import read_rows
     from fieldplan.write.safe import check_out_dir
 
     # Fail on an occupied folder (or, with --force, a folder that is not a plan) before any work.

@@ -1,0 +1,587 @@
+"""Stratified designs over blocks: simple random, balanced (LPM) and plant clusters.
+
+Each stratum (by default each block; with ``strata_by`` the blocks sharing a
+value of that field) is sampled as one population: the union of its blocks'
+sampled areas (edge buffer and exclusions removed). Every point still carries
+the block it falls in. A stratum's sample size comes from exactly one of:
+
+* ``per_block``: that many points per block of the stratum;
+* ``per_ha``: ``round(D * sampled hectares)``;
+* ``n``: a total allocated over strata (:func:`fieldplan.design.allocation.allocate`)
+  by area or ``size_field``, with ``sd_field`` and ``cost_field`` for Neyman and
+  optimal allocation;
+* ``target_units`` (clusters): ``ceil(target / units_per_cluster)`` clusters per
+  stratum, the last taking the remainder.
+
+Each stratum draws from its own generator, ``fieldplan.rng.stream(seed,
+"design", stratum)``, so a stratum's points do not depend on the others or on
+processing order. Allocation ties use ``stream(seed, "allocation")``.
+"""
+
+from __future__ import annotations
+
+import string
+from collections.abc import Callable
+
+import numpy as np
+import pandas as pd
+import shapely
+
+from fieldplan.design.allocation import ALLOCATION_METHODS, allocate
+from fieldplan.design.balanced import balanced_points
+from fieldplan.design.clusters import (
+    cluster_sizes,
+    concat_segments,
+    eligible_plants,
+    pick_plants,
+    row_segments,
+    rows_from_lines,
+)
+from fieldplan.design.random import random_points
+from fieldplan.errors import DesignError, InputError, OptionError
+from fieldplan.field.spares import order_draw
+from fieldplan.rng import stream
+
+__all__ = [
+    "DEFAULT_INSTRUCTIONS",
+    "STRATIFIED_DESIGNS",
+    "check_design_options",
+    "format_instructions",
+    "read_rows",
+    "strata_labels",
+]
+
+DEFAULT_INSTRUCTIONS = (
+    "Start at row {row}, plant {plant}; sample {units} consecutive plant(s) along the row, "
+    "alternating sides of the row and rotating top, middle and bottom of the canopy"
+)
+_FIELDS = ("block", "row", "plant", "units", "part")
+_SIZE_KEYS = ("per_block", "per_ha", "n", "target_units")
+
+
+def strata_labels(blocks: pd.DataFrame, strata_by: str | None) -> np.ndarray:
+    """Stratum of each block: its ``strata_by`` value, or the block id."""
+    if strata_by is None:
+        return blocks["block"].astype(str).to_numpy(dtype=object)
+    from fieldplan.spec import SpecError
+
+    def text(value: str) -> str:
+        return value.replace("{", "{{").replace("}", "}}")
+
+    if strata_by not in blocks.columns:
+        fields = ", ".join(str(c) for c in blocks.columns if c != "geometry")
+        raise SpecError(
+            "strata_by", "{strata_by} " + text(f"{strata_by!r}: no such field in the blocks; fields are {fields}")
+        )
+    values = blocks[strata_by]
+    missing = np.flatnonzero(values.isna().to_numpy())
+    if missing.size:
+        raise SpecError(
+            "strata_by",
+            "{strata_by} "
+            + text(f"{strata_by!r}: block {blocks['block'].iloc[missing[0]]!r} has no value; ")
+            + "fill it in or choose another field",
+        )
+    return values.astype(str).to_numpy(dtype=object)
+
+
+def read_rows(path, *, crs):
+    """Read mapped row lines (GeoJSON, GeoPackage, Shapefile) into ``crs``.
+
+    Each LineString is a row, numbered in file order within each block it
+    crosses and running from its first vertex; MultiLineStrings are split into
+    their parts. A file without a CRS is taken as WGS84 longitude/latitude.
+    """
+    from pathlib import Path
+
+    import geopandas as gpd
+
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(f"{path}: rows file not found; give the path of the mapped row lines")
+    try:
+        frame = gpd.read_file(path)
+    except Exception as err:  # noqa: BLE001 - any reader failure is an input problem
+        raise InputError(f"{path}: cannot read row lines ({err}); export them as GeoJSON") from None
+    if frame.crs is None:
+        frame = frame.set_crs("EPSG:4326")
+    # Rows walked with a GPS carry heights; the row model is on the ground plane.
+    flat = shapely.force_2d(frame.geometry.values)
+    frame = frame.set_geometry(gpd.GeoSeries(flat, crs=frame.crs, index=frame.index))
+    frame = frame.explode(index_parts=False, ignore_index=True)
+    kinds = frame.geometry.geom_type.to_numpy()
+    bad = np.flatnonzero(kinds != "LineString")
+    if bad.size:
+        raise InputError(
+            f"{path}: feature {int(bad[0]) + 1} is a {kinds[bad[0]]}, not a line; give one line per row"
+        )
+    if len(frame) == 0:
+        raise InputError(f"{path}: holds no row lines")
+    return frame.to_crs(crs)
+
+
+def check_design_options(design: str, options: dict) -> dict:
+    """Validate the options of a stratified design; return them with defaults filled in."""
+    opts = {
+        "strata_by": None,
+        "per_block": None,
+        "per_ha": None,
+        "n": None,
+        "allocation": "proportional",
+        "size_field": None,
+        "sd_field": None,
+        "cost_field": None,
+        "min_per_stratum": 1,
+        "target_units": None,
+        "units_per_cluster": None,
+        "skip_row_ends": 0,
+        "skip_border_rows": 0,
+        "rows": None,
+        "instructions": None,
+        "candidates": None,
+    }
+    unknown = set(options) - set(opts) - {"rows_file"}
+    if unknown:
+        raise OptionError(f"unknown design option(s): {', '.join(sorted(unknown))}")
+    opts.update({k: v for k, v in options.items() if v is not None})
+    given = [k for k in _SIZE_KEYS if opts[k] is not None]
+    flag = {"per_block": "--per-block", "per_ha": "--per-ha", "n": "--n", "target_units": "--target-units"}
+    if len(given) != 1:
+        choices = "--per-block, --per-ha or --n" + (", --target-units" if design == "clusters" else "")
+        raise OptionError(
+            f"--design {design} needs exactly one sample size: {choices}"
+            + (f" (got {', '.join(flag[k] for k in given)})" if given else "")
+        )
+    if opts["target_units"] is not None and design != "clusters":
+        raise OptionError("--target-units applies to --design clusters only")
+    if opts["target_units"] is not None and opts["units_per_cluster"] is None:
+        raise OptionError(
+            "--target-units needs --plants-per-cluster (plants in each cluster, one unit from each)"
+        )
+    for key in ("per_block", "n", "target_units", "units_per_cluster"):
+        value = opts[key]
+        if value is not None and (int(value) != value or value < 1):
+            raise OptionError(f"--{key.replace('_', '-')} must be a whole number of 1 or more, got {value}")
+    if opts["per_ha"] is not None and not opts["per_ha"] > 0:
+        raise OptionError(f"--per-ha must be positive, got {opts['per_ha']}")
+    if opts["allocation"] not in ALLOCATION_METHODS:
+        raise OptionError(
+            f"--allocation must be one of {', '.join(ALLOCATION_METHODS)}; got {opts['allocation']!r}"
+        )
+    if opts["allocation"] in ("neyman", "optimal") and opts["sd_field"] is None:
+        raise OptionError(
+            f"--allocation {opts['allocation']} needs --sd-field (a standard deviation per block)"
+        )
+    if opts["allocation"] == "optimal" and opts["cost_field"] is None:
+        raise OptionError("--allocation optimal needs --cost-field (cost per sample per block)")
+    if opts["n"] is None and (opts["allocation"] != "proportional" or opts["size_field"]):
+        raise OptionError("--allocation and --size-field apply with --n (a total to allocate) only")
+    if int(opts["min_per_stratum"]) != opts["min_per_stratum"] or opts["min_per_stratum"] < 0:
+        raise OptionError(f"--min-per-stratum must be a whole number >= 0, got {opts['min_per_stratum']}")
+    for key in ("skip_row_ends", "skip_border_rows"):
+        if int(opts[key]) != opts[key] or opts[key] < 0:
+            raise OptionError(f"--{key.replace('_', '-')} must be a whole number >= 0, got {opts[key]}")
+    if design != "clusters":
+        for key in ("units_per_cluster", "rows", "instructions"):
+            if options.get(key) is not None:
+                raise OptionError(f"--{key.replace('_', '-')} applies to --design clusters only")
+        if opts["skip_row_ends"] or opts["skip_border_rows"]:
+            raise OptionError("--skip-row-ends and --skip-border-rows apply to --design clusters only")
+    if design == "clusters":
+        format_instructions(opts["instructions"] or DEFAULT_INSTRUCTIONS, pd.DataFrame())
+    return opts
+
+
+def format_instructions(template: str, table: pd.DataFrame) -> np.ndarray:
+    """Fill ``{block}``, ``{row}``, ``{plant}``, ``{units}``, ``{part}`` in ``template`` for each pick.
+
+    ``{part}`` names the part of a multi-part block ("part 2 of 2 (north-east)"), '' otherwise.
+
+    Built column by column (no loop per point).
+    """
+    try:
+        parts = list(string.Formatter().parse(template))
+    except ValueError as err:
+        raise OptionError(f"--instructions: {err}; use {{row}}, {{plant}}, {{units}} or {{block}}") from None
+    out = pd.Series([""] * len(table), index=table.index, dtype=object)
+    for literal, name, spec, conv in parts:
+        out = out + literal
+        if name is None:
+            continue
+        if name not in _FIELDS or spec or conv:
+            raise OptionError(
+                f"--instructions: unknown placeholder {{{name}}}; use {{row}}, {{plant}}, {{units}}, {{part}} or {{block}}"
+            )
+        if len(table):
+            out = out + table[name].astype(str)
+    return out.to_numpy(dtype=object)
+
+
+_COMPASS = ("north", "north-east", "east", "south-east", "south", "south-west", "west", "north-west")
+
+
+def part_names(blocks: pd.DataFrame, block: np.ndarray, part: np.ndarray) -> np.ndarray:
+    """Name of the part each pick lies in, e.g. "part 2 of 2 (north-east)"; '' for one-part blocks.
+
+    Parts keep the order of the block's geometry; the compass word is the side of
+    the block the part's centroid lies on, so a crew can tell the parts apart on the ground.
+    """
+    out = np.full(len(block), "", dtype=object)
+    if not len(block):
+        return out
+    names = blocks["block"].astype(str).to_numpy()
+    geoms = blocks.geometry.values
+    which = pd.Index(names).get_indexer(np.asarray(block, dtype=str))
+    count = shapely.get_num_geometries(geoms)
+    multi = (count[which] > 1) & (np.asarray(part) > 0)
+    if not multi.any():
+        return out
+    pairs, inverse = np.unique(np.column_stack([which[multi], part[multi]]), axis=0, return_inverse=True)
+    whole = shapely.centroid(geoms[pairs[:, 0]])
+    piece = shapely.centroid(shapely.get_geometry(geoms[pairs[:, 0]], pairs[:, 1] - 1))
+    dx = shapely.get_x(piece) - shapely.get_x(whole)
+    dy = shapely.get_y(piece) - shapely.get_y(whole)
+    sector = np.round(np.degrees(np.arctan2(dx, dy)) % 360.0 / 45.0).astype(int) % 8
+    label = np.array(
+        [
+            f"part {p} of {count[b]} ({_COMPASS[k]})"
+            for (b, p), k in zip(pairs.tolist(), sector.tolist(), strict=True)
+        ],
+        dtype=object,
+    )
+    out[multi] = label[inverse.reshape(-1)]
+    return out
+
+
+def _field_per_stratum(
+    blocks: pd.DataFrame, field: str, members: list[np.ndarray], weights: np.ndarray, how: str
+) -> np.ndarray:
+    """Per-stratum value of a numeric block field: sum or area-weighted mean."""
+    if field not in blocks.columns:
+        fields = ", ".join(c for c in blocks.columns if c != "geometry")
+        raise OptionError(f"field {field!r} is not in the blocks; fields are {fields}")
+    values = pd.to_numeric(blocks[field], errors="coerce").to_numpy(dtype=float)
+    bad = np.flatnonzero(~np.isfinite(values))
+    if bad.size:
+        raise OptionError(
+            f"field {field!r}: block {blocks['block'].iloc[bad[0]]!r} has no numeric value; fill it in"
+        )
+    if how == "sum":
+        return np.array([values[m].sum() for m in members])
+    out = []
+    for m in members:
+        w = weights[m]
+        out.append(float(np.average(values[m], weights=w)) if w.sum() > 0 else float(values[m].mean()))
+    return np.array(out)
+
+
+def _row_model(blocks: pd.DataFrame, i: int, area, opts: dict, rows_frame) -> tuple[object, list[str]]:
+    """Row segments of block ``i`` clipped to its sampled area, and flags."""
+    row = blocks.iloc[i]
+    ps = float(row["plant_spacing_m"]) if pd.notna(row["plant_spacing_m"]) else np.nan
+    if not np.isfinite(ps) or ps <= 0:
+        # Arable fields in the same file have no rows: they are left out, with a flag.
+        return None, ["no plant_spacing_m: no plants to sample clusters from (block left out)"]
+    if rows_frame is not None:
+        geom = row.geometry
+        lines = rows_frame.geometry.values
+        hit = shapely.intersects(lines, geom)
+        if not hit.any():
+            return None, ["no mapped rows cross the block: no plants to sample"]
+        return rows_from_lines(lines[hit], plant_spacing_m=ps, polygon=area), []
+    rs, bearing = row["row_spacing_m"], row["row_bearing_deg"]
+    missing = [
+        f
+        for f, v in (("row_spacing_m", rs), ("row_bearing_deg", bearing))
+        if pd.isna(v) or not np.isfinite(v)
+    ]
+    if missing:
+        return None, [
+            f"no {' or '.join(missing)}: no row model (block left out; or give mapped rows with --rows)"
+        ]
+    seg = row_segments(
+        row.geometry,
+        row_spacing_m=float(rs),
+        plant_spacing_m=ps,
+        row_bearing_deg=float(bearing),
+        clip=area,
+    )
+    return seg, []
+
+
+def _owner_blocks(x: np.ndarray, y: np.ndarray, geoms: np.ndarray) -> np.ndarray:
+    """Index into ``geoms`` of the geometry holding each point (nearest if on no one)."""
+    owner = np.full(x.size, -1, dtype=np.int64)
+    for j, geom in enumerate(geoms):
+        if owner.min(initial=0) >= 0:
+            break
+        inside = shapely.contains_xy(geom, x, y) & (owner < 0)
+        owner[inside] = j
+    lost = np.flatnonzero(owner < 0)
+    if lost.size:
+        pts = shapely.points(x[lost], y[lost])
+        dist = np.stack([shapely.distance(pts, g) for g in geoms], axis=1)
+        owner[lost] = np.argmin(dist, axis=1)
+    return owner
+
+
+def _stratified(
+    design: str,
+    blocks,
+    areas: np.ndarray,
+    params: dict,
+    exclusion_union,
+    progress: Callable[[int, int], None] | None,
+) -> tuple[pd.DataFrame, list[list[str]]]:
+    opts = params["design_options"]
+    seed = params["seed"]
+    n_spares = int(params.get("spares") or 0)
+    labels = blocks["stratum"].astype(str).to_numpy(dtype=object)
+    strata = list(pd.unique(labels))
+    members = [np.flatnonzero(labels == s) for s in strata]
+    flags: list[list[str]] = [[] for _ in range(len(blocks))]
+
+    # The population of each stratum: its blocks' sampled areas.
+    empty = shapely.is_empty(areas) | (shapely.area(areas) <= 0)
+    fallback = blocks.geometry.values
+    if exclusion_union is not None:
+        fallback = shapely.difference(fallback, exclusion_union)
+    use = np.where(empty, fallback, areas)
+    gone = shapely.is_empty(use) | (shapely.area(use) <= 0)
+    for i in np.flatnonzero(empty & ~gone):
+        flags[i].append("edge buffer leaves nothing: sampled the block without it")
+    for i in np.flatnonzero(gone):
+        flags[i].append("exclusions cover the block: not sampled")
+    area_ha = shapely.area(use) / 10_000.0
+    stratum_ha = np.array([area_ha[m].sum() for m in members])
+
+    segments: list = [None] * len(strata)
+    owners: list = [None] * len(strata)
+    eligible: list = [None] * len(strata)
+    # Strata with no area left (or, for clusters, no plants) take no points.
+    capacity = np.where(stratum_ha > 0, np.inf, 0.0)
+    modelled = False
+    if design == "clusters":
+        skips = (opts["skip_row_ends"], opts["skip_border_rows"])
+        for h, m in enumerate(members):
+            parts, owner_idx, elig = [], [], []
+            for i in m[~gone[m]]:
+                seg, notes = _row_model(blocks, i, use[i], opts, params.get("rows_frame"))
+                flags[i].extend(notes)
+                if seg is None:
+                    continue
+                modelled = True
+                count = eligible_plants(seg, skip_row_ends=skips[0], skip_border_rows=skips[1])
+                if count.sum() == 0 and use[i] is not fallback[i]:
+                    # The edge buffer left a sliver with no whole plant: as the other designs do
+                    # when it leaves nothing, sample the block's rows without it.
+                    seg, _ = _row_model(blocks, i, fallback[i], opts, params.get("rows_frame"))
+                    count = eligible_plants(seg, skip_row_ends=skips[0], skip_border_rows=skips[1])
+                    if count.sum() > 0:
+                        flags[i].append("edge buffer leaves no whole plant: sampled the block without it")
+                if count.sum() == 0:
+                    flags[i].append("no eligible plants in the sampled area: not sampled")
+                    continue
+                parts.append(seg)
+                owner_idx.append(i)
+                elig.append(count)
+            if parts:
+                joined, which = concat_segments(parts)
+                segments[h] = joined
+                owners[h] = np.asarray(owner_idx)[which]
+                eligible[h] = np.concatenate(elig)
+                capacity[h] = float(eligible[h].sum())
+            else:
+                capacity[h] = 0.0
+
+    active = capacity > 0
+    if not active.any():
+        if design != "clusters":
+            raise DesignError("no block has area left to sample after the edge buffer and exclusions")
+        if modelled:
+            raise DesignError(
+                "no block has a whole eligible plant left after the exclusions and the plants and rows "
+                "skipped; lower --skip-row-ends/--skip-border-rows or check the row spacings"
+            )
+        from fieldplan.read import row_fields_hint
+
+        raise DesignError(
+            "no block has a row layout (row_spacing_m, plant_spacing_m, row_bearing_deg) "
+            "or mapped rows (--rows); clusters need plants to draw from" + row_fields_hint(blocks)
+        )
+    exact, counts = _sizes(design, blocks, members, stratum_ha, capacity, opts, seed, active)
+    units_per = int(opts["units_per_cluster"] or 1)
+
+    # One list of column arrays per stratum, joined once: a DataFrame per stratum costs more than
+    # the draw itself when every block is a stratum.
+    parts: list[dict[str, np.ndarray]] = []
+    for h, stratum in enumerate(strata):
+        n_h = int(counts[h])
+        if n_h > capacity[h]:
+            raise DesignError(
+                f"stratum {stratum!r} needs {n_h} plants but only {capacity[h]:.0f} are eligible; "
+                "lower the sample size or --skip-row-ends/--skip-border-rows"
+            )
+        if n_h == 0:
+            if active[h]:
+                for i in members[h]:
+                    flags[i].append("no points allocated to this stratum")
+            continue
+        rng = stream(seed, "design", str(stratum))
+        m = members[h]
+        extra: dict[str, np.ndarray] = {}
+        # Spares continue the same draw (fieldplan.field.spares); they never exceed the eligible plants.
+        n_sel = n_h
+        n_h = int(min(n_h + n_spares, capacity[h]))
+        if design == "clusters":
+            picks = pick_plants(
+                segments[h], n_h, rng=rng, skip_row_ends=opts["skip_row_ends"], eligible=eligible[h]
+            )
+            owner = owners[h][picks.segment]
+            x, y = picks.x, picks.y
+            if opts["target_units"] is not None:
+                units = cluster_sizes(int(opts["target_units"]), units_per)
+                units = np.concatenate([units, np.full(n_h - n_sel, units_per, dtype=np.int64)])
+            else:
+                units = np.full(n_h, units_per, dtype=np.int64)
+            # Mapped rows are numbered over the whole block, whatever its parts.
+            part = picks.part if params.get("rows_frame") is None else np.zeros(n_h, dtype=np.int64)
+            extra = {"row": picks.row, "plant": picks.plant, "units": units, "part": part}
+        else:
+            m = m[~gone[m]]
+            poly = shapely.union_all(use[m]) if m.size > 1 else use[m[0]]
+            if design == "random":
+                xy = random_points(poly, n_h, rng=rng)
+            else:
+                # Enough lattice points to spread n points well, few enough to stay fast.
+                cand = opts["candidates"] or int(np.clip(200 * n_h, 2_000, 20_000))
+                xy = balanced_points(poly, n_h, rng=rng, candidates=int(cand)).points
+            x, y = xy[:, 0], xy[:, 1]
+            owner = m[_owner_blocks(x, y, use[m])] if m.size > 1 else np.full(n_h, m[0])
+        part = {"_order": np.asarray(owner), "x": np.asarray(x), "y": np.asarray(y), **extra}
+        if n_spares:
+            use_order, status, rank = order_draw(design, np.column_stack([x, y]), n_sel, rng=rng)
+            part = {key: np.asarray(value)[use_order] for key, value in part.items()}
+            part["status"], part["spare_rank"] = np.asarray(status), np.asarray(rank)
+        parts.append(part)
+        if progress is not None:
+            progress(h + 1, len(strata))
+    columns = ["_order", "x", "y"] + (["row", "plant", "units", "part"] if design == "clusters" else [])
+    columns += ["status", "spare_rank"] if n_spares else []
+    if parts:
+        joined = {key: np.concatenate([part[key] for part in parts]) for key in columns}
+        order = np.argsort(joined.pop("_order"), kind="stable")
+        owner_all = np.concatenate([part["_order"] for part in parts])[order]
+        table = pd.DataFrame(
+            {"block": blocks["block"].to_numpy()[owner_all], **{k: v[order] for k, v in joined.items()}}
+        )
+    else:
+        table = pd.DataFrame(columns=["block", *columns[1:]])
+    table["block"] = table["block"].astype(str)
+    if design == "clusters":
+        for key in ("row", "plant", "units", "part"):
+            table[key] = table[key].astype(np.int64)
+        # Multi-part blocks number rows per part: the text names the part first.
+        table["part"] = part_names(blocks, table["block"].to_numpy(), table["part"].to_numpy())
+        text = format_instructions(opts["instructions"] or DEFAULT_INSTRUCTIONS, table)
+        if not opts["instructions"]:
+            named = table["part"].to_numpy(dtype=object) != ""
+            prefix = "In " + table["part"].astype(str) + " (count rows from that part's own edge): "
+            text = np.where(named, prefix.to_numpy(dtype=object) + text, text)
+        table["instructions"] = text
+        table = table.drop(columns="part")
+    table.attrs["strata"] = pd.DataFrame(
+        {"stratum": strata, "n_target_exact": np.round(exact, 4), "n_allocated": counts.astype(int)}
+    )
+    return table, flags
+
+
+def _sizes(
+    design: str,
+    blocks,
+    members: list[np.ndarray],
+    stratum_ha: np.ndarray,
+    capacity: np.ndarray,
+    opts: dict,
+    seed: int,
+    active: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Exact and whole sample sizes per stratum; inactive strata (no plants) get none."""
+    exact, counts = _active_sizes(
+        design,
+        blocks,
+        [m for m, a in zip(members, active, strict=True) if a],
+        stratum_ha[active],
+        capacity[active],
+        opts,
+        seed,
+    )
+    all_exact = np.zeros(len(members))
+    all_counts = np.zeros(len(members), dtype=np.int64)
+    all_exact[active] = exact
+    all_counts[active] = counts
+    return all_exact, all_counts
+
+
+def _active_sizes(
+    design: str,
+    blocks,
+    members: list[np.ndarray],
+    stratum_ha: np.ndarray,
+    capacity: np.ndarray,
+    opts: dict,
+    seed: int,
+) -> tuple[np.ndarray, np.ndarray]:
+    low = int(opts["min_per_stratum"])
+    if opts["per_block"] is not None:
+        exact = np.array([float(opts["per_block"]) * m.size for m in members])
+        return exact, exact.astype(np.int64)
+    if opts["per_ha"] is not None:
+        exact = float(opts["per_ha"]) * stratum_ha
+        return exact, np.maximum(np.floor(exact + 0.5), low).astype(np.int64)
+    if opts["target_units"] is not None:
+        per = float(opts["target_units"]) / float(opts["units_per_cluster"])
+        exact = np.full(len(members), per)
+        return exact, np.ceil(exact - 1e-9).astype(np.int64)
+    weights = np.asarray(shapely.area(blocks.geometry.values), dtype=float)
+    sizes = (
+        _field_per_stratum(blocks, opts["size_field"], members, weights, "sum")
+        if opts["size_field"]
+        else stratum_ha
+    )
+    sds = _field_per_stratum(blocks, opts["sd_field"], members, weights, "mean") if opts["sd_field"] else None
+    costs = (
+        _field_per_stratum(blocks, opts["cost_field"], members, weights, "mean")
+        if opts["cost_field"]
+        else None
+    )
+    result = allocate(
+        int(opts["n"]),
+        sizes=sizes,
+        sds=sds,
+        costs=costs,
+        method=opts["allocation"],
+        min_per_stratum=low,
+        max_per_stratum=capacity if design == "clusters" else None,
+        rng=stream(seed, "allocation"),
+    )
+    return result.exact, result.n
+
+
+def _random(blocks, areas, params, exclusion_union, progress):
+    return _stratified("random", blocks, areas, params, exclusion_union, progress)
+
+
+def _balanced(blocks, areas, params, exclusion_union, progress):
+    return _stratified("balanced", blocks, areas, params, exclusion_union, progress)
+
+
+def _clusters(blocks, areas, params, exclusion_union, progress):
+    from fieldplan.read import check_row_attributes
+
+    # Blocks without rows are left out with a flag; a row model given but implausible is an error.
+    check_row_attributes(blocks, needed=True, allow_missing=True, fields=("row_spacing_m", "plant_spacing_m"))
+    return _stratified("clusters", blocks, areas, params, exclusion_union, progress)
+
+
+STRATIFIED_DESIGNS: dict[str, Callable] = {"random": _random, "balanced": _balanced, "clusters": _clusters}
