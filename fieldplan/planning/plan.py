@@ -96,7 +96,7 @@ class Plan:
         """The plan's specification, rebuilt from ``params`` (plans of older versions too)."""
         return PlanSpec.from_dict(self.params, strict=False)
 
-    def explore(self, **kwargs):
+    def explore(self, **kwargs: Any) -> Any:
         """The plan's map as a ``folium.Map`` for notebooks (see :func:`fieldplan.explore.explore`)."""
         from fieldplan.explore import explore
 
