@@ -35,6 +35,7 @@ import re
 import string
 from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field, fields
+from pathlib import PurePath
 from typing import Any, ClassVar
 
 from fieldplan.errors import DesignError, OptionError
@@ -929,7 +930,12 @@ class PlanSpec:
     def identity(self) -> dict[str, Any]:
         """The parameters that decide the points (what the plan's code is made from)."""
         values = self.to_dict()
-        return {k: v for k, v in values.items() if _FIELD_META[k]["identity"]}
+        out = {k: v for k, v in values.items() if _FIELD_META[k]["identity"]}
+        if out.get("exclude"):
+            # The file's name, not the path as typed: the same plan run from another folder (or
+            # saved from the web workspace, which keeps uploads by name) keeps its sample ids.
+            out["exclude"] = PurePath(str(out["exclude"]).replace("\\", "/")).name
+        return out
 
     @classmethod
     def from_dict(cls, values: Mapping[str, Any], *, strict: bool = True) -> PlanSpec:
