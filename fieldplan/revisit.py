@@ -105,7 +105,7 @@ def revisit_plan(
     """
     from fieldplan.planning.plan import Plan, _utc_now, sample_areas
     from fieldplan.planning.stratum_designs import strata_labels
-    from fieldplan.samples.purpose import apply_purpose
+    from fieldplan.samples.purpose import apply_samples
 
     crs = CRS.from_user_input(previous.crs)
     if CRS.from_user_input(blocks.crs) != crs:
@@ -207,17 +207,7 @@ def revisit_plan(
     }
     identity = {**spec.identity(), "seed": int(seed), "previous_plan_id": previous.params.get("plan_id")}
     plan = Plan(out_blocks, points, exclusions, crs, identity, meta)
-    samples = spec.samples
-    purposed = apply_purpose(
-        plan,
-        purpose=samples.purpose,
-        cores=samples.cores,
-        core_radius=samples.core_radius,
-        composite=samples.composite,
-        depth=samples.depth,
-        crop_profile=samples.crop_profile,
-        core_buffer=samples.core_buffer,
-    )
+    purposed = apply_samples(plan, spec.samples)
     params = {**spec.to_dict(), "seed": int(seed), "plan_id": purposed.params.get("plan_id")}
     if "spacing_m" in previous.params:
         params["spacing_m"] = previous.params["spacing_m"]

@@ -387,19 +387,9 @@ def make_plan(
         meta["input_crs"] = blocks.attrs["source_crs"]
     plan = Plan(out_blocks, points, exclusions, crs, identity, meta)
     # Purpose stage: sample ids, depth, soil cores or ripeness instructions.
-    from fieldplan.samples.purpose import apply_purpose
+    from fieldplan.samples.purpose import apply_samples
 
-    samples = spec.samples
-    purposed = apply_purpose(
-        plan,
-        purpose=samples.purpose,
-        cores=samples.cores,
-        core_radius=samples.core_radius,
-        composite=samples.composite,
-        depth=samples.depth,
-        crop_profile=samples.crop_profile,
-        core_buffer=samples.core_buffer,
-    )
+    purposed = apply_samples(plan, spec.samples)
     params = {**spec.to_dict(), "seed": int(seed), "plan_id": purposed.params.get("plan_id")}
     if design == "grid":
         params["spacing_m"] = round(float(spacing), 6)

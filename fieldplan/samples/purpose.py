@@ -31,6 +31,7 @@ from fieldplan.samples.ids import make_sample_ids, plan_code
 from fieldplan.samples.profiles import load_profile
 
 __all__ = [
+    "apply_samples",
     "PURPOSES",
     "COMPOSITES",
     "DEFAULT_PROFILE",
@@ -467,6 +468,27 @@ def resolve_purpose(
     if purpose == "ripeness":
         out["profile"] = load_profile(crop_profile or DEFAULT_PROFILE)
     return out
+
+
+def apply_samples(plan, samples):
+    """:func:`apply_purpose` with the options of a plan specification's samples section.
+
+    Parameters
+    ----------
+    plan : fieldplan.plan.Plan
+    samples : fieldplan.spec.SampleSpec
+        ``spec.samples`` of the plan's specification.
+    """
+    return apply_purpose(
+        plan,
+        purpose=samples.purpose,
+        cores=samples.cores,
+        core_radius=samples.core_radius,
+        composite=samples.composite,
+        depth=samples.depth,
+        crop_profile=samples.crop_profile,
+        core_buffer=samples.core_buffer,
+    )
 
 
 def apply_purpose(
