@@ -1,4 +1,10 @@
-"""The plan store: one writer at a time, derived files in step, links refused, history kept."""
+"""The plan store: one writer at a time, derived files in step, links refused, history kept.
+
+What these checks compare against is outside the store's own code: the number of commands run
+(each change lands exactly once), the bytes of files before the command (nothing outside the
+folder changes), and the operating system's rules for rename(2), flock(2) and O_NOFOLLOW
+(reference: POSIX.1-2017 and the Linux man pages).
+"""
 
 from __future__ import annotations
 
