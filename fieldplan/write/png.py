@@ -138,23 +138,26 @@ def true_north_bearing(crs, x: float, y: float) -> float:
 
 
 def _patches(geoms, **style):
+    """One path patch per polygon (exterior, then holes), built from shapely's coordinate arrays."""
     from matplotlib.collections import PatchCollection
     from matplotlib.patches import PathPatch
     from matplotlib.path import Path as MplPath
 
-    patches = []
-    for geom in geoms:
-        if geom is None or shapely.is_empty(geom):
-            continue
-        for poly in getattr(geom, "geoms", [geom]):
-            if poly.geom_type != "Polygon" or poly.is_empty:
-                continue
-            rings = [np.asarray(poly.exterior.coords)] + [np.asarray(r.coords) for r in poly.interiors]
-            verts = np.concatenate(rings)
-            codes = np.concatenate(
-                [np.r_[MplPath.MOVETO, np.full(len(r) - 2, MplPath.LINETO), MplPath.CLOSEPOLY] for r in rings]
-            )
-            patches.append(PathPatch(MplPath(verts, codes)))
+    parts = shapely.get_parts(np.asarray([g for g in geoms if g is not None], dtype=object))
+    polys = parts[(shapely.get_type_id(parts) == 3) & ~shapely.is_empty(parts)]
+    if polys.size == 0:
+        return PatchCollection([], match_original=False, **style)
+    rings, ring_poly = shapely.get_rings(polys, return_index=True)
+    verts, vert_ring = shapely.get_coordinates(rings, return_index=True)
+    new_ring = np.r_[True, vert_ring[1:] != vert_ring[:-1]]
+    codes = np.full(len(verts), MplPath.LINETO, dtype=MplPath.code_type)
+    codes[new_ring] = MplPath.MOVETO
+    codes[np.r_[new_ring[1:], True]] = MplPath.CLOSEPOLY
+    cuts = np.flatnonzero(np.diff(ring_poly[vert_ring])) + 1
+    patches = [
+        PathPatch(MplPath(v, c))
+        for v, c in zip(np.split(verts, cuts), np.split(codes, cuts), strict=True)
+    ]
     return PatchCollection(patches, match_original=False, **style)
 
 
