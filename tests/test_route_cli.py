@@ -51,7 +51,7 @@ def test_crews_writes_everything(plan_dir):
     assert sorted(routes["crew"]) == [1, 2, 3]
     assert set(routes.geometry.geom_type) == {"LineString"}
     table = (plan_dir / "crews.csv").read_text().splitlines()
-    assert table[0] == "crew,points,km,hours" and len(table) == 4
+    assert table[0] == "crew,n_points,length_km,hours" and len(table) == 4
     assert sum(int(line.split(",")[1]) for line in table[1:]) == len(pts)
     # longest crew within 15 % of the mean (common practice, no source)
     hours = np.array([float(line.split(",")[3]) for line in table[1:]])
@@ -189,7 +189,7 @@ def test_spares_and_inaccessible_points_get_no_crew(plan_dir):
     run = plan_crews(plan, n_crews=2, kicks=0)
     crew = run.plan.points["crew"].to_numpy()
     assert crew[:2].tolist() == [0, 0] and np.all(crew[2:] > 0)
-    assert run.table["points"].sum() == len(crew) - 2
+    assert run.table["n_points"].sum() == len(crew) - 2
 
 
 @pytest.mark.parametrize(

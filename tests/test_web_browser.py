@@ -265,7 +265,7 @@ def test_crews_assigned_from_a_picked_drop_off(season):
     import pandas as pd
 
     crews = pd.read_csv(workspace / "harvest-2027" / "crews.csv")
-    assert crews["points"].sum() == 14 * 3  # every point to sample has a crew
+    assert crews["n_points"].sum() == 14 * 3  # every point to sample has a crew
 
 
 def test_results_problems_listed_by_row(season):

@@ -214,19 +214,16 @@ def plan_crews(
         rows.append(
             {
                 "crew": k,
-                "points": len(route),
-                "km": round(float(result.walk_m[k - 1]) / 1000.0, 3),
+                "n_points": len(route),
+                "length_km": round(float(result.walk_m[k - 1]) / 1000.0, 3),
                 "hours": round(float(result.hours[k - 1]), 2),
             }
         )
-    table = pd.DataFrame(rows, columns=["crew", "points", "km", "hours"])
+    # crews.csv and the routes layer use the same names and units (counts as n_points, as
+    # summary.csv does; walking length in km).
+    table = pd.DataFrame(rows, columns=["crew", "n_points", "length_km", "hours"])
     routes = gpd.GeoDataFrame(
-        {
-            "crew": table["crew"].to_numpy(),
-            "points": table["points"].to_numpy(),
-            "length_m": (table["km"] * 1000).round(1).to_numpy(),
-            "hours": table["hours"].to_numpy(),
-        },
+        {column: table[column].to_numpy() for column in table.columns},
         geometry=gpd.GeoSeries(lines, crs=plan.crs),
         crs=plan.crs,
     )
@@ -339,7 +336,7 @@ def write_crews(
                 points_xy=xy[members],
                 rows=_sheet_rows(points, members),
                 summary=(
-                    f"{plural(int(row['points']), 'point')}, {row['km']:.2f} km walking, "
+                    f"{plural(int(row['n_points']), 'point')}, {row['length_km']:.2f} km walking, "
                     f"about {row['hours']:.1f} h{start_note}"
                 ),
                 start_xy=run.start_xy,

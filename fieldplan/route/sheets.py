@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 
-__all__ = ["CrewSheet", "crew_sheets_html", "svg_route_map"]
+__all__ = ["CrewSheet", "HEADINGS", "column_heading", "crew_sheets_html", "svg_route_map"]
 
 _SVG_SIZE = 640.0
 _MARGIN = 24.0
@@ -159,6 +159,26 @@ def _link_html(link: str) -> str:
     )
 
 
+#: Printed headings of the crew sheet's table: words a crew reads, not the files' column names.
+HEADINGS = {
+    "point_id": "Point",
+    "sample_id": "Bag id",
+    "block": "Block",
+    "stratum": "Stratum",
+    "row": "Row",
+    "plant": "Plant",
+    "instructions": "What to take",
+    "lon": "Longitude",
+    "lat": "Latitude",
+    "visit_order": "Visit",
+}
+
+
+def column_heading(column: str) -> str:
+    """The printed heading of a table column (``sample_id`` -> ``Bag id``)."""
+    return HEADINGS.get(column, str(column).replace("_", " ").capitalize())
+
+
 def crew_sheets_html(
     sheets: Sequence[CrewSheet],
     *,
@@ -192,7 +212,7 @@ def crew_sheets_html(
         f"<style>{_CSS}</style></head><body>",
     ]
     caution_html = "".join(f"<li>{esc(str(c))}</li>" for c in cautions)
-    head = "".join(f"<th>{esc(str(c))}</th>" for c in columns)
+    head = "".join(f"<th>{esc(column_heading(c))}</th>" for c in columns)
     for sheet in sheets:
         out.append(f'<section class="crew" id="crew-{sheet.crew}">')
         out.append(f"<h1>{esc(title)} &mdash; Crew {sheet.crew}</h1>")

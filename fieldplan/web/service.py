@@ -139,7 +139,7 @@ DOWNLOADS: tuple[tuple[str, str], ...] = (
     ("labels.pdf", "Bag labels (PDF)"),
     ("lab_submission.csv", "Lab submission sheet"),
     ("results_template.csv", "Results template to fill in"),
-    ("crews.csv", "Crews: points, km, hours"),
+    ("crews.csv", "Crews: points (n_points), walking km (length_km), hours"),
     ("estimates.csv", "Last estimates table"),
     ("coverage.csv", "Coverage check"),
     ("summary.csv", "Blocks summary"),

@@ -360,7 +360,8 @@ def map_data(plan: Any, *, routes=None, spares=None, actual=None, markers: str =
         w, s, e, n = (float(v) for v in points.to_crs(4326).total_bounds)
     else:
         w, s, e, n = -0.001, -0.001, 0.001, 0.001
-    route_fc = _features(routes, ["crew", "points", "length_m", "hours"])
+    # Older plan folders name the route columns points and length_m.
+    route_fc = _features(routes, ["crew", "n_points", "points", "length_km", "length_m", "hours"])
     crews = sorted({str(f["properties"].get("crew", "")) for f in route_fc["features"]}, key=_natural_key)
     return {
         "caption": plan_caption(plan),

@@ -254,8 +254,10 @@ var fieldplanKit = (function () {
 
   function routeTooltip(feature, layer) {
     var p = feature.properties, parts = ["Crew " + (p.crew === null ? "" : p.crew)];
-    if (p.points !== undefined && p.points !== null) { parts.push(p.points + " points"); }
-    if (p.length_m !== undefined && p.length_m !== null) { parts.push((p.length_m / 1000).toFixed(2) + " km"); }
+    var n = p.n_points !== undefined ? p.n_points : p.points;
+          if (n !== undefined && n !== null) { parts.push(n + " points"); }
+    if (p.length_km !== undefined && p.length_km !== null) { parts.push(Number(p.length_km).toFixed(2) + " km"); }
+          else if (p.length_m !== undefined && p.length_m !== null) { parts.push((p.length_m / 1000).toFixed(2) + " km"); }
     if (p.hours !== undefined && p.hours !== null) { parts.push("about " + Number(p.hours).toFixed(1) + " h"); }
     layer.bindTooltip(el("span", parts.join(" \u00b7 ")), { sticky: true });
   }

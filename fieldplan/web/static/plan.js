@@ -93,7 +93,7 @@
     var form = document.getElementById("crews-form");
     var force = form.querySelector('input[name="force"]');
     if (detail.crews.length) {
-      box.appendChild(FP.table(detail.crews, [["crew", "Crew"], ["points", "Points"], ["km", "km", 2], ["hours", "Hours", 1]], "fp-crews"));
+      box.appendChild(FP.table(detail.crews, [["crew", "Crew"], ["n_points", "Points"], ["length_km", "km", 2], ["hours", "Hours", 1]], "fp-crews"));
       if (!force) {
         var lab = el("label", null, "fp-check");
         force = el("input", null, null, { type: "checkbox", name: "force" });
@@ -203,7 +203,7 @@
     var msg = document.getElementById("crews-msg");
     FP.say(msg, "info", "Routing the crews\u2026");
     FP.api("POST", base + "/crews", body).then(function (res) {
-      var lines = res.crews.map(function (c) { return "Crew " + c.crew + ": " + c.points + " points, " + c.km.toFixed(2) + " km, about " + c.hours.toFixed(1) + " h"; });
+      var lines = res.crews.map(function (c) { return "Crew " + c.crew + ": " + c.n_points + " points, " + c.length_km.toFixed(2) + " km, about " + c.hours.toFixed(1) + " h"; });
       if (res.unfitted.length) { lines.push(res.unfitted.length + " point(s) do not fit in the longest day: " + res.unfitted.slice(0, 10).join(", ")); }
       (res.warnings || []).forEach(function (w) { lines.push(w); });
       FP.say(msg, "ok", "Crews assigned. Routes are on the map; crew sheets and GPX files are in Downloads.", lines);

@@ -199,8 +199,10 @@
         return { color: crew.colour, weight: 3, opacity: 0.9, dashArray: crew.dash, className: "fp-route" }; },
         onEachFeature: function (f, l) {
           var p = f.properties, parts = ["Crew " + crew.name];
-          if (p.points !== undefined && p.points !== null) { parts.push(p.points + " points"); }
-          if (p.length_m !== undefined && p.length_m !== null) { parts.push((p.length_m / 1000).toFixed(2) + " km"); }
+          var n = p.n_points !== undefined ? p.n_points : p.points;
+          if (n !== undefined && n !== null) { parts.push(n + " points"); }
+          if (p.length_km !== undefined && p.length_km !== null) { parts.push(Number(p.length_km).toFixed(2) + " km"); }
+          else if (p.length_m !== undefined && p.length_m !== null) { parts.push((p.length_m / 1000).toFixed(2) + " km"); }
           if (p.hours !== undefined && p.hours !== null) { parts.push("about " + Number(p.hours).toFixed(1) + " h"); }
           l.bindTooltip(el("span", parts.join(" \u00b7 ")), { sticky: true });
         } }).addTo(map);
