@@ -23,6 +23,9 @@ EST := demo_plots/estate_blocks.geojson
 EXCL := demo_plots/estate_exclusions.geojson
 
 demo: $(STAMP)
+	@# The demo's plans are made afresh each time: an earlier run's folders (which hold results and
+	@# labels, so --force would move them aside rather than delete them) are removed first.
+	rm -rf $(DEMO_OUT)
 	$(FP) demo --out $(DEMO_OUT)/plan --force
 	$(FP) crews $(DEMO_OUT)/plan --crews 3 --drop-off 18.89605,-33.86014 --return --force -q
 	$(FP) results $(DEMO_OUT)/plan demo_plots/results_round1.csv || true
