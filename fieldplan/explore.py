@@ -20,6 +20,8 @@ anchor points with a ``Marker``/``DivIcon``), the "Blocks" group
 What folium has no element for is JavaScript of our own, kept as package data
 in ``fieldplan/data/map/`` and called from two thin folium elements:
 
+* ``shapes.js`` (the ``fieldplanShapes`` global): the stratum marker shapes, inlined
+  before the kit; the workspace's plan map loads the same file, so both draw a stratum alike.
 * ``fieldplan-map.js`` (the ``fieldplanKit`` global): ``fill``, which hands the
   GeoJson layers their features from the page's data document (folium would embed
   them a second time, and branca re-parses every rendered script as a Jinja
@@ -283,7 +285,9 @@ def plan_map(
     page.html.add_child(island_element, name="fieldplan_data")
     if isinstance(page, _OfflinePage):
         page.island = island_element
-    page.script.add_child(_Text("\n" + _asset("fieldplan-map.js")), name="fieldplan_kit")
+    page.script.add_child(
+        _Text("\n" + _asset("shapes.js") + "\n" + _asset("fieldplan-map.js")), name="fieldplan_kit"
+    )
 
     m.fit_bounds([[s, w], [n, e]], padding=FIT_PADDING, max_zoom=FIT_MAX_ZOOM)
     CustomPane(LABEL_PANE[0], z_index=LABEL_PANE[1], pointer_events=False).add_to(m)

@@ -9,51 +9,10 @@
   var SVGNS = "http://www.w3.org/2000/svg";
   var el = FP.el;
 
-  var SHAPE_POINTS = {
-    "square": [[-0.72, -0.72], [0.72, -0.72], [0.72, 0.72], [-0.72, 0.72]],
-    "triangle": [[0, -0.88], [0.85, 0.78], [-0.85, 0.78]],
-    "diamond": [[0, -0.92], [0.92, 0], [0, 0.92], [-0.92, 0]],
-    "triangle-down": [[-0.85, -0.78], [0.85, -0.78], [0, 0.88]],
-    "hexagon": [[-0.45, -0.8], [0.45, -0.8], [0.9, 0], [0.45, 0.8], [-0.45, 0.8], [-0.9, 0]],
-    "cross": [[-0.28, -0.9], [0.28, -0.9], [0.28, -0.28], [0.9, -0.28], [0.9, 0.28], [0.28, 0.28],
-      [0.28, 0.9], [-0.28, 0.9], [-0.28, 0.28], [-0.9, 0.28], [-0.9, -0.28], [-0.28, -0.28]],
-    "x": [[-0.75, -0.5], [-0.5, -0.75], [0, -0.25], [0.5, -0.75], [0.75, -0.5], [0.25, 0],
-      [0.75, 0.5], [0.5, 0.75], [0, 0.25], [-0.5, 0.75], [-0.75, 0.5], [-0.25, 0]]
-  };
-  var STRIKE = [[-0.6, -0.6, 0.6, 0.6], [-0.6, 0.6, 0.6, -0.6]];
-
-  function shapeSvg(shape, fill, size, stroke) {
-    var svg = document.createElementNS(SVGNS, "svg");
-    svg.setAttribute("width", size); svg.setAttribute("height", size);
-    svg.setAttribute("viewBox", "0 0 16 16");
-    if (shape === "circle-x") {
-      var struck = shapeSvg("circle", fill, size, stroke);
-      STRIKE.forEach(function (q) {
-        var ln = document.createElementNS(SVGNS, "line");
-        ln.setAttribute("x1", (8 + 7 * q[0]).toFixed(2)); ln.setAttribute("y1", (8 + 7 * q[1]).toFixed(2));
-        ln.setAttribute("x2", (8 + 7 * q[2]).toFixed(2)); ln.setAttribute("y2", (8 + 7 * q[3]).toFixed(2));
-        ln.setAttribute("stroke", stroke || "#1a1a1a"); ln.setAttribute("stroke-width", "2");
-        ln.setAttribute("class", "fp-strike");
-        struck.appendChild(ln);
-      });
-      return struck;
-    }
-    var s;
-    if (shape === "circle" || !SHAPE_POINTS[shape]) {
-      s = document.createElementNS(SVGNS, "circle");
-      s.setAttribute("cx", "8"); s.setAttribute("cy", "8"); s.setAttribute("r", "6");
-    } else {
-      s = document.createElementNS(SVGNS, "path");
-      s.setAttribute("d", "M" + SHAPE_POINTS[shape].map(function (p) {
-        return (8 + 7 * p[0]).toFixed(2) + " " + (8 + 7 * p[1]).toFixed(2);
-      }).join("L") + "Z");
-    }
-    s.setAttribute("fill", fill);
-    s.setAttribute("stroke", stroke || "#1a1a1a");
-    s.setAttribute("stroke-width", "1.3");
-    svg.appendChild(s);
-    return svg;
-  }
+  // The same marker shapes as map.html: one definition (/static/map/shapes.js).
+  var SHAPE_POINTS = fieldplanShapes.SHAPE_POINTS;
+  var STRIKE = fieldplanShapes.STRIKE;
+  var shapeSvg = fieldplanShapes.shapeSvg;
   FP.shapeSvg = shapeSvg;
 
   function swatch(fill, stroke, dash) {
