@@ -14,6 +14,7 @@ information, as the floor writes none of those files.
 
 from __future__ import annotations
 
+import os
 import tempfile
 import time
 from pathlib import Path
@@ -55,6 +56,9 @@ def plan_once(path: Path, out: Path, *, seed: int = 1, formats=None) -> dict:
         return run
 
     store.WRITERS[:] = [timed(w) for w in original]
+    # Seconds per writer are only seen when every writer runs in this process.
+    jobs = os.environ.get("FIELDPLAN_WRITE_JOBS")
+    os.environ["FIELDPLAN_WRITE_JOBS"] = "1"
     try:
         t0 = time.perf_counter()
         blocks = read_blocks(path)
@@ -65,6 +69,10 @@ def plan_once(path: Path, out: Path, *, seed: int = 1, formats=None) -> dict:
         t3 = time.perf_counter()
     finally:
         store.WRITERS[:] = original
+        if jobs is None:
+            os.environ.pop("FIELDPLAN_WRITE_JOBS", None)
+        else:
+            os.environ["FIELDPLAN_WRITE_JOBS"] = jobs
     return {
         "read": t1 - t0,
         "plan": t2 - t1,
