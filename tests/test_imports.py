@@ -55,3 +55,38 @@ def test_core_plan_loads_no_plotting_compiler_or_statistics(tmp_path, design):
     assert (tmp_path / "p" / "points.csv").exists()
     plotting = ("matplotlib", "reportlab", "segno", "folium", "branca")
     assert _heavy(loaded, (*plotting, "numba", "scipy.stats", "scipy.spatial", "sklearn")) == []
+
+
+def test_core_plan_imports_only_its_own_command_module(tmp_path):
+    # Subcommands load lazily (fieldplan.cli.main.COMMANDS): a plan run imports plan_cmd and
+    # none of the other command modules, nor the web stack that `serve` needs.
+    loaded = _loaded(
+        ["plan", str(DEMO), "--spacing", "40", "--seed", "7", "--formats", "core", "--out", str(tmp_path / "p"), "-q"]
+    )
+    assert (tmp_path / "p" / "points.csv").exists()
+    assert "fieldplan.cli.plan_cmd" in loaded
+    others = [f"fieldplan.cli.{m}" for m in ("serve_cmd", "zones_cmd", "estimate_cmd", "size_cmd", "crews_cmd")]
+    assert _heavy(loaded, (*others, "fastapi", "uvicorn", "jinja2", "starlette", "rich")) == []
+
+
+def test_help_lists_every_command_in_order_with_its_one_line_help():
+    from typer.testing import CliRunner
+
+    from fieldplan.cli.main import COMMANDS, app, build_command
+
+    result = CliRunner().invoke(app, ["--help"], env={"COLUMNS": "100"})
+    assert result.exit_code == 0, result.output
+    listed = [line.split()[0] for line in result.output.split("Commands:")[1].splitlines() if line.strip()]
+    assert listed == list(COMMANDS)
+    for name in COMMANDS:
+        first = build_command(name).get_short_help_str(40).rstrip(".")[:20]
+        assert first in result.output, name
+
+
+def test_unknown_command_is_a_usage_error_without_traceback():
+    out = subprocess.run(
+        [sys.executable, "-c", "from fieldplan.cli.main import run; run()", "plna"], capture_output=True, text=True
+    )
+    assert out.returncode == 2
+    assert "Traceback" not in out.stderr
+    assert "Error: No such command 'plna'. Did you mean 'plan'?" in out.stderr

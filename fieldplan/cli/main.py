@@ -1,22 +1,121 @@
-"""The ``fieldplan`` command: a typer group; each subcommand lives in its own module."""
+"""The ``fieldplan`` command: a typer group; each subcommand lives in its own module.
+
+Subcommands load lazily: the group knows only their names (:data:`COMMANDS`) until one
+is invoked, and then imports that one module and builds that one click command. A run
+of ``fieldplan plan`` so pays neither for importing the other fourteen modules nor for
+typer turning their signatures into click options; ``fieldplan --help`` builds them all.
+"""
 
 from __future__ import annotations
 
-from typing import Annotated
+import importlib
+from collections.abc import Iterator, MutableMapping
+from typing import Annotated, Any
 
 import typer
+import typer.core
 
 from fieldplan import __version__
 
+__all__ = ["app", "run", "COMMANDS"]
+
+#: Subcommand name -> its module in ``fieldplan.cli`` (each has a ``register(app)``). The order
+#: here is the order of ``fieldplan --help``: the working day from plan to estimate.
+COMMANDS: dict[str, str] = {
+    "zones": "zones_cmd",
+    "plan": "plan_cmd",
+    "recipe": "recipe_cmd",
+    "demo": "demo_cmd",
+    "size": "size_cmd",
+    "check": "check_cmd",
+    "crews": "crews_cmd",
+    "schedule": "schedule_cmd",
+    "mark": "mark_cmd",
+    "labels": "labels_cmd",
+    "lab-sheet": "lab_cmd",
+    "results": "results_cmd",
+    "field-records": "field_records_cmd",
+    "estimate": "estimate_cmd",
+    "serve": "serve_cmd",
+}
+
+# Plain click help: rich's option tables cut long option names ("--plants-per-cl…") in an
+# 80-column terminal; click's formatter keeps every name whole and wraps the text.
+_MARKUP: Any = None
+
+
+def build_command(name: str) -> Any:
+    """The click command of subcommand ``name``: its module imported, its options built.
+
+    Raises
+    ------
+    KeyError
+        When ``name`` is not a fieldplan subcommand.
+    """
+    from fieldplan.cli import renames
+
+    module = importlib.import_module(f"fieldplan.cli.{COMMANDS[name]}")
+    holder = typer.Typer(rich_markup_mode=_MARKUP, add_completion=False)
+    module.register(holder)
+    # Former option names keep working, hidden, for one release (fieldplan.cli.renames).
+    renames.install(holder)
+    (info,) = (i for i in holder.registered_commands if i.name == name)
+    return typer.main.get_command_from_info(info, pretty_exceptions_short=True, rich_markup_mode=_MARKUP)
+
+
+class _LazyCommands(MutableMapping):
+    """The group's commands by name: each built on first look-up, names listed without building."""
+
+    def __init__(self) -> None:
+        self._built: dict[str, Any] = {}
+        self._added: dict[str, Any] = {}
+
+    def __getitem__(self, name: str) -> Any:
+        if name in self._added:
+            return self._added[name]
+        if name not in self._built:
+            if name not in COMMANDS:
+                raise KeyError(name)
+            self._built[name] = build_command(name)
+        return self._built[name]
+
+    def __setitem__(self, name: str, command: Any) -> None:
+        self._added[name] = command
+
+    def __delitem__(self, name: str) -> None:
+        del self._added[name]
+
+    def __iter__(self) -> Iterator[str]:
+        yield from COMMANDS
+        yield from (n for n in self._added if n not in COMMANDS)
+
+    def __len__(self) -> int:
+        return len(COMMANDS) + sum(n not in COMMANDS for n in self._added)
+
+    def __contains__(self, name: object) -> bool:
+        return name in COMMANDS or name in self._added
+
+
+class LazyGroup(typer.core.TyperGroup):
+    """A typer group whose subcommands are imported and built only when looked up."""
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        super().__init__(*args, **kwargs)
+        self.commands = _LazyCommands()
+
+    def list_commands(self, ctx: Any) -> list[str]:
+        # Names only: typer's own list_commands would build every command to list them.
+        return list(self.commands)
+
+
 app = typer.Typer(
     name="fieldplan",
+    cls=LazyGroup,
     help="Plan where and how to take samples in fields, vineyards and orchards.",
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
-    # Plain click help: rich's option tables cut long option names ("--plants-per-cl…") in
-    # an 80-column terminal; click's formatter keeps every name whole and wraps the text.
-    rich_markup_mode=None,
+    rich_markup_mode=_MARKUP,
     context_settings={"max_content_width": 100},
 )
 
@@ -39,50 +138,6 @@ def main(
     # What GDAL says about a file reaches the user as fieldplan's own notes and errors
     # (a dropped Z, a skipped feature); its raw warnings would only add noise.
     warnings.filterwarnings("ignore", category=RuntimeWarning, module=r"pyogrio(\..*)?$")
-
-
-from fieldplan.cli import (  # noqa: E402
-    check_cmd,
-    crews_cmd,
-    demo_cmd,
-    estimate_cmd,
-    field_records_cmd,
-    lab_cmd,
-    labels_cmd,
-    mark_cmd,
-    plan_cmd,
-    recipe_cmd,
-    results_cmd,
-    schedule_cmd,
-    serve_cmd,
-    size_cmd,
-    zones_cmd,
-)
-
-# The order here is the order of `fieldplan --help`: the working day from plan to estimate.
-for _command in (
-    zones_cmd,
-    plan_cmd,
-    recipe_cmd,
-    demo_cmd,
-    size_cmd,
-    check_cmd,
-    crews_cmd,
-    schedule_cmd,
-    mark_cmd,
-    labels_cmd,
-    lab_cmd,
-    results_cmd,
-    field_records_cmd,
-    estimate_cmd,
-    serve_cmd,
-):
-    _command.register(app)
-
-# Former option names keep working, hidden, for one release (fieldplan.cli.renames).
-from fieldplan.cli import renames as _renames  # noqa: E402
-
-_renames.install(app)
 
 
 def run() -> None:
