@@ -18,9 +18,12 @@ from __future__ import annotations
 import importlib
 import json
 import os
+import pickle
 import re
 import shutil
+import signal
 import sqlite3
+import sys
 import tempfile
 import threading
 from collections.abc import Callable, Iterator
@@ -29,11 +32,12 @@ from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
 
-from fieldplan.errors import OptionError, PlanDirError
+from fieldplan.errors import FieldplanError, OptionError, PlanDirError
 from fieldplan.lock import PlanBusyError, plan_lock
 from fieldplan.write.gpkg import GPKG_NAME, read_info, write_gpkg
 from fieldplan.write.safe import staged_folder
 from fieldplan.write.tables import (
+    points_lonlat,
     shared_lonlat,
     write_manifest,
     write_points_csv,
@@ -49,6 +53,11 @@ __all__ = [
     "REQUIRED_FORMATS",
     "selected_formats",
     "write_plan",
+    "split_writers",
+    "WRITER_COST",
+    "CHILD_WRITERS",
+    "WRITE_JOBS_ENV",
+    "WriterProcessError",
     "load_plan",
     "CORE_LAYERS",
     "GENERATION_KEY",
@@ -178,8 +187,7 @@ def write_plan(
             staged_folder(out_dir, force=force, aside=aside) as stage,
             shared_lonlat(getattr(plan, "points", None)),
         ):
-            for writer in _writers(chosen):
-                writer(plan, stage)
+            _run_writers(plan, stage, _writers(chosen))
     return out_dir
 
 
@@ -191,6 +199,207 @@ def _writers(chosen: set[str] | None) -> list[Callable]:
         if chosen is None or kind is None or kind in chosen:
             out.append(writer)
     return out
+
+
+# --- writers side by side: the heavy optional writers in a forked child process ---
+
+#: Seconds each writer took on a 1,000-block, 20,000-point plan, run one after another in
+#: one process (imports included): the weights by which :func:`write_plan` splits the
+#: writers between itself and a child process. Unlisted writers count as light.
+WRITER_COST: dict[str, float] = {
+    "write_points_geojson": 0.07,
+    "write_points_csv": 0.09,
+    "write_summary_csv": 0.01,
+    "write_manifest": 0.0,
+    "write_readme": 0.0,
+    "write_gpkg": 0.11,
+    "write_cores_geojson": 0.0,
+    "map_writer": 0.41,
+    "png_writer": 0.70,
+    "kml_writer": 0.25,
+    "gpx_writer": 0.09,
+}
+#: Writers that may run in the child: each only reads the plan and writes its own file.
+CHILD_WRITERS = ("map_writer", "png_writer", "kml_writer", "gpx_writer")
+#: ``FIELDPLAN_WRITE_JOBS=1`` writes every file in this process, one after another.
+WRITE_JOBS_ENV = "FIELDPLAN_WRITE_JOBS"
+
+
+class WriterProcessError(FieldplanError, ChildProcessError):
+    """The process writing some of a plan's files stopped without finishing (e.g. killed)."""
+
+
+def split_writers(writers: list[Callable]) -> tuple[list[Callable], list[Callable]]:
+    """Split ``writers`` into (this process's, the child's), balanced by :data:`WRITER_COST`.
+
+    Only :data:`CHILD_WRITERS` may go to the child; the heaviest is placed first, each on
+    the side with less work so far (longest processing time first). Both lists keep the
+    order of ``writers``.
+    """
+    name = lambda w: getattr(w, "__name__", "")  # noqa: E731
+    movable = sorted(
+        (w for w in writers if name(w) in CHILD_WRITERS), key=lambda w: -WRITER_COST.get(name(w), 0.0)
+    )
+    load = [sum(WRITER_COST.get(name(w), 0.05) for w in writers if name(w) not in CHILD_WRITERS), 0.0]
+    to_child = set()
+    for writer in movable:
+        side = 1 if load[1] < load[0] else 0
+        load[side] += WRITER_COST.get(name(writer), 0.0)
+        if side:
+            to_child.add(id(writer))
+    return [w for w in writers if id(w) not in to_child], [w for w in writers if id(w) in to_child]
+
+
+def _write_jobs() -> int:
+    """How many processes write a plan: 2 where a fork is safe and helps, else 1."""
+    value = os.environ.get(WRITE_JOBS_ENV, "").strip()
+    if value:
+        try:
+            wanted = int(value)
+        except ValueError:
+            raise OptionError(
+                f"{WRITE_JOBS_ENV}={value!r}: give a whole number (1 writes every file in one process)"
+            ) from None
+        if wanted <= 1:
+            return 1
+    # A fork copies only the calling thread: with other threads about (the web workspace's
+    # workers, a progress bar) a lock one of them holds could never be released in the child.
+    if not sys.platform.startswith("linux") or threading.current_thread() is not threading.main_thread():
+        return 1
+    if threading.active_count() != 1 or len(os.sched_getaffinity(0)) < 2:
+        return 1
+    return 2
+
+
+def _run_writers(plan, stage: Path, writers: list[Callable]) -> None:
+    """Run ``writers`` into ``stage``: the heavy ones in a forked child while this process
+    runs the rest (see :func:`split_writers`), or all here, one after another."""
+    mine, theirs = split_writers(writers) if _write_jobs() > 1 else (writers, [])
+    if not theirs:
+        for writer in writers:
+            writer(plan, stage)
+        return
+    points = getattr(plan, "points", None)
+    if points is not None:
+        points_lonlat(points)  # projected once, before the fork, for the writers on both sides
+    for stream in (sys.stdout, sys.stderr):
+        stream.flush()  # else text buffered before the fork could be printed twice
+    read_end, write_end = os.pipe()
+    parent = os.getpid()
+    pid = os.fork()
+    if pid == 0:  # the child: never returns
+        os.close(read_end)
+        _child_writes(plan, stage, theirs, write_end, parent)
+    os.close(write_end)
+    try:
+        for writer in mine:
+            writer(plan, stage)
+        with os.fdopen(read_end, "rb") as pipe:
+            read_end = None
+            report = pipe.read()
+        _, status = os.waitpid(pid, 0)
+        pid = None
+    finally:
+        if read_end is not None:
+            os.close(read_end)
+        if pid is not None:
+            # This process failed (or was interrupted): stop the child before the staging
+            # folder is removed, so it cannot write into it (or make it again) afterwards.
+            os.kill(pid, signal.SIGKILL)
+            os.waitpid(pid, 0)
+    _raise_child_failure(report, status, stage, theirs)
+
+
+def _child_writes(plan, stage: Path, writers: list[Callable], pipe: int, parent: int) -> None:
+    """In the forked child: run ``writers``, report through ``pipe``, leave with ``os._exit``."""
+    code = 1
+    try:
+        _die_with(parent)
+        try:
+            for writer in writers:
+                writer(plan, stage)
+        except BaseException as err:  # noqa: BLE001 - every failure goes back to the parent
+            report = _error_report(err)
+        else:
+            report = pickle.dumps(("ok",))
+        with os.fdopen(pipe, "wb") as out:
+            out.write(report)
+        code = 0
+    finally:
+        # Never return into the caller's code: its cleanup (the staging folder's swap or
+        # removal, atexit hooks, buffered output) belongs to the parent alone.
+        os._exit(code)
+
+
+def _die_with(parent: int) -> None:
+    """Have Linux kill this child when the parent dies, so it never writes into a removed stage."""
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(1, signal.SIGKILL)  # PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass
+    if os.getppid() != parent:  # the parent died before the request took effect
+        os._exit(1)
+
+
+def _error_report(err: BaseException) -> bytes:
+    """The child's exception as pickled bytes; its class name and message if it cannot travel."""
+    import traceback
+
+    trace = "".join(traceback.format_exception(err))
+    try:
+        report = pickle.dumps(("error", err, trace))
+        pickle.loads(report)
+        return report
+    except Exception:  # noqa: BLE001 - an exception that does not pickle or unpickle
+        kind = f"{type(err).__module__}:{type(err).__qualname__}"
+        return pickle.dumps(("failed", kind, str(err), trace))
+
+
+def _raise_child_failure(report: bytes, status: int, stage: Path, writers: list[Callable]) -> None:
+    """Raise what the child reported: its own exception, or a :class:`WriterProcessError`."""
+    names = ", ".join(getattr(w, "__name__", "?") for w in writers)
+    try:
+        message = pickle.loads(report) if report else None
+    except Exception:  # noqa: BLE001 - a report cut short
+        message = None
+    if os.WIFEXITED(status) and os.WEXITSTATUS(status) == 0 and message == ("ok",):
+        return
+    if isinstance(message, tuple) and message and message[0] in ("error", "failed"):
+        err = message[1] if message[0] == "error" else _rebuild(message[1], message[2])
+        if not isinstance(err, FieldplanError):
+            # An unexpected error: where it happened, as the traceback a serial run would show.
+            err.add_note(f"raised in the writer process ({names}):\n{message[-1]}")
+        raise err
+    how = (
+        f"was killed by signal {signal.Signals(os.WTERMSIG(status)).name}"
+        if os.WIFSIGNALED(status)
+        else f"stopped with exit code {os.waitstatus_to_exitcode(status)}"
+    )
+    raise WriterProcessError(
+        f"{stage}: the process writing {names} {how} (out of memory?); nothing was written: "
+        f"retry, or set {WRITE_JOBS_ENV}=1 to write every file in one process"
+    )
+
+
+def _rebuild(kind: str, text: str) -> BaseException:
+    """An exception of class ``kind`` ("module:qualname") with message ``text``, if it can be made."""
+    module, _, qualname = kind.partition(":")
+    try:
+        cls = importlib.import_module(module)
+        for part in qualname.split("."):
+            cls = getattr(cls, part)
+        if isinstance(cls, type) and issubclass(cls, BaseException):
+            # Not cls(text): its constructor may want other arguments or reword the message.
+            err = cls.__new__(cls)
+            err.args = (text,)
+            str(err)
+            return err
+    except Exception:  # noqa: BLE001 - a class that cannot be rebuilt from its message
+        pass
+    return RuntimeError(f"{kind.replace(':', '.')}: {text}")
 
 
 def plan_formats(plan) -> set[str] | None:
