@@ -35,7 +35,8 @@ __all__ = [
 LONLAT_DECIMALS = 8
 
 
-# [points frame, its geometry array, lon/lat or None] while :func:`shared_lonlat` is active.
+# [points frame, its geometry array, lon/lat or None, lon/lat text or None] while
+# :func:`shared_lonlat` is active.
 _SHARED: list[list] = []
 
 
@@ -61,6 +62,29 @@ def _lonlat(points) -> np.ndarray:
     return np.round(xy, LONLAT_DECIMALS)
 
 
+def _lonlat_text(points) -> tuple[np.ndarray, np.ndarray]:
+    """``repr`` of each point's longitude and latitude (:func:`points_lonlat`), as object arrays.
+
+    points.csv and points.geojson print the same numbers: inside :func:`shared_lonlat` they
+    are formatted once. The arrays are shared: callers must not change them.
+    """
+    for entry in _SHARED:
+        if entry[0] is points and entry[1] is points.geometry.values:
+            if entry[3] is None:
+                entry[3] = _repr_columns(points_lonlat(points))
+            return entry[3]
+    return _repr_columns(points_lonlat(points))
+
+
+def _repr_columns(lonlat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    return _repr(lonlat[:, 0]), _repr(lonlat[:, 1])
+
+
+def _repr(numbers: np.ndarray) -> np.ndarray:
+    """Python's shortest round-trip ``repr`` of each float (what json and pandas write)."""
+    return np.array(list(map(repr, numbers.tolist())), dtype=object)
+
+
 @lru_cache(maxsize=8)
 def _to_wgs84(crs) -> Transformer | None:
     if crs is None or CRS.from_user_input(crs).equals(WGS84):
@@ -79,7 +103,7 @@ def shared_lonlat(points):
     if points is None:
         yield
         return
-    entry = [points, points.geometry.values, None]
+    entry = [points, points.geometry.values, None, None]
     _SHARED.append(entry)
     try:
         yield
@@ -99,9 +123,6 @@ def _json_value(value):
     return value
 
 
-_NEEDS_ESCAPE = re.compile(r'["\\\x00-\x1f]')
-
-
 def _geojson_text_records(points, lonlat: np.ndarray) -> str:
     """The FeatureCollection through ``json.dumps``; the reference for the fast path."""
     columns = [c for c in points.columns if c != "geometry"]
@@ -119,51 +140,69 @@ def _geojson_text_records(points, lonlat: np.ndarray) -> str:
     return json.dumps(collection, ensure_ascii=False, indent=None) + "\n"
 
 
-def _json_column(values: pd.Series) -> np.ndarray | None:
-    """Each value as ``json.dumps(_json_value(v))`` would write it, or None for an unusual column."""
+def _json_column(values: pd.Series) -> tuple[np.ndarray, bool] | None:
+    """Each value as ``json.dumps(_json_value(v))`` would write it, or None for an unusual column.
+
+    With ``True`` the values of a text column without gaps come without their quotes (the
+    caller's template holds them: no new string per cell for them).
+    """
     dtype = values.dtype
     if pd.api.types.is_bool_dtype(dtype) and not pd.api.types.is_object_dtype(dtype):
-        return np.where(values.to_numpy(dtype=bool), "true", "false").astype(object)
+        return np.where(values.to_numpy(dtype=bool), "true", "false").astype(object), False
     if pd.api.types.is_integer_dtype(dtype) and not pd.api.types.is_extension_array_dtype(dtype):
-        return np.array(list(map(str, values.to_numpy().tolist())), dtype=object)
+        return np.array(list(map(str, values.to_numpy().tolist())), dtype=object), False
     if pd.api.types.is_float_dtype(dtype) and not pd.api.types.is_extension_array_dtype(dtype):
         numbers = values.to_numpy(dtype=float)
-        text = np.array(list(map(repr, numbers.tolist())), dtype=object)
+        text = _repr(numbers)
         text[~np.isfinite(numbers)] = "null"
-        return text
-    if pd.api.types.infer_dtype(values, skipna=True) not in ("string", "empty"):
+        return text, False
+    column = _text_column(values)
+    if column is None:
         return None
-    text = values.astype(object).to_numpy()
-    missing = pd.isna(text)
-    strings = np.where(missing, "", text)
-    # Only quotes, backslashes and control characters need escaping (RFC 8259 §7); one
-    # search over the whole column finds out whether any value needs it.
-    if _NEEDS_ESCAPE.search("".join(strings.tolist())) is None:
-        out = '"' + strings + '"'
-    else:
-        out = np.array([json.dumps(v, ensure_ascii=False) for v in strings.tolist()], dtype=object)
+    strings, missing = column
+    # Only quotes, backslashes and control characters need escaping (RFC 8259 §7): found in one
+    # pass over the column's characters; the few cells holding one go through json.dumps.
+    escape = _Scan(strings).cells_with(lambda c: (c < 0x20) | (c == 0x22) | (c == 0x5C))
+    escaped = [json.dumps(v, ensure_ascii=False) for v in strings[escape].tolist()] if escape.any() else []
+    if not missing.any():
+        if escaped:
+            strings[escape] = [v[1:-1] for v in escaped]
+        return strings, True
+    out = '"' + strings + '"'
+    if escaped:
+        out[escape] = escaped
     out[missing] = "null"
-    return out
+    return out, False
 
 
-def _geojson_chunks(points, lonlat: np.ndarray, *, rows: int = 8192) -> Iterator[str]:
+_FEATURE = '{"type": "Feature", "properties": {'
+
+
+def _geojson_chunks(
+    points, lonlat: np.ndarray, *, rows: int = 8192, lonlat_text: tuple[np.ndarray, np.ndarray] | None = None
+) -> Iterator[str]:
     """The text of :func:`_geojson_text_records` in pieces of ``rows`` features, built column by
-    column (no dict per point); pieces keep the peak memory of a large plan near one chunk."""
-    columns = [c for c in points.columns if c != "geometry"]
-    parts: list[np.ndarray | str] = ['{"type": "Feature", "properties": {']
-    for k, column in enumerate(columns):
-        text = _json_column(points[column])
-        if text is None:
+    column (no dict per point); pieces keep the peak memory of a large plan near one chunk.
+
+    ``lonlat_text``: the ``repr`` of ``lonlat``'s columns when already made (:func:`_lonlat_text`).
+    """
+    # A feature's text is constant text and column values in turn: [text, values, text, ...,
+    # values, text]. Each feature's text ends with the opening of the next feature's.
+    parts: list = []
+    const = ""
+    for column in (c for c in points.columns if c != "geometry"):
+        made = _json_column(points[column])
+        if made is None:
             yield _geojson_text_records(points, lonlat)
             return
-        key = json.dumps(str(column), ensure_ascii=False)
-        parts += [(", " if k else "") + key + ": ", text]
-    lon = np.array(list(map(repr, lonlat[:, 0].tolist())), dtype=object)
-    lat = np.array(list(map(repr, lonlat[:, 1].tolist())), dtype=object)
-    parts += ['}, "geometry": {"type": "Point", "coordinates": [', lon, ", ", lat, "]}}"]
-    parts.append(", ")
+        text, quoted = made
+        const += (", " if parts or const else "") + json.dumps(str(column), ensure_ascii=False) + ": "
+        parts += [const + ('"' if quoted else ""), text]
+        const = '"' if quoted else ""
+    lon, lat = lonlat_text if lonlat_text is not None else _repr_columns(lonlat)
+    parts += [const + '}, "geometry": {"type": "Point", "coordinates": [', lon, ", ", lat, "]}}, " + _FEATURE]
     n = len(points)
-    yield '{"type": "FeatureCollection", "features": ['
+    yield '{"type": "FeatureCollection", "features": [' + (_FEATURE if n else "")
     for start in range(0, n, rows):
         stop = min(n, start + rows)
         # A table of text pieces, a row per feature, joined in a single pass.
@@ -171,7 +210,7 @@ def _geojson_chunks(points, lonlat: np.ndarray, *, rows: int = 8192) -> Iterator
         for k, part in enumerate(parts):
             pieces[:, k] = part if isinstance(part, str) else part[start:stop]
         text = "".join(pieces.ravel().tolist())
-        yield text[:-2] if stop == n else text
+        yield text[: -len(", " + _FEATURE)] if stop == n else text
     yield "]}\n"
 
 
@@ -182,8 +221,9 @@ def _geojson_text(points, lonlat: np.ndarray) -> str:
 
 def write_points_geojson(plan, folder: Path) -> None:
     """``points.geojson``: a FeatureCollection in WGS84 with lon/lat order (RFC 7946 §3.1.1)."""
-    lonlat = points_lonlat(plan.points)
-    atomic_write_bytes(folder / "points.geojson", (c.encode("utf-8") for c in _geojson_chunks(plan.points, lonlat)))
+    points = plan.points
+    chunks = _geojson_chunks(points, points_lonlat(points), lonlat_text=_lonlat_text(points))
+    atomic_write_bytes(folder / "points.geojson", (c.encode("utf-8") for c in chunks))
 
 
 def csv_xy_crs(plan) -> CRS:
@@ -209,6 +249,11 @@ def _between(source, target) -> Transformer:
     return Transformer.from_crs(source, target, always_xy=True)
 
 
+#: The columns points.csv adds after the base ones: coordinates and the CRS of x/y.
+_CSV_COORDS = ("lon", "lat", "x", "y", "crs")
+_CSV_BASE = ("point_id", "block", "stratum", "design")
+
+
 def write_points_csv(plan, folder: Path) -> None:
     """``points.csv``: ids, lon/lat (WGS84) and x/y in the CRS named in ``crs`` (see :func:`csv_xy_crs`)."""
     pts = plan.points
@@ -218,26 +263,62 @@ def write_points_csv(plan, folder: Path) -> None:
     if len(pts) and not xy_crs.equals(plan.crs):
         xy = np.column_stack(_between(plan.crs, xy_crs).transform(xy[:, 0], xy[:, 1]))
     xy = np.round(xy, 3)
-    base = ["point_id", "block", "stratum", "design"]
-    table = pd.DataFrame({c: pts[c].to_numpy() for c in base})
-    table["lon"] = lonlat[:, 0]
-    table["lat"] = lonlat[:, 1]
-    table["x"] = xy[:, 0]
-    table["y"] = xy[:, 1]
-    table["crs"] = xy_crs.to_string()
-    for column in pts.columns:
-        if column not in base and column != "geometry":
-            table[column] = pts[column].to_numpy()
-    text = _csv_text(table)
+    crs_text = xy_crs.to_string()
+    rest = [c for c in pts.columns if c not in _CSV_BASE and c != "geometry"]
+    text = None
+    # The table is the base columns, lon, lat, x, y, crs, then the points' other columns; its
+    # cells are made straight from the points' columns (no table built) unless a column of
+    # the points takes a coordinate's name (the table would hold it in that place).
+    if len(pts) and pts.columns.is_unique and not {str(c) for c in rest} & set(_CSV_COORDS):
+        lon, lat = _lonlat_text(pts)
+        columns = [_csv_cells(_table_column(pts[c])) for c in _CSV_BASE]
+        columns += [_blank_nan(lon, lonlat[:, 0]), _blank_nan(lat, lonlat[:, 1])]
+        columns += [_csv_cells(xy[:, 0]), _csv_cells(xy[:, 1]), np.full(len(pts), crs_text, dtype=object)]
+        columns += [_csv_cells(_table_column(pts[c])) for c in rest]
+        kinds = [_table_column(pts[c]).dtype for c in _CSV_BASE] + [np.float64] * 4 + [object]
+        kinds += [_table_column(pts[c]).dtype for c in rest]
+        names = [*_CSV_BASE, *_CSV_COORDS, *map(str, rest)]
+        if all(c is not None for c in columns):
+            text = _csv_join(names, columns, [not _is_number(k) for k in kinds])
     if text is None:
-        text = neutralise_frame(table).to_csv(index=False, lineterminator="\n")
+        table = pd.DataFrame({c: pts[c].to_numpy() for c in _CSV_BASE})
+        table["lon"] = lonlat[:, 0]
+        table["lat"] = lonlat[:, 1]
+        table["x"] = xy[:, 0]
+        table["y"] = xy[:, 1]
+        table["crs"] = crs_text
+        for column in rest:
+            table[column] = pts[column].to_numpy()
+        text = _csv_text(table)
+        if text is None:
+            text = neutralise_frame(table).to_csv(index=False, lineterminator="\n")
     atomic_write_text(folder / "points.csv", text)
 
 
+def _table_column(column: pd.Series) -> pd.Series:
+    """``column`` as a table made of its ``to_numpy()`` holds it (types inferred anew).
+
+    Numbers, booleans and strings keep their type that way, so they are used as they are.
+    """
+    dtype = column.dtype
+    if dtype in (np.float64, np.int64, np.bool_) or isinstance(dtype, pd.StringDtype):
+        return column
+    return pd.Series(column.to_numpy())
+
+
+def _blank_nan(text: np.ndarray, numbers: np.ndarray) -> np.ndarray:
+    """``text`` (shared, left unchanged) with the cells of NaN ``numbers`` empty, as pandas writes them."""
+    missing = np.isnan(numbers)
+    if not missing.any():
+        return text
+    text = text.copy()
+    text[missing] = ""
+    return text
+
+
 _CSV_QUOTE = re.compile(r'[,"\r\n]')
-# What the csv module quotes with the "\n" line terminator plan files use (a lone "\r" is not).
-_CELL_QUOTE = re.compile(r'[,"\n]')
-_FORMULA_START = re.compile("^[" + re.escape("".join(_FORMULA_PREFIXES)) + "]", re.MULTILINE)
+# Code points of the characters that make a cell formula-like at its start (see safe.py).
+_FORMULA_CODES = np.array([ord(c) for c in _FORMULA_PREFIXES])
 
 
 def _csv_text(table: pd.DataFrame) -> str | None:
@@ -249,25 +330,34 @@ def _csv_text(table: pd.DataFrame) -> str | None:
     if len(table) == 0:
         return None
     columns = [_csv_cells(table.iloc[:, i]) for i in range(table.shape[1])]
-    names = [str(c) for c in table.columns]
     if any(c is None for c in columns):
         return None
-    text = [c for c, dtype in zip(columns, table.dtypes, strict=True) if not _is_number(dtype)]
+    return _csv_join([str(c) for c in table.columns], columns, [not _is_number(d) for d in table.dtypes])
+
+
+def _csv_join(names: list[str], columns: list[np.ndarray], text: list[bool]) -> str | None:
+    """CSV text of the columns' cells (:func:`_csv_cells`); the ``text`` ones neutralised and
+    quoted as needed (changed in place). None when a column name would need quotes."""
     if _CSV_QUOTE.search("".join(names)):
         return None
-    for cells in text:
-        # As neutralise_frame does to text cells (numbers stay as they are). One search over
-        # the column finds out whether any cell may need it (a line start inside a cell is a
-        # false alarm the per-cell check then clears).
-        if _FORMULA_START.search("\n".join(cells.tolist())):
-            hit = pd.Series(cells, dtype=object).str.startswith(_FORMULA_PREFIXES).to_numpy(dtype=bool)
-            cells[hit] = "'" + cells[hit]
-        # Then quoted as the csv module's QUOTE_MINIMAL does (what pandas writes): a cell with a
-        # comma, quote or line break goes in quotes, its quotes doubled.
-        if _CELL_QUOTE.search("".join(cells.tolist())):
-            quote = pd.Series(cells, dtype=object).str.contains(_CELL_QUOTE).to_numpy(dtype=bool)
-            cells[quote] = ['"' + v.replace('"', '""') + '"' for v in cells[quote].tolist()]
-    pieces = np.empty((len(table), 2 * len(columns)), dtype=object)
+    for cells, is_text in zip(columns, text, strict=True):
+        if not is_text:
+            continue
+        scan = _Scan(cells)
+        # As neutralise_frame does to text cells (numbers stay as they are).
+        formula = scan.first_in(_FORMULA_CODES)
+        # Then quoted as the csv module's QUOTE_MINIMAL does (what pandas writes) with the "\n"
+        # line terminator plan files use: a cell with a comma, quote or "\n" goes in quotes, its
+        # quotes doubled (a lone "\r" is not quoted). The apostrophe added above changes neither.
+        quote = scan.cells_with(lambda c: (c == 0x2C) | (c == 0x22) | (c == 0x0A))
+        if formula.any():
+            cells[formula] = "'" + cells[formula]
+        if quote.any():
+            doubled = scan.cells_with(lambda c: c == 0x22)
+            if doubled.any():
+                cells[doubled] = [v.replace('"', '""') for v in cells[doubled].tolist()]
+            cells[quote] = '"' + cells[quote] + '"'
+    pieces = np.empty((len(columns[0]), 2 * len(columns)), dtype=object)
     pieces[:, 1::2] = ","
     pieces[:, -1] = "\n"
     for k, cells in enumerate(columns):
@@ -275,35 +365,73 @@ def _csv_text(table: pd.DataFrame) -> str | None:
     return ",".join(names) + "\n" + "".join(pieces.ravel().tolist())
 
 
+class _Scan:
+    """The characters of a column of strings as one array of code points, to test every cell
+    for a set of characters in a few array operations instead of a Python call per cell."""
+
+    def __init__(self, cells: np.ndarray) -> None:
+        values = cells.tolist()
+        joined = "".join(values)
+        self.lengths = np.fromiter(map(len, values), dtype=np.int64, count=len(values))
+        self.ends = np.cumsum(self.lengths)
+        if joined.isascii():
+            self.codes: np.ndarray = np.frombuffer(joined.encode("ascii"), dtype=np.uint8)
+        else:
+            # One code point per character, as str indexes them (lone surrogates included).
+            self.codes = np.frombuffer(joined.encode("utf-32-le", "surrogatepass"), dtype=np.uint32)
+
+    def cells_with(self, test) -> np.ndarray:
+        """Per cell: whether any of its characters' code points passes ``test`` (array -> bool array)."""
+        hits = np.flatnonzero(test(self.codes))
+        out = np.zeros(len(self.lengths), dtype=bool)
+        out[np.searchsorted(self.ends, hits, side="right")] = True
+        return out
+
+    def first_in(self, codes: np.ndarray) -> np.ndarray:
+        """Per cell: whether its first character's code point is one of ``codes`` (empty cells: no)."""
+        out = np.zeros(len(self.lengths), dtype=bool)
+        filled = self.lengths > 0
+        out[filled] = np.isin(self.codes[(self.ends - self.lengths)[filled]], codes)
+        return out
+
+
 def _is_number(dtype) -> bool:
     # Cells of these types are digits, signs, dots, "e", "inf", "nan", "True"/"False": never quoted.
     return dtype == np.float64 or dtype == np.int64 or dtype == np.bool_
 
 
-def _csv_cells(column: pd.Series) -> np.ndarray | None:
-    """A column's cells as ``DataFrame.to_csv`` writes them, or None for an unusual type.
-
-    Floats: Python's shortest round-trip ``repr``, the text numpy gives and pandas
-    writes. Missing values are empty cells.
-    """
+def _text_column(column: pd.Series) -> tuple[np.ndarray, np.ndarray] | None:
+    """A text column's strings ("" where missing) and its missing mask; None for other columns."""
     dtype = column.dtype
-    if dtype == np.float64:  # float32 text differs, extension floats hold pd.NA
-        numbers = column.to_numpy()
-        text = np.array(list(map(repr, numbers.tolist())), dtype=object)
-        text[np.isnan(numbers)] = ""
-        return text
-    if dtype == np.int64:
-        return np.array(list(map(str, column.to_numpy().tolist())), dtype=object)
-    if dtype == np.bool_:
-        return np.where(column.to_numpy(), "True", "False").astype(object)
     if isinstance(dtype, pd.StringDtype):
-        return column.to_numpy(dtype=object, na_value="")
+        # A copy: callers change cells in place, and a string array may hand out its own storage.
+        cells = np.array(column.to_numpy(dtype=object, na_value=""), dtype=object, copy=True)
+        return cells, column.isna().to_numpy(dtype=bool)
     if not pd.api.types.is_object_dtype(dtype):
         return None
     if pd.api.types.infer_dtype(column, skipna=True) not in ("string", "empty"):
         return None
     values = column.to_numpy(dtype=object)
-    return np.where(pd.isna(values), "", values).astype(object)
+    missing = pd.isna(values)
+    return np.where(missing, "", values).astype(object), missing
+
+
+def _csv_cells(column: pd.Series | np.ndarray) -> np.ndarray | None:
+    """A column's cells as ``DataFrame.to_csv`` writes them, or None for an unusual type.
+
+    Floats: Python's shortest round-trip ``repr``, the text numpy gives and pandas
+    writes. Missing values are empty cells. A float64 array is taken as a column.
+    """
+    dtype = column.dtype
+    if dtype == np.float64:  # float32 text differs, extension floats hold pd.NA
+        numbers = np.asarray(column)
+        return _blank_nan(_repr(numbers), numbers)
+    if dtype == np.int64:
+        return np.array(list(map(str, column.to_numpy().tolist())), dtype=object)
+    if dtype == np.bool_:
+        return np.where(column.to_numpy(), "True", "False").astype(object)
+    text = _text_column(column)
+    return None if text is None else text[0]
 
 
 def write_summary_csv(plan, folder: Path) -> None:
