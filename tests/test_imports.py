@@ -90,3 +90,18 @@ def test_unknown_command_is_a_usage_error_without_traceback():
     assert out.returncode == 2
     assert "Traceback" not in out.stderr
     assert "Error: No such command 'plna'. Did you mean 'plan'?" in out.stderr
+
+
+def test_cluster_core_plan_loads_no_compiler_and_no_scipy(tmp_path):
+    # The row model and the draw are numpy arrays over all blocks: no numba (nor the scipy.linalg
+    # numba pulls in for its BLAS bindings), no scipy at all.
+    loaded = _loaded(
+        [
+            "plan",
+            str(DEMO),
+            *("--design", "clusters", "--per-block", "4", "--plants-per-cluster", "2"),
+            *("--seed", "7", "--formats", "core", "--out", str(tmp_path / "p"), "-q"),
+        ]
+    )
+    assert (tmp_path / "p" / "points.csv").exists()
+    assert _heavy(loaded, ("numba", "llvmlite", "scipy", "matplotlib", "sklearn")) == []

@@ -1,4 +1,4 @@
-"""Compiled row-model kernels against numpy and shapely doing the same job."""
+"""Row-model array functions against numpy and shapely doing the same job."""
 
 from __future__ import annotations
 
@@ -59,7 +59,8 @@ def test_row_through_a_vertex_counts_the_crossing_once():
     tri = np.array([[0.0, 0.0], [1.5, 10.0], [3.0, 0.0], [0.0, 0.0]])
     # frame for bearing 0: u = y (along), v = x (across)
     pu, pv = tri[:, 1].copy(), tri[:, 0].copy()
-    row, start, end = row_pieces(pu, pv, np.zeros(4, dtype=np.int64), 0.5, 1.0, 3)
+    unit, row, start, end = row_pieces(pu, pv, np.zeros(4, dtype=np.int64), 0.5, 1.0, 3)
+    assert unit.tolist() == [0, 0, 0]
     assert row.tolist() == [0, 1, 2]
     np.testing.assert_allclose(start, [0.0, 0.0, 0.0])
     np.testing.assert_allclose(end, [0.5 / 1.5 * 10, 10.0, 0.5 / 1.5 * 10])

@@ -36,7 +36,7 @@ cumulative counts. Memory and time are O(rows + n), never O(plants).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import cached_property
 
 import numpy as np
@@ -44,12 +44,16 @@ import shapely
 from numpy.typing import ArrayLike
 from shapely.geometry.base import BaseGeometry
 
-from fieldplan.design.scanline import LEN_TOL as _LEN_TOL
 from fieldplan.design.scanline import (
-    clip_pieces,
+    LEN_TOL,
     first_distinct,
+    frame_coordinates,
+    group_starts,
     locate_ranks,
-    row_model,
+    plant_layout,
+    row_frames,
+    row_pieces,
+    row_span,
     segment_ends,
     straight_points,
 )
@@ -58,6 +62,8 @@ from fieldplan.errors import DesignError, OptionError
 __all__ = [
     "PlantPicks",
     "RowSegments",
+    "block_row_segments",
+    "block_rows_from_lines",
     "cluster_count",
     "cluster_sizes",
     "concat_segments",
@@ -66,6 +72,7 @@ __all__ = [
     "row_segments",
     "rows_from_lines",
     "sample_ranks",
+    "sample_ranks_many",
 ]
 
 
@@ -164,59 +171,204 @@ def _check_positive(value: float, name: str) -> float:
     return float(value)
 
 
-def _segments(row_lines: np.ndarray, clip: BaseGeometry | None, plant_spacing: float) -> RowSegments:
-    """Clip row lines, orient and order the pieces, count plants."""
-    pieces = row_lines if clip is None else shapely.intersection(row_lines, clip)
-    pieces = shapely.line_merge(pieces)
-    parts, which = shapely.get_parts(pieces, return_index=True)
-    keep = (shapely.get_type_id(parts) == 1) & (shapely.length(parts) > _LEN_TOL)
-    parts, which = parts[keep], which[keep]
-    start = shapely.get_point(parts, 0)
-    end = shapely.get_point(parts, -1)
-    host = row_lines[which]
-    at_start = shapely.line_locate_point(host, start)
-    at_end = shapely.line_locate_point(host, end)
-    flip = at_end < at_start
-    parts = np.where(flip, shapely.reverse(parts), parts)
-    along = np.minimum(at_start, at_end)
-    order = np.lexsort((along, which))
-    parts, which = parts[order], which[order]
-    length = shapely.length(parts)
-    plants = np.floor(length / plant_spacing + 1e-9).astype(np.int64)
-    offset = (length - plants * plant_spacing) / 2.0 + plant_spacing / 2.0
-    # Plants of earlier segments of the same row, for numbering along the row.
-    before = np.cumsum(plants) - plants
-    if which.size:
-        _, first_of_row = np.unique(which, return_index=True)
-        row_base = np.repeat(before[first_of_row], np.diff(np.append(first_of_row, which.size)))
-    else:
-        row_base = np.zeros(0, dtype=np.int64)
-    return RowSegments(
-        row=which.astype(np.int64) + 1,
-        lines=parts,
+def _check_all_positive(values: np.ndarray, name: str) -> None:
+    bad = np.flatnonzero(~(np.isfinite(values) & (values > 0)))
+    if bad.size:
+        _check_positive(float(values[bad[0]]), name)
+
+
+def _object_array(values) -> np.ndarray:
+    """A 1-d object array of geometries (or None), without numpy looking inside them."""
+    if isinstance(values, np.ndarray) and values.dtype == object and values.ndim == 1:
+        return values
+    seq = list(values) if not isinstance(values, BaseGeometry) and values is not None else [values]
+    out = np.empty(len(seq), dtype=object)
+    out[:] = seq
+    return out
+
+
+def _ranges(start: np.ndarray, count: np.ndarray) -> np.ndarray:
+    """``concatenate([arange(s, s + c) for s, c in zip(start, count)])`` without the loop."""
+    total = int(count.sum())
+    return np.arange(total) - np.repeat(np.cumsum(count) - count - start, count)
+
+
+def _polygons(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Polygonal parts of each geometry (collections opened) and the index of their geometry."""
+    parts, index = shapely.get_parts(geoms, return_index=True)
+    types = shapely.get_type_id(parts)
+    nested = np.isin(types, (6, 7))
+    if nested.any():
+        # A geometry collection (e.g. left by a difference) may hold multipolygons: open them too.
+        inner, at = _polygons(parts[nested])
+        parts = np.concatenate([parts[~nested], inner])
+        index = np.concatenate([index[~nested], index[nested][at]])
+        order = np.argsort(index, kind="stable")
+        parts, index = parts[order], index[order]
+        types = shapely.get_type_id(parts)
+    keep = (types == 3) & ~shapely.is_empty(parts)
+    return parts[keep], index[keep]
+
+
+def _ring_vertices(polygons: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Ring vertices of polygons (exterior, then holes), their ring, and the polygon of each ring."""
+    rings, owner = shapely.get_rings(polygons, return_index=True)
+    xy, ring = shapely.get_coordinates(rings, return_index=True)
+    return xy, ring, owner
+
+
+def block_row_segments(
+    geoms,
+    *,
+    row_spacing_m,
+    plant_spacing_m,
+    row_bearing_deg,
+    clips=None,
+) -> tuple[RowSegments, np.ndarray]:
+    """Row segments of the spacing model for many blocks at once.
+
+    The same model as :func:`row_segments`, block by block (each part of a
+    multi-part block with its own rows), computed for all blocks and parts in
+    one pass of array calls.
+
+    Parameters
+    ----------
+    geoms : array_like of shapely Polygon or MultiPolygon
+        The blocks, in a metric CRS.
+    row_spacing_m, plant_spacing_m, row_bearing_deg : array_like
+        Per block (or one value for all).
+    clips : array_like of geometry or None, optional
+        Per block, the part to keep plants in (None, or the block's own
+        geometry object, keeps the whole block); row and plant numbers stay
+        those of the whole block. Polygonal parts of a collection are used.
+
+    Returns
+    -------
+    segments : RowSegments
+        Segments of all blocks, block by block in input order; per-segment
+        plant spacing and :attr:`RowSegments.part` (1 for one-part blocks).
+    block : numpy.ndarray
+        Index of each segment's block in ``geoms``.
+    """
+    geoms = _object_array(geoms)
+    nb = geoms.size
+    rs = np.broadcast_to(np.asarray(row_spacing_m, dtype=float), (nb,))
+    ps = np.broadcast_to(np.asarray(plant_spacing_m, dtype=float), (nb,))
+    bearing = np.broadcast_to(np.asarray(row_bearing_deg, dtype=float), (nb,))
+    _check_all_positive(rs, "row spacing")
+    _check_all_positive(ps, "plant spacing")
+    if not np.isfinite(bearing).all():
+        raise OptionError("row bearing is unknown; give the block a row bearing in degrees")
+    if nb and (shapely.is_missing(geoms) | shapely.is_empty(geoms)).any():
+        raise DesignError("the block has no geometry to lay rows in")
+    types = shapely.get_type_id(geoms)
+    if not np.isin(types, (3, 6)).all():
+        raise DesignError("the block is not a polygon; rows are laid out in polygons only")
+
+    # Units: one per part of each block, each with its own rows numbered from its own edge.
+    parts, pblock = shapely.get_parts(geoms, return_index=True)
+    n_parts = np.bincount(pblock, minlength=nb)
+    unit_of_block = np.cumsum(n_parts) - n_parts
+    part_no = np.arange(parts.size) - unit_of_block[pblock] + 1
+    u, v = row_frames(bearing[pblock])
+    rs_u, ps_u = rs[pblock], ps[pblock]
+    xy, ring, owner = _ring_vertices(parts)
+    vunit = owner[ring]
+    pu, pv = frame_coordinates(xy, u[vunit], v[vunit])
+    first, count = row_span(pv, vunit, parts.size, rs_u)
+    unit, row, start, end = row_pieces(pu, pv, ring, first, rs_u, count, unit=vunit)
+    length, plants, first_plant, offset, ends = plant_layout(unit, row, start, end, first, rs_u, ps_u, u, v)
+
+    if clips is not None:
+        clips = _object_array(clips)
+        # A clip that is the block itself keeps the whole block (a multi-part block is still cut
+        # part by part against its whole outline, which gives the same pieces).
+        same = np.fromiter((c is None or c is g for c, g in zip(clips, geoms, strict=True)), bool, nb)
+        clipped_block = ~(same & ((n_parts == 1) | np.fromiter((c is None for c in clips), bool, nb)))
+        if clipped_block.any():
+            cb = np.flatnonzero(clipped_block)
+            cpoly, cp_block = _polygons(clips[cb])
+            cxy, cring, cowner = _ring_vertices(cpoly)
+            ring_block = cb[cp_block[cowner]]  # block of each clip ring
+            # Every part of a block is cut by every ring of its clip: copy the rings per part.
+            copies = n_parts[ring_block]
+            ring_id = np.repeat(np.arange(ring_block.size), copies)
+            ring_unit = unit_of_block[ring_block[ring_id]] + _ranges(np.zeros_like(copies), copies)
+            r_start = np.searchsorted(cring, np.arange(ring_block.size), side="left")
+            r_count = np.searchsorted(cring, np.arange(ring_block.size), side="right") - r_start
+            take = _ranges(r_start[ring_id], r_count[ring_id])
+            copy_of_vertex = np.repeat(np.arange(ring_id.size), r_count[ring_id])
+            cunit = ring_unit[copy_of_vertex]
+            cu, cv = frame_coordinates(cxy[take], u[cunit], v[cunit])
+            c_unit, c_row, c_start, c_end = row_pieces(cu, cv, copy_of_vertex, first, rs_u, count, unit=cunit)
+            keep_whole = ~clipped_block[pblock[unit]]
+            (unit, row, length, plants, first_plant, offset, ends) = _clip_intervals(
+                (unit, row, start, length, plants, first_plant, offset, ends),
+                keep_whole,
+                (c_unit, c_row, c_start, c_end),
+                (first, rs_u, ps_u, count, u, v),
+            )
+
+    segments = RowSegments(
+        row=row + 1,
+        ends=ends,
         length=length,
         plants=plants,
-        first_plant=before - row_base + 1,
+        first_plant=first_plant,
         offset=offset,
-        plant_spacing=plant_spacing,
+        plant_spacing=ps_u[unit],
+        part=part_no[unit],
     )
+    return segments, pblock[unit]
 
 
-def _frame(theta: float) -> tuple[np.ndarray, np.ndarray]:
-    u = np.array([np.sin(theta), np.cos(theta)])  # along the rows
-    v = np.array([np.cos(theta), -np.sin(theta)])  # across, to the right of u
-    return u, v
+def _clip_intervals(full, keep_whole, clip, rows):
+    """Keep the parts of the full pieces inside the clip pieces of the same row line.
 
-
-def _ring_coordinates(polygon: BaseGeometry) -> tuple[np.ndarray, np.ndarray]:
-    """Ring vertices of a polygon or multipolygon, and the ring index of each."""
-    # Attribute access is several times cheaper than get_parts + get_rings for one geometry.
-    parts = polygon.geoms if shapely.get_type_id(polygon) == 6 else (polygon,)
-    rings = []
-    for part in parts:
-        rings.append(part.exterior)
-        rings.extend(part.interiors)
-    return shapely.get_coordinates(rings, return_index=True)
+    Plants keep the positions and numbers of the unclipped model; a clipped
+    piece holds the plants of its parent piece that fall inside it. Pieces with
+    ``keep_whole`` are kept as they are. ``rows`` is, per unit, the first row's
+    offset, row spacing, plant spacing, row count and frame vectors.
+    """
+    unit, row, start, length, plants, first_plant, offset, ends = full
+    c_unit, c_row, c_start, c_end = clip
+    first, rs, ps_u, count, u, v = rows
+    row_base = np.cumsum(count) - count
+    line = row_base[unit] + row
+    c_line = row_base[c_unit] + c_row
+    # Pair every cut piece with every clip piece of its row line (both sorted by line).
+    lo_i = np.searchsorted(c_line, line, side="left")
+    hi_i = np.searchsorted(c_line, line, side="right")
+    n_pair = np.where(keep_whole, 0, hi_i - lo_i)
+    parent = np.repeat(np.arange(line.size), n_pair)
+    piece = _ranges(lo_i, n_pair)
+    a0 = start[parent]
+    lo_u = np.maximum(a0, c_start[piece])
+    hi_u = np.minimum(a0 + length[parent], c_end[piece])
+    keep = hi_u - lo_u > LEN_TOL
+    parent, lo_u, hi_u, a0 = parent[keep], lo_u[keep], hi_u[keep], a0[keep]
+    lo, hi = lo_u - a0, hi_u - a0
+    off = offset[parent]
+    pu = unit[parent]
+    ps = ps_u[pu]
+    # Plant k of the parent sits at off + k * ps; keep those with lo <= position <= hi.
+    k0 = np.maximum(np.ceil((lo - off) / ps - 1e-9), 0).astype(np.int64)
+    k1 = np.minimum(np.floor((hi - off) / ps + 1e-9), plants[parent] - 1).astype(np.int64)
+    prow = row[parent]
+    cut = (
+        pu,
+        prow,
+        hi_u - lo_u,
+        np.maximum(k1 - k0 + 1, 0),
+        first_plant[parent] + k0,
+        off + k0 * ps - lo,
+        segment_ends(first[pu] + prow * rs[pu], lo_u, hi_u, u[pu], v[pu]),
+    )
+    whole = np.flatnonzero(keep_whole)
+    kept = (unit[whole], row[whole], length[whole], plants[whole], first_plant[whole], offset[whole], ends[whole])
+    # Back in piece order: by parent, then along the row.
+    order = np.argsort(np.concatenate([whole, parent]), kind="stable")
+    return tuple(np.concatenate([a, b])[order] for a, b in zip(kept, cut, strict=True))
 
 
 def row_segments(
@@ -231,7 +383,7 @@ def row_segments(
 
     Rows are cut by an even-odd scanline over the polygon's ring edges in the
     row frame (no per-row geometry operations), so the cost is O(vertices +
-    rows + crossings).
+    rows + crossings). :func:`block_row_segments` does the same for many blocks.
 
     Parameters
     ----------
@@ -251,131 +403,100 @@ def row_segments(
         raise OptionError("row bearing is unknown; give the block a row bearing in degrees")
     if polygon is None or polygon.is_empty:
         raise DesignError("the block has no geometry to lay rows in")
-    if shapely.get_type_id(polygon) not in (3, 6):
-        raise DesignError("the block is not a polygon; rows are laid out in polygons only")
-    if shapely.get_type_id(polygon) == 6 and shapely.get_num_geometries(polygon) > 1:
-        # A crew counts rows from the edge of the part it stands in: each part of a
-        # multi-part block has its own rows 1, 2, ... (in the parts' order in the file).
-        pieces = [_one_part_segments(part, rs, ps, float(row_bearing_deg), clip) for part in polygon.geoms]
-        return _join_parts(pieces)
-    return _one_part_segments(polygon, rs, ps, float(row_bearing_deg), clip)
-
-
-def _join_parts(pieces: list[RowSegments]) -> RowSegments:
-    """The segments of a block's parts one after the other, each tagged with its part."""
-    part = np.concatenate([np.full(p.row.size, i + 1, dtype=np.int64) for i, p in enumerate(pieces)])
-    straight = all(p.lines is None for p in pieces)
-    return RowSegments(
-        row=np.concatenate([p.row for p in pieces]),
-        lines=None if straight else np.concatenate([p.geometry for p in pieces]),
-        ends=np.concatenate([p.ends for p in pieces]) if straight else None,
-        length=np.concatenate([p.length for p in pieces]),
-        plants=np.concatenate([p.plants for p in pieces]),
-        first_plant=np.concatenate([p.first_plant for p in pieces]),
-        offset=np.concatenate([p.offset for p in pieces]),
-        plant_spacing=pieces[0].plant_spacing,
-        part=part,
+    segments, _ = block_row_segments(
+        [polygon],
+        row_spacing_m=rs,
+        plant_spacing_m=ps,
+        row_bearing_deg=float(row_bearing_deg),
+        clips=None if clip is None else [clip],
     )
+    multi = shapely.get_type_id(polygon) == 6 and shapely.get_num_geometries(polygon) > 1
+    return replace(segments, plant_spacing=ps, part=segments.part if multi else None)
 
 
-def _one_part_segments(polygon, rs: float, ps: float, row_bearing_deg: float, clip) -> RowSegments:
-    """:func:`row_segments` of a polygon (or a one-part multipolygon)."""
-    u, v = _frame(np.radians(float(row_bearing_deg)))
-    xy, ring = _ring_coordinates(polygon)
-    row, start, length, plants, first_plant, offset, ends, first, count = row_model(xy, ring, u, v, rs, ps)
-    full = RowSegments(
-        row=row + 1,
-        ends=ends,
+def _line_segments(row_lines: np.ndarray, key: np.ndarray, clips: np.ndarray, ps: np.ndarray):
+    """Clip row lines, orient and order the pieces, count plants.
+
+    ``key`` numbers the lines (sorted, one per line and block); ``clips`` (or
+    None: no clipping) and ``ps`` are per line. Returns the pieces' line index and their fields.
+    """
+    pieces = row_lines if clips is None else shapely.intersection(row_lines, clips)
+    pieces = shapely.line_merge(pieces)
+    parts, which = shapely.get_parts(pieces, return_index=True)
+    keep = (shapely.get_type_id(parts) == 1) & (shapely.length(parts) > LEN_TOL)
+    parts, which = parts[keep], which[keep]
+    start = shapely.get_point(parts, 0)
+    end = shapely.get_point(parts, -1)
+    host = row_lines[which]
+    at_start = shapely.line_locate_point(host, start)
+    at_end = shapely.line_locate_point(host, end)
+    flip = at_end < at_start
+    parts = np.where(flip, shapely.reverse(parts), parts)
+    along = np.minimum(at_start, at_end)
+    order = np.lexsort((along, key[which]))
+    parts, which = parts[order], which[order]
+    length = shapely.length(parts)
+    step = ps[which]
+    plants = np.floor(length / step + 1e-9).astype(np.int64)
+    offset = (length - plants * step) / 2.0 + step / 2.0
+    # Plants of earlier segments of the same row, for numbering along the row.
+    before = np.cumsum(plants) - plants
+    starts = group_starts(which)
+    row_base = np.repeat(before[starts], np.diff(np.append(starts, which.size)))
+    return which, parts, length, plants, before - row_base + 1, offset
+
+
+def _check_lines(arr: np.ndarray) -> None:
+    bad = np.flatnonzero(shapely.get_type_id(arr) != 1)
+    if bad.size:
+        raise DesignError(
+            f"row {int(bad[0]) + 1} in the rows file is not a LineString; give one line per row"
+        )
+
+
+def block_rows_from_lines(
+    lines: ArrayLike,
+    geoms,
+    *,
+    plant_spacing_m,
+    clips=None,
+) -> tuple[RowSegments, np.ndarray]:
+    """Mapped rows of many blocks at once: :func:`rows_from_lines` per block.
+
+    Each block takes the lines that intersect it, numbered 1, 2, ... in the
+    lines' order, clipped to the block's ``clips`` entry (default the block).
+
+    Returns
+    -------
+    segments : RowSegments
+        Segments of all blocks, block by block in input order (per-segment plant spacing).
+    block : numpy.ndarray
+        Index of each segment's block in ``geoms``.
+    """
+    arr = _object_array(lines)
+    _check_lines(arr)
+    geoms = _object_array(geoms)
+    ps = np.broadcast_to(np.asarray(plant_spacing_m, dtype=float), (geoms.size,))
+    _check_all_positive(ps, "plant spacing")
+    clips = geoms if clips is None else _object_array(clips)
+    block, line = shapely.STRtree(arr).query(geoms, predicate="intersects")
+    order = np.lexsort((line, block))
+    block, line = block[order], line[order]
+    # Row number of a line in a block: its rank among the lines crossing that block.
+    rank = np.arange(block.size) - np.searchsorted(block, block, side="left")
+    which, parts, length, plants, first_plant, offset = _line_segments(
+        arr[line], np.arange(block.size), clips[block], ps[block]
+    )
+    segments = RowSegments(
+        row=rank[which].astype(np.int64) + 1,
+        lines=parts,
         length=length,
         plants=plants,
         first_plant=first_plant,
         offset=offset,
-        plant_spacing=ps,
+        plant_spacing=ps[block[which]],
     )
-    if clip is None or clip is polygon:
-        return full
-    # Number plants over the whole block, then keep those inside ``clip``.
-    if clip.is_empty or shapely.get_type_id(clip) not in (3, 6):
-        return _clip_segments(full, clip)
-    cxy, cring = _ring_coordinates(clip)
-    crow, cstart, cend = clip_pieces(cxy, cring, u, v, first, rs, count)
-    return _clip_intervals(full, start, (crow + 1, cstart, cend), (first, rs), u, v)
-
-
-def _clip_intervals(
-    full: RowSegments,
-    start: np.ndarray,
-    clip: tuple[np.ndarray, np.ndarray, np.ndarray],
-    rows: tuple[float, float],
-    u: np.ndarray,
-    v: np.ndarray,
-) -> RowSegments:
-    """:func:`_clip_segments` for a polygonal clip, on ``u`` intervals of the same rows.
-
-    ``rows`` is the first row's offset and the row spacing.
-    """
-    ps = float(full.plant_spacing)
-    crow, cstart, cend = clip
-    # Pair every full segment with every clip piece of its row (both sorted by row).
-    lo_i = np.searchsorted(crow, full.row, side="left")
-    hi_i = np.searchsorted(crow, full.row, side="right")
-    count = hi_i - lo_i
-    parent = np.repeat(np.arange(full.row.size), count)
-    piece = np.arange(parent.size) - np.repeat(np.cumsum(count) - count, count) + lo_i[parent]
-    a0 = start[parent]
-    lo_u = np.maximum(a0, cstart[piece])
-    hi_u = np.minimum(a0 + full.length[parent], cend[piece])
-    keep = hi_u - lo_u > _LEN_TOL
-    parent, lo_u, hi_u, a0 = parent[keep], lo_u[keep], hi_u[keep], a0[keep]
-    lo, hi = lo_u - a0, hi_u - a0
-    off = full.offset[parent]
-    # Plant k of the parent sits at off + k * ps; keep those with lo <= position <= hi.
-    k0 = np.maximum(np.ceil((lo - off) / ps - 1e-9), 0).astype(np.int64)
-    k1 = np.minimum(np.floor((hi - off) / ps + 1e-9), full.plants[parent] - 1).astype(np.int64)
-    row = full.row[parent]
-    return RowSegments(
-        row=row,
-        ends=segment_ends(rows[0] + (row - 1) * rows[1], lo_u, hi_u, u, v),
-        length=hi_u - lo_u,
-        plants=np.maximum(k1 - k0 + 1, 0),
-        first_plant=full.first_plant[parent] + k0,
-        offset=off + k0 * ps - lo,
-        plant_spacing=ps,
-    )
-
-
-def _clip_segments(full: RowSegments, clip: BaseGeometry) -> RowSegments:
-    """Keep the parts of ``full``'s segments inside ``clip``, numbered as in ``full``.
-
-    Plants keep the positions and numbers of the unclipped model; a clipped
-    piece holds the plants of its parent segment that fall inside it.
-    """
-    ps = float(full.plant_spacing)
-    pieces = shapely.line_merge(shapely.intersection(full.geometry, clip))
-    parts, parent = shapely.get_parts(pieces, return_index=True)
-    keep = (shapely.get_type_id(parts) == 1) & (shapely.length(parts) > _LEN_TOL)
-    parts, parent = parts[keep], parent[keep]
-    host = full.geometry[parent]
-    a = shapely.line_locate_point(host, shapely.get_point(parts, 0))
-    b = shapely.line_locate_point(host, shapely.get_point(parts, -1))
-    flip = b < a
-    parts = np.where(flip, shapely.reverse(parts), parts)
-    lo, hi = np.minimum(a, b), np.maximum(a, b)
-    off = full.offset[parent]
-    # Plant k of the parent sits at off + k * ps; keep those with lo <= position <= hi.
-    k0 = np.maximum(np.ceil((lo - off) / ps - 1e-9), 0).astype(np.int64)
-    k1 = np.minimum(np.floor((hi - off) / ps + 1e-9), full.plants[parent] - 1).astype(np.int64)
-    plants = np.maximum(k1 - k0 + 1, 0)
-    order = np.lexsort((lo, parent))
-    return RowSegments(
-        row=full.row[parent][order],
-        lines=parts[order],
-        length=shapely.length(parts)[order],
-        plants=plants[order],
-        first_plant=(full.first_plant[parent] + k0)[order],
-        offset=(off + k0 * ps - lo)[order],
-        plant_spacing=ps,
-    )
+    return segments, block[which]
 
 
 def concat_segments(parts: list[RowSegments]) -> tuple[RowSegments, np.ndarray]:
@@ -427,22 +548,38 @@ def rows_from_lines(
         Block to clip the rows to.
     """
     ps = _check_positive(plant_spacing_m, "plant spacing")
-    arr = np.asarray(lines, dtype=object)
-    if arr.ndim != 1 or arr.size == 0:
+    arr = _object_array(lines)
+    if arr.size == 0:
         raise DesignError("the rows file holds no row lines")
-    types = shapely.get_type_id(arr)
-    bad = np.flatnonzero(types != 1)
-    if bad.size:
-        raise DesignError(
-            f"row {int(bad[0]) + 1} in the rows file is not a LineString; give one line per row"
-        )
-    return _segments(arr, polygon, ps)
+    _check_lines(arr)
+    clips = None if polygon is None else _object_array([polygon] * arr.size)
+    which, parts, length, plants, first_plant, offset = _line_segments(
+        arr, np.arange(arr.size), clips, np.full(arr.size, ps)
+    )
+    return RowSegments(
+        row=which.astype(np.int64) + 1,
+        lines=parts,
+        length=length,
+        plants=plants,
+        first_plant=first_plant,
+        offset=offset,
+        plant_spacing=ps,
+    )
 
 
 def eligible_plants(
-    segments: RowSegments, *, skip_row_ends: int = 0, skip_border_rows: int = 0
+    segments: RowSegments,
+    *,
+    skip_row_ends: int = 0,
+    skip_border_rows: int = 0,
+    groups: np.ndarray | None = None,
 ) -> np.ndarray:
-    """Plants per segment that may be drawn after the end and border exclusions."""
+    """Plants per segment that may be drawn after the end and border exclusions.
+
+    ``groups`` numbers the row models the segments belong to (sorted), each with
+    its own border rows: by default the parts of one block; for the segments of
+    many blocks, one number per block and part.
+    """
     if skip_row_ends < 0 or skip_border_rows < 0:
         raise OptionError("plants or rows to skip must be zero or more")
     count = np.maximum(segments.plants - 2 * int(skip_row_ends), 0)
@@ -450,7 +587,8 @@ def eligible_plants(
         # Rows are numbered per block (per part of a multi-part block, each with its own
         # border rows); after concat_segments, border rows are taken over the joined
         # numbering, so skip border rows block by block before joining.
-        key = segments.parts * (int(segments.row.max(initial=0)) + 1) + segments.row
+        group = segments.parts if groups is None else np.asarray(groups, dtype=np.int64)
+        key = group * (int(segments.row.max(initial=0)) + 1) + segments.row
         planted = np.unique(key[segments.plants > 0])
         owner = planted // (int(segments.row.max(initial=0)) + 1)
         starts = np.searchsorted(owner, owner, side="left")
@@ -475,12 +613,62 @@ def sample_ranks(total: int, n: int, *, rng: np.random.Generator) -> np.ndarray:
         raise DesignError(f"cannot draw {n} distinct plants from {total}")
     if 2 * n >= total:
         return rng.permutation(total)[:n]
-    out = np.empty(0, dtype=np.int64)
+    return more_ranks(np.empty(0, dtype=np.int64), total, n, rng=rng)
+
+
+def more_ranks(out: np.ndarray, total: int, n: int, *, rng: np.random.Generator) -> np.ndarray:
+    """Continue :func:`sample_ranks` from the distinct ranks ``out`` drawn so far (fewer than ``n``)."""
     while out.size < n:
         need = n - out.size
         draw = rng.integers(0, total, size=need + need // 8 + 8, dtype=np.int64)
         out = first_distinct(np.concatenate([out, draw]), n)
     return out
+
+
+def sample_ranks_many(totals, ns, rngs: list[np.random.Generator]) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`sample_ranks` for many populations, each from its own generator, in one pass.
+
+    Each generator is called exactly as :func:`sample_ranks` calls it, so population ``j``
+    gets the same ranks as ``sample_ranks(totals[j], ns[j], rng=rngs[j])``; only the
+    generator calls run population by population, the rest is done for all at once.
+
+    Returns
+    -------
+    ranks : numpy.ndarray
+        Ranks of population 0 (in draw order), then population 1, ...
+    which : numpy.ndarray
+        Population of each rank.
+    """
+    totals = np.asarray(totals, dtype=np.int64)
+    ns = np.asarray(ns, dtype=np.int64)
+    if ((ns < 0) | (ns > totals)).any():
+        j = int(np.flatnonzero((ns < 0) | (ns > totals))[0])
+        raise DesignError(f"cannot draw {ns[j]} distinct plants from {totals[j]}")
+    whole = 2 * ns >= totals
+    draws = [
+        rng.permutation(int(t))[: int(n)] if w else rng.integers(0, int(t), size=int(n + n // 8 + 8), dtype=np.int64)
+        for rng, t, n, w in zip(rngs, totals.tolist(), ns.tolist(), whole.tolist(), strict=True)
+    ]
+    size = np.array([d.size for d in draws], dtype=np.int64)
+    which = np.repeat(np.arange(ns.size), size)
+    value = np.concatenate(draws) if draws else np.zeros(0, dtype=np.int64)
+    # First occurrence of each (population, rank): offset each population's ranks past the others'.
+    key = (np.cumsum(totals) - totals)[which] + value
+    _, first = np.unique(key, return_index=True)
+    first_seen = np.zeros(key.size, dtype=bool)
+    first_seen[first] = True
+    seen = np.cumsum(first_seen)
+    before = np.r_[0, seen][np.cumsum(size) - size]  # distinct ranks of earlier populations
+    take = first_seen & (seen - 1 - before[which] < ns[which])
+    got = np.bincount(which[take], minlength=ns.size)
+    short = np.flatnonzero(got < ns)
+    if not short.size:
+        return value[take], which[take]
+    # Rare: repeats used up a batch's margin; those populations draw on as sample_ranks does.
+    chosen = np.split(value[take], np.cumsum(got)[:-1])
+    for j in short.tolist():
+        chosen[j] = more_ranks(chosen[j], int(totals[j]), int(ns[j]), rng=rngs[j])
+    return np.concatenate(chosen), np.repeat(np.arange(ns.size), ns)
 
 
 def pick_plants(

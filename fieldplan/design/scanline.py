@@ -1,28 +1,32 @@
-"""Even-odd scanline of a block's rings against its row lines, compiled with numba.
+"""Even-odd scanline of blocks' rings against their row lines, in numpy over all blocks at once.
 
 The row model (:mod:`fieldplan.design.clusters`) needs, for every row line of a
-block, the pieces inside the block. Done with numpy array calls, each block
-costs some sixty small calls, so the fixed cost per call outweighs the work for
-all but huge blocks; this kernel does the same arithmetic in one compiled pass,
-O(vertices + rows + crossings), with no plant-sized array.
+block, the pieces inside the block. Here every function works on many *units*
+at once (a unit is one part of one block, with its own row lines): edges of
+every ring of every unit are crossed with the row lines they span in a few
+array calls, so a plan of a thousand blocks costs about as many numpy calls as
+a plan of one. Work is O(vertices + rows + crossings), with no plant-sized
+array.
 
-Rows: line ``k`` lies at ``v = first + k * spacing`` for ``k = 0 .. count-1``
-in the block's row frame (``u`` along the rows, ``v`` across).
+Rows of unit ``j``: line ``k`` lies at ``v = first[j] + k * spacing[j]`` for
+``k = 0 .. count[j]-1`` in that unit's row frame (``u`` along the rows, ``v``
+across). Arithmetic is written element by element in the same order for every
+unit (no dot products), so a unit's pieces do not depend on the other units in
+the call.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from fieldplan.design.jit import kernel
-
 __all__ = [
-    "clip_pieces",
+    "LEN_TOL",
     "first_distinct",
     "frame_coordinates",
+    "group_starts",
     "locate_ranks",
     "plant_layout",
-    "row_model",
+    "row_frames",
     "row_pieces",
     "row_span",
     "segment_ends",
@@ -33,28 +37,84 @@ __all__ = [
 LEN_TOL = 1e-9
 
 
-@kernel
-def _below(value: float, first: float, spacing: float, count: int) -> int:
-    """Rows with an offset strictly below ``value``.
+def row_frames(bearing_deg) -> tuple[np.ndarray, np.ndarray]:
+    """``(k, 2)`` unit vectors along (``u``) and across (``v``, to the right of ``u``) the rows.
+
+    Parameters
+    ----------
+    bearing_deg : array_like
+        Direction rows run, degrees clockwise from north, one per unit.
+    """
+    theta = np.radians(np.asarray(bearing_deg, dtype=float))
+    s, c = np.sin(theta), np.cos(theta)
+    return np.stack([s, c], axis=-1), np.stack([c, -s], axis=-1)
+
+
+def frame_coordinates(xy: np.ndarray, u: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Coordinates along and across the rows: ``x * u[0] + y * u[1]`` and the same with ``v``.
+
+    ``u`` and ``v`` are ``(2,)`` or one row per point of ``xy``.
+    """
+    x, y = xy[:, 0], xy[:, 1]
+    return x * u[..., 0] + y * u[..., 1], x * v[..., 0] + y * v[..., 1]
+
+
+def group_starts(key: np.ndarray) -> np.ndarray:
+    """Index of the first element of each run of equal values in ``key``."""
+    if key.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    return np.flatnonzero(np.r_[True, key[1:] != key[:-1]])
+
+
+def row_span(pv: np.ndarray, unit: np.ndarray, units: int, spacing: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """First row offset (half a spacing in from the lowest ``v``) and the number of rows, per unit.
+
+    ``unit`` (sorted) is the unit of each vertex; a unit with no vertex has no rows.
+    """
+    lo = np.full(units, np.inf)
+    hi = np.full(units, -np.inf)
+    if pv.size:
+        at = group_starts(unit)
+        lo[unit[at]] = np.minimum.reduceat(pv, at)
+        hi[unit[at]] = np.maximum.reduceat(pv, at)
+    first = lo + spacing / 2.0
+    with np.errstate(invalid="ignore"):
+        count = np.ceil((hi - first) / spacing)
+    count = np.where(np.isfinite(count), np.maximum(count, 0.0), 0.0).astype(np.int64)
+    return np.where(np.isfinite(first), first, 0.0), count
+
+
+def _below(value: np.ndarray, first: np.ndarray, spacing: np.ndarray, count: np.ndarray) -> np.ndarray:
+    """Rows with an offset strictly below ``value``, element by element.
 
     The estimate from a division can be one off where ``value`` lies on a row
     line; it is settled on the offsets themselves, computed as everywhere else,
     so every edge uses the same comparison.
     """
-    k = np.ceil((value - first) / spacing)
-    k = int(min(max(k, 0.0), float(count)))
-    while k > 0 and first + (k - 1) * spacing >= value:
-        k -= 1
-    while k < count and first + k * spacing < value:
-        k += 1
+    k = np.minimum(np.maximum(np.ceil((value - first) / spacing), 0.0), count.astype(float)).astype(np.int64)
+    while True:
+        down = (k > 0) & (first + (k - 1) * spacing >= value)
+        if not down.any():
+            break
+        k -= down
+    while True:
+        up = (k < count) & (first + k * spacing < value)
+        if not up.any():
+            break
+        k += up
     return k
 
 
-@kernel
 def row_pieces(
-    pu: np.ndarray, pv: np.ndarray, ring: np.ndarray, first: float, spacing: float, count: int
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Pieces of the row lines inside closed rings (even-odd rule).
+    pu: np.ndarray,
+    pv: np.ndarray,
+    ring: np.ndarray,
+    first,
+    spacing,
+    count,
+    unit: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Pieces of the row lines inside closed rings (even-odd rule), for many units at once.
 
     An edge crosses the line ``v = c`` when ``min(v0, v1) <= c < max(v0, v1)``
     (half-open, so a vertex on a line is counted once, or twice at a local
@@ -66,228 +126,136 @@ def row_pieces(
     Parameters
     ----------
     pu, pv : numpy.ndarray
-        Ring vertices in the row frame, rings one after another, each closed.
+        Ring vertices in their unit's row frame, rings one after another, each closed.
     ring : numpy.ndarray
-        Ring index of each vertex.
-    first, spacing : float
-        Offset of row 0 and distance between rows.
-    count : int
-        Number of rows.
+        Ring index of each vertex (a ring lies in one unit).
+    first, spacing : float or numpy.ndarray
+        Offset of row 0 and distance between rows, per unit.
+    count : int or numpy.ndarray
+        Number of rows per unit.
+    unit : numpy.ndarray, optional
+        Unit of each vertex, sorted (default: all in unit 0).
 
     Returns
     -------
-    row, start, end : numpy.ndarray
-        0-based row index and ``u`` range of each piece, ordered by row then
-        along the row; pieces shorter than :data:`LEN_TOL` dropped.
+    unit, row, start, end : numpy.ndarray
+        Unit, 0-based row index and ``u`` range of each piece, ordered by unit,
+        row, then along the row; pieces shorter than :data:`LEN_TOL` dropped.
     """
-    n = pu.size
-    per_row = np.zeros(count + 1, dtype=np.int64)
-    lo = np.empty(max(n - 1, 0), dtype=np.int64)
-    hi = np.empty(max(n - 1, 0), dtype=np.int64)
-    for e in range(n - 1):
-        if ring[e] != ring[e + 1]:
-            lo[e] = 0
-            hi[e] = 0
-            continue
-        v0, v1 = pv[e], pv[e + 1]
-        a = _below(min(v0, v1), first, spacing, count)
-        b = _below(max(v0, v1), first, spacing, count)
-        lo[e], hi[e] = a, b
-        for k in range(a, b):
-            per_row[k + 1] += 1
-    for k in range(count):
-        per_row[k + 1] += per_row[k]
-    at = np.empty(per_row[count], dtype=np.float64)
-    fill = per_row[:count].copy()
-    for e in range(n - 1):
-        if hi[e] <= lo[e]:
-            continue
-        u0, v0 = pu[e], pv[e]
-        slope = (pu[e + 1] - u0) / (pv[e + 1] - v0)
-        for k in range(lo[e], hi[e]):
-            at[fill[k]] = u0 + ((first + k * spacing) - v0) * slope
-            fill[k] += 1
-    pieces = at.size // 2
-    row = np.empty(pieces, dtype=np.int64)
-    start = np.empty(pieces, dtype=np.float64)
-    end = np.empty(pieces, dtype=np.float64)
-    m = 0
-    for k in range(count):
-        a, b = per_row[k], per_row[k + 1]
-        # Insertion sort: a row crosses a block's boundary a few times only.
-        for i in range(a + 1, b):
-            x = at[i]
-            j = i - 1
-            while j >= a and at[j] > x:
-                at[j + 1] = at[j]
-                j -= 1
-            at[j + 1] = x
-        for i in range(a, b - 1, 2):
-            s, t = at[i], at[i + 1]
-            if m > 0 and row[m - 1] == k and end[m - 1] == s:
-                end[m - 1] = t
-                continue
-            row[m], start[m], end[m] = k, s, t
-            m += 1
-    keep = 0
-    for i in range(m):
-        if end[i] - start[i] > LEN_TOL:
-            row[keep], start[keep], end[keep] = row[i], start[i], end[i]
-            keep += 1
-    return row[:keep], start[:keep], end[:keep]
+    first = np.atleast_1d(np.asarray(first, dtype=float))
+    spacing = np.atleast_1d(np.asarray(spacing, dtype=float))
+    count = np.atleast_1d(np.asarray(count, dtype=np.int64))
+    if unit is None:
+        unit = np.zeros(pu.size, dtype=np.int64)
+    # Edges join consecutive vertices of the same ring.
+    e = np.flatnonzero(ring[1:] == ring[:-1]) if ring.size > 1 else np.zeros(0, dtype=np.int64)
+    eu = unit[e]
+    f, s, c = first[eu], spacing[eu], count[eu]
+    u0, v0, u1, v1 = pu[e], pv[e], pu[e + 1], pv[e + 1]
+    a = _below(np.minimum(v0, v1), f, s, c)
+    b = _below(np.maximum(v0, v1), f, s, c)
+    cross = b - a
+    spans = cross > 0
+    e_idx = np.flatnonzero(spans)
+    n_at = cross[e_idx]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        slope = (u1[e_idx] - u0[e_idx]) / (v1[e_idx] - v0[e_idx])
+    which = np.repeat(np.arange(e_idx.size), n_at)
+    k = a[e_idx][which] + (np.arange(which.size) - np.repeat(np.cumsum(n_at) - n_at, n_at))
+    edge = e_idx[which]
+    at = u0[edge] + ((f[edge] + k * s[edge]) - v0[edge]) * slope[which]
+    # One number per row line of every unit: pieces sort by unit, then row, then along the row.
+    row_base = np.cumsum(count) - count
+    line = row_base[eu[edge]] + k
+    order = np.lexsort((at, line))
+    line, at = line[order], at[order]
+    # Pair crossings 1st-2nd, 3rd-4th, ... within each row line.
+    starts = group_starts(line)
+    size = np.diff(np.append(starts, line.size))
+    pos = np.arange(line.size) - np.repeat(starts, size)
+    lead = np.flatnonzero((pos % 2 == 0) & (pos + 1 < np.repeat(size, size)))
+    line, start, end = line[lead], at[lead], at[lead + 1]
+    # Join pieces that meet end to end on the same row line.
+    joined = np.r_[False, (line[1:] == line[:-1]) & (end[:-1] == start[1:])] if line.size else line > 0
+    heads = np.flatnonzero(~joined)
+    last = np.append(heads[1:] - 1, line.size - 1) if heads.size else heads
+    line, start, end = line[heads], start[heads], end[last]
+    keep = end - start > LEN_TOL
+    line, start, end = line[keep], start[keep], end[keep]
+    piece_unit = np.searchsorted(row_base + count, line, side="right")
+    return piece_unit, line - row_base[piece_unit], start, end
 
 
-@kernel
-def frame_coordinates(xy: np.ndarray, u: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``(xy @ u, xy @ v)``: coordinates along and across the rows."""
-    n = xy.shape[0]
-    pu = np.empty(n)
-    pv = np.empty(n)
-    for i in range(n):
-        x, y = xy[i, 0], xy[i, 1]
-        pu[i] = x * u[0] + y * u[1]
-        pv[i] = x * v[0] + y * v[1]
-    return pu, pv
-
-
-@kernel
-def row_span(pv: np.ndarray, spacing: float) -> tuple[float, int]:
-    """First row offset (half a spacing in from the lowest ``v``) and the number of rows."""
-    lo, hi = pv.min(), pv.max()
-    first = lo + spacing / 2.0
-    return first, max(int(np.ceil((hi - first) / spacing)), 0)
-
-
-@kernel
 def plant_layout(
+    unit: np.ndarray,
     row: np.ndarray,
     start: np.ndarray,
     end: np.ndarray,
-    first: float,
-    spacing: float,
-    plant_spacing: float,
+    first: np.ndarray,
+    spacing: np.ndarray,
+    plant_spacing: np.ndarray,
     u: np.ndarray,
     v: np.ndarray,
 ):
     """Plants on each piece, their numbering along the row, and the piece's end points.
 
     A piece of length ``L`` holds ``c = floor(L / plant_spacing)`` plants centred
-    on it; plant numbers continue along a row over its pieces (``row`` is
-    sorted, a row's pieces consecutive).
+    on it; plant numbers continue along a row over its pieces (pieces sorted by
+    unit and row, a row's pieces consecutive). ``first``, ``spacing``,
+    ``plant_spacing``, ``u`` and ``v`` are per unit.
 
     Returns
     -------
     length, plants, first_plant, offset, ends : numpy.ndarray
         ``ends`` is ``(k, 2, 2)``: start and end point of each piece.
     """
-    k = row.size
-    length = np.empty(k)
-    plants = np.empty(k, dtype=np.int64)
-    first_plant = np.empty(k, dtype=np.int64)
-    offset = np.empty(k)
-    on_row = 0
-    for i in range(k):
-        if i > 0 and row[i] != row[i - 1]:
-            on_row = 0
-        length[i] = end[i] - start[i]
-        c = int(np.floor(length[i] / plant_spacing + 1e-9))
-        plants[i] = c
-        first_plant[i] = on_row + 1
-        on_row += c
-        offset[i] = (length[i] - c * plant_spacing) / 2.0 + plant_spacing / 2.0
-    ends = segment_ends(first + row * spacing, start, end, u, v)
+    ps = plant_spacing[unit]
+    length = end - start
+    plants = np.floor(length / ps + 1e-9).astype(np.int64)
+    before = np.cumsum(plants) - plants
+    starts = group_starts(unit * (int(row.max(initial=0)) + 1) + row)
+    row_base = np.repeat(before[starts], np.diff(np.append(starts, row.size)))
+    first_plant = before - row_base + 1
+    offset = (length - plants * ps) / 2.0 + ps / 2.0
+    ends = segment_ends(first[unit] + row * spacing[unit], start, end, u[unit], v[unit])
     return length, plants, first_plant, offset, ends
 
 
-@kernel
 def segment_ends(across: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.ndarray, v: np.ndarray):
-    """``(k, 2, 2)`` start and end points of pieces at ``v = across`` from ``u = start`` to ``end``."""
-    k = across.size
-    ends = np.empty((k, 2, 2))
-    for i in range(k):
-        for j in range(2):
-            ends[i, 0, j] = across[i] * v[j] + start[i] * u[j]
-            ends[i, 1, j] = across[i] * v[j] + end[i] * u[j]
+    """``(k, 2, 2)`` start and end points of pieces at ``v = across`` from ``u = start`` to ``end``.
+
+    ``u`` and ``v`` are ``(2,)`` or one row per piece.
+    """
+    u = np.broadcast_to(u, (across.size, 2))
+    v = np.broadcast_to(v, (across.size, 2))
+    ends = np.empty((across.size, 2, 2))
+    for j in range(2):  # x, then y
+        ends[:, 0, j] = across * v[:, j] + start * u[:, j]
+        ends[:, 1, j] = across * v[:, j] + end * u[:, j]
     return ends
 
 
-@kernel
-def row_model(
-    xy: np.ndarray, ring: np.ndarray, u: np.ndarray, v: np.ndarray, spacing: float, plant_spacing: float
-):
-    """The whole row model of a block in one call.
-
-    Returns
-    -------
-    row, start, length, plants, first_plant, offset, ends : numpy.ndarray
-        Per piece, as :func:`row_pieces` and :func:`plant_layout` give them.
-    first : float
-        Offset of row 0.
-    count : int
-        Number of row lines.
-    """
-    pu, pv = frame_coordinates(xy, u, v)
-    first, count = row_span(pv, spacing)
-    row, start, end = row_pieces(pu, pv, ring, first, spacing, count)
-    length, plants, first_plant, offset, ends = plant_layout(
-        row, start, end, first, spacing, plant_spacing, u, v
-    )
-    return row, start, length, plants, first_plant, offset, ends, first, count
-
-
-@kernel
-def clip_pieces(
-    xy: np.ndarray, ring: np.ndarray, u: np.ndarray, v: np.ndarray, first: float, spacing: float, count: int
-):
-    """:func:`row_pieces` of another polygon (a clip) on a block's row lines."""
-    pu, pv = frame_coordinates(xy, u, v)
-    return row_pieces(pu, pv, ring, first, spacing, count)
-
-
-@kernel
 def first_distinct(values: np.ndarray, n: int) -> np.ndarray:
     """The first ``n`` distinct values in order of first occurrence (fewer if there are not ``n``)."""
-    order = np.argsort(values, kind="mergesort")
-    first = np.zeros(values.size, dtype=np.bool_)
-    for i in range(values.size):
-        j = order[i]
-        if i == 0 or values[j] != values[order[i - 1]]:
-            first[j] = True
-    out = np.empty(min(n, values.size), dtype=values.dtype)
-    m = 0
-    for j in range(values.size):
-        if first[j]:
-            if m == out.size:
-                break
-            out[m] = values[j]
-            m += 1
-    return out[:m]
+    _, first = np.unique(values, return_index=True)  # stable: the first occurrence of each value
+    return values[np.sort(first)][:n]
 
 
-@kernel
-def locate_ranks(eligible: np.ndarray, ranks: np.ndarray, skip: int) -> tuple[np.ndarray, np.ndarray]:
+def locate_ranks(eligible: np.ndarray, ranks: np.ndarray, skip) -> tuple[np.ndarray, np.ndarray]:
     """Segment and 0-based plant index along it of each drawn rank.
 
     Eligible plants are ranked segment by segment; rank ``r`` falls in the first
     segment whose cumulative eligible count exceeds it (a binary search) and is
     its ``skip + (r - eligible before)``-th plant.
     """
+    eligible = np.asarray(eligible, dtype=np.int64)
     cum = np.cumsum(eligible)
     seg = np.searchsorted(cum, ranks, side="right")
-    within = np.empty(ranks.size, dtype=np.int64)
-    for j in range(ranks.size):
-        s = seg[j]
-        within[j] = ranks[j] - (cum[s] - eligible[s]) + skip
-    return seg, within
+    return seg, ranks - (cum[seg] - eligible[seg]) + skip
 
 
-@kernel
 def straight_points(seg: np.ndarray, dist: np.ndarray, ends: np.ndarray, length: np.ndarray) -> np.ndarray:
     """``(n, 2)`` points ``dist`` metres along straight segments ``seg`` (given by their ends)."""
-    xy = np.empty((seg.size, 2))
-    for j in range(seg.size):
-        s = seg[j]
-        t = dist[j] / length[s]
-        for d in range(2):
-            xy[j, d] = ends[s, 0, d] + (ends[s, 1, d] - ends[s, 0, d]) * t
-    return xy
+    t = dist / length[seg]
+    e = ends[seg]
+    return e[:, 0, :] + (e[:, 1, :] - e[:, 0, :]) * t[:, None]

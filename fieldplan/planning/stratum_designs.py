@@ -30,16 +30,18 @@ import shapely
 from fieldplan.design.allocation import ALLOCATION_METHODS, allocate
 from fieldplan.design.balanced import balanced_points
 from fieldplan.design.clusters import (
+    RowSegments,
+    block_row_segments,
+    block_rows_from_lines,
     cluster_sizes,
     concat_segments,
     eligible_plants,
-    pick_plants,
-    row_segments,
-    rows_from_lines,
+    sample_ranks_many,
 )
 from fieldplan.design.random import random_points
+from fieldplan.design.scanline import locate_ranks, straight_points
 from fieldplan.errors import DesignError, InputError, OptionError
-from fieldplan.field.spares import order_draw
+from fieldplan.field.spares import SELECTED, SPARE, order_draw
 from fieldplan.rng import stream
 
 __all__ = [
@@ -275,38 +277,203 @@ def _field_per_stratum(
     return np.array(out)
 
 
-def _row_model(blocks: pd.DataFrame, i: int, area, opts: dict, rows_frame) -> tuple[object, list[str]]:
-    """Row segments of block ``i`` clipped to its sampled area, and flags."""
-    row = blocks.iloc[i]
-    ps = float(row["plant_spacing_m"]) if pd.notna(row["plant_spacing_m"]) else np.nan
-    if not np.isfinite(ps) or ps <= 0:
-        # Arable fields in the same file have no rows: they are left out, with a flag.
-        return None, ["no plant_spacing_m: no plants to sample clusters from (block left out)"]
+def _numeric(blocks: pd.DataFrame, field: str) -> np.ndarray:
+    """A block field as floats (NaN where missing or not a number; all NaN if absent)."""
+    if field not in blocks.columns:
+        return np.full(len(blocks), np.nan)
+    return pd.to_numeric(blocks[field], errors="coerce").to_numpy(dtype=float)
+
+
+def _add_flag(flags: list[list[str]], which: np.ndarray, text) -> None:
+    """Append ``text`` (one string, or one per block of ``which``) to those blocks' flags."""
+    texts = [text] * len(which) if isinstance(text, str) else list(text)
+    for i, t in zip(np.asarray(which).tolist(), texts, strict=True):
+        flags[i].append(t)
+
+
+def _row_models(blocks: pd.DataFrame, which: np.ndarray, clips: np.ndarray, rows_frame):
+    """Row segments of blocks ``which`` clipped to ``clips`` (aligned with ``which``), all at once.
+
+    Returns the segments, each segment's block (index into ``blocks``) and its row-model group
+    (block and part).
+    """
+    geoms = np.asarray(blocks.geometry.values, dtype=object)[which]
+    ps = _numeric(blocks, "plant_spacing_m")[which]
     if rows_frame is not None:
-        geom = row.geometry
-        lines = rows_frame.geometry.values
-        hit = shapely.intersects(lines, geom)
-        if not hit.any():
-            return None, ["no mapped rows cross the block: no plants to sample"]
-        return rows_from_lines(lines[hit], plant_spacing_m=ps, polygon=area), []
-    rs, bearing = row["row_spacing_m"], row["row_bearing_deg"]
-    missing = [
-        f
-        for f, v in (("row_spacing_m", rs), ("row_bearing_deg", bearing))
-        if pd.isna(v) or not np.isfinite(v)
-    ]
-    if missing:
-        return None, [
-            f"no {' or '.join(missing)}: no row model (block left out; or give mapped rows with --rows)"
-        ]
-    seg = row_segments(
-        row.geometry,
-        row_spacing_m=float(rs),
+        seg, owner = block_rows_from_lines(
+            np.asarray(rows_frame.geometry.values, dtype=object), geoms, plant_spacing_m=ps, clips=clips
+        )
+        return seg, which[owner], owner
+    seg, owner = block_row_segments(
+        geoms,
+        row_spacing_m=_numeric(blocks, "row_spacing_m")[which],
         plant_spacing_m=ps,
-        row_bearing_deg=float(bearing),
-        clip=area,
+        row_bearing_deg=_numeric(blocks, "row_bearing_deg")[which],
+        clips=clips,
     )
-    return seg, []
+    return seg, which[owner], owner * (int(seg.parts.max(initial=0)) + 1) + seg.parts
+
+
+def _cluster_population(blocks, use, fallback, gone, opts, rows_frame, flags):
+    """Row segments and eligible plants of every block, block by block in one array each.
+
+    Blocks without a row layout, or left with no eligible plant, are flagged and left out.
+
+    Returns
+    -------
+    segments : RowSegments or None
+        Segments of the blocks with eligible plants, in block order (None if there are none).
+    owner, eligible : numpy.ndarray
+        Block (index into ``blocks``) and eligible plants of each segment.
+    modelled : bool
+        Whether any block had a row layout.
+    """
+    n = len(blocks)
+    skips = {"skip_row_ends": opts["skip_row_ends"], "skip_border_rows": opts["skip_border_rows"]}
+    ps = _numeric(blocks, "plant_spacing_m")
+    has_ps = np.isfinite(ps) & (ps > 0)
+    # Arable fields in the same file have no rows: they are left out, with a flag.
+    _add_flag(flags, np.flatnonzero(~gone & ~has_ps), "no plant_spacing_m: no plants to sample clusters from (block left out)")
+    todo = ~gone & has_ps
+    if rows_frame is not None:
+        lines = np.asarray(rows_frame.geometry.values, dtype=object)
+        tree = shapely.STRtree(lines)
+        hit = np.zeros(n, dtype=bool)
+        hit[np.unique(tree.query(np.asarray(blocks.geometry.values, dtype=object), predicate="intersects")[0])] = True
+        _add_flag(flags, np.flatnonzero(todo & ~hit), "no mapped rows cross the block: no plants to sample")
+        todo &= hit
+    else:
+        no_rs = ~np.isfinite(_numeric(blocks, "row_spacing_m"))
+        no_bearing = ~np.isfinite(_numeric(blocks, "row_bearing_deg"))
+        missing = np.where(
+            no_rs & no_bearing,
+            "row_spacing_m or row_bearing_deg",
+            np.where(no_rs, "row_spacing_m", "row_bearing_deg"),
+        )
+        bad = np.flatnonzero(todo & (no_rs | no_bearing))
+        _add_flag(
+            flags,
+            bad,
+            [f"no {m}: no row model (block left out; or give mapped rows with --rows)" for m in missing[bad]],
+        )
+        todo &= ~(no_rs | no_bearing)
+    which = np.flatnonzero(todo)
+    if not which.size:
+        return None, np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64), False
+    seg, owner, group = _row_models(blocks, which, use[which], rows_frame)
+    count = eligible_plants(seg, groups=group, **skips)
+    total = np.bincount(owner, weights=count, minlength=n)
+    # The edge buffer left a sliver with no whole plant: as the other designs do when it leaves
+    # nothing, sample the block's rows without it.
+    other = np.fromiter((a is not b for a, b in zip(use, fallback, strict=True)), bool, n)
+    retry = np.flatnonzero(todo & (total == 0) & other)
+    if retry.size:
+        seg2, owner2, group2 = _row_models(blocks, retry, fallback[retry], rows_frame)
+        count2 = eligible_plants(seg2, groups=group2 + int(group.max(initial=0)) + 1, **skips)
+        total2 = np.bincount(owner2, weights=count2, minlength=n)
+        _add_flag(
+            flags,
+            retry[total2[retry] > 0],
+            "edge buffer leaves no whole plant: sampled the block without it",
+        )
+        drop = np.isin(owner, retry)
+        seg = concat_segments([_take(seg, ~drop), seg2])[0]
+        owner = np.concatenate([owner[~drop], owner2])
+        count = np.concatenate([count[~drop], count2])
+        order = np.argsort(owner, kind="stable")
+        seg, owner, count = _take(seg, order), owner[order], count[order]
+        total = np.bincount(owner, weights=count, minlength=n)
+    empty = todo & (total == 0)
+    _add_flag(flags, np.flatnonzero(empty), "no eligible plants in the sampled area: not sampled")
+    keep = ~empty[owner]
+    return _take(seg, keep), owner[keep], count[keep], True
+
+
+def _take(seg: RowSegments, index) -> RowSegments:
+    """The segments at ``index`` (a mask or indices), keeping per-segment fields aligned."""
+    def pick(a):
+        return None if a is None else (a[index] if np.ndim(a) else a)
+
+    return RowSegments(
+        row=seg.row[index],
+        length=seg.length[index],
+        plants=seg.plants[index],
+        first_plant=seg.first_plant[index],
+        offset=seg.offset[index],
+        plant_spacing=pick(seg.plant_spacing),
+        lines=pick(seg.lines),
+        ends=pick(seg.ends),
+        part=pick(seg.part),
+    )
+
+
+def _cluster_draws(
+    strata, sidx, counts, capacity, active, segments, owner, eligible, members, opts, params, flags, progress
+):
+    """Draw every stratum's plants (one generator call per stratum), located for all strata at once.
+
+    Returns the columns of the picks, stratum by stratum in draw order.
+    """
+    seed = params["seed"]
+    n_spares = int(params.get("spares") or 0)
+    over = np.flatnonzero(counts > capacity)
+    if over.size:
+        h = over[0]
+        raise DesignError(
+            f"stratum {strata[h]!r} needs {int(counts[h])} plants but only {capacity[h]:.0f} are eligible; "
+            "lower the sample size or --skip-row-ends/--skip-border-rows"
+        )
+    for h in np.flatnonzero((counts == 0) & active):
+        _add_flag(flags, members[h], "no points allocated to this stratum")
+    drawn = np.flatnonzero(counts > 0)
+    n_sel = counts[drawn].astype(np.int64)
+    # Spares continue the same draw (fieldplan.field.spares); they never exceed the eligible plants.
+    n_all = np.minimum(n_sel + n_spares, capacity[drawn]).astype(np.int64)
+    cap = capacity[drawn].astype(np.int64)
+    # Segments stratum by stratum (blocks in order within each), so ranks offset per stratum.
+    seg_stratum = sidx[owner]
+    order = np.argsort(seg_stratum, kind="stable")
+    elig = eligible[order]
+    offset = np.cumsum(capacity.astype(np.int64)) - capacity.astype(np.int64)
+    rngs = []
+    for h in drawn.tolist():
+        rngs.append(stream(seed, "design", str(strata[h])))
+        if progress is not None:
+            progress(h + 1, len(strata))
+    ranks, which = sample_ranks_many(cap, n_all, rngs)
+    seg, within = locate_ranks(elig, offset[drawn][which] + ranks, int(opts["skip_row_ends"]))
+    dist = segments.offset[order][seg] + within * np.asarray(segments.plant_spacing)[order][seg]
+    picked = order[seg]
+    if segments.ends is not None:
+        # Straight segments: the plant is a linear interpolation of the ends.
+        xy = straight_points(picked, dist, segments.ends, segments.length)
+    else:
+        points = shapely.line_interpolate_point(segments.lines[picked], dist)
+        xy = shapely.get_coordinates(points).reshape(-1, 2)
+    pos = np.arange(which.size) - np.repeat(np.cumsum(n_all) - n_all, n_all)
+    units_per = int(opts["units_per_cluster"] or 1)
+    units = np.full(which.size, units_per, dtype=np.int64)
+    if opts["target_units"] is not None:
+        sizes = cluster_sizes(int(opts["target_units"]), units_per)
+        sel = pos < n_sel[which]
+        units[sel] = sizes[np.minimum(pos[sel], sizes.size - 1)]
+    # Mapped rows are numbered over the whole block, whatever its parts.
+    mapped = params.get("rows_frame") is not None
+    part = np.zeros(which.size, dtype=np.int64) if mapped else segments.parts[picked]
+    columns = {
+        "_order": owner[picked],
+        "x": xy[:, 0],
+        "y": xy[:, 1],
+        "row": segments.row[picked],
+        "plant": segments.first_plant[picked] + within,
+        "units": units,
+        "part": part,
+    }
+    if n_spares:
+        rank = np.maximum(pos - n_sel[which] + 1, 0)
+        columns["status"] = np.where(rank == 0, SELECTED, SPARE).astype(object)
+        columns["spare_rank"] = rank
+    return columns
 
 
 def _owner_blocks(x: np.ndarray, y: np.ndarray, geoms: np.ndarray) -> np.ndarray:
@@ -337,62 +504,32 @@ def _stratified(
     seed = params["seed"]
     n_spares = int(params.get("spares") or 0)
     labels = blocks["stratum"].astype(str).to_numpy(dtype=object)
-    strata = list(pd.unique(labels))
-    members = [np.flatnonzero(labels == s) for s in strata]
+    sidx, uniques = pd.factorize(labels)  # strata in order of first appearance
+    strata = list(uniques)
+    by_stratum = np.argsort(sidx, kind="stable")
+    members = np.split(by_stratum, np.cumsum(np.bincount(sidx, minlength=len(strata)))[:-1])
     flags: list[list[str]] = [[] for _ in range(len(blocks))]
 
     # The population of each stratum: its blocks' sampled areas.
     empty = shapely.is_empty(areas) | (shapely.area(areas) <= 0)
-    fallback = blocks.geometry.values
+    fallback = np.asarray(blocks.geometry.values, dtype=object)
     if exclusion_union is not None:
         fallback = shapely.difference(fallback, exclusion_union)
     use = np.where(empty, fallback, areas)
     gone = shapely.is_empty(use) | (shapely.area(use) <= 0)
-    for i in np.flatnonzero(empty & ~gone):
-        flags[i].append("edge buffer leaves nothing: sampled the block without it")
-    for i in np.flatnonzero(gone):
-        flags[i].append("exclusions cover the block: not sampled")
+    _add_flag(flags, np.flatnonzero(empty & ~gone), "edge buffer leaves nothing: sampled the block without it")
+    _add_flag(flags, np.flatnonzero(gone), "exclusions cover the block: not sampled")
     area_ha = shapely.area(use) / 10_000.0
-    stratum_ha = np.array([area_ha[m].sum() for m in members])
+    stratum_ha = np.bincount(sidx, weights=area_ha, minlength=len(strata))
 
-    segments: list = [None] * len(strata)
-    owners: list = [None] * len(strata)
-    eligible: list = [None] * len(strata)
     # Strata with no area left (or, for clusters, no plants) take no points.
     capacity = np.where(stratum_ha > 0, np.inf, 0.0)
     modelled = False
     if design == "clusters":
-        skips = (opts["skip_row_ends"], opts["skip_border_rows"])
-        for h, m in enumerate(members):
-            parts, owner_idx, elig = [], [], []
-            for i in m[~gone[m]]:
-                seg, notes = _row_model(blocks, i, use[i], opts, params.get("rows_frame"))
-                flags[i].extend(notes)
-                if seg is None:
-                    continue
-                modelled = True
-                count = eligible_plants(seg, skip_row_ends=skips[0], skip_border_rows=skips[1])
-                if count.sum() == 0 and use[i] is not fallback[i]:
-                    # The edge buffer left a sliver with no whole plant: as the other designs do
-                    # when it leaves nothing, sample the block's rows without it.
-                    seg, _ = _row_model(blocks, i, fallback[i], opts, params.get("rows_frame"))
-                    count = eligible_plants(seg, skip_row_ends=skips[0], skip_border_rows=skips[1])
-                    if count.sum() > 0:
-                        flags[i].append("edge buffer leaves no whole plant: sampled the block without it")
-                if count.sum() == 0:
-                    flags[i].append("no eligible plants in the sampled area: not sampled")
-                    continue
-                parts.append(seg)
-                owner_idx.append(i)
-                elig.append(count)
-            if parts:
-                joined, which = concat_segments(parts)
-                segments[h] = joined
-                owners[h] = np.asarray(owner_idx)[which]
-                eligible[h] = np.concatenate(elig)
-                capacity[h] = float(eligible[h].sum())
-            else:
-                capacity[h] = 0.0
+        segments, seg_owner, eligible, modelled = _cluster_population(
+            blocks, use, fallback, gone, opts, params.get("rows_frame"), flags
+        )
+        capacity = np.bincount(sidx[seg_owner], weights=eligible, minlength=len(strata)).astype(float)
 
     active = capacity > 0
     if not active.any():
@@ -410,55 +547,38 @@ def _stratified(
             "or mapped rows (--rows); clusters need plants to draw from" + row_fields_hint(blocks)
         )
     exact, counts = _sizes(design, blocks, members, stratum_ha, capacity, opts, seed, active)
-    units_per = int(opts["units_per_cluster"] or 1)
 
-    # One list of column arrays per stratum, joined once: a DataFrame per stratum costs more than
-    # the draw itself when every block is a stratum.
+    # One list of column arrays per stratum (or, for clusters, one for all strata), joined once:
+    # a DataFrame per stratum costs more than the draw itself when every block is a stratum.
     parts: list[dict[str, np.ndarray]] = []
-    for h, stratum in enumerate(strata):
-        n_h = int(counts[h])
-        if n_h > capacity[h]:
-            raise DesignError(
-                f"stratum {stratum!r} needs {n_h} plants but only {capacity[h]:.0f} are eligible; "
-                "lower the sample size or --skip-row-ends/--skip-border-rows"
+    if design == "clusters":
+        parts.append(
+            _cluster_draws(
+                strata, sidx, counts, capacity, active, segments, seg_owner, eligible, members,
+                opts, params, flags, progress,
             )
+        )
+    for h, stratum in enumerate(strata if design != "clusters" else ()):
+        n_h = int(counts[h])
         if n_h == 0:
             if active[h]:
-                for i in members[h]:
-                    flags[i].append("no points allocated to this stratum")
+                _add_flag(flags, members[h], "no points allocated to this stratum")
             continue
         rng = stream(seed, "design", str(stratum))
         m = members[h]
-        extra: dict[str, np.ndarray] = {}
-        # Spares continue the same draw (fieldplan.field.spares); they never exceed the eligible plants.
         n_sel = n_h
-        n_h = int(min(n_h + n_spares, capacity[h]))
-        if design == "clusters":
-            picks = pick_plants(
-                segments[h], n_h, rng=rng, skip_row_ends=opts["skip_row_ends"], eligible=eligible[h]
-            )
-            owner = owners[h][picks.segment]
-            x, y = picks.x, picks.y
-            if opts["target_units"] is not None:
-                units = cluster_sizes(int(opts["target_units"]), units_per)
-                units = np.concatenate([units, np.full(n_h - n_sel, units_per, dtype=np.int64)])
-            else:
-                units = np.full(n_h, units_per, dtype=np.int64)
-            # Mapped rows are numbered over the whole block, whatever its parts.
-            part = picks.part if params.get("rows_frame") is None else np.zeros(n_h, dtype=np.int64)
-            extra = {"row": picks.row, "plant": picks.plant, "units": units, "part": part}
+        n_h = n_h + n_spares
+        m = m[~gone[m]]
+        poly = shapely.union_all(use[m]) if m.size > 1 else use[m[0]]
+        if design == "random":
+            xy = random_points(poly, n_h, rng=rng)
         else:
-            m = m[~gone[m]]
-            poly = shapely.union_all(use[m]) if m.size > 1 else use[m[0]]
-            if design == "random":
-                xy = random_points(poly, n_h, rng=rng)
-            else:
-                # Enough lattice points to spread n points well, few enough to stay fast.
-                cand = opts["candidates"] or int(np.clip(200 * n_h, 2_000, 20_000))
-                xy = balanced_points(poly, n_h, rng=rng, candidates=int(cand)).points
-            x, y = xy[:, 0], xy[:, 1]
-            owner = m[_owner_blocks(x, y, use[m])] if m.size > 1 else np.full(n_h, m[0])
-        part = {"_order": np.asarray(owner), "x": np.asarray(x), "y": np.asarray(y), **extra}
+            # Enough lattice points to spread n points well, few enough to stay fast.
+            cand = opts["candidates"] or int(np.clip(200 * n_h, 2_000, 20_000))
+            xy = balanced_points(poly, n_h, rng=rng, candidates=int(cand)).points
+        x, y = xy[:, 0], xy[:, 1]
+        owner = m[_owner_blocks(x, y, use[m])] if m.size > 1 else np.full(n_h, m[0])
+        part = {"_order": np.asarray(owner), "x": np.asarray(x), "y": np.asarray(y)}
         if n_spares:
             use_order, status, rank = order_draw(design, np.column_stack([x, y]), n_sel, rng=rng)
             part = {key: np.asarray(value)[use_order] for key, value in part.items()}
