@@ -216,8 +216,8 @@ WRITER_COST: dict[str, float] = {
     "write_cores_geojson": 0.0,
     "map_writer": 0.41,
     "png_writer": 0.70,
-    "kml_writer": 0.25,
-    "gpx_writer": 0.09,
+    "kml_writer": 0.16,
+    "gpx_writer": 0.05,
 }
 #: Writers that may run in the child: each only reads the plan and writes its own file.
 CHILD_WRITERS = ("map_writer", "png_writer", "kml_writer", "gpx_writer")

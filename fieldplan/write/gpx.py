@@ -4,15 +4,20 @@ Waypoints are named by point id; ``desc`` carries the block, stratum, row/plant,
 units and instructions when the plan has them. Unused spares keep their point id
 as name (recorded waypoints are matched by it) but get ``<type>spare</type>`` and
 a ``desc`` starting "SPARE #rank - use only when told". Coordinates are WGS84 with the
-same rounding as ``points.geojson``. Written with :mod:`xml.etree.ElementTree`,
-which escapes text and attributes; characters XML 1.0 forbids are dropped.
+same rounding as ``points.geojson``.
+
+The text is built from columns in one pass (:func:`fill_rows`: one ``%`` format of a
+row template over all rows, numbers formatted there too), not element by element.
+Every text from the input goes through :func:`xml_text` (characters XML 1.0 forbids
+are dropped) and is escaped (:func:`xml_escape`), so no name can close an element or
+open markup. This module also holds those text-column helpers for ``points.kml``.
 """
 
 from __future__ import annotations
 
 import math
 import re
-import xml.etree.ElementTree as ET
+from itertools import chain
 from pathlib import Path
 from typing import Any
 
@@ -29,7 +34,10 @@ __all__ = [
     "GPX_NS",
     "xml_text",
     "xml_escape",
+    "text_escape",
     "text_column",
+    "fill_rows",
+    "element_lines",
     "point_description",
     "spare_mask",
     "spare_note",
@@ -47,8 +55,8 @@ _NOT_XML_CHAR = re.compile("[^\u0009\u000a\u000d\u0020-\ud7ff\ue000-\ufffd\U0001
 
 
 def xml_text(value: Any) -> str:
-    """Text for an XML element: ``None``/NaN become ``""`` and forbidden characters go."""
-    if value is None:
+    """Text for an XML element: ``None``/NaN/``pd.NA`` become ``""`` and forbidden characters go."""
+    if value is None or value is pd.NA:
         return ""
     if isinstance(value, np.generic):
         value = value.item()
@@ -61,33 +69,101 @@ def xml_text(value: Any) -> str:
 
 
 _XML_SPECIAL = re.compile('[&<>"]')
+# Rows of a template are formatted this many at a time: the template repeated stays small.
+_CHUNK = 16384
+#: Between the texts of a column joined into one string; xml_text drops it, so no text holds it.
+_SEP = "\x00"
 
 
-def text_column(values) -> pd.Series:
-    """:func:`xml_text` over a column, as a Series of str (not yet escaped)."""
+def text_column(values) -> np.ndarray:
+    """:func:`xml_text` over a column, as an object array of str (not yet escaped)."""
     column = pd.Series(values).reset_index(drop=True)
+    n = len(column)
     if pd.api.types.is_string_dtype(column.dtype) and pd.api.types.infer_dtype(column) in ("string", "empty"):
         # All text: one search over the column decides whether any cell needs xml_text.
         cells = column.to_numpy(dtype=object, na_value="")
         cells = np.where(pd.isna(cells), "", cells).astype(object)
         if _NOT_XML_CHAR.search("".join(cells.tolist())) is None:
-            return pd.Series(cells, dtype=object)
-    return pd.Series(values, dtype=object).reset_index(drop=True).map(xml_text).astype(object)
+            return cells
+    kind = column.dtype.kind if isinstance(column.dtype, np.dtype) else ""
+    if kind and kind in "iu":
+        return column.to_numpy().astype(str).astype(object)  # str(int), as xml_text gives
+    if kind == "f":
+        # xml_text: NaN and infinities give "", whole numbers print as int, others as str(float).
+        data = column.to_numpy()
+        out = np.full(n, "", dtype=object)
+        finite = np.isfinite(data)
+        whole = finite & (np.floor(data) == data)
+        out[whole] = np.char.mod("%d", data[whole]).astype(object)
+        part = finite & ~whole
+        out[part] = list(map(str, data[part].tolist()))
+        return out
+    out = np.empty(n, dtype=object)
+    out[:] = [xml_text(v) for v in column.tolist()]  # mixed objects: rare, and exact
+    return out
 
 
-def xml_escape(texts: pd.Series) -> pd.Series:
-    """Escape ``& < > "`` for element text and double-quoted attributes (XML 1.0 section 2.4)."""
-    if _XML_SPECIAL.search("".join(texts.tolist())) is None:
+def _escaped(texts, pairs: tuple[tuple[str, str], ...]) -> np.ndarray:
+    texts = np.asarray(texts, dtype=object)
+    if len(texts) == 0:
         return texts
-    return (
-        texts.str.replace("&", "&amp;", regex=False)
-        .str.replace("<", "&lt;", regex=False)
-        .str.replace(">", "&gt;", regex=False)
-        .str.replace('"', "&quot;", regex=False)
-    )
+    joined = _SEP.join(texts.tolist())
+    if not any(old in joined for old, _ in pairs):
+        return texts
+    if joined.count(_SEP) != len(texts) - 1:  # a text holding the separator: one at a time
+        out = np.empty(len(texts), dtype=object)
+        out[:] = [_escape_one(t, pairs) for t in texts.tolist()]
+        return out
+    out = np.empty(len(texts), dtype=object)
+    out[:] = _escape_one(joined, pairs).split(_SEP)
+    return out
 
 
-def point_description(points) -> list[str]:
+def _escape_one(text: str, pairs: tuple[tuple[str, str], ...]) -> str:
+    for old, new in pairs:
+        text = text.replace(old, new)
+    return text
+
+
+_ELEMENT_ESCAPES = (("&", "&amp;"), ("<", "&lt;"), (">", "&gt;"))
+_ATTRIBUTE_ESCAPES = (*_ELEMENT_ESCAPES, ('"', "&quot;"))
+
+
+def xml_escape(texts) -> np.ndarray:
+    """Escape ``& < > "`` for element text and double-quoted attributes (XML 1.0 section 2.4)."""
+    return _escaped(texts, _ATTRIBUTE_ESCAPES)
+
+
+def text_escape(text: str) -> str:
+    """Escape ``& < >`` in one element text (as :mod:`xml.etree.ElementTree` writes text)."""
+    return _escape_one(text, _ELEMENT_ESCAPES)
+
+
+def fill_rows(template: str, *columns) -> str:
+    """``template`` once per row, its ``%`` fields taken from ``columns`` in turn.
+
+    One ``%`` format per chunk of rows does the work (numbers are formatted by the
+    template's ``%.8f`` fields), so text is built without a Python step per row. Text
+    columns must hold ``str``, number columns Python numbers (``ndarray.tolist()``).
+    """
+    columns = [c.tolist() if isinstance(c, np.ndarray) else list(c) for c in columns]
+    n = len(columns[0]) if columns else 0
+    parts = []
+    for start in range(0, n, _CHUNK):
+        rows = min(_CHUNK, n - start)
+        values = tuple(chain.from_iterable(zip(*(c[start : start + rows] for c in columns), strict=True)))
+        parts.append((template * rows) % values)
+    return "".join(parts)
+
+
+def element_lines(tag: str, texts, indent: str) -> np.ndarray:
+    """``<tag>text</tag>`` lines of escaped ``texts``; ``""`` where the text is empty."""
+    texts = np.asarray(texts, dtype=object)
+    lines = indent + f"<{tag}>" + xml_escape(texts) + f"</{tag}>\n"
+    return np.where(texts != "", lines, "").astype(object)
+
+
+def point_description(points) -> np.ndarray:
     """One line per point: block, stratum, row/plant, units, instructions (when present).
 
     Unused spares start with :func:`spare_note`, so no one mistakes one for a planned point.
@@ -105,10 +181,10 @@ def point_description(points) -> list[str]:
         if column not in points.columns:
             continue
         text = text_column(points[column])
-        part = (label + text).where(text != "", "")
-        joined = (result + "; " + part).where(part != "", result)
-        result = part.where(result == "", joined)
-    return result.tolist()
+        some = text != ""
+        part = np.where(some, label + text, "")
+        result = np.where(result == "", part, np.where(some, result + "; " + part, result))
+    return np.asarray(result, dtype=object)
 
 
 def spare_mask(points) -> np.ndarray:
@@ -118,28 +194,23 @@ def spare_mask(points) -> np.ndarray:
     return points["status"].astype(str).str.lower().eq("spare").to_numpy()
 
 
-def spare_note(points) -> pd.Series:
+def spare_note(points) -> np.ndarray:
     """ "SPARE #rank - use only when told" for unused spares, ``""`` for every other point."""
-    spare = pd.Series(spare_mask(points), dtype=bool)
+    spare = spare_mask(points)
     if "spare_rank" in points.columns:
         rank = pd.to_numeric(points["spare_rank"], errors="coerce").fillna(0).to_numpy()
         whole = np.char.mod("%d", np.maximum(rank, 0).astype(np.int64))
-        rank_text = pd.Series(np.where(rank > 0, np.char.add(" #", whole), ""), dtype=object)
+        rank_text = np.where(rank > 0, np.char.add(" #", whole), "").astype(object)
     else:
-        rank_text = pd.Series([""] * len(points), dtype=object)
+        rank_text = np.full(len(points), "", dtype=object)
     note = "SPARE" + rank_text + " \u2014 use only when told"
-    return note.where(spare, "").astype(object)
+    return np.where(spare, note, "").astype(object)
 
 
-def _element(tag: str, texts: pd.Series, indent: str) -> pd.Series:
-    """``<tag>text</tag>`` lines, empty where the text is empty."""
-    return (indent + f"<{tag}>" + xml_escape(texts) + f"</{tag}>\n").where(texts != "", "")
-
-
-def _placeholder(root: ET.Element, parent: ET.Element) -> tuple[str, ET.Element]:
-    # Per-point elements are built as columns of text (fast for many points) and put in
-    # at this empty element; input text is escaped, so it cannot spell the marker.
-    return "<fieldplan-points />", ET.SubElement(parent, "fieldplan-points")
+_COORD = f"%.{LONLAT_DECIMALS}f"
+# GPX 1.1 schema order inside wpt: ... name, cmt, desc, src, link, sym, type ...
+_WPT = f' <wpt lat="{_COORD}" lon="{_COORD}">\n%s%s  <sym>Flag</sym>\n%s </wpt>\n'
+_RTEPT = f'  <rtept lat="{_COORD}" lon="{_COORD}" />\n'
 
 
 def waypoints_xml(points) -> str:
@@ -148,33 +219,23 @@ def waypoints_xml(points) -> str:
         return ""
     lonlat = points_lonlat(points)
     names = text_column(points["point_id"])
-    descs = pd.Series(point_description(points), dtype=object)
+    descs = point_description(points)
     notes = spare_note(points)
     strata = (
         text_column(points["stratum"])
         if "stratum" in points.columns
-        else pd.Series([""] * len(points), dtype=object)
+        else np.full(len(points), "", dtype=object)
     )
     # The GPX 1.1 type element classifies a waypoint; a spare is a different kind of stop.
-    strata = strata.where(notes == "", "spare")
-    # GPX 1.1 schema order inside wpt: ... name, cmt, desc, src, link, sym, type ...
-    rows = (
-        " <wpt "
-        + _lat_lon_attrs(lonlat)
-        + ">\n"
-        + _element("name", names, "  ")
-        + _element("desc", descs, "  ")
-        + "  <sym>Flag</sym>\n"
-        + _element("type", strata, "  ")
-        + " </wpt>\n"
+    strata = np.where(notes == "", strata, "spare").astype(object)
+    return fill_rows(
+        _WPT,
+        lonlat[:, 1],
+        lonlat[:, 0],
+        element_lines("name", names, "  "),
+        element_lines("desc", descs, "  "),
+        element_lines("type", strata, "  "),
     )
-    return "".join(rows.tolist())
-
-
-def _lat_lon_attrs(coords: np.ndarray) -> pd.Series:
-    lat = pd.Series(np.char.mod(f"%.{LONLAT_DECIMALS}f", coords[:, 1]), dtype=object)
-    lon = pd.Series(np.char.mod(f"%.{LONLAT_DECIMALS}f", coords[:, 0]), dtype=object)
-    return 'lat="' + lat + '" lon="' + lon + '"'
 
 
 def routes_xml(routes) -> str:
@@ -184,12 +245,12 @@ def routes_xml(routes) -> str:
     wgs = routes.to_crs(4326)
     crews = wgs["crew"].tolist() if "crew" in wgs.columns else list(range(1, len(wgs) + 1))
     parts = []
-    for crew, geom in zip(crews, wgs.geometry.values, strict=True):  # one per crew
+    for crew, geom in zip(crews, wgs.geometry.values, strict=True):  # one per crew: a handful
         if geom is None or shapely.is_empty(geom):
             continue
         coords = np.round(shapely.get_coordinates(geom), LONLAT_DECIMALS)
-        name = xml_escape(pd.Series([f"Crew {xml_text(crew)}"], dtype=object)).iloc[0]
-        points = "".join(("  <rtept " + _lat_lon_attrs(coords) + " />\n").tolist())
+        name = xml_escape([f"Crew {xml_text(crew)}"])[0]
+        points = fill_rows(_RTEPT, coords[:, 1], coords[:, 0])
         parts.append(f" <rte>\n  <name>{name}</name>\n{points} </rte>\n")
     return "".join(parts)
 
@@ -199,33 +260,27 @@ def gpx_bytes(plan: Any, *, routes=None) -> bytes:
     from fieldplan import __version__
 
     caption = plan_caption(plan)
-    root = ET.Element(
-        "gpx",
-        {
-            "xmlns": GPX_NS,
-            "xmlns:xsi": "http://www.w3.org/2001/XMLSchema-instance",
-            "xsi:schemaLocation": f"{GPX_NS} {_GPX_XSD}",
-            "version": "1.1",
-            "creator": f"fieldplan {__version__}",
-        },
+    name = text_escape(xml_text(f"Sampling plan {caption['plan_id']}"))
+    desc = text_escape(
+        xml_text(f"seed {caption['seed']}; {caption['date']}; {plural(len(plan.points), 'point')}")
     )
-    metadata = ET.SubElement(root, "metadata")
-    ET.SubElement(metadata, "name").text = xml_text(f"Sampling plan {caption['plan_id']}")
-    ET.SubElement(metadata, "desc").text = xml_text(
-        f"seed {caption['seed']}; {caption['date']}; {plural(len(plan.points), 'point')}"
-    )
-    marker, _ = _placeholder(root, root)
-    ET.indent(root, space=" ")
-    text = ET.tostring(root, encoding="unicode")
+    creator = xml_escape([f"fieldplan {__version__}"])[0]
     routes = routes if routes is not None else optional_layer(plan, "routes")
-    # GPX 1.1 schema order: metadata, wpt*, rte*, trk*.
     points = plan.points
     if "status" in points.columns:
         # Points marked inaccessible must not lead anyone there (fieldplan mark).
         points = points[~points["status"].astype(str).str.lower().eq("inaccessible").to_numpy()]
-    body = waypoints_xml(points) + routes_xml(routes)
-    text = text.replace(" " + marker + "\n", body, 1)
-    return ('<?xml version="1.0" encoding="UTF-8"?>\n' + text + "\n").encode("utf-8")
+    # GPX 1.1 schema order: metadata, wpt*, rte*, trk*.
+    text = (
+        '<?xml version="1.0" encoding="UTF-8"?>\n'
+        f'<gpx xmlns="{GPX_NS}" xmlns:xsi="http://www.w3.org/2001/XMLSchema-instance" '
+        f'xsi:schemaLocation="{GPX_NS} {_GPX_XSD}" version="1.1" creator="{creator}">\n'
+        f" <metadata>\n  <name>{name}</name>\n  <desc>{desc}</desc>\n </metadata>\n"
+        + waypoints_xml(points)
+        + routes_xml(routes)
+        + "</gpx>\n"
+    )
+    return text.encode("utf-8")
 
 
 def write_gpx(plan: Any, path: Path | str, *, routes=None) -> Path:
