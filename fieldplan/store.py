@@ -27,7 +27,7 @@ import sys
 import tempfile
 import threading
 from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from contextlib import closing, contextmanager
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
@@ -430,14 +430,15 @@ _HISTORY_FILES = ("crews.csv", "lab_submission*.csv", "labels*.pdf", "positions.
 
 def plan_history(plan_dir: str | Path) -> list[str]:
     """What a plan folder holds beyond the plan itself: layers and files a re-plan would lose."""
-    import pyogrio
-
     plan_dir = Path(plan_dir)
     found: list[str] = []
     gpkg = plan_dir / GPKG_NAME
     if gpkg.is_file() and not gpkg.is_symlink():
         try:
-            names = {row[0] for row in pyogrio.list_layers(gpkg)}
+            # The GeoPackage's own table of contents (OGC 12-128r18, gpkg_contents): what
+            # pyogrio.list_layers lists, without opening the file through GDAL.
+            with closing(sqlite3.connect(f"{gpkg.resolve().as_uri()}?mode=ro", uri=True)) as db:
+                names = {row[0] for row in db.execute("SELECT table_name FROM gpkg_contents")}
         except Exception:  # noqa: BLE001 - an unreadable store is kept as history too
             return [GPKG_NAME]
         found += [f"{name} layer" for name in HISTORY_LAYERS if name in names]

@@ -436,7 +436,10 @@ def _csv_cells(column: pd.Series | np.ndarray) -> np.ndarray | None:
 
 def write_summary_csv(plan, folder: Path) -> None:
     """``summary.csv``: per block area, sampled area, points, density and flags."""
-    text = neutralise_frame(plan.summary()).to_csv(index=False, lineterminator="\n")
+    summary = plan.summary()
+    text = _csv_text(summary)  # pandas' text, made column by column
+    if text is None:
+        text = neutralise_frame(summary).to_csv(index=False, lineterminator="\n")
     atomic_write_text(folder / "summary.csv", text)
 
 
