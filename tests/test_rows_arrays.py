@@ -117,6 +117,33 @@ def test_many_blocks_at_once_equal_each_block_alone():
             part=seg.part[mine] if ref.part is not None else None,
         )
         _assert_same_segments(got, ref)
+    # and the draws of all blocks at once equal each block's own draw from its own generator
+    eligible = new.eligible_plants(seg, skip_row_ends=1, groups=owner * 10 + seg.parts)
+    totals = np.bincount(owner, weights=eligible, minlength=len(blocks)).astype(int)
+    ns = np.minimum(25, totals)
+    picks, which = new.pick_plants_many(
+        seg,
+        owner,
+        ns,
+        [np.random.default_rng(i) for i in range(len(blocks))],
+        eligible=eligible,
+        skip_row_ends=1,
+    )
+    assert np.bincount(which, minlength=len(blocks)).tolist() == ns.tolist()
+    for i, block in enumerate(blocks):
+        if not ns[i]:
+            continue
+        ref_seg = old.row_segments(
+            block, row_spacing_m=rs[i], plant_spacing_m=ps[i], row_bearing_deg=bearing[i], clip=clips[i]
+        )
+        ref = old.pick_plants(ref_seg, int(ns[i]), rng=np.random.default_rng(i), skip_row_ends=1)
+        mine = which == i
+        assert (
+            picks.row[mine].tolist() == ref.row.tolist() and picks.plant[mine].tolist() == ref.plant.tolist()
+        )
+        np.testing.assert_allclose(
+            np.c_[picks.x[mine], picks.y[mine]], np.c_[ref.x, ref.y], atol=1e-9, rtol=0
+        )
 
 
 def _estate():

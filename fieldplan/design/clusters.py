@@ -69,6 +69,7 @@ __all__ = [
     "concat_segments",
     "eligible_plants",
     "pick_plants",
+    "pick_plants_many",
     "row_segments",
     "rows_from_lines",
     "sample_ranks",
@@ -365,10 +366,19 @@ def _clip_intervals(full, keep_whole, clip, rows):
         segment_ends(first[pu] + prow * rs[pu], lo_u, hi_u, u[pu], v[pu]),
     )
     whole = np.flatnonzero(keep_whole)
-    kept = (unit[whole], row[whole], length[whole], plants[whole], first_plant[whole], offset[whole], ends[whole])
-    # Back in piece order: by parent, then along the row.
-    order = np.argsort(np.concatenate([whole, parent]), kind="stable")
-    return tuple(np.concatenate([a, b])[order] for a, b in zip(kept, cut, strict=True))
+    kept = (unit, row, length, plants, first_plant, offset, ends)
+    # Back in piece order (by parent, then along the row): a parent kept whole takes one slot,
+    # a cut one as many as its pieces; parents are sorted, so each piece's slot is an offset.
+    slots = np.where(keep_whole, 1, np.bincount(parent, minlength=line.size))
+    base = np.cumsum(slots) - slots
+    at_cut = base[parent] + np.arange(parent.size) - np.searchsorted(parent, parent, side="left")
+    out = []
+    for full_col, cut_col in zip(kept, cut, strict=True):
+        col = np.empty((int(slots.sum()), *full_col.shape[1:]), dtype=full_col.dtype)
+        col[base[whole]] = full_col[whole]
+        col[at_cut] = cut_col
+        out.append(col)
+    return tuple(out)
 
 
 def row_segments(
@@ -733,6 +743,66 @@ def pick_plants(
         eligible=total,
         part=segments.parts[seg],
     )
+
+
+def pick_plants_many(
+    segments: RowSegments,
+    population: np.ndarray,
+    ns,
+    rngs: list[np.random.Generator],
+    *,
+    eligible: np.ndarray,
+    skip_row_ends: int = 0,
+) -> tuple[PlantPicks, np.ndarray]:
+    """:func:`pick_plants` for many populations (blocks or strata) at once.
+
+    Population ``j`` gets the plants ``pick_plants`` would draw from its segments
+    with ``rngs[j]``; only the generator calls run population by population.
+
+    Parameters
+    ----------
+    segments : RowSegments
+        Segments of all populations, population by population (``population`` sorted).
+    population : numpy.ndarray
+        Population (0, 1, ...) of each segment.
+    ns : array_like of int
+        Plants to draw from each population (at most its eligible plants).
+    rngs : list of numpy.random.Generator
+        One per population.
+    eligible : numpy.ndarray
+        Eligible plants per segment (:func:`eligible_plants`, row models grouped as drawn).
+    skip_row_ends : int
+        Plants excluded at each end of every segment (as used for ``eligible``).
+
+    Returns
+    -------
+    picks : PlantPicks
+        Population 0's picks in draw order, then population 1's, ...; ``eligible`` is the total.
+    which : numpy.ndarray
+        Population of each pick.
+    """
+    ns = np.asarray(ns, dtype=np.int64)
+    eligible = np.asarray(eligible, dtype=np.int64)
+    totals = np.bincount(population, weights=eligible, minlength=ns.size).astype(np.int64)
+    ranks, which = sample_ranks_many(totals, ns, rngs)
+    # Ranks of population j follow those of the populations before it in the joined ranking.
+    seg, within = locate_ranks(eligible, (np.cumsum(totals) - totals)[which] + ranks, int(skip_row_ends))
+    spacing = np.asarray(segments.plant_spacing, dtype=float)
+    dist = segments.offset[seg] + within * (spacing if spacing.ndim == 0 else spacing[seg])
+    if segments.ends is not None:
+        xy = straight_points(seg, dist, segments.ends, segments.length)
+    else:
+        xy = shapely.get_coordinates(shapely.line_interpolate_point(segments.lines_at(seg), dist)).reshape(-1, 2)
+    picks = PlantPicks(
+        row=segments.row[seg],
+        plant=segments.first_plant[seg] + within,
+        x=xy[:, 0],
+        y=xy[:, 1],
+        segment=seg,
+        eligible=int(totals.sum()),
+        part=segments.parts[seg],
+    )
+    return picks, which
 
 
 def cluster_count(target_units: int, units_per_cluster: int) -> int:

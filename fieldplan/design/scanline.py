@@ -167,11 +167,20 @@ def row_pieces(
     # One number per row line of every unit: pieces sort by unit, then row, then along the row.
     row_base = np.cumsum(count) - count
     line = row_base[eu[edge]] + k
-    order = np.lexsort((at, line))
+    order = np.argsort(line, kind="stable")
     line, at = line[order], at[order]
-    # Pair crossings 1st-2nd, 3rd-4th, ... within each row line.
     starts = group_starts(line)
     size = np.diff(np.append(starts, line.size))
+    # Along each line: most lines cross a block twice (a min/max puts them in order); the
+    # few with more crossings are sorted on their own, by value then stably by line.
+    two = starts[size == 2]
+    at[two], at[two + 1] = np.minimum(at[two], at[two + 1]), np.maximum(at[two], at[two + 1])
+    more = np.flatnonzero(np.repeat(size > 2, size))
+    if more.size:
+        sub = at[more]
+        by_at = np.argsort(sub)
+        at[more] = sub[by_at[np.argsort(line[more][by_at], kind="stable")]]
+    # Pair crossings 1st-2nd, 3rd-4th, ... within each row line.
     pos = np.arange(line.size) - np.repeat(starts, size)
     lead = np.flatnonzero((pos % 2 == 0) & (pos + 1 < np.repeat(size, size)))
     line, start, end = line[lead], at[lead], at[lead + 1]

@@ -36,10 +36,9 @@ from fieldplan.design.clusters import (
     cluster_sizes,
     concat_segments,
     eligible_plants,
-    sample_ranks_many,
+    pick_plants_many,
 )
 from fieldplan.design.random import random_points
-from fieldplan.design.scanline import locate_ranks, straight_points
 from fieldplan.errors import DesignError, InputError, OptionError
 from fieldplan.field.spares import SELECTED, SPARE, order_draw
 from fieldplan.rng import stream
@@ -429,27 +428,26 @@ def _cluster_draws(
     n_sel = counts[drawn].astype(np.int64)
     # Spares continue the same draw (fieldplan.field.spares); they never exceed the eligible plants.
     n_all = np.minimum(n_sel + n_spares, capacity[drawn]).astype(np.int64)
-    cap = capacity[drawn].astype(np.int64)
-    # Segments stratum by stratum (blocks in order within each), so ranks offset per stratum.
-    seg_stratum = sidx[owner]
-    order = np.argsort(seg_stratum, kind="stable")
-    elig = eligible[order]
-    offset = np.cumsum(capacity.astype(np.int64)) - capacity.astype(np.int64)
+    # Segments stratum by stratum (blocks in order within each); strata that draw nothing left out.
+    slot = np.full(len(strata), -1, dtype=np.int64)
+    slot[drawn] = np.arange(drawn.size)
+    seg_slot = slot[sidx[owner]]
+    order = np.flatnonzero(seg_slot >= 0)
+    order = order[np.argsort(seg_slot[order], kind="stable")]
     rngs = []
     for h in drawn.tolist():
         rngs.append(stream(seed, "design", str(strata[h])))
         if progress is not None:
             progress(h + 1, len(strata))
-    ranks, which = sample_ranks_many(cap, n_all, rngs)
-    seg, within = locate_ranks(elig, offset[drawn][which] + ranks, int(opts["skip_row_ends"]))
-    dist = segments.offset[order][seg] + within * np.asarray(segments.plant_spacing)[order][seg]
-    picked = order[seg]
-    if segments.ends is not None:
-        # Straight segments: the plant is a linear interpolation of the ends.
-        xy = straight_points(picked, dist, segments.ends, segments.length)
-    else:
-        points = shapely.line_interpolate_point(segments.lines[picked], dist)
-        xy = shapely.get_coordinates(points).reshape(-1, 2)
+    picks, which = pick_plants_many(
+        _take(segments, order),
+        seg_slot[order],
+        n_all,
+        rngs,
+        eligible=eligible[order],
+        skip_row_ends=int(opts["skip_row_ends"]),
+    )
+    picked = order[picks.segment]
     pos = np.arange(which.size) - np.repeat(np.cumsum(n_all) - n_all, n_all)
     units_per = int(opts["units_per_cluster"] or 1)
     units = np.full(which.size, units_per, dtype=np.int64)
@@ -459,13 +457,13 @@ def _cluster_draws(
         units[sel] = sizes[np.minimum(pos[sel], sizes.size - 1)]
     # Mapped rows are numbered over the whole block, whatever its parts.
     mapped = params.get("rows_frame") is not None
-    part = np.zeros(which.size, dtype=np.int64) if mapped else segments.parts[picked]
+    part = np.zeros(which.size, dtype=np.int64) if mapped else picks.part
     columns = {
         "_order": owner[picked],
-        "x": xy[:, 0],
-        "y": xy[:, 1],
-        "row": segments.row[picked],
-        "plant": segments.first_plant[picked] + within,
+        "x": picks.x,
+        "y": picks.y,
+        "row": picks.row,
+        "plant": picks.plant,
         "units": units,
         "part": part,
     }
