@@ -105,3 +105,13 @@ def test_cluster_core_plan_loads_no_compiler_and_no_scipy(tmp_path):
     )
     assert (tmp_path / "p" / "points.csv").exists()
     assert _heavy(loaded, ("numba", "llvmlite", "scipy", "matplotlib", "sklearn")) == []
+
+
+def test_png_page_loads_no_matplotlib(tmp_path):
+    loaded = _loaded(
+        ["plan", str(DEMO), "--spacing", "40", "--seed", "7", "--formats", "png", "--out", str(tmp_path / "p"), "-q"]
+    )
+    # reference: PNG specification (ISO/IEC 15948), 8-byte signature
+    assert (tmp_path / "p" / "plan.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert "PIL.Image" in loaded  # drawn with Pillow
+    assert _heavy(loaded, ("matplotlib", "mpl_toolkits", "fontTools", "reportlab")) == []

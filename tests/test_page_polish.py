@@ -3,16 +3,21 @@ plurals, and the coverage share agreeing with its note."""
 
 from __future__ import annotations
 
+import colorsys
+import io
+from types import SimpleNamespace
+
 import numpy as np
 import pytest
 import shapely
-from matplotlib.colors import to_hex
+from PIL import Image
 
 from fieldplan.plan import make_plan
 from fieldplan.read import read_blocks
 from fieldplan.sorting import natural_key, natural_sorted
 from fieldplan.words import plural
-from fieldplan.write.png import legend_colours, plan_figure
+from fieldplan.write.page import legend_colours, page_layout
+from fieldplan.write.png import render_png
 from tests.geoms import blocks_frame, lonlat_estate_file, lonlat_square, write_geojson
 
 
@@ -39,22 +44,33 @@ def many_strata_plan(tmp_path_factory):
     return make_plan(read_blocks(path), spacing=40.0, seed=3, command=["test"])
 
 
-def _legend(fig):
-    return fig.legends[0]
+def _pixels(layout) -> np.ndarray:
+    return np.asarray(Image.open(io.BytesIO(render_png(layout))).convert("RGB")).astype(int)
+
+
+def _hex(rgb) -> str:
+    return "#" + "".join(f"{int(v):02x}" for v in rgb)
 
 
 def test_legend_lists_strata_in_natural_order_with_no_colour_twice(many_strata_plan):
-    fig = plan_figure(many_strata_plan)
-    legend = _legend(fig)
-    labels = [t.get_text() for t in legend.get_texts()]
-    strata = [label for label in labels if label.startswith("Stratum ")]
-    assert [s.split(" (")[0] for s in strata] == [f"Stratum Blk {i}" for i in range(1, 13)]
-    colours = [to_hex(h.get_markerfacecolor()) for h in legend.legend_handles[: len(strata)]]
+    layout = page_layout(many_strata_plan)
+    strata = [e for e in layout.legend if e.stratum is not None]
+    assert [e.stratum for e in strata] == [f"Blk {i}" for i in range(1, 13)]
+    assert all(e.label.text.startswith(f"Stratum \u2068{e.stratum}\u2069 (") for e in strata)
+    colours = [e.colour.lower() for e in strata]
     assert len(set(colours)) == len(colours) == 12
     # reference: Okabe & Ito (2008) first, then Tol (2021) muted (both from memory).
     assert colours[:7] == [
         c.lower() for c in ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7")
     ]
+    assert colours[7:] == [c.lower() for c in ("#CC6677", "#332288", "#DDCC77", "#117733", "#88CCEE")]
+    # On the page: each swatch's centre pixel is its colour, and the legend rows run top to bottom.
+    rgb = _pixels(layout)
+    for entry in strata:
+        x, y = (int(round(v)) for v in entry.swatch)
+        assert _hex(rgb[y, x]) == entry.colour.lower(), entry.stratum
+    rows = [e.swatch[1] for e in strata]
+    assert rows == sorted(rows)
 
 
 def test_legend_colours_never_repeat():
@@ -63,41 +79,68 @@ def test_legend_colours_never_repeat():
         assert len(colours) == n and len({c.lower() for c in colours}) == n
 
 
-def _north_arrow_boxes(fig):
-    fig.canvas.draw()
-    renderer = fig.canvas.get_renderer()
-    found = [a for a in fig.findobj() if a.get_gid() == "north-arrow"]
-    assert len(found) == 2  # the arrow and its "N"
-    return [a.get_window_extent(renderer) for a in found]
-
-
-def _points_display(fig, plan):
-    ax = fig.axes[0]
-    xy = shapely.get_coordinates(plan.points.geometry.values)
-    return ax.transData.transform(xy)
-
-
-def _assert_clear(fig, plan):
-    # reference: matplotlib's own renderer extents of the drawn artists.
-    shown = _points_display(fig, plan)
-    for box in _north_arrow_boxes(fig):
-        padded = box.expanded(1.0, 1.0)
-        inside = (
-            (shown[:, 0] >= padded.x0)
-            & (shown[:, 0] <= padded.x1)
-            & (shown[:, 1] >= padded.y0)
-            & (shown[:, 1] <= padded.y1)
+def test_legend_colours_beyond_the_named_schemes_are_evenly_spaced_hues():
+    colours = legend_colours(24)
+    # reference: colorsys.hsv_to_rgb (Python standard library): the eight extra colours are
+    # hues 0.03 + k/8 at saturation 0.75, value 0.85 and 0.55 by turns.
+    for k, colour in enumerate(colours[16:]):
+        r, g, b = (int(colour[i : i + 2], 16) / 255 for i in (1, 3, 5))
+        h, s, v = colorsys.rgb_to_hsv(r, g, b)
+        assert h == pytest.approx((k / 8 + 0.03) % 1.0, abs=0.01)
+        assert s == pytest.approx(0.75, abs=0.01) and v == pytest.approx(
+            0.85 if k % 2 == 0 else 0.55, abs=0.01
         )
-        assert not inside.any(), shown[inside][:3]
+
+
+def _assert_clear(layout, rgb=None):
+    # The arrow's box on the page holds no marker: checked against the layout's own point
+    # positions, padded by the marker radius, and (when given) against the rendered pixels.
+    x0, y0, x1, y1 = layout.arrow["box"]
+    r = layout.marker / 2
+    xy = layout.points
+    inside = (xy[:, 0] >= x0 - r) & (xy[:, 0] <= x1 + r) & (xy[:, 1] >= y0 - r) & (xy[:, 1] <= y1 + r)
+    assert not inside.any(), xy[inside][:3]
+    if rgb is not None:
+        patch = rgb[int(y0) : int(y1) + 1, int(x0) : int(x1) + 1].reshape(-1, 3)
+        for style in layout.styles[:-1]:
+            colour = np.array([int(style["colour"][i : i + 2], 16) for i in (1, 3, 5)])
+            assert not (np.abs(patch - colour).sum(axis=1) <= 6).any(), style
 
 
 def test_north_arrow_clear_of_points_on_a_many_block_page(many_strata_plan):
-    _assert_clear(plan_figure(many_strata_plan), many_strata_plan)
+    layout = page_layout(many_strata_plan)
+    _assert_clear(layout, _pixels(layout))
+
+
+def _with_points_at(plan, xy):
+    """The plan with extra points at ``xy`` (plan CRS): points on a block's edge, where a
+    grid can put them, as near the map's edge as a point can be."""
+    import geopandas as gpd
+    import pandas as pd
+
+    extra = gpd.GeoDataFrame(
+        {
+            "point_id": [f"X{i}" for i in range(len(xy))],
+            "block": plan.points["block"].iloc[0],
+            "stratum": plan.points["stratum"].iloc[0],
+        },
+        geometry=shapely.points(xy),
+        crs=plan.points.crs,
+    )
+    points = pd.concat([plan.points, extra], ignore_index=True)
+    return SimpleNamespace(
+        blocks=plan.blocks,
+        points=points,
+        crs=plan.crs,
+        exclusions=plan.exclusions,
+        meta=plan.meta,
+        params=plan.params,
+    )
 
 
 def test_north_arrow_moves_off_points_in_the_top_corners(tmp_path):
-    # A strip of vines along the top of the page and one block bottom left: both top
-    # corners hold points, the bottom right is empty.
+    # A strip of vines along the top of the page and one block bottom left, with points on the
+    # strip's top corners: both top corners of the map hold points, the bottom right is empty.
     from tests.geoms import E0, N0
 
     frame = blocks_frame(
@@ -106,35 +149,41 @@ def test_north_arrow_moves_off_points_in_the_top_corners(tmp_path):
             "Low": shapely.box(E0, N0, E0 + 150, N0 + 150),
         }
     )
-    plan = make_plan(
+    planned = make_plan(
         read_blocks(write_geojson(frame, tmp_path / "b.geojson")), spacing=10.0, seed=2, command=["t"]
     )
-    fig = plan_figure(plan)
-    ax = fig.axes[0]
-    frac = ax.transAxes.inverted().transform(_points_display(fig, plan))
-
-    def points_near(cx, cy):
-        return int(((np.abs(frac[:, 0] - cx) <= 0.05) & (np.abs(frac[:, 1] - cy) <= 0.10)).sum())
-
-    assert points_near(0.94, 0.88) > 0 and points_near(0.06, 0.88) > 0  # the usual spot is taken
-    _assert_clear(fig, plan)
-    arrow = _north_arrow_boxes(fig)[0]
-    box = ax.get_window_extent()
-    assert box.x0 < arrow.x0 and arrow.x1 < box.x1  # still on the map
-    assert arrow.y1 < (box.y0 + box.y1) / 2  # moved to the bottom right
+    x0, _, x1, y1 = planned.blocks.total_bounds
+    assert page_layout(planned).arrow["corner"] == "tr"  # the usual spot, while it is free
+    plan = _with_points_at(planned, [(x0, y1), (x1, y1)])
+    layout = page_layout(plan)
+    _assert_clear(layout, _pixels(layout))
+    fx0, fy0, fx1, fy1 = layout.frame
+    ax0, ay0, ax1, ay1 = layout.arrow["box"]
+    assert layout.arrow["on_map"] and layout.arrow["corner"] == "br"
+    assert fx0 < ax0 and ax1 < fx1  # still on the map
+    assert ay0 > (fy0 + fy1) / 2  # moved to the bottom right
+    # The scale bar neither hides points nor sits on the arrow.
+    bx0, by0, bx1, by1 = layout.scale_bar["box"]
+    xy = layout.points
+    assert not ((xy[:, 0] >= bx0) & (xy[:, 0] <= bx1) & (xy[:, 1] >= by0) & (xy[:, 1] <= by1)).any()
+    assert bx1 < ax0 or bx0 > ax1 or by1 < ay0 or by0 > ay1
 
 
 def test_north_arrow_leaves_the_map_when_every_corner_has_points(tmp_path):
-    # One square block planned densely: every corner of the map holds points.
-    frame = blocks_frame({"Full": lonlat_square(18.9, -33.86, 0.004)}, crs="EPSG:4326")
+    # One square block with points all along its edge: every corner of the map holds points.
+    from tests.geoms import E0, N0
+
+    frame = blocks_frame({"Full": shapely.box(E0, N0, E0 + 400, N0 + 400)})
     path = write_geojson(frame, tmp_path / "b.geojson")
-    plan = make_plan(read_blocks(path), spacing=12.0, seed=1, command=["test"])
-    fig = plan_figure(plan)
-    _assert_clear(fig, plan)
-    ax_box = fig.axes[0].get_window_extent()
-    arrow = _north_arrow_boxes(fig)[0]
-    assert arrow.x0 >= ax_box.x1  # drawn beside the map, in the margin
-    subtitle = [t.get_text() for t in fig.texts if "points in" in t.get_text()]
+    planned = make_plan(read_blocks(path), spacing=12.0, seed=1, command=["test"])
+    edge = shapely.segmentize(planned.blocks.geometry.values[0].exterior, 10.0)
+    plan = _with_points_at(planned, shapely.get_coordinates(edge)[:-1])
+    layout = page_layout(plan)
+    _assert_clear(layout, _pixels(layout))
+    assert not layout.arrow["on_map"]
+    assert layout.arrow["box"][0] >= layout.frame[2]  # drawn beside the map, in the margin
+    assert layout.arrow["box"][1] >= layout.legend_box[3]  # below the legend
+    subtitle = [t.text for t in layout.texts if "points in" in t.text]
     assert subtitle and "in 1 block " in subtitle[0]
 
 
@@ -143,10 +192,29 @@ def test_page_subtitle_says_one_block(tmp_path):
     plan = make_plan(
         read_blocks(write_geojson(frame, tmp_path / "b.geojson")), spacing=50.0, seed=1, command=["t"]
     )
-    fig = plan_figure(plan)
-    text = " ".join(t.get_text() for t in fig.texts)
+    text = " ".join(t.text for t in page_layout(plan).texts)
     assert " 1 blocks" not in text and "in 1 block " in text
     assert np.isfinite(plan.blocks["area_ha"]).all()
+
+
+def test_page_text_stays_on_the_page_and_off_the_map(many_strata_plan):
+    layout = page_layout(many_strata_plan)
+    width, height = layout.size
+    fx0, fy0, fx1, fy1 = layout.frame
+    for text in layout.texts:
+        x0, y0, x1, y1 = text.box()
+        assert 0 <= x0 and x1 <= width and 0 <= y0 and y1 <= height, text
+        assert y1 <= fy0 or y0 >= fy1, text  # title, subtitle and cautions clear of the map
+    lx0, ly0, lx1, ly1 = layout.legend_box
+    assert lx0 >= fx1 and lx1 <= width
+    for entry in layout.legend:
+        x0, y0, x1, y1 = entry.label.box()
+        assert lx0 <= x0 and x1 <= lx1 and ly0 <= y0 and y1 <= ly1, entry.label.text
+    # Block labels never run into each other.
+    boxes = [t.box() for t in layout.labels]
+    for i, a in enumerate(boxes):
+        for b in boxes[i + 1 :]:
+            assert a[2] <= b[0] or b[2] <= a[0] or a[3] <= b[1] or b[3] <= a[1]
 
 
 def test_coverage_share_and_its_note_agree_to_the_last_digit():

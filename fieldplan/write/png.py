@@ -1,44 +1,70 @@
 """plan.png (and plan.pdf): a printable A4 landscape page of the plan.
 
 Blocks with their id and variety, hatched exclusions, sample points by stratum
-(colour *and* marker shape), a north arrow turned to true north, a scale bar,
-a legend, the plan id, seed and date, and the field cautions. Drawn with
-matplotlib's Agg canvas on a private Figure (no pyplot state), in the plan's
-metric CRS so the scale bar is exact. Bytes are stable: the PNG carries no
-software tag and the PDF no creation date.
+(colour *and* marker shape), spares, a north arrow turned to true north, a scale
+bar, a legend, the plan id, seed and date, and the field cautions. Where each
+thing goes is decided once, in :func:`fieldplan.write.page.page_layout`; this module
+renders that layout:
+
+* plan.png with Pillow: shapes are drawn on a palette canvas at :data:`SUPERSAMPLE`
+  times the page resolution (points stamped from coordinate arrays, one array
+  assignment per stratum), reduced to 150 dpi by averaging, then text is drawn at
+  the final size with DejaVu Sans (antialiased by FreeType).
+* plan.pdf with matplotlib (imported only for the PDF), from the same layout.
+
+Bytes are stable: the PNG carries no software tag and the PDF no creation date.
 """
 
 from __future__ import annotations
 
 import io
 import math
-import textwrap
+from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
 import numpy as np
-import shapely
 
-from fieldplan.words import plural
-from fieldplan.write.html_map import PALETTE, plan_caption, stratum_styles
+from fieldplan.write.page import (
+    A4_LANDSCAPE_IN,
+    COLOURS,
+    DPI,
+    MAX_LABELLED_BLOCKS,
+    MAX_LEGEND_STRATA,
+    PX_PER_PT,
+    PageLayout,
+    Rings,
+    Text,
+    font,
+    legend_colours,
+    nice_length,
+    page_layout,
+    page_styles,
+    true_north_bearing,
+)
 from fieldplan.write.safe import atomic_write_bytes
 
 __all__ = [
     "A4_LANDSCAPE_IN",
     "MARKERS",
+    "MAX_LABELLED_BLOCKS",
+    "MAX_LEGEND_STRATA",
+    "SUPERSAMPLE",
     "nice_length",
     "true_north_bearing",
     "plan_figure",
     "legend_colours",
     "page_styles",
+    "page_layout",
+    "render_png",
+    "render_figure",
     "plan_image_bytes",
     "write_png",
     "write_pdf",
     "png_writer",
 ]
 
-A4_LANDSCAPE_IN = (297 / 25.4, 210 / 25.4)  # ISO 216 A4, 297 mm x 210 mm
-DPI = 150
+#: matplotlib marker of each shape (the PDF renderer).
 MARKERS = {
     "circle": "o",
     "square": "s",
@@ -46,99 +72,349 @@ MARKERS = {
     "diamond": "D",
     "triangle-down": "v",
     "hexagon": "h",
+    "cross": "X",
 }
-MAX_LEGEND_STRATA = 24
-#: Above this many blocks the page carries no block labels: at A4 they overlap
-#: into an unreadable mass, and drawing them dominated the time to write a plan.
-MAX_LABELLED_BLOCKS = 200
+#: Shapes are drawn at this many times the page resolution, then averaged down.
+SUPERSAMPLE = 3
+_HATCH_PERIOD = 9.0  # px between hatch lines, along the page axes
+_HATCH_WIDTH = 1.2  # px
+# Line widths in page pixels: the matplotlib page's 1.2, 0.8, 0.5 and 0.8 pt.
+BLOCK_EDGE_PX = 1.2 * PX_PER_PT
+EXCLUSION_EDGE_PX = 0.8 * PX_PER_PT
+MARKER_EDGE_PX = 0.5 * PX_PER_PT
+FRAME_PX = 0.8 * PX_PER_PT / 1.5
+HALO_PX = 3  # white outline of labels over points: the 3 pt stroke of the matplotlib page, in px
+SWATCH_HALF = (11.0, 6.5)  # legend swatch of a block or exclusion, half width and height
+#: zlib level of plan.png: 3 writes about as small a file as 6, in two thirds of the time.
+PNG_COMPRESSION = 3
 
 
-# Paul Tol (2021), "Colour Schemes", SRON/EPS/TN/09-002, the muted qualitative scheme
-# (from memory): more distinct colours after Okabe & Ito's seven, so a page legend of up
-# to 16 strata never shows one colour twice.
-TOL_MUTED: tuple[str, ...] = (
-    "#CC6677",
-    "#332288",
-    "#DDCC77",
-    "#117733",
-    "#88CCEE",
-    "#882255",
-    "#44AA99",
-    "#999933",
-    "#AA4499",
-)
+def _rgb(colour: str) -> tuple[int, int, int]:
+    colour = colour.lstrip("#")
+    return tuple(int(colour[i : i + 2], 16) for i in (0, 2, 4))  # type: ignore[return-value]
 
 
-def legend_colours(n: int) -> list[str]:
-    """``n`` different colours: Okabe & Ito's, then Tol's muted, then evenly spaced hues."""
-    from matplotlib.colors import hsv_to_rgb, to_hex
+# ---------------------------------------------------------------------------- marker shapes
 
-    colours = [*PALETTE, *TOL_MUTED][:n]
-    extra = n - len(colours)
-    if extra > 0:
-        # Hues spread evenly, alternating two lightness levels so neighbours differ twice.
-        hues = (np.arange(extra) / extra + 0.03) % 1.0
-        values = np.where(np.arange(extra) % 2 == 0, 0.85, 0.55)
-        rgb = hsv_to_rgb(np.column_stack([hues, np.full(extra, 0.75), values]))
-        taken = {c.lower() for c in colours}
-        for row in rgb:
-            colour = to_hex(row)
-            while colour.lower() in taken:  # never the same colour twice, however close
-                row = np.clip(row * 0.98, 0, 1)
-                colour = to_hex(row)
-            taken.add(colour.lower())
-            colours.append(colour)
-    return colours
+# Vertices of the convex shapes for a marker of size 1, clockwise on the page (y down):
+# matplotlib's proportions, so plan.png and plan.pdf show the same symbols.
+_SHAPES: dict[str, np.ndarray] = {
+    "square": np.array([(-0.5, -0.5), (0.5, -0.5), (0.5, 0.5), (-0.5, 0.5)]),
+    "diamond": np.array([(0.0, -1.0), (1.0, 0.0), (0.0, 1.0), (-1.0, 0.0)]) * math.sqrt(0.5),
+    "triangle": np.array([(0.0, -0.5), (0.5, 0.5), (-0.5, 0.5)]),
+    "triangle-down": np.array([(0.0, 0.5), (-0.5, -0.5), (0.5, -0.5)]),
+    "hexagon": 0.5 * np.array([(math.cos(a), math.sin(a)) for a in np.radians(np.arange(6) * 60.0 - 90.0)]),
+}
 
 
-def page_styles(strata) -> dict[str, dict[str, str]]:
-    """Stratum styles for the printed page: the map's shapes, and no colour used twice.
+def _inside(shape: str, px: np.ndarray, py: np.ndarray, size: float, inset: float = 0.0) -> np.ndarray:
+    """Which offsets ``(px, py)`` from the centre lie in ``shape`` of ``size``, ``inset`` in from its sides."""
+    if shape == "circle":
+        return np.hypot(px, py) <= size / 2 - inset
+    if shape == "cross":  # an X of two bars, a third of the size wide
+        u, v = (px + py) / math.sqrt(2), (px - py) / math.sqrt(2)
+        half, reach = size / 6 - inset, 0.55 * size - inset
+        return ((np.abs(u) <= half) & (np.abs(v) <= reach)) | ((np.abs(v) <= half) & (np.abs(u) <= reach))
+    verts = _SHAPES.get(shape, _SHAPES["square"]) * size
+    inside = np.ones(np.broadcast(px, py).shape, dtype=bool)
+    for (x0, y0), (x1, y1) in zip(verts, np.roll(verts, -1, axis=0), strict=True):
+        # signed distance from each side, positive inside (clockwise polygon, y down)
+        distance = ((x1 - x0) * (py - y0) - (y1 - y0) * (px - x0)) / math.hypot(x1 - x0, y1 - y0)
+        inside &= distance >= inset
+    return inside
 
-    The map repeats its seven colour-blind-safe colours with a different shape; on a
-    printed legend a repeated colour reads as "the same stratum", so the page gives
-    each of the strata it lists a colour of its own.
+
+@lru_cache(maxsize=64)
+def _sprite(shape: str, diameter: float, edge: float) -> tuple[np.ndarray, np.ndarray]:
+    """A marker at canvas scale: flat pixel offsets ``(dy, dx)`` of every inked pixel and
+    whether each is fill (else edge).
+
+    The edge is centred on the outline (half of it outside the shape), as matplotlib strokes.
     """
-    styles = stratum_styles(strata)
-    if len(styles) <= len(PALETTE):
-        return styles
-    shown = min(len(styles), MAX_LEGEND_STRATA)
-    colours = legend_colours(shown)
-    out = {}
-    for i, (name, style) in enumerate(styles.items()):
-        out[name] = {**style, "colour": colours[i]} if i < shown else dict(style)
-    return out
+    reach = int(math.ceil(0.75 * diameter + edge)) + 1
+    dy, dx = np.mgrid[-reach : reach + 1, -reach : reach + 1].astype(float)
+    outer = _inside(shape, dx, dy, diameter, inset=-edge / 2).ravel()
+    inner = _inside(shape, dx, dy, diameter, inset=edge / 2).ravel()
+    offsets = np.column_stack([dy.ravel()[outer], dx.ravel()[outer]]).astype(np.int64)
+    return offsets, inner[outer]
 
 
-def nice_length(span_m: float) -> float:
-    """Largest 1-2-5 x 10^k length not above ``span_m`` (at least 1 m)."""
-    if not span_m > 1:
-        return 1.0
-    power = 10 ** math.floor(math.log10(span_m))
-    for step in (5, 2, 1):
-        if step * power <= span_m:
-            return float(step * power)
-    return float(power)
+def _stamp(
+    canvas: np.ndarray,
+    xy: np.ndarray,
+    shapes: np.ndarray,
+    fill: np.ndarray,
+    edge_index: int,
+    diameter: float,
+    edge: float,
+) -> None:
+    """Stamp markers into ``canvas`` (a 2-D array of palette indices), one array assignment per shape.
 
-
-def true_north_bearing(crs, x: float, y: float) -> float:
-    """Direction of true north at ``(x, y)``, in degrees clockwise from the map's grid north.
-
-    Found by stepping 0.001 degree north in latitude and projecting back, so it
-    equals minus the meridian convergence of the projection at that spot.
+    ``xy`` are canvas pixel coordinates, ``shapes`` the shape name and ``fill`` the palette
+    index of each point. Points of one shape are drawn in array order (later ones on top).
     """
-    from pyproj import Transformer
+    if not len(xy):
+        return
+    h, w = canvas.shape
+    flat = canvas.reshape(-1)
+    ij = np.rint(xy).astype(np.int64)
+    for shape in dict.fromkeys(shapes.tolist()):
+        offsets, is_fill = _sprite(shape, float(diameter), float(edge))
+        reach = int(np.abs(offsets).max(initial=0))
+        sel = (shapes == shape) & (ij[:, 0] >= reach) & (ij[:, 0] < w - reach)
+        sel &= (ij[:, 1] >= reach) & (ij[:, 1] < h - reach)
+        base = ij[sel, 1] * w + ij[sel, 0]
+        target = base[:, None] + (offsets[:, 0] * w + offsets[:, 1])[None, :]
+        values = np.where(is_fill[None, :], fill[sel][:, None], np.uint8(edge_index)).astype(np.uint8)
+        flat[target.ravel()] = values.ravel()
 
-    to_geo = Transformer.from_crs(crs, 4326, always_xy=True)
-    to_map = Transformer.from_crs(4326, crs, always_xy=True)
-    lon, lat = to_geo.transform(x, y)
-    step = -0.001 if lat > 89.0 else 0.001
-    x2, y2 = to_map.transform(lon, lat + step)
-    dx, dy = (x2 - x) * np.sign(step), (y2 - y) * np.sign(step)
-    return math.degrees(math.atan2(dx, dy))
+
+# ---------------------------------------------------------------------------- Pillow renderer
 
 
-def _patches(geoms, **style):
+class _Palette:
+    """Colours of the palette canvas: index 0 is the paper."""
+
+    def __init__(self) -> None:
+        self.index: dict[str, int] = {}
+        self.add(COLOURS["paper"])
+
+    def add(self, colour: str) -> int:
+        key = colour.lower()
+        if key not in self.index:
+            self.index[key] = len(self.index)
+        return self.index[key]
+
+    def __getitem__(self, colour: str) -> int:
+        return self.add(colour)
+
+    def flat(self) -> list[int]:
+        out: list[int] = []
+        for colour in self.index:
+            out.extend(_rgb(colour))
+        return out
+
+
+class _Pixels:
+    """A region of the palette canvas as a writable array; pasted back on exit."""
+
+    def __init__(self, canvas: Any, box: tuple[int, int, int, int], pal: _Palette) -> None:
+        self.canvas, self.box, self.pal = canvas, box, pal
+
+    def __enter__(self) -> np.ndarray:
+        self.array = np.array(self.canvas.crop(self.box))
+        return self.array
+
+    def __exit__(self, *exc: object) -> None:
+        from PIL import Image
+
+        h, w = self.array.shape
+        image = Image.frombuffer("P", (w, h), np.ascontiguousarray(self.array), "raw", "P", 0, 1)
+        self.canvas.paste(image, self.box[:2])
+
+
+def _fill_rings(canvas: Any, rings: Rings, fill: int, hatch: int | None = None) -> None:
+    """Fill polygons (holes left open) through one mask, and hatch them if asked."""
+    from PIL import Image, ImageDraw
+
+    ss = SUPERSAMPLE
+    x0, y0 = (max(int(v), 0) for v in np.floor(rings.xy.min(axis=0) * ss) - 2)
+    x1, y1 = np.ceil(rings.xy.max(axis=0) * ss).astype(int) + 2
+    x1, y1 = min(int(x1), canvas.width), min(int(y1), canvas.height)
+    if x1 <= x0 or y1 <= y0:
+        return
+    mask = Image.new("L", (x1 - x0, y1 - y0), 0)
+    draw = ImageDraw.Draw(mask)
+    xy = rings.xy * ss - np.array([x0, y0])
+    for i in range(len(rings)):  # one C call per ring; holes after their exterior
+        ring = xy[rings.start[i] : rings.start[i + 1]]
+        if len(ring) >= 3:
+            draw.polygon(ring.ravel().tolist(), fill=0 if rings.hole[i] else 255)
+    box = (x0, y0, x1, y1)
+    canvas.paste(fill, box, mask)
+    if hatch is not None:
+        period, width = _HATCH_PERIOD * ss, _HATCH_WIDTH * ss * math.sqrt(2)
+        yy, xx = np.ogrid[y0:y1, x0:x1]
+        hatched = (np.asarray(mask) > 0) & (((xx + yy) % period) < width)
+        canvas.paste(hatch, box, Image.fromarray(hatched.astype(np.uint8) * 255, "L"))
+
+
+def _stroke_rings(canvas: Any, rings: Rings, edge: int, width_px: float) -> np.ndarray:
+    """Stroke every ring (one C call per ring); returns the vertices, where round joins go."""
+    from PIL import ImageDraw
+
+    draw = ImageDraw.Draw(canvas)
+    width = max(int(round(width_px * SUPERSAMPLE)), 1)
+    xy = rings.xy * SUPERSAMPLE
+    for i in range(len(rings)):
+        ring = xy[rings.start[i] : rings.start[i + 1]]
+        if len(ring) >= 2:
+            draw.line(ring.ravel().tolist(), fill=edge, width=width)
+    return xy
+
+
+def _round_joins(
+    arr: np.ndarray, vertices: np.ndarray, origin: tuple[int, int], edge: int, width_px: float
+) -> None:
+    """Discs at the vertices of stroked rings: round joins, stamped in one pass."""
+    if len(vertices):
+        diameter = max(round(width_px * SUPERSAMPLE), 1)
+        shapes = np.full(len(vertices), "circle", dtype=object)
+        fill = np.full(len(vertices), edge, dtype=np.uint8)
+        _stamp(arr, vertices - np.asarray(origin), shapes, fill, edge, float(diameter), 0.0)
+
+
+def _draw_arrow(draw: Any, arrow: dict, ink: int) -> None:
+    ss = SUPERSAMPLE
+    tip = np.asarray(arrow["tip"])
+    tail = np.asarray(arrow["tail"])
+    head = np.asarray(arrow["head"])
+    base = head[1:].mean(axis=0)
+    # the shaft stops inside the head so its square end never shows beside the tip
+    shaft_end = base + (tip - base) * 0.3
+    draw.line([*(tail * ss), *(shaft_end * ss)], fill=ink, width=int(round(arrow["width"] * ss)))
+    draw.polygon((head * ss).ravel().tolist(), fill=ink)
+
+
+def _draw_scale_bar(draw: Any, bar: dict, pal: _Palette) -> None:
+    ss = SUPERSAMPLE
+    x0, y0, x1, y1 = (v * ss for v in bar["box"])
+    draw.rectangle((x0, y0, x1, y1), fill=pal[COLOURS["paper"]], outline=pal[COLOURS["frame"]], width=ss)
+    bar_box = (bar["x0"] * ss, bar["y"] * ss, bar["x1"] * ss, (bar["y"] + bar["height"]) * ss)
+    draw.rectangle(bar_box, fill=pal[COLOURS["ink"]])
+
+
+def _swatch_ring(cx: float, cy: float) -> Rings:
+    w, h = SWATCH_HALF
+    ring = np.array(
+        [(cx - w, cy - h), (cx + w, cy - h), (cx + w, cy + h), (cx - w, cy + h), (cx - w, cy - h)]
+    )
+    return Rings(ring, np.array([0, 5]), np.array([False]))
+
+
+def _legend_swatches(canvas: Any, layout: PageLayout, pal: _Palette) -> None:
+    from PIL import ImageDraw
+
+    ss = SUPERSAMPLE
+    draw = ImageDraw.Draw(canvas)
+    x0, y0, x1, y1 = (int(round(v * ss)) for v in layout.legend_box)
+    draw.rectangle(
+        (x0, y0, x1, y1), fill=pal[COLOURS["paper"]], outline=pal[COLOURS["legend_edge"]], width=ss
+    )
+    for entry in layout.legend:
+        if entry.kind == "block":
+            rings = _swatch_ring(*entry.swatch)
+            _fill_rings(canvas, rings, pal[COLOURS["block"]])
+            _stroke_rings(canvas, rings, pal[COLOURS["block_edge"]], BLOCK_EDGE_PX)
+        elif entry.kind == "exclusion":
+            rings = _swatch_ring(*entry.swatch)
+            _fill_rings(canvas, rings, pal[COLOURS["exclusion"]], hatch=pal[COLOURS["exclusion_edge"]])
+            _stroke_rings(canvas, rings, pal[COLOURS["exclusion_edge"]], EXCLUSION_EDGE_PX)
+    markers = [e for e in layout.legend if e.kind == "marker"]
+    if markers:
+        with _Pixels(canvas, (x0, y0, x1, y1), pal) as arr:
+            xy = np.array([e.swatch for e in markers]) * ss - np.array([x0, y0])
+            shapes = np.array([e.shape for e in markers], dtype=object)
+            fill = np.array([pal[e.colour] for e in markers], dtype=np.uint8)
+            _stamp(
+                arr,
+                xy,
+                shapes,
+                fill,
+                pal[COLOURS["marker_edge"]],
+                layout.legend_marker * ss,
+                MARKER_EDGE_PX * ss,
+            )
+
+
+def _draw_text(draw: Any, text: Text) -> None:
+    face = font(text.size, text.bold)
+    options: dict[str, Any] = {"fill": _rgb(text.colour), "font": face}
+    if text.halo:
+        options |= {"stroke_width": HALO_PX, "stroke_fill": (255, 255, 255)}
+    try:
+        draw.text((text.x, text.y), text.text, anchor=text.anchor, **options)
+    except ValueError:  # a bitmap stand-in font takes no anchor
+        draw.text((text.x, text.y), text.text, **options)
+
+
+def _draw_map(canvas: Any, layout: PageLayout, pal: _Palette) -> None:
+    """Blocks, exclusions and points, clipped to the frame; round joins and points stamped as arrays."""
+    from PIL import ImageDraw
+
+    ss = SUPERSAMPLE
+    frame = tuple(int(round(v * ss)) for v in layout.frame)
+    origin = frame[:2]
+    if len(layout.blocks):
+        _fill_rings(canvas, layout.blocks, pal[COLOURS["block"]])
+        joins = _stroke_rings(canvas, layout.blocks, pal[COLOURS["block_edge"]], BLOCK_EDGE_PX)
+        with _Pixels(canvas, frame, pal) as arr:
+            _round_joins(arr, joins, origin, pal[COLOURS["block_edge"]], BLOCK_EDGE_PX)
+    joins = np.empty((0, 2))
+    if len(layout.exclusions):
+        _fill_rings(
+            canvas, layout.exclusions, pal[COLOURS["exclusion"]], hatch=pal[COLOURS["exclusion_edge"]]
+        )
+        joins = _stroke_rings(canvas, layout.exclusions, pal[COLOURS["exclusion_edge"]], EXCLUSION_EDGE_PX)
+    with _Pixels(canvas, frame, pal) as arr:
+        _round_joins(arr, joins, origin, pal[COLOURS["exclusion_edge"]], EXCLUSION_EDGE_PX)
+        styles = layout.styles
+        shapes = np.array([s["shape"] for s in styles], dtype=object)[layout.point_style]
+        fill = np.array([pal[s["colour"]] for s in styles], dtype=np.uint8)[layout.point_style]
+        xy = layout.points * ss - np.asarray(origin)
+        _stamp(arr, xy, shapes, fill, pal[COLOURS["marker_edge"]], layout.marker * ss, MARKER_EDGE_PX * ss)
+    draw = ImageDraw.Draw(canvas)
+    fx0, fy0, fx1, fy1 = frame
+    for x0, y0, x1, y1 in (
+        (0, 0, canvas.width, fy0),
+        (0, fy1, canvas.width, canvas.height),
+        (0, 0, fx0, canvas.height),
+        (fx1, 0, canvas.width, canvas.height),
+    ):
+        if x1 > x0 and y1 > y0:
+            draw.rectangle((x0, y0, x1 - 1, y1 - 1), fill=0)
+    draw.rectangle(frame, outline=pal[COLOURS["frame"]], width=max(int(round(FRAME_PX * ss)), 1))
+
+
+def render_png(layout: PageLayout) -> bytes:
+    """Draw ``layout`` with Pillow and return PNG bytes (150 dpi, no software tag).
+
+    Shapes go on a palette canvas at :data:`SUPERSAMPLE` times the resolution, which is
+    averaged down (``Image.reduce``, a box filter) for antialiasing; text is drawn after,
+    at the final size, antialiased by FreeType.
+    """
+    from PIL import Image, ImageDraw
+
+    ss = SUPERSAMPLE
+    width, height = layout.size
+    pal = _Palette()
+    for colour in [*COLOURS.values(), *(s["colour"] for s in layout.styles)]:
+        pal.add(colour)
+    canvas = Image.new("P", (width * ss, height * ss), 0)
+    _draw_map(canvas, layout, pal)
+    draw = ImageDraw.Draw(canvas)
+    _draw_scale_bar(draw, layout.scale_bar, pal)
+    _draw_arrow(draw, layout.arrow, pal[COLOURS["ink"]])
+    _legend_swatches(canvas, layout, pal)
+
+    canvas.putpalette(pal.flat())
+    page = canvas.convert("RGB").reduce(ss)
+    draw = ImageDraw.Draw(page)
+    texts = [*layout.labels, layout.arrow["label"], layout.scale_bar["label"], layout.legend_title]
+    texts += [entry.label for entry in layout.legend] + list(layout.texts)
+    for text in texts:
+        _draw_text(draw, text)
+    buf = io.BytesIO()
+    page.save(buf, format="PNG", dpi=(layout.dpi, layout.dpi), compress_level=PNG_COMPRESSION)
+    return buf.getvalue()
+
+
+# ---------------------------------------------------------------------------- matplotlib renderer (PDF)
+
+
+def _patches(geoms: Any, **style: Any) -> Any:
     """One path patch per polygon (exterior, then holes), built from shapely's coordinate arrays."""
+    import shapely
     from matplotlib.collections import PatchCollection
     from matplotlib.patches import PathPatch
     from matplotlib.path import Path as MplPath
@@ -155,294 +431,216 @@ def _patches(geoms, **style):
     codes[np.r_[new_ring[1:], True]] = MplPath.CLOSEPOLY
     cuts = np.flatnonzero(np.diff(ring_poly[vert_ring])) + 1
     patches = [
-        PathPatch(MplPath(v, c))
-        for v, c in zip(np.split(verts, cuts), np.split(codes, cuts), strict=True)
+        PathPatch(MplPath(v, c)) for v, c in zip(np.split(verts, cuts), np.split(codes, cuts), strict=True)
     ]
     return PatchCollection(patches, match_original=False, **style)
 
 
-def _scatter_by_marker(ax, xy: np.ndarray, strata: np.ndarray, styles: dict, size: float) -> None:
-    """Points of many strata: one scatter per marker shape, colours per point.
+def _ring_patches(rings: Rings, **style: Any) -> Any:
+    """The layout's rings as one matplotlib collection (a path per polygon)."""
+    from matplotlib.collections import PatchCollection
+    from matplotlib.patches import PathPatch
+    from matplotlib.path import Path as MplPath
 
-    Points keep the strata's order inside each shape; one call per stratum
-    would cost a matplotlib collection per stratum.
-    """
-    names = list(styles)
-    index = {name: i for i, name in enumerate(names)}
-    uniq, inverse = np.unique(strata, return_inverse=True)
-    code = np.array([index[u] for u in uniq.tolist()], dtype=np.int64)[inverse.ravel()]
-    shapes = np.array([styles[n]["shape"] for n in names], dtype=object)
-    colours = np.array([styles[n]["colour"] for n in names], dtype=object)
-    order = np.argsort(code, kind="stable")
-    for shape in dict.fromkeys(shapes.tolist()):
-        sel = order[shapes[code[order]] == shape]
-        if not sel.size:
-            continue
-        ax.scatter(
-            xy[sel, 0],
-            xy[sel, 1],
-            s=size,
-            marker=MARKERS[shape],
-            c=colours[code[sel]].tolist(),
-            edgecolors="#1a1a1a",
-            linewidths=0.5,
-            zorder=3,
-        )
+    if not len(rings):
+        return PatchCollection([], match_original=False, **style)
+    n = len(rings.xy)
+    codes = np.full(n, MplPath.LINETO, dtype=MplPath.code_type)
+    codes[rings.start[:-1]] = MplPath.MOVETO
+    codes[rings.start[1:] - 1] = MplPath.CLOSEPOLY
+    polygon = np.cumsum(~rings.hole) - 1
+    cuts = rings.start[1:-1][np.diff(polygon) != 0]
+    patches = [
+        PathPatch(MplPath(v, c)) for v, c in zip(np.split(rings.xy, cuts), np.split(codes, cuts), strict=True)
+    ]
+    return PatchCollection(patches, match_original=False, **style)
 
 
-# Where the north arrow may go, in axes fraction: its centre, tried in this order (the
-# scale bar holds the lower left). Each spot is a box of _ARROW_BOX around the centre.
-_ARROW_SPOTS = ((0.94, 0.88), (0.06, 0.88), (0.94, 0.14))
-_ARROW_BOX = (0.10, 0.20)
+_ISOLATES = dict.fromkeys(range(0x2066, 0x206A))
+_VA = {"a": "top", "m": "center", "s": "baseline", "d": "bottom"}
+_HA = {"l": "left", "m": "center", "r": "right"}
 
 
-def _north_arrow(fig, ax, north: float, occupied: np.ndarray, halo) -> None:
-    """Draw the north arrow in a map corner with no point or label under it, else beside the map.
+def _mpl_text(ax: Any, text: Text) -> None:
+    from matplotlib.patheffects import withStroke
 
-    ``occupied`` are data coordinates of points and block labels. The arrow and its
-    "N" carry ``gid="north-arrow"`` so tests can find them.
-    """
-    frac = ax.transAxes.inverted().transform(ax.transData.transform(occupied)) if len(occupied) else occupied
-    spot, transform, target = None, ax.transAxes, ax
-    half_w, half_h = _ARROW_BOX[0] / 2, _ARROW_BOX[1] / 2
-    for cx, cy in _ARROW_SPOTS:
-        if not len(frac) or not (
-            (np.abs(frac[:, 0] - cx) <= half_w) & (np.abs(frac[:, 1] - cy) <= half_h)
-        ).any():
-            spot = (cx, cy)
-            break
-    if spot is None:
-        # Every corner holds points: the arrow goes in the margin right of the map, below the legend.
-        box = ax.get_position()
-        spot, transform, target = (box.x1 + 0.03, box.y0 + 0.08), fig.transFigure, fig
-    cx, cy = spot
-    length = 0.08 if target is ax else 0.06
-    dx = length * math.sin(math.radians(north))
-    dy = length * math.cos(math.radians(north))
-    if target is fig:
-        # Figure fractions are not square on A4 landscape: keep the arrow's true direction.
-        width, height = fig.get_size_inches()
-        dx *= height / width
-    arrow = ax.annotate(
-        "",
-        xy=(cx + dx / 2, cy + dy / 2),
-        xytext=(cx - dx / 2, cy - dy / 2),
-        xycoords=transform,
-        annotation_clip=False,
-        arrowprops={"arrowstyle": "-|>,head_width=0.4,head_length=0.8", "color": "#111111", "linewidth": 2},
-    )
-    arrow.set_gid("north-arrow")
-    label = ax.text(
-        cx + 0.7 * dx,
-        cy + 0.7 * dy,
-        "N",
-        transform=transform,
-        ha="center",
-        va="center",
-        fontsize=11,
-        fontweight="bold",
-        path_effects=halo,
-        parse_math=False,
+    ax.text(
+        text.x,
+        text.y,
+        text.text.translate(_ISOLATES),  # matplotlib lays text out left to right, without bidi
+        fontsize=text.size,
+        fontweight="bold" if text.bold else "normal",
+        color=text.colour,
+        ha=_HA[text.anchor[0]],
+        va=_VA[text.anchor[1]],
+        parse_math=False,  # a '$' in a name is text, not TeX
+        path_effects=[withStroke(linewidth=3, foreground="white")] if text.halo else None,
+        zorder=8,
         clip_on=False,
     )
-    label.set_gid("north-arrow")
 
 
-def _text(ax, x, y, s, **kw):
-    # parse_math=False: a '$' in a block or stratum name is text, not TeX.
-    return ax.text(x, y, s, parse_math=False, **kw)
-
-
-def plan_figure(plan: Any, *, title: str | None = None):
-    """Build the page as a :class:`matplotlib.figure.Figure` (Agg canvas attached)."""
+def render_figure(layout: PageLayout) -> Any:
+    """Draw ``layout`` on a :class:`matplotlib.figure.Figure` (Agg canvas attached), in page pixels."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
-    from matplotlib.lines import Line2D
-    from matplotlib.patches import Patch
-    from matplotlib.patheffects import withStroke
-    from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
+    from matplotlib.patches import Polygon, Rectangle
 
-    from fieldplan.safety import plan_cautions
-
-    caption = plan_caption(plan)
-    fig = Figure(figsize=A4_LANDSCAPE_IN, dpi=DPI)
+    width, height = layout.size
+    fig = Figure(figsize=A4_LANDSCAPE_IN, dpi=layout.dpi)  # the layout spans the whole page
     FigureCanvasAgg(fig)
-    ax = fig.add_axes((0.03, 0.12, 0.70, 0.78))
-    ax.set_aspect("equal")
-    ax.set_xticks([])
-    ax.set_yticks([])
-    for spine in ax.spines.values():
-        spine.set_color("#888888")
-
-    blocks = plan.blocks
-    halo = [withStroke(linewidth=3, foreground="white")]
-    ax.add_collection(
-        _patches(blocks.geometry.values, facecolor="#fbfbf7", edgecolor="#333333", linewidth=1.2)
+    ax = fig.add_axes((0, 0, 1, 1))
+    ax.set_xlim(0, width)
+    ax.set_ylim(height, 0)
+    ax.set_axis_off()
+    fx0, fy0, fx1, fy1 = layout.frame
+    clip = Rectangle((fx0, fy0), fx1 - fx0, fy1 - fy0, transform=ax.transData, facecolor="none")
+    pt = 1 / PX_PER_PT
+    blocks = _ring_patches(
+        layout.blocks, facecolor=COLOURS["block"], edgecolor=COLOURS["block_edge"], linewidth=1.2
     )
-    exclusions = getattr(plan, "exclusions", None)
-    if exclusions is not None and len(exclusions):
-        ax.add_collection(
-            _patches(
-                exclusions.to_crs(plan.crs).geometry.values,
-                facecolor="#d9d9d9",
-                edgecolor="#555555",
-                hatch="////",
-                linestyle="--",
-                linewidth=0.8,
-            )
-        )
-
-    points = plan.points
-    styles = page_styles(points["stratum"].astype(str)) if len(points) else {}
-    xy = shapely.get_coordinates(points.geometry.values) if len(points) else np.empty((0, 2))
-    strata = points["stratum"].astype(str).to_numpy() if len(points) else np.array([])
-    size = 28 if len(points) < 500 else (14 if len(points) < 5000 else 4)
-    handles = []
-    if len(styles) > MAX_LEGEND_STRATA:
-        _scatter_by_marker(ax, xy, strata, styles, size)
-    for i, (name, style) in enumerate(styles.items()):
-        if i >= MAX_LEGEND_STRATA:
-            break
-        mask = strata == name
-        marker = MARKERS[style["shape"]]
-        if len(styles) <= MAX_LEGEND_STRATA:
-            ax.scatter(
-                xy[mask, 0],
-                xy[mask, 1],
-                s=size,
-                marker=marker,
+    excl = _ring_patches(
+        layout.exclusions,
+        facecolor=COLOURS["exclusion"],
+        edgecolor=COLOURS["exclusion_edge"],
+        hatch="////",
+        linestyle="--",
+        linewidth=0.8,
+    )
+    for collection in (blocks, excl):
+        ax.add_collection(collection)
+        collection.set_clip_path(clip)
+    xy, codes = layout.points, layout.point_style
+    for code, style in enumerate(layout.styles):
+        sel = codes == code
+        if sel.any():
+            dots = ax.scatter(
+                xy[sel, 0],
+                xy[sel, 1],
+                s=(layout.marker * pt) ** 2,
+                marker=MARKERS[style["shape"]],
                 c=style["colour"],
-                edgecolors="#1a1a1a",
+                edgecolors=COLOURS["marker_edge"],
                 linewidths=0.5,
                 zorder=3,
             )
-        handles.append(
-            Line2D(
-                [],
-                [],
-                linestyle="none",
-                marker=marker,
-                markersize=7,
-                markerfacecolor=style["colour"],
-                markeredgecolor="#1a1a1a",
-                label=f"Stratum {name} ({int(mask.sum())})",
-            )
-        )
-    if len(styles) > MAX_LEGEND_STRATA:
-        handles.append(Patch(color="none", label=f"... and {len(styles) - MAX_LEGEND_STRATA} more strata"))
-
-    labelled = 0 < len(blocks) <= MAX_LABELLED_BLOCKS
-    if labelled:
-        anchors = shapely.get_coordinates(shapely.point_on_surface(blocks.geometry.values))
-        varieties = blocks["variety"].tolist() if "variety" in blocks else [None] * len(blocks)
-        for (x, y), name, variety in zip(anchors, blocks["block"].tolist(), varieties, strict=True):
-            label = str(name)
-            if isinstance(variety, str) and variety:
-                label += "\n" + variety
-            _text(
-                ax,
-                x,
-                y,
-                label,
-                ha="center",
-                va="center",
-                fontsize=7,
-                fontweight="bold",
-                color="#222222",
-                path_effects=halo,
-                zorder=4,
-            )
-
-    # Frame: the blocks' extent (or the points') with a margin.
-    frame = blocks if len(blocks) else points
-    if len(frame):
-        minx, miny, maxx, maxy = (float(v) for v in frame.total_bounds)
-    else:
-        minx, miny, maxx, maxy = 0.0, 0.0, 100.0, 100.0
-    pad = 0.05 * max(maxx - minx, maxy - miny, 10.0)
-    ax.set_xlim(minx - pad, maxx + pad)
-    ax.set_ylim(miny - pad, maxy + pad)
-    ax.apply_aspect()
-    x0, x1 = ax.get_xlim()
-    y0, y1 = ax.get_ylim()
-
-    bar = nice_length((x1 - x0) / 5)
-    bar_label = f"{bar / 1000:g} km" if bar >= 1000 else f"{bar:g} m"
-    ax.add_artist(
-        AnchoredSizeBar(
-            ax.transData,
-            bar,
-            bar_label,
-            "lower left",
-            pad=0.6,
-            frameon=True,
-            size_vertical=(y1 - y0) / 300,
-            color="#111111",
-            fontproperties={"size": 8},
+            dots.set_clip_path(clip)
+    ax.add_patch(
+        Rectangle(
+            (fx0, fy0), fx1 - fx0, fy1 - fy0, fill=False, edgecolor=COLOURS["frame"], linewidth=0.8, zorder=4
         )
     )
+    for text in layout.labels:
+        _mpl_text(ax, text)
 
-    north = true_north_bearing(plan.crs, (x0 + x1) / 2, (y0 + y1) / 2)
-    occupied = xy
-    if labelled:
-        occupied = np.concatenate([xy, anchors]) if len(xy) else anchors
-    _north_arrow(fig, ax, north, occupied, halo)
-
-    handles.append(Patch(facecolor="#fbfbf7", edgecolor="#333333", label="Block (id, variety)"))
-    if exclusions is not None and len(exclusions):
-        handles.append(
-            Patch(
-                facecolor="#d9d9d9",
-                edgecolor="#555555",
-                hatch="////",
-                linestyle="--",
-                label="Exclusion (not sampled)",
-            )
+    bar = layout.scale_bar
+    bx0, by0, bx1, by1 = bar["box"]
+    ax.add_patch(
+        Rectangle(
+            (bx0, by0),
+            bx1 - bx0,
+            by1 - by0,
+            facecolor="white",
+            edgecolor=COLOURS["frame"],
+            linewidth=0.5,
+            zorder=6,
         )
-    legend = fig.legend(
-        handles=handles,
-        loc="upper left",
-        bbox_to_anchor=(0.75, 0.90),
-        fontsize=7,
-        frameon=True,
-        title="Legend",
-        title_fontsize=8,
     )
-    for text in legend.get_texts():
-        text.set_parse_math(False)
+    ax.add_patch(
+        Rectangle((bar["x0"], bar["y"]), bar["x1"] - bar["x0"], bar["height"], color=COLOURS["ink"], zorder=7)
+    )
+    _mpl_text(ax, bar["label"])
+    arrow = layout.arrow
+    head = np.asarray(arrow["head"])
+    base = head[1:].mean(axis=0)
+    end = base + (np.asarray(arrow["tip"]) - base) * 0.3
+    ax.plot(
+        [arrow["tail"][0], end[0]],
+        [arrow["tail"][1], end[1]],
+        color=COLOURS["ink"],
+        linewidth=arrow["width"] * pt,
+        zorder=6,
+        solid_capstyle="butt",
+    )
+    ax.add_patch(Polygon(head, closed=True, color=COLOURS["ink"], zorder=6))
+    _mpl_text(ax, arrow["label"])
 
-    head = title or f"Sampling plan {caption['plan_id']}"
-    fig.text(0.03, 0.955, head, fontsize=13, fontweight="bold", parse_math=False)
-    sub = (
-        f"Seed {caption['seed']}   Date {caption['date'] or '-'}   Design {caption['design'] or '-'}"
-        f"   {plural(len(points), 'point')} in {plural(len(blocks), 'block')}   CRS {plan.crs.name}"
+    lx0, ly0, lx1, ly1 = layout.legend_box
+    ax.add_patch(
+        Rectangle(
+            (lx0, ly0),
+            lx1 - lx0,
+            ly1 - ly0,
+            facecolor="white",
+            edgecolor=COLOURS["legend_edge"],
+            linewidth=0.8,
+            zorder=4,
+        )
     )
-    if len(blocks) > MAX_LABELLED_BLOCKS:
-        sub += f"   Block labels left out (over {MAX_LABELLED_BLOCKS} blocks): see map.html or points.csv"
-    fig.text(0.03, 0.925, sub, fontsize=8, parse_math=False)
-    cautions = "Cautions: " + " ".join(str(c) for c in plan_cautions(plan))
-    fig.text(
-        0.03,
-        0.095,
-        "\n".join(textwrap.wrap(cautions, 190)),
-        fontsize=6.5,
-        va="top",
-        parse_math=False,
-        color="#333333",
-    )
+    _mpl_text(ax, layout.legend_title)
+    for entry in layout.legend:
+        cx, cy = entry.swatch
+        if entry.kind == "marker":
+            ax.scatter(
+                [cx],
+                [cy],
+                s=(layout.legend_marker * pt) ** 2,
+                marker=MARKERS[entry.shape],
+                c=entry.colour,
+                edgecolors=COLOURS["marker_edge"],
+                linewidths=0.5,
+                zorder=5,
+            )
+        elif entry.kind == "block":
+            ax.add_patch(
+                Rectangle(
+                    (cx - SWATCH_HALF[0], cy - SWATCH_HALF[1]),
+                    2 * SWATCH_HALF[0],
+                    2 * SWATCH_HALF[1],
+                    facecolor=COLOURS["block"],
+                    edgecolor=COLOURS["block_edge"],
+                    linewidth=1.2,
+                    zorder=5,
+                )
+            )
+        elif entry.kind == "exclusion":
+            ax.add_patch(
+                Rectangle(
+                    (cx - SWATCH_HALF[0], cy - SWATCH_HALF[1]),
+                    2 * SWATCH_HALF[0],
+                    2 * SWATCH_HALF[1],
+                    facecolor=COLOURS["exclusion"],
+                    edgecolor=COLOURS["exclusion_edge"],
+                    hatch="////",
+                    linestyle="--",
+                    linewidth=0.8,
+                    zorder=5,
+                )
+            )
+        _mpl_text(ax, entry.label)
+    for text in layout.texts:
+        _mpl_text(ax, text)
     return fig
+
+
+def plan_figure(plan: Any, *, title: str | None = None) -> Any:
+    """The page as a :class:`matplotlib.figure.Figure` (for the PDF and notebooks)."""
+    return render_figure(page_layout(plan, title=title))
 
 
 def plan_image_bytes(plan: Any, *, fmt: str = "png") -> bytes:
     """Render the page as PNG or PDF bytes; identical plans give identical bytes."""
-    metadata = {"png": {"Software": None}, "pdf": {"CreationDate": None, "Producer": None}}
-    if fmt not in metadata:
+    if fmt not in ("png", "pdf"):
         from fieldplan.errors import OptionError
 
         raise OptionError(f"printable page format must be 'png' or 'pdf', got {fmt!r}")
-    fig = plan_figure(plan)
+    layout = page_layout(plan)
+    if fmt == "png":
+        return render_png(layout)
     buf = io.BytesIO()
-    fig.savefig(buf, format=fmt, dpi=DPI, metadata=metadata[fmt])
+    render_figure(layout).savefig(
+        buf, format="pdf", dpi=DPI, metadata={"CreationDate": None, "Producer": None}
+    )
     return buf.getvalue()
 
 
