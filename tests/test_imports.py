@@ -107,7 +107,8 @@ def test_cluster_core_plan_loads_no_compiler_and_no_scipy(tmp_path):
     assert _heavy(loaded, ("numba", "llvmlite", "scipy", "matplotlib", "sklearn")) == []
 
 
-def test_png_page_loads_no_matplotlib(tmp_path):
+def test_png_page_loads_no_matplotlib(tmp_path, monkeypatch):
+    monkeypatch.setenv("FIELDPLAN_WRITE_JOBS", "1")  # every writer in the probed process
     loaded = _loaded(
         ["plan", str(DEMO), "--spacing", "40", "--seed", "7", "--formats", "png", "--out", str(tmp_path / "p"), "-q"]
     )
