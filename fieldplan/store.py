@@ -282,11 +282,17 @@ def _run_writers(plan, stage: Path, writers: list[Callable]) -> None:
     points = getattr(plan, "points", None)
     if points is not None:
         points_lonlat(points)  # projected once, before the fork, for the writers on both sides
-    for stream in (sys.stdout, sys.stderr):
-        stream.flush()  # else text buffered before the fork could be printed twice
+    _flush()  # else text buffered before the fork could be printed twice
     read_end, write_end = os.pipe()
     parent = os.getpid()
-    pid = os.fork()
+    try:
+        pid = os.fork()
+    except OSError:  # no process to spare (EAGAIN, ENOMEM): write here, one after another
+        os.close(read_end)
+        os.close(write_end)
+        for writer in writers:
+            writer(plan, stage)
+        return
     if pid == 0:  # the child: never returns
         os.close(read_end)
         _child_writes(plan, stage, theirs, write_end, parent)
@@ -327,8 +333,18 @@ def _child_writes(plan, stage: Path, writers: list[Callable], pipe: int, parent:
         code = 0
     finally:
         # Never return into the caller's code: its cleanup (the staging folder's swap or
-        # removal, atexit hooks, buffered output) belongs to the parent alone.
+        # removal, atexit hooks) belongs to the parent alone.
+        _flush()
         os._exit(code)
+
+
+def _flush() -> None:
+    for stream in (sys.stdout, sys.stderr):
+        try:
+            if stream is not None:
+                stream.flush()
+        except (OSError, ValueError):  # a closed or broken stream: nothing to keep
+            pass
 
 
 def _die_with(parent: int) -> None:

@@ -241,3 +241,17 @@ def test_split_is_within_grahams_bound_and_keeps_order():
     # Core writers only: nothing to move, no child.
     core = [w for w in writers if w.__name__ not in store.CHILD_WRITERS]
     assert store.split_writers(core) == (core, [])
+
+
+def test_writes_serially_when_no_process_can_be_made(demo_plan, tmp_path, monkeypatch):
+    def no_fork():
+        raise BlockingIOError(errno.EAGAIN, "Resource temporarily unavailable")
+
+    monkeypatch.delenv(store.WRITE_JOBS_ENV, raising=False)
+    monkeypatch.setattr(store.os, "fork", no_fork)
+    monkeypatch.setattr(store, "WRITERS", [w for w in store.WRITERS if w.__name__ != "png_writer"])
+    store.write_plan(demo_plan, tmp_path / "plan")
+    # reference: the writers' own file names (store.FORMATS), every one written
+    assert {"map.html", "points.kml", "points.gpx", "plan.gpkg"} <= {
+        p.name for p in (tmp_path / "plan").iterdir()
+    }
