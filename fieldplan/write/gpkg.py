@@ -23,20 +23,22 @@ GPKG_NAME = "plan.gpkg"
 
 
 @contextmanager
-def _fixed_clock():
+def _fixed_clock(stamp: str | None = None):
     # GDAL stamps gpkg_contents.last_change; pinning it keeps reruns comparable.
     import pyogrio
 
-    epoch = os.environ.get("SOURCE_DATE_EPOCH")
-    if not epoch:
-        yield
-        return
-    stamp = datetime.fromtimestamp(int(epoch), UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    previous = pyogrio.get_gdal_config_option("OGR_CURRENT_DATE")
+    if stamp is None:
+        epoch = os.environ.get("SOURCE_DATE_EPOCH")
+        if not epoch or previous:  # unpinned, or pinned by an enclosing writer already
+            yield
+            return
+        stamp = datetime.fromtimestamp(int(epoch), UTC).strftime("%Y-%m-%dT%H:%M:%S.000Z")
     pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": stamp})
     try:
         yield
     finally:
-        pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": None})
+        pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": previous})
 
 
 def info_table(plan) -> pd.DataFrame:
@@ -108,7 +110,7 @@ def _arrow_ok(frame: gpd.GeoDataFrame, geometry_type: str | None) -> bool:
 
 
 @contextmanager
-def _new_file_mode(path: Path):
+def _new_file_mode(path: Path, *, new: bool = True):
     """SQLite without per-transaction syncs or an on-disk journal, for a file being created.
 
     A new plan.gpkg is written into a staging folder that replaces the plan only
@@ -118,7 +120,7 @@ def _new_file_mode(path: Path):
     """
     import pyogrio
 
-    if path.exists():
+    if new and path.exists():
         raise FileExistsError(f"{path} exists; the fast mode is for a new file only")
     options = {"OGR_SQLITE_SYNCHRONOUS": "OFF", "OGR_SQLITE_JOURNAL": "MEMORY"}
     pyogrio.set_gdal_config_options(options)
@@ -133,16 +135,80 @@ def _new_file_mode(path: Path):
         os.close(fd)
 
 
+def gpkg_layers(plan) -> list[tuple[str, object, str | None]]:
+    """The layers of a new plan.gpkg in order: (name, frame, declared geometry type)."""
+    return [
+        ("blocks", plan.blocks, "MultiPolygon"),
+        ("points", plan.points, "Point"),
+        ("exclusions", plan.exclusions, "MultiPolygon"),
+        ("plan_info", info_table(plan), None),
+        *((name, frame, None) for name, frame in plan.layers.items()),
+    ]
+
+
+def last_change(plan) -> str:
+    """``gpkg_contents.last_change`` of a new plan.gpkg (OGC 12-128r18 Req 15 format).
+
+    ``SOURCE_DATE_EPOCH`` when set, else the plan's creation time, so the same
+    plan writes the same file.
+    """
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    if epoch:
+        moment = datetime.fromtimestamp(int(epoch), UTC)
+    else:
+        created = (getattr(plan, "meta", None) or {}).get("created_utc")
+        try:
+            moment = datetime.fromisoformat(str(created).replace("Z", "+00:00")).astimezone(UTC)
+        except ValueError:
+            moment = datetime.now(UTC)
+    return moment.strftime("%Y-%m-%dT%H:%M:%S.") + f"{moment.microsecond // 1000:03d}Z"
+
+
 def write_gpkg(plan, folder: Path) -> None:
-    """Write a new ``plan.gpkg`` with the plan's layers and ``plan_info``."""
+    """Write a new ``plan.gpkg`` with the plan's layers and ``plan_info``.
+
+    The layers are encoded directly with SQLite (:mod:`fieldplan.write.geopackage`)
+    as GDAL would write them; from the first layer holding a column or geometry
+    that encoder does not write exactly alike, the rest go through GDAL
+    (:func:`write_layer`), so readers see the same file either way.
+    """
+    from fieldplan.write.geopackage import GeoPackage, Unsupported
+
     path = Path(folder) / GPKG_NAME
-    with _new_file_mode(path):
-        write_layer(path, "blocks", plan.blocks, geometry_type="MultiPolygon")
-        write_layer(path, "points", plan.points, geometry_type="Point", fast=True)
-        write_layer(path, "exclusions", plan.exclusions, geometry_type="MultiPolygon")
-        write_layer(path, "plan_info", info_table(plan))
-        for name, frame in plan.layers.items():
-            write_layer(path, name, frame)
+    stamp = last_change(plan)
+    layers = gpkg_layers(plan)
+    store = GeoPackage(path, last_change=stamp)
+    rest: list = []
+    try:
+        for k, (name, frame, geometry_type) in enumerate(layers):
+            store.con.execute("SAVEPOINT layer")
+            try:
+                if isinstance(frame, gpd.GeoDataFrame):
+                    store.add_features(name, _flat(frame), geometry_type=geometry_type)
+                else:
+                    store.add_attributes(name, pd.DataFrame(frame))
+            except Unsupported:
+                store.con.execute("ROLLBACK TO layer")
+                rest = layers[k:]
+                break
+            store.con.execute("RELEASE layer")
+    except BaseException:
+        store.close(commit=False)
+        path.unlink(missing_ok=True)
+        raise
+    store.close()
+    if rest:
+        with _new_file_mode(path, new=False), _fixed_clock(stamp):
+            for name, frame, geometry_type in rest:
+                write_layer(path, name, frame, geometry_type=geometry_type, fast=name == "points")
+
+
+def write_gpkg_with_gdal(plan, folder: Path) -> None:
+    """Write a new ``plan.gpkg`` layer by layer through GDAL (the reference :func:`write_gpkg` matches)."""
+    path = Path(folder) / GPKG_NAME
+    with _new_file_mode(path), _fixed_clock(last_change(plan)):
+        for name, frame, geometry_type in gpkg_layers(plan):
+            write_layer(path, name, frame, geometry_type=geometry_type, fast=name == "points")
 
 
 def read_info(path: Path) -> dict:
