@@ -35,6 +35,7 @@ __all__ = [
     "xml_text",
     "xml_escape",
     "text_escape",
+    "text_escapes",
     "text_column",
     "fill_rows",
     "element_lines",
@@ -137,6 +138,11 @@ def xml_escape(texts) -> np.ndarray:
 def text_escape(text: str) -> str:
     """Escape ``& < >`` in one element text (as :mod:`xml.etree.ElementTree` writes text)."""
     return _escape_one(text, _ELEMENT_ESCAPES)
+
+
+def text_escapes(texts) -> np.ndarray:
+    """:func:`text_escape` over a column of texts (quotes kept, as ElementTree writes text)."""
+    return _escaped(texts, _ELEMENT_ESCAPES)
 
 
 def fill_rows(template: str, *columns) -> str:

@@ -28,6 +28,7 @@ from fieldplan.write.gpx import (
     spare_mask,
     text_column,
     text_escape,
+    text_escapes,
     xml_escape,
     xml_text,
 )
@@ -49,7 +50,7 @@ _POINT_TAIL = (
     "    </Point>\n   </Placemark>\n"
 )
 _AREA = "   <Placemark>\n    <name>%s</name>\n%s    <styleUrl>#%s</styleUrl>\n%s   </Placemark>\n"
-# One ring: the Polygon opened before its first ring, closed after its last; %s are indents.
+# One ring: [Polygon opened] boundary tag, LinearRing, coordinates, [Polygon closed] [end of owner].
 _RING = "%s%s<%s>\n%s <LinearRing>\n%s  %s\n%s </LinearRing>\n%s</%s>\n%s%s"
 _ICON_STYLE = '  <Style id="%s">\n   <IconStyle>\n    <color>%s</color>\n    <scale>%s</scale>\n   </IconStyle>\n  </Style>\n'
 #: Between texts joined into one string; input text cannot hold it (xml_text drops it).
@@ -163,24 +164,15 @@ def _area_placemarks(names, descriptions, style: str, geoms) -> str:
     descriptions = np.asarray(descriptions, dtype=object)[keep]
     # Element text as ElementTree writes it: & < > escaped, quotes kept.
     descriptions = np.where(
-        descriptions != "", "    <description>" + _text_escaped(descriptions) + "</description>\n", ""
+        descriptions != "", "    <description>" + text_escapes(descriptions) + "</description>\n", ""
     )
     return fill_rows(
         _AREA,
-        _text_escaped(names),
+        text_escapes(names),
         descriptions,
         np.full(len(names), style, dtype=object),
         _geometry_texts(geoms[keep]),
     )
-
-
-def _text_escaped(texts) -> np.ndarray:
-    texts = np.asarray(texts, dtype=object)
-    if len(texts) == 0:
-        return texts
-    out = np.empty(len(texts), dtype=object)
-    out[:] = _split_joined(text_escape(_SEP.join(texts.tolist()) + _SEP), len(texts))
-    return out
 
 
 def kml_bytes(plan: Any) -> bytes:
