@@ -623,6 +623,8 @@ def _numeric_column(
     if column is None:
         return np.full(len(frame), np.nan)
     raw = frame[column]
+    if pd.api.types.is_float_dtype(raw.dtype) or pd.api.types.is_integer_dtype(raw.dtype):
+        return raw.to_numpy(dtype=float, na_value=np.nan)  # numbers already: nothing to parse
     values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
     bad = np.flatnonzero(
         np.isnan(values) & raw.notna().to_numpy() & (raw.astype(str).str.strip() != "").to_numpy()
@@ -1106,6 +1108,9 @@ def _text_column(frame: gpd.GeoDataFrame, column: str | None) -> np.ndarray:
     if column is None:
         return np.full(len(frame), None, dtype=object)
     values = frame[column]
+    if isinstance(values.dtype, pd.StringDtype):
+        # Strings or missing values already: the same as the general case below, in one step.
+        return values.to_numpy(dtype=object, na_value=None)
     return np.array(
         [None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v) for v in values],
         dtype=object,
