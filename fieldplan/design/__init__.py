@@ -26,10 +26,13 @@ _LAZY = {
     "fieldplan.design.clusters": (
         "PlantPicks",
         "RowSegments",
+        "block_row_segments",
+        "block_rows_from_lines",
         "cluster_count",
         "cluster_sizes",
         "eligible_plants",
         "pick_plants",
+        "pick_plants_many",
         "row_segments",
         "rows_from_lines",
         "sample_ranks",

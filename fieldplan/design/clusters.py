@@ -338,10 +338,10 @@ def _clip_intervals(full, keep_whole, clip, rows):
     line = row_base[unit] + row
     c_line = row_base[c_unit] + c_row
     # Pair every cut piece with every clip piece of its row line (both sorted by line).
-    lo_i = np.searchsorted(c_line, line, side="left")
-    hi_i = np.searchsorted(c_line, line, side="right")
-    n_pair = np.where(keep_whole, 0, hi_i - lo_i)
-    parent = np.repeat(np.arange(line.size), n_pair)
+    to_cut = np.flatnonzero(~keep_whole)
+    lo_i = np.searchsorted(c_line, line[to_cut], side="left")
+    n_pair = np.searchsorted(c_line, line[to_cut], side="right") - lo_i
+    parent = np.repeat(to_cut, n_pair)
     piece = _ranges(lo_i, n_pair)
     a0 = start[parent]
     lo_u = np.maximum(a0, c_start[piece])
