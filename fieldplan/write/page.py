@@ -614,7 +614,8 @@ def _block_labels(blocks: Any, to_page: Callable[[np.ndarray], np.ndarray]) -> l
             two.append(Text(x, y + step / 2, variety, role="variety", **style))
             # A variety that would run into a label already placed is left out (it is in
             # points.csv and map.html); the block id always stays.
-            if not any(_overlap(t.box(), box) for t in two for box in taken):
+            boxes = [t.box() for t in two]
+            if not any(_overlap(a, b) for a in boxes for b in taken):
                 lines = two
         labels += lines
         taken += [t.box() for t in lines]

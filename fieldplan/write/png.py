@@ -19,6 +19,8 @@ from __future__ import annotations
 
 import io
 import math
+import struct
+import zlib
 from functools import lru_cache
 from pathlib import Path
 from typing import Any
@@ -85,7 +87,7 @@ MARKER_EDGE_PX = 0.5 * PX_PER_PT
 FRAME_PX = 0.8 * PX_PER_PT / 1.5
 HALO_PX = 3  # white outline of labels over points: the 3 pt stroke of the matplotlib page, in px
 SWATCH_HALF = (11.0, 6.5)  # legend swatch of a block or exclusion, half width and height
-#: zlib level of plan.png: 3 writes about as small a file as 6, in two thirds of the time.
+#: zlib level of plan.png: 3 writes a file a fifth larger than 6 in half the time.
 PNG_COMPRESSION = 3
 
 
@@ -195,61 +197,89 @@ class _Palette:
         return out
 
 
+class _Canvas:
+    """The palette image shapes are drawn on: the part of the page from ``origin`` (page px)
+    that holds any shape, at :data:`SUPERSAMPLE` times the page resolution."""
+
+    def __init__(self, origin: tuple[int, int], size: tuple[int, int], pal: _Palette) -> None:
+        from PIL import Image, ImageDraw
+
+        self.origin = np.asarray(origin, dtype=float)
+        self.pal = pal
+        self.image = Image.new("P", (size[0] * SUPERSAMPLE, size[1] * SUPERSAMPLE), 0)
+        self.draw = ImageDraw.Draw(self.image)
+
+    def xy(self, page_xy: Any) -> np.ndarray:
+        """Page pixels to canvas pixels."""
+        return (np.asarray(page_xy, dtype=float) - self.origin) * SUPERSAMPLE
+
+    def box(self, page_box: tuple) -> tuple[int, int, int, int]:
+        """A page box ``(x0, y0, x1, y1)`` in whole canvas pixels, clipped to the canvas."""
+        (x0, y0), (x1, y1) = self.xy([page_box[:2], page_box[2:]])
+        w, h = self.image.size
+        return (
+            min(max(int(np.floor(x0)), 0), w),
+            min(max(int(np.floor(y0)), 0), h),
+            min(max(int(np.ceil(x1)), 0), w),
+            min(max(int(np.ceil(y1)), 0), h),
+        )
+
+    def pixels(self, box: tuple[int, int, int, int]) -> _Pixels:
+        return _Pixels(self.image, box)
+
+
 class _Pixels:
     """A region of the palette canvas as a writable array; pasted back on exit."""
 
-    def __init__(self, canvas: Any, box: tuple[int, int, int, int], pal: _Palette) -> None:
-        self.canvas, self.box, self.pal = canvas, box, pal
+    def __init__(self, image: Any, box: tuple[int, int, int, int]) -> None:
+        self.image, self.box = image, box
 
     def __enter__(self) -> np.ndarray:
-        self.array = np.array(self.canvas.crop(self.box))
+        self.array = np.array(self.image.crop(self.box))
         return self.array
 
     def __exit__(self, *exc: object) -> None:
         from PIL import Image
 
         h, w = self.array.shape
-        image = Image.frombuffer("P", (w, h), np.ascontiguousarray(self.array), "raw", "P", 0, 1)
-        self.canvas.paste(image, self.box[:2])
+        region = Image.frombuffer("P", (w, h), np.ascontiguousarray(self.array), "raw", "P", 0, 1)
+        self.image.paste(region, self.box[:2])
 
 
-def _fill_rings(canvas: Any, rings: Rings, fill: int, hatch: int | None = None) -> None:
+def _fill_rings(canvas: _Canvas, rings: Rings, fill: int, hatch: int | None = None) -> None:
     """Fill polygons (holes left open) through one mask, and hatch them if asked."""
     from PIL import Image, ImageDraw
 
-    ss = SUPERSAMPLE
-    x0, y0 = (max(int(v), 0) for v in np.floor(rings.xy.min(axis=0) * ss) - 2)
-    x1, y1 = np.ceil(rings.xy.max(axis=0) * ss).astype(int) + 2
-    x1, y1 = min(int(x1), canvas.width), min(int(y1), canvas.height)
+    box = canvas.box((*rings.xy.min(axis=0) - 1, *rings.xy.max(axis=0) + 1))
+    x0, y0, x1, y1 = box
     if x1 <= x0 or y1 <= y0:
         return
     mask = Image.new("L", (x1 - x0, y1 - y0), 0)
     draw = ImageDraw.Draw(mask)
-    xy = rings.xy * ss - np.array([x0, y0])
+    xy = canvas.xy(rings.xy) - np.array([x0, y0])
     for i in range(len(rings)):  # one C call per ring; holes after their exterior
         ring = xy[rings.start[i] : rings.start[i + 1]]
         if len(ring) >= 3:
             draw.polygon(ring.ravel().tolist(), fill=0 if rings.hole[i] else 255)
-    box = (x0, y0, x1, y1)
-    canvas.paste(fill, box, mask)
+    canvas.image.paste(fill, box, mask)
     if hatch is not None:
+        ss = SUPERSAMPLE
         period, width = _HATCH_PERIOD * ss, _HATCH_WIDTH * ss * math.sqrt(2)
-        yy, xx = np.ogrid[y0:y1, x0:x1]
+        # the pattern is fixed to the page, so neighbouring exclusions hatch as one
+        ox, oy = (canvas.origin * ss).astype(int)
+        yy, xx = np.ogrid[y0 + oy : y1 + oy, x0 + ox : x1 + ox]
         hatched = (np.asarray(mask) > 0) & (((xx + yy) % period) < width)
-        canvas.paste(hatch, box, Image.fromarray(hatched.astype(np.uint8) * 255, "L"))
+        canvas.image.paste(hatch, box, Image.fromarray(hatched.astype(np.uint8) * 255, "L"))
 
 
-def _stroke_rings(canvas: Any, rings: Rings, edge: int, width_px: float) -> np.ndarray:
-    """Stroke every ring (one C call per ring); returns the vertices, where round joins go."""
-    from PIL import ImageDraw
-
-    draw = ImageDraw.Draw(canvas)
+def _stroke_rings(canvas: _Canvas, rings: Rings, edge: int, width_px: float) -> np.ndarray:
+    """Stroke every ring (one C call per ring); returns the vertices (canvas px), where joins go."""
     width = max(int(round(width_px * SUPERSAMPLE)), 1)
-    xy = rings.xy * SUPERSAMPLE
+    xy = canvas.xy(rings.xy)
     for i in range(len(rings)):
         ring = xy[rings.start[i] : rings.start[i + 1]]
         if len(ring) >= 2:
-            draw.line(ring.ravel().tolist(), fill=edge, width=width)
+            canvas.draw.line(ring.ravel().tolist(), fill=edge, width=width)
     return xy
 
 
@@ -264,24 +294,24 @@ def _round_joins(
         _stamp(arr, vertices - np.asarray(origin), shapes, fill, edge, float(diameter), 0.0)
 
 
-def _draw_arrow(draw: Any, arrow: dict, ink: int) -> None:
-    ss = SUPERSAMPLE
-    tip = np.asarray(arrow["tip"])
-    tail = np.asarray(arrow["tail"])
-    head = np.asarray(arrow["head"])
+def _draw_arrow(canvas: _Canvas, arrow: dict) -> None:
+    ink = canvas.pal[COLOURS["ink"]]
+    tip, tail, head = (np.asarray(arrow[k], dtype=float) for k in ("tip", "tail", "head"))
     base = head[1:].mean(axis=0)
     # the shaft stops inside the head so its square end never shows beside the tip
-    shaft_end = base + (tip - base) * 0.3
-    draw.line([*(tail * ss), *(shaft_end * ss)], fill=ink, width=int(round(arrow["width"] * ss)))
-    draw.polygon((head * ss).ravel().tolist(), fill=ink)
+    shaft = canvas.xy([tail, base + (tip - base) * 0.3])
+    canvas.draw.line(shaft.ravel().tolist(), fill=ink, width=int(round(arrow["width"] * SUPERSAMPLE)))
+    canvas.draw.polygon(canvas.xy(head).ravel().tolist(), fill=ink)
 
 
-def _draw_scale_bar(draw: Any, bar: dict, pal: _Palette) -> None:
-    ss = SUPERSAMPLE
-    x0, y0, x1, y1 = (v * ss for v in bar["box"])
-    draw.rectangle((x0, y0, x1, y1), fill=pal[COLOURS["paper"]], outline=pal[COLOURS["frame"]], width=ss)
-    bar_box = (bar["x0"] * ss, bar["y"] * ss, bar["x1"] * ss, (bar["y"] + bar["height"]) * ss)
-    draw.rectangle(bar_box, fill=pal[COLOURS["ink"]])
+def _draw_scale_bar(canvas: _Canvas, bar: dict) -> None:
+    pal = canvas.pal
+    outline = pal[COLOURS["frame"]]
+    canvas.draw.rectangle(
+        canvas.box(bar["box"]), fill=pal[COLOURS["paper"]], outline=outline, width=SUPERSAMPLE
+    )
+    bar_box = canvas.box((bar["x0"], bar["y"], bar["x1"], bar["y"] + bar["height"]))
+    canvas.draw.rectangle(bar_box, fill=pal[COLOURS["ink"]])
 
 
 def _swatch_ring(cx: float, cy: float) -> Rings:
@@ -292,14 +322,11 @@ def _swatch_ring(cx: float, cy: float) -> Rings:
     return Rings(ring, np.array([0, 5]), np.array([False]))
 
 
-def _legend_swatches(canvas: Any, layout: PageLayout, pal: _Palette) -> None:
-    from PIL import ImageDraw
-
-    ss = SUPERSAMPLE
-    draw = ImageDraw.Draw(canvas)
-    x0, y0, x1, y1 = (int(round(v * ss)) for v in layout.legend_box)
-    draw.rectangle(
-        (x0, y0, x1, y1), fill=pal[COLOURS["paper"]], outline=pal[COLOURS["legend_edge"]], width=ss
+def _legend_swatches(canvas: _Canvas, layout: PageLayout) -> None:
+    pal = canvas.pal
+    box = canvas.box(layout.legend_box)
+    canvas.draw.rectangle(
+        box, fill=pal[COLOURS["paper"]], outline=pal[COLOURS["legend_edge"]], width=SUPERSAMPLE
     )
     for entry in layout.legend:
         if entry.kind == "block":
@@ -312,19 +339,48 @@ def _legend_swatches(canvas: Any, layout: PageLayout, pal: _Palette) -> None:
             _stroke_rings(canvas, rings, pal[COLOURS["exclusion_edge"]], EXCLUSION_EDGE_PX)
     markers = [e for e in layout.legend if e.kind == "marker"]
     if markers:
-        with _Pixels(canvas, (x0, y0, x1, y1), pal) as arr:
-            xy = np.array([e.swatch for e in markers]) * ss - np.array([x0, y0])
+        with canvas.pixels(box) as arr:
+            xy = canvas.xy([e.swatch for e in markers]) - np.array(box[:2])
             shapes = np.array([e.shape for e in markers], dtype=object)
             fill = np.array([pal[e.colour] for e in markers], dtype=np.uint8)
+            edge = pal[COLOURS["marker_edge"]]
             _stamp(
-                arr,
-                xy,
-                shapes,
-                fill,
-                pal[COLOURS["marker_edge"]],
-                layout.legend_marker * ss,
-                MARKER_EDGE_PX * ss,
+                arr, xy, shapes, fill, edge, layout.legend_marker * SUPERSAMPLE, MARKER_EDGE_PX * SUPERSAMPLE
             )
+
+
+def _draw_map(canvas: _Canvas, layout: PageLayout) -> None:
+    """Blocks, exclusions and points, clipped to the frame; round joins and points stamped as arrays."""
+    pal = canvas.pal
+    frame = canvas.box(layout.frame)
+    if len(layout.blocks):
+        _fill_rings(canvas, layout.blocks, pal[COLOURS["block"]])
+        joins = _stroke_rings(canvas, layout.blocks, pal[COLOURS["block_edge"]], BLOCK_EDGE_PX)
+        with canvas.pixels(frame) as arr:
+            _round_joins(arr, joins, frame[:2], pal[COLOURS["block_edge"]], BLOCK_EDGE_PX)
+    joins = np.empty((0, 2))
+    if len(layout.exclusions):
+        _fill_rings(
+            canvas, layout.exclusions, pal[COLOURS["exclusion"]], hatch=pal[COLOURS["exclusion_edge"]]
+        )
+        joins = _stroke_rings(canvas, layout.exclusions, pal[COLOURS["exclusion_edge"]], EXCLUSION_EDGE_PX)
+    with canvas.pixels(frame) as arr:
+        _round_joins(arr, joins, frame[:2], pal[COLOURS["exclusion_edge"]], EXCLUSION_EDGE_PX)
+        styles = layout.styles
+        shapes = np.array([s["shape"] for s in styles], dtype=object)[layout.point_style]
+        fill = np.array([pal[s["colour"]] for s in styles], dtype=np.uint8)[layout.point_style]
+        xy = canvas.xy(layout.points) - np.array(frame[:2])
+        edge = pal[COLOURS["marker_edge"]]
+        _stamp(arr, xy, shapes, fill, edge, layout.marker * SUPERSAMPLE, MARKER_EDGE_PX * SUPERSAMPLE)
+    # Clip: whatever was drawn outside the frame (exclusions reaching past the blocks) goes.
+    w, h = canvas.image.size
+    fx0, fy0, fx1, fy1 = frame
+    for x0, y0, x1, y1 in ((0, 0, w, fy0), (0, fy1, w, h), (0, 0, fx0, h), (fx1, 0, w, h)):
+        if x1 > x0 and y1 > y0:
+            canvas.draw.rectangle((x0, y0, x1 - 1, y1 - 1), fill=0)
+    canvas.draw.rectangle(
+        frame, outline=pal[COLOURS["frame"]], width=max(int(round(FRAME_PX * SUPERSAMPLE)), 1)
+    )
 
 
 def _draw_text(draw: Any, text: Text) -> None:
@@ -338,75 +394,75 @@ def _draw_text(draw: Any, text: Text) -> None:
         draw.text((text.x, text.y), text.text, **options)
 
 
-def _draw_map(canvas: Any, layout: PageLayout, pal: _Palette) -> None:
-    """Blocks, exclusions and points, clipped to the frame; round joins and points stamped as arrays."""
-    from PIL import ImageDraw
-
-    ss = SUPERSAMPLE
-    frame = tuple(int(round(v * ss)) for v in layout.frame)
-    origin = frame[:2]
-    if len(layout.blocks):
-        _fill_rings(canvas, layout.blocks, pal[COLOURS["block"]])
-        joins = _stroke_rings(canvas, layout.blocks, pal[COLOURS["block_edge"]], BLOCK_EDGE_PX)
-        with _Pixels(canvas, frame, pal) as arr:
-            _round_joins(arr, joins, origin, pal[COLOURS["block_edge"]], BLOCK_EDGE_PX)
-    joins = np.empty((0, 2))
-    if len(layout.exclusions):
-        _fill_rings(
-            canvas, layout.exclusions, pal[COLOURS["exclusion"]], hatch=pal[COLOURS["exclusion_edge"]]
-        )
-        joins = _stroke_rings(canvas, layout.exclusions, pal[COLOURS["exclusion_edge"]], EXCLUSION_EDGE_PX)
-    with _Pixels(canvas, frame, pal) as arr:
-        _round_joins(arr, joins, origin, pal[COLOURS["exclusion_edge"]], EXCLUSION_EDGE_PX)
-        styles = layout.styles
-        shapes = np.array([s["shape"] for s in styles], dtype=object)[layout.point_style]
-        fill = np.array([pal[s["colour"]] for s in styles], dtype=np.uint8)[layout.point_style]
-        xy = layout.points * ss - np.asarray(origin)
-        _stamp(arr, xy, shapes, fill, pal[COLOURS["marker_edge"]], layout.marker * ss, MARKER_EDGE_PX * ss)
-    draw = ImageDraw.Draw(canvas)
-    fx0, fy0, fx1, fy1 = frame
-    for x0, y0, x1, y1 in (
-        (0, 0, canvas.width, fy0),
-        (0, fy1, canvas.width, canvas.height),
-        (0, 0, fx0, canvas.height),
-        (fx1, 0, canvas.width, canvas.height),
-    ):
-        if x1 > x0 and y1 > y0:
-            draw.rectangle((x0, y0, x1 - 1, y1 - 1), fill=0)
-    draw.rectangle(frame, outline=pal[COLOURS["frame"]], width=max(int(round(FRAME_PX * ss)), 1))
+def _shapes_box(layout: PageLayout) -> tuple[int, int, int, int]:
+    """The part of the page holding shapes (map, legend, arrow, scale bar), in whole page pixels."""
+    boxes = np.array(
+        [layout.frame, layout.legend_box, layout.arrow["box"], layout.scale_bar["box"]], dtype=float
+    )
+    width, height = layout.size
+    x0, y0 = np.floor(boxes[:, :2].min(axis=0)).astype(int) - 4
+    x1, y1 = np.ceil(boxes[:, 2:].max(axis=0)).astype(int) + 4
+    return max(int(x0), 0), max(int(y0), 0), min(int(x1), width), min(int(y1), height)
 
 
 def render_png(layout: PageLayout) -> bytes:
     """Draw ``layout`` with Pillow and return PNG bytes (150 dpi, no software tag).
 
-    Shapes go on a palette canvas at :data:`SUPERSAMPLE` times the resolution, which is
-    averaged down (``Image.reduce``, a box filter) for antialiasing; text is drawn after,
-    at the final size, antialiased by FreeType.
+    Shapes go on a palette canvas at :data:`SUPERSAMPLE` times the resolution, covering only
+    the part of the page that holds shapes; it is averaged down (``Image.reduce``, a box
+    filter) for antialiasing and pasted on the white page. Text is drawn last, at the
+    final size, antialiased by FreeType.
     """
     from PIL import Image, ImageDraw
 
-    ss = SUPERSAMPLE
-    width, height = layout.size
     pal = _Palette()
     for colour in [*COLOURS.values(), *(s["colour"] for s in layout.styles)]:
         pal.add(colour)
-    canvas = Image.new("P", (width * ss, height * ss), 0)
-    _draw_map(canvas, layout, pal)
-    draw = ImageDraw.Draw(canvas)
-    _draw_scale_bar(draw, layout.scale_bar, pal)
-    _draw_arrow(draw, layout.arrow, pal[COLOURS["ink"]])
-    _legend_swatches(canvas, layout, pal)
+    x0, y0, x1, y1 = _shapes_box(layout)
+    canvas = _Canvas((x0, y0), (x1 - x0, y1 - y0), pal)
+    _draw_map(canvas, layout)
+    _draw_scale_bar(canvas, layout.scale_bar)
+    _draw_arrow(canvas, layout.arrow)
+    _legend_swatches(canvas, layout)
+    canvas.image.putpalette(pal.flat())
 
-    canvas.putpalette(pal.flat())
-    page = canvas.convert("RGB").reduce(ss)
+    page = Image.new("RGB", layout.size, _rgb(COLOURS["paper"]))
+    page.paste(canvas.image.convert("RGB").reduce(SUPERSAMPLE), (x0, y0))
     draw = ImageDraw.Draw(page)
     texts = [*layout.labels, layout.arrow["label"], layout.scale_bar["label"], layout.legend_title]
     texts += [entry.label for entry in layout.legend] + list(layout.texts)
     for text in texts:
         _draw_text(draw, text)
-    buf = io.BytesIO()
-    page.save(buf, format="PNG", dpi=(layout.dpi, layout.dpi), compress_level=PNG_COMPRESSION)
-    return buf.getvalue()
+    return encode_png(np.asarray(page), layout.dpi)
+
+
+def _chunk(kind: bytes, data: bytes) -> bytes:
+    # reference: PNG specification (ISO/IEC 15948) section 5.3: length, type, data, CRC-32 of type + data
+    return (
+        struct.pack(">I", len(data)) + kind + data + struct.pack(">I", zlib.crc32(kind + data) & 0xFFFFFFFF)
+    )
+
+
+def encode_png(rgb: np.ndarray, dpi: int) -> bytes:
+    """PNG bytes of an ``(h, w, 3)`` uint8 image: IHDR, pHYs (``dpi``), one IDAT, IEND; no text chunk.
+
+    Every row uses filter 0 (none): on a page that is mostly flat colour, zlib alone packs
+    it smaller than adaptive filtering, in about a third of Pillow's time.
+    """
+    h, w, _ = rgb.shape
+    rows = np.empty((h, 1 + 3 * w), dtype=np.uint8)
+    rows[:, 0] = 0  # filter type None
+    rows[:, 1:] = rgb.reshape(h, 3 * w)
+    ppm = int(round(dpi / 0.0254))  # pixels per metre
+    return b"".join(
+        [
+            b"\x89PNG\r\n\x1a\n",
+            _chunk(b"IHDR", struct.pack(">IIBBBBB", w, h, 8, 2, 0, 0, 0)),  # 8-bit truecolour
+            _chunk(b"pHYs", struct.pack(">IIB", ppm, ppm, 1)),  # unit 1: metre
+            _chunk(b"IDAT", zlib.compress(rows.tobytes(), PNG_COMPRESSION)),
+            _chunk(b"IEND", b""),
+        ]
+    )
 
 
 # ---------------------------------------------------------------------------- matplotlib renderer (PDF)
