@@ -753,6 +753,7 @@ def pick_plants_many(
     *,
     eligible: np.ndarray,
     skip_row_ends: int = 0,
+    order: np.ndarray | None = None,
 ) -> tuple[PlantPicks, np.ndarray]:
     """:func:`pick_plants` for many populations (blocks or strata) at once.
 
@@ -762,9 +763,10 @@ def pick_plants_many(
     Parameters
     ----------
     segments : RowSegments
-        Segments of all populations, population by population (``population`` sorted).
+        Segments of all populations, population by population (``population`` sorted),
+        or in any order if ``order`` is given.
     population : numpy.ndarray
-        Population (0, 1, ...) of each segment.
+        Population (0, 1, ...) of each segment (of each entry of ``order`` if given).
     ns : array_like of int
         Plants to draw from each population (at most its eligible plants).
     rngs : list of numpy.random.Generator
@@ -773,20 +775,28 @@ def pick_plants_many(
         Eligible plants per segment (:func:`eligible_plants`, row models grouped as drawn).
     skip_row_ends : int
         Plants excluded at each end of every segment (as used for ``eligible``).
+    order : numpy.ndarray, optional
+        Indices of the segments to draw from, population by population (e.g. blocks
+        grouped by stratum); ``eligible`` stays aligned with ``segments``.
 
     Returns
     -------
     picks : PlantPicks
-        Population 0's picks in draw order, then population 1's, ...; ``eligible`` is the total.
+        Population 0's picks in draw order, then population 1's, ...; ``eligible`` is the
+        total; ``segment`` indexes ``segments``.
     which : numpy.ndarray
         Population of each pick.
     """
     ns = np.asarray(ns, dtype=np.int64)
     eligible = np.asarray(eligible, dtype=np.int64)
+    if order is not None:
+        eligible = eligible[order]
     totals = np.bincount(population, weights=eligible, minlength=ns.size).astype(np.int64)
     ranks, which = sample_ranks_many(totals, ns, rngs)
     # Ranks of population j follow those of the populations before it in the joined ranking.
     seg, within = locate_ranks(eligible, (np.cumsum(totals) - totals)[which] + ranks, int(skip_row_ends))
+    if order is not None:
+        seg = order[seg]
     spacing = np.asarray(segments.plant_spacing, dtype=float)
     dist = segments.offset[seg] + within * (spacing if spacing.ndim == 0 else spacing[seg])
     if segments.ends is not None:

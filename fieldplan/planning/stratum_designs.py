@@ -321,7 +321,7 @@ def _cluster_population(blocks, use, fallback, gone, opts, rows_frame, flags):
     Returns
     -------
     segments : RowSegments or None
-        Segments of the blocks with eligible plants, in block order (None if there are none).
+        Segments of the modelled blocks, in block order (None if there are none).
     owner, eligible : numpy.ndarray
         Block (index into ``blocks``) and eligible plants of each segment.
     modelled : bool
@@ -382,10 +382,10 @@ def _cluster_population(blocks, use, fallback, gone, opts, rows_frame, flags):
         order = np.argsort(owner, kind="stable")
         seg, owner, count = _take(seg, order), owner[order], count[order]
         total = np.bincount(owner, weights=count, minlength=n)
-    empty = todo & (total == 0)
-    _add_flag(flags, np.flatnonzero(empty), "no eligible plants in the sampled area: not sampled")
-    keep = ~empty[owner]
-    return _take(seg, keep), owner[keep], count[keep], True
+    # Blocks left with no eligible plant keep their segments (every one with 0 eligible): no
+    # rank ever falls in them.
+    _add_flag(flags, np.flatnonzero(todo & (total == 0)), "no eligible plants in the sampled area: not sampled")
+    return seg, owner, count, True
 
 
 def _take(seg: RowSegments, index) -> RowSegments:
@@ -440,14 +440,15 @@ def _cluster_draws(
         if progress is not None:
             progress(h + 1, len(strata))
     picks, which = pick_plants_many(
-        _take(segments, order),
+        segments,
         seg_slot[order],
         n_all,
         rngs,
-        eligible=eligible[order],
+        eligible=eligible,
         skip_row_ends=int(opts["skip_row_ends"]),
+        order=order,
     )
-    picked = order[picks.segment]
+    picked = picks.segment
     pos = np.arange(which.size) - np.repeat(np.cumsum(n_all) - n_all, n_all)
     units_per = int(opts["units_per_cluster"] or 1)
     units = np.full(which.size, units_per, dtype=np.int64)
