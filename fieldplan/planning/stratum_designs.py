@@ -221,18 +221,22 @@ def format_instructions(template: str, table: pd.DataFrame) -> np.ndarray:
 _COMPASS = ("north", "north-east", "east", "south-east", "south", "south-west", "west", "north-west")
 
 
-def part_names(blocks: pd.DataFrame, block: np.ndarray, part: np.ndarray) -> np.ndarray:
+def part_names(
+    blocks: pd.DataFrame, block: np.ndarray, part: np.ndarray, *, which: np.ndarray | None = None
+) -> np.ndarray:
     """Name of the part each pick lies in, e.g. "part 2 of 2 (north-east)"; '' for one-part blocks.
 
     Parts keep the order of the block's geometry; the compass word is the side of
     the block the part's centroid lies on, so a crew can tell the parts apart on the ground.
+    ``which``, the row of each pick's block in ``blocks``, saves looking ``block`` up.
     """
     out = np.full(len(block), "", dtype=object)
     if not len(block):
         return out
-    names = blocks["block"].astype(str).to_numpy()
     geoms = blocks.geometry.values
-    which = pd.Index(names).get_indexer(np.asarray(block, dtype=str))
+    if which is None:
+        names = blocks["block"].astype(str).to_numpy()
+        which = pd.Index(names).get_indexer(np.asarray(block, dtype=str))
     count = shapely.get_num_geometries(geoms)
     multi = (count[which] > 1) & (np.asarray(part) > 0)
     if not multi.any():
@@ -595,18 +599,19 @@ def _stratified(
             {"block": blocks["block"].to_numpy()[owner_all], **{k: v[order] for k, v in joined.items()}}
         )
     else:
+        owner_all = np.zeros(0, dtype=np.int64)
         table = pd.DataFrame(columns=["block", *columns[1:]])
     table["block"] = table["block"].astype(str)
     if design == "clusters":
         for key in ("row", "plant", "units", "part"):
             table[key] = table[key].astype(np.int64)
         # Multi-part blocks number rows per part: the text names the part first.
-        table["part"] = part_names(blocks, table["block"].to_numpy(), table["part"].to_numpy())
+        names = part_names(blocks, owner_all, table["part"].to_numpy(), which=owner_all)
+        table["part"] = names
         text = format_instructions(opts["instructions"] or DEFAULT_INSTRUCTIONS, table)
         if not opts["instructions"]:
-            named = table["part"].to_numpy(dtype=object) != ""
-            prefix = "In " + table["part"].astype(str) + " (count rows from that part's own edge): "
-            text = np.where(named, prefix.to_numpy(dtype=object) + text, text)
+            named = np.flatnonzero(names != "")
+            text[named] = "In " + names[named] + " (count rows from that part's own edge): " + text[named]
         table["instructions"] = text
         table = table.drop(columns="part")
     table.attrs["strata"] = pd.DataFrame(
