@@ -277,3 +277,44 @@ def test_spares_have_their_own_symbol_and_legend_row(tmp_path):
     assert rows[-1].shape == "cross" and rows[-1].colour == "#ffffff"
     subtitle = next(t.text for t in layout.texts if t.role == "subtitle")
     assert "8 points in 2 blocks" in subtitle and "4 spares" in subtitle
+
+
+def test_page_draws_without_the_bundled_font(plan, monkeypatch):
+    # No font file to be found (matplotlib not installed): Pillow's own default font is used.
+    from PIL import ImageFont
+
+    from fieldplan.write import page
+
+    for cached in (page.font, page._drawable, page._missing_glyph):
+        cached.cache_clear()
+    monkeypatch.setattr(page, "font_path", lambda bold=False: None)
+    try:
+        assert not str(getattr(page.font(7.0), "path", "")).endswith("DejaVuSans.ttf")
+        assert isinstance(page.font(7.0), ImageFont.FreeTypeFont | ImageFont.ImageFont)
+        png = plan_image_bytes(plan, fmt="png")
+        assert Image.open(io.BytesIO(png)).size == PAGE_SIZE
+        assert page_text("$x^") == "$x^"
+        assert page_text("\u00e9\u6771") in ("\u00e9?", "??")  # drawn, or replaced if the font lacks it
+    finally:
+        for cached in (page.font, page._drawable, page._missing_glyph):
+            cached.cache_clear()
+
+
+@pytest.mark.parametrize("shape", ["circle", "square", "triangle", "diamond", "triangle-down", "hexagon"])
+def test_marker_shapes_cover_their_area(shape):
+    from fieldplan.write.png import _SHAPES, _sprite
+
+    size = 300.0
+    offsets, is_fill = _sprite(shape, size, 0.0)
+    # reference: pi r^2 for the circle; shapely's polygon area for the others (matplotlib's
+    # marker proportions: square side 1, diamond the unit square turned 45 degrees, triangles
+    # of width and height 1, hexagon of circumradius 0.5).
+    expected = math.pi * (size / 2) ** 2 if shape == "circle" else shapely.Polygon(_SHAPES[shape] * size).area
+    assert len(offsets) == pytest.approx(expected, rel=0.01)
+    assert is_fill.all()  # no edge asked for
+    # An edge of e pixels is a band e wide around the fill (centred on the outline): its area
+    # is the perimeter times e (reference: shapely's polygon length; pi d for the circle).
+    # Edges at 45 degrees meet the pixel lattice in whole diagonals: a few per cent more.
+    offsets, is_fill = _sprite(shape, size, 6.0)
+    perimeter = math.pi * size if shape == "circle" else shapely.Polygon(_SHAPES[shape] * size).length
+    assert (~is_fill).sum() == pytest.approx(6.0 * perimeter, rel=0.07)

@@ -148,8 +148,10 @@ def font(size_pt: float, bold: bool = False) -> Any:
 @lru_cache(maxsize=4096)
 def _drawable(char: str, bold: bool) -> bool:
     """Whether the page font has a glyph for ``char`` (not its empty-box stand-in)."""
+    from PIL import ImageFont
+
     face = font(7.0, bold)
-    if not hasattr(face, "getmask2"):  # Pillow's bitmap font: Latin-1 only
+    if not isinstance(face, ImageFont.FreeTypeFont):  # Pillow's bitmap font: Latin-1 only
         return ord(char) < 256 and char.isprintable()
     missing = _missing_glyph(bold)
     try:

@@ -8,8 +8,8 @@ renders that layout:
 
 * plan.png with Pillow: shapes are drawn on a palette canvas at :data:`SUPERSAMPLE`
   times the page resolution (points stamped from coordinate arrays, one array
-  assignment per stratum), reduced to 150 dpi by averaging, then text is drawn at
-  the final size with DejaVu Sans (antialiased by FreeType).
+  assignment per marker shape), reduced to 150 dpi by averaging, then text is drawn
+  at the final size with DejaVu Sans (antialiased by FreeType).
 * plan.pdf with matplotlib (imported only for the PDF), from the same layout.
 
 Bytes are stable: the PNG carries no software tag and the PDF no creation date.
@@ -153,7 +153,8 @@ def _stamp(
     """Stamp markers into ``canvas`` (a 2-D array of palette indices), one array assignment per shape.
 
     ``xy`` are canvas pixel coordinates, ``shapes`` the shape name and ``fill`` the palette
-    index of each point. Points of one shape are drawn in array order (later ones on top).
+    index of each point. Points of one shape are drawn in array order (later ones on top);
+    a marker reaching past the array's edge is cut there.
     """
     if not len(xy):
         return
@@ -163,12 +164,16 @@ def _stamp(
     for shape in dict.fromkeys(shapes.tolist()):
         offsets, is_fill = _sprite(shape, float(diameter), float(edge))
         reach = int(np.abs(offsets).max(initial=0))
-        sel = (shapes == shape) & (ij[:, 0] >= reach) & (ij[:, 0] < w - reach)
-        sel &= (ij[:, 1] >= reach) & (ij[:, 1] < h - reach)
-        base = ij[sel, 1] * w + ij[sel, 0]
-        target = base[:, None] + (offsets[:, 0] * w + offsets[:, 1])[None, :]
-        values = np.where(is_fill[None, :], fill[sel][:, None], np.uint8(edge_index)).astype(np.uint8)
-        flat[target.ravel()] = values.ravel()
+        sel = shapes == shape
+        whole = (ij[:, 0] >= reach) & (ij[:, 0] < w - reach) & (ij[:, 1] >= reach) & (ij[:, 1] < h - reach)
+        for part, cut in ((sel & whole, False), (sel & ~whole, True)):
+            if not part.any():
+                continue
+            ys = ij[part, 1][:, None] + offsets[:, 0][None, :]
+            xs = ij[part, 0][:, None] + offsets[:, 1][None, :]
+            values = np.where(is_fill[None, :], fill[part][:, None], np.uint8(edge_index)).astype(np.uint8)
+            ok = (xs >= 0) & (xs < w) & (ys >= 0) & (ys < h) if cut else np.ones(xs.shape, dtype=bool)
+            flat[(ys * w + xs)[ok]] = values[ok]
 
 
 # ---------------------------------------------------------------------------- Pillow renderer
