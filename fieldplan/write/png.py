@@ -565,7 +565,6 @@ def render_figure(layout: PageLayout) -> Any:
         facecolor=COLOURS["exclusion"],
         edgecolor=COLOURS["exclusion_edge"],
         hatch="////",
-        linestyle="--",
         linewidth=0.8,
     )
     for collection in (blocks, excl):
@@ -673,7 +672,6 @@ def render_figure(layout: PageLayout) -> Any:
                     facecolor=COLOURS["exclusion"],
                     edgecolor=COLOURS["exclusion_edge"],
                     hatch="////",
-                    linestyle="--",
                     linewidth=0.8,
                     zorder=5,
                 )
