@@ -282,10 +282,12 @@ def block_row_segments(
 
     if clips is not None:
         clips = _object_array(clips)
-        # A clip that is the block itself keeps the whole block (a multi-part block is still cut
-        # part by part against its whole outline, which gives the same pieces).
-        same = np.fromiter((c is None or c is g for c, g in zip(clips, geoms, strict=True)), bool, nb)
-        clipped_block = ~(same & ((n_parts == 1) | np.fromiter((c is None for c in clips), bool, nb)))
+        # No clip, or a one-part block clipped by itself, keeps the whole block; a multi-part
+        # block clipped by itself is cut part by part against its whole outline, as the
+        # per-part model always did (same plants and numbers).
+        none = np.fromiter((c is None for c in clips), bool, nb)
+        itself = np.fromiter((c is g for c, g in zip(clips, geoms, strict=True)), bool, nb)
+        clipped_block = ~(none | (itself & (n_parts == 1)))
         if clipped_block.any():
             cb = np.flatnonzero(clipped_block)
             cpoly, cp_block = _polygons(clips[cb])

@@ -180,9 +180,14 @@ def row_pieces(
         sub = at[more]
         by_at = np.argsort(sub)
         at[more] = sub[by_at[np.argsort(line[more][by_at], kind="stable")]]
-    # Pair crossings 1st-2nd, 3rd-4th, ... within each row line.
-    pos = np.arange(line.size) - np.repeat(starts, size)
-    lead = np.flatnonzero((pos % 2 == 0) & (pos + 1 < np.repeat(size, size)))
+    # Pair crossings 1st-2nd, 3rd-4th, ... within each row line. Closed rings cross a line an
+    # even number of times, so pairs start at every other crossing; an odd count (a ring left
+    # open) drops its last crossing.
+    if (size % 2 == 0).all():
+        lead = np.arange(0, line.size, 2)
+    else:
+        pos = np.arange(line.size) - np.repeat(starts, size)
+        lead = np.flatnonzero((pos % 2 == 0) & (pos + 1 < np.repeat(size, size)))
     line, start, end = line[lead], at[lead], at[lead + 1]
     # Join pieces that meet end to end on the same row line.
     joined = np.r_[False, (line[1:] == line[:-1]) & (end[:-1] == start[1:])] if line.size else line > 0
