@@ -44,6 +44,8 @@ def forks(monkeypatch):
 
     monkeypatch.setattr(store.os, "fork", counting_fork)
     monkeypatch.delenv(store.WRITE_JOBS_ENV, raising=False)
+    # A thread left running by an earlier test of the session would turn the fork off.
+    monkeypatch.setattr(store.threading, "active_count", lambda: 1)
     return count
 
 
@@ -128,7 +130,7 @@ def test_error_that_does_not_unpickle_keeps_class_and_message(demo_plan, tmp_pat
     assert forks == [1]
 
 
-def test_cli_prints_the_same_line_and_exit_code_for_a_child_error(tmp_path, monkeypatch):
+def test_cli_prints_the_same_line_and_exit_code_for_a_child_error(tmp_path, monkeypatch, forks):
     def kml_writer(plan, folder):
         raise InputError("blocks.geojson: feature 3 has no name; name every block")
 
@@ -140,6 +142,7 @@ def test_cli_prints_the_same_line_and_exit_code_for_a_child_error(tmp_path, monk
         args = ["plan", str(demo_blocks_path()), "--spacing", "60", "--seed", "4", "-q", "--out", str(out)]
         results[jobs] = runner.invoke(app, args)
         assert not out.exists() and list(out.parent.iterdir()) == []
+    assert forks == [1]  # the second run only
     assert results["1"].exit_code == results["2"].exit_code == 2
     assert results["1"].stderr == results["2"].stderr
     assert results["2"].stderr.strip().splitlines() == [
@@ -186,6 +189,9 @@ def test_parent_failure_stops_the_child_before_the_stage_goes(demo_plan, tmp_pat
 
 
 def test_no_fork_when_turned_off_in_a_thread_or_beside_other_threads(demo_plan, tmp_path, monkeypatch, forks):
+    monkeypatch.undo()  # the real thread count again
+    real_fork = os.fork
+    monkeypatch.setattr(store.os, "fork", lambda: forks.append(1) or real_fork())
     monkeypatch.setattr(store, "WRITERS", [w for w in store.WRITERS if w.__name__ != "png_writer"])
     monkeypatch.setenv(store.WRITE_JOBS_ENV, "1")
     store.write_plan(demo_plan, tmp_path / "off")
