@@ -40,8 +40,6 @@ DATETIME; NaN, None and NaT -> NULL. A frame holding anything else raises
 
 from __future__ import annotations
 
-import itertools
-import json
 import math
 import os
 import sqlite3
@@ -75,6 +73,10 @@ PRIVATE_SRS_ID = 100000
 #: Rows bound into one INSERT, and SQLite's default cap on bound values (3.32 and later).
 _ROWS_PER_STATEMENT = 128
 _MAX_VARIABLES = 32766
+
+#: Bound in place of a null and turned into NULL by NULLIF (private-use characters; a text
+#: column holding it as a value binds its nulls as None instead).
+_NULL = "\ue000\uf8ffnull\uf8ff\ue000"
 
 _RTREE_EXTENSION = "http://www.geopackage.org/spec120/#extension_rtree"
 
@@ -301,9 +303,9 @@ def _numbers(series: pd.Series, name: str) -> tuple[str, list] | None:
     if pd.api.types.is_float_dtype(dtype):
         if numpy_dtype not in (np.float32, np.float64):
             raise Unsupported(f"column {name!r}: float dtype {dtype}")
+        # NaN stays: SQLite binds it as NULL, which is what GDAL writes for NaN.
         raw = series.to_numpy(dtype=numpy_dtype, na_value=np.nan)
-        null = np.isnan(raw)  # GDAL writes NaN as NULL (SQLite stores no NaN)
-        return ("FLOAT" if numpy_dtype == np.float32 else "REAL"), _with_nulls(raw.tolist(), null)
+        return ("FLOAT" if numpy_dtype == np.float32 else "REAL"), raw.tolist()
     return None
 
 
@@ -459,7 +461,8 @@ def geometry_blobs(
             )  # WKB code = shapely id here
             for k in np.flatnonzero(promoted & (types == single)).tolist():
                 wkb_list[k] = prefix + wkb_list[k]
-    blobs = [h + w if w is not None else None for h, w in zip(heads, wkb_list, strict=True)]
+    # bytearray: the sqlite3 module binds it directly, bytes only after an adapter lookup.
+    blobs = [bytearray(h) + w if w is not None else None for h, w in zip(heads, wkb_list, strict=True)]
     return blobs, envelope, present & ~empty
 
 
@@ -502,7 +505,8 @@ def _point_blobs(points: np.ndarray, srs_id: int) -> tuple[list, np.ndarray, np.
     rows["type"] = 1  # WKB Point
     rows["x"], rows["y"] = xy[:, 0], xy[:, 1]
     envelope = np.column_stack([xy[:, 0], xy[:, 0], xy[:, 1], xy[:, 1]])
-    return rows.view(f"V{rows.itemsize}").tolist(), envelope, np.ones(len(points), dtype=bool)
+    blobs = list(map(bytearray, rows.view(f"V{rows.itemsize}").tolist()))
+    return blobs, envelope, np.ones(len(points), dtype=bool)
 
 
 # --- spatial index ----------------------------------------------------------------------------
@@ -539,7 +543,10 @@ def _str_order(boxes: np.ndarray, fanout: int) -> np.ndarray:
     by_x = np.argsort(cx, kind="stable")
     slab_of = np.empty(n, dtype=np.int64)
     slab_of[by_x] = np.arange(n) // slab
-    return np.lexsort((cy, slab_of))
+    # One sort on slab + y scaled into [0, 1): the slab decides, y orders within it.
+    span = np.ptp(cy) if n else 0.0
+    y01 = (cy - cy.min()) / (span * (1 + 1e-9)) if span > 0 else np.zeros(n)
+    return np.argsort(slab_of + np.minimum(y01, 0.999999), kind="stable")
 
 
 def _bulk_load_rtree(con: sqlite3.Connection, name: str, ids: np.ndarray, boxes: np.ndarray) -> None:
@@ -619,20 +626,82 @@ def _bulk_load_rtree(con: sqlite3.Connection, name: str, ids: np.ndarray, boxes:
     leaf_ids = levels[0][0]
     by_id = np.argsort(leaf_ids, kind="stable")
     leaf_ids, leaf_of = leaf_ids[by_id], leaf_of[by_id]
-    if next_no < (1 << 24) and leaf_ids.max() < (1 << 38):
-        # One statement for every id: a JSON array of id * 2^24 + leaf, split again in SQL
-        # (binding 2 values a row from Python costs several times more).
-        packed = leaf_ids * (1 << 24) + leaf_of
-        con.execute(
-            f"INSERT INTO {_q(name + '_rowid')} (rowid, nodeno) "
-            "SELECT value >> 24, value & 16777215 FROM json_each(?)",
-            (json.dumps(packed.tolist()),),
-        )
-    else:
-        con.executemany(
-            f"INSERT INTO {_q(name + '_rowid')} (rowid, nodeno) VALUES (?, ?)",
-            zip(leaf_ids.tolist(), leaf_of.tolist(), strict=True),
-        )
+    # Integers bind directly (no adapter lookup), many rows to a statement.
+    _insert_columns(
+        con, name + "_rowid", ["rowid", "nodeno"], [leaf_ids.tolist(), leaf_of.tolist()], len(leaf_ids)
+    )
+
+
+def _bindings(columns: list[str], values: list[list], count: int) -> tuple[list, list, list]:
+    """How each column is bound by :func:`_insert_columns`.
+
+    Returns the columns written, the varying ones as ``(slot, values, wrapped in
+    NULLIF)`` and the constant ones as ``(slot, value)``, slots indexing the first.
+    """
+    kept: list[str] = []
+    varying: list[tuple[int, list, bool]] = []
+    constant: list[tuple[int, object]] = []
+    for column, vals in zip(columns, values, strict=True):
+        nulls = vals.count(None)
+        if nulls == count:
+            continue  # left to the column's default, NULL
+        kept.append(column)
+        first = vals[0]
+        if not nulls and type(first) in (str, int) and vals.count(first) == count:
+            constant.append((len(kept) - 1, first))
+        elif nulls and _NULL not in vals:
+            varying.append((len(kept) - 1, [_NULL if v is None else v for v in vals], True))
+        else:
+            varying.append((len(kept) - 1, vals, False))
+    return kept, varying, constant
+
+
+def _insert_columns(
+    con: sqlite3.Connection, table: str, columns: list[str], values: list[list], count: int
+) -> None:
+    """Insert ``count`` rows given column by column (``values[j]`` is column ``j``), in rowid order.
+
+    Binding values from Python is most of the cost, so: many rows go in each
+    statement (a statement per row costs several times its binding, and with
+    AUTOINCREMENT updates sqlite_sequence each time); a column of nothing but
+    nulls is left to its default (NULL); a column holding one value throughout
+    is bound once per statement; and a null elsewhere is bound as a marker
+    string that ``NULLIF`` turns into NULL, because the sqlite3 module binds
+    ``None`` (and ``bytes``) through its adapter lookup, several times slower
+    than text. Floats keep NaN, which SQLite stores as NULL.
+    """
+    kept, varying, constant = _bindings(columns, values, count)
+    quoted = _q(table)
+    if not kept:
+        con.executemany(f"INSERT INTO {quoted} DEFAULT VALUES", [()] * count)
+        return
+    head = f"INSERT INTO {quoted} ({', '.join(_q(c) for c in kept)}) VALUES "
+    width = len(varying)
+    # Row-major values by slice assignment: no tuple per row.
+    flat: list = [None] * (count * width)
+    for k, (_, vals, _) in enumerate(varying):
+        flat[k::width] = vals
+    per = max(1, min(_ROWS_PER_STATEMENT, (_MAX_VARIABLES - len(constant)) // max(width, 1)))
+
+    def template(n: int) -> str:
+        groups = []
+        for r in range(n):
+            cells = [""] * len(kept)
+            for k, (slot, _, wrap) in enumerate(varying):
+                mark = f"?{r * width + k + 1}"
+                cells[slot] = f"NULLIF({mark},'{_NULL}')" if wrap else mark
+            for k, (slot, _) in enumerate(constant):
+                cells[slot] = f"?{n * width + k + 1}"
+            groups.append("(" + ",".join(cells) + ")")
+        return head + ",".join(groups)
+
+    tail = [value for _, value in constant]
+    full = count // per
+    step = per * width
+    if full:
+        con.executemany(template(per), (flat[k * step : (k + 1) * step] + tail for k in range(full)))
+    if count > full * per:
+        con.execute(template(count - full * per), flat[full * step :] + tail)
 
 
 # --- the file -------------------------------------------------------------------------------
@@ -721,31 +790,9 @@ class GeoPackage:
                 raise Unsupported(f"layer {name!r}: column name {col!r}")
             seen.add(col.lower())
 
-    def _insert(self, name: str, columns: list[str], rows: list[tuple]) -> None:
-        """Insert ``rows`` (tuples in ``columns`` order) in rowid order.
-
-        Many rows go in each statement: a statement executed per row costs
-        several times its binding (and, with AUTOINCREMENT, an update of
-        sqlite_sequence each time).
-        """
-        table = _q(name)
-        if not columns:
-            for _ in range(len(rows)):
-                self.con.execute(f"INSERT INTO {table} DEFAULT VALUES")
-            return
-        head = f"INSERT INTO {table} ({', '.join(_q(c) for c in columns)}) VALUES "
-        one = "(" + ",".join("?" * len(columns)) + ")"
-        per = max(1, min(_ROWS_PER_STATEMENT, _MAX_VARIABLES // len(columns)))
-        full = len(rows) // per
-        if full:
-            flat = list(itertools.chain.from_iterable(rows[: full * per]))
-            width = per * len(columns)
-            self.con.executemany(
-                head + ",".join([one] * per), (flat[k * width : (k + 1) * width] for k in range(full))
-            )
-        if len(rows) > full * per:
-            rest = rows[full * per :]
-            self.con.execute(head + ",".join([one] * len(rest)), list(itertools.chain.from_iterable(rest)))
+    def _insert(self, name: str, columns: list[str], values: list[list], count: int) -> None:
+        """Insert ``count`` rows given column by column (``values[j]`` is column ``j``); see :func:`_insert_columns`."""
+        _insert_columns(self.con, name, columns, values, count)
 
     def _register(self, name: str, data_type: str, bounds: tuple, srs_id: int, count: int) -> None:
         self.con.execute(
@@ -776,8 +823,7 @@ class GeoPackage:
         self._create_table(
             name, [(c, sql) for c, (sql, _) in zip(fields, typed, strict=True)], _LAYER_TYPES[layer_type]
         )
-        cols = ["geom", *fields]
-        self._insert(name, cols, list(zip(blobs, *(values for _, values in typed), strict=True)))
+        self._insert(name, ["geom", *fields], [blobs, *(values for _, values in typed)], len(frame))
         if indexed.any():
             env = envelope[indexed]
             bounds = tuple(
@@ -806,8 +852,7 @@ class GeoPackage:
         self._check_names(name, fields)
         typed = [column_values(frame[c], c) for c in fields]
         self._create_table(name, [(c, sql) for c, (sql, _) in zip(fields, typed, strict=True)], None)
-        rows = list(zip(*(values for _, values in typed), strict=True)) if fields else [()] * len(frame)
-        self._insert(name, fields, rows)
+        self._insert(name, fields, [values for _, values in typed], len(frame))
         # GDAL records attribute tables under srs_id 0.
         self._register(name, "attributes", (None, None, None, None), 0, len(frame))
 

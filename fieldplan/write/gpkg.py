@@ -7,6 +7,7 @@ layers a later stage adds (``routes``, ``cores``, ``results``...).
 
 from __future__ import annotations
 
+import gc
 import importlib.util
 import json
 import os
@@ -172,11 +173,28 @@ def write_gpkg(plan, folder: Path) -> None:
     that encoder does not write exactly alike, the rest go through GDAL
     (:func:`write_layer`), so readers see the same file either way.
     """
-    from fieldplan.write.geopackage import GeoPackage, Unsupported
-
     path = Path(folder) / GPKG_NAME
     stamp = last_change(plan)
     layers = gpkg_layers(plan)
+    # The cyclic collector paused: the writer makes some 100,000 short-lived values and
+    # containers, none of them cyclic, and full collections would walk the whole heap.
+    collecting = gc.isenabled()
+    gc.disable()
+    try:
+        rest = _write_layers(path, layers, stamp)
+    finally:
+        if collecting:
+            gc.enable()
+    if rest:
+        with _new_file_mode(path, new=False), _fixed_clock(stamp):
+            for name, frame, geometry_type in rest:
+                write_layer(path, name, frame, geometry_type=geometry_type, fast=name == "points")
+
+
+def _write_layers(path: Path, layers: list, stamp: str) -> list:
+    """Encode ``layers`` into a new GeoPackage at ``path``; return those left for GDAL."""
+    from fieldplan.write.geopackage import GeoPackage, Unsupported
+
     store = GeoPackage(path, last_change=stamp)
     rest: list = []
     try:
@@ -197,10 +215,7 @@ def write_gpkg(plan, folder: Path) -> None:
         path.unlink(missing_ok=True)
         raise
     store.close()
-    if rest:
-        with _new_file_mode(path, new=False), _fixed_clock(stamp):
-            for name, frame, geometry_type in rest:
-                write_layer(path, name, frame, geometry_type=geometry_type, fast=name == "points")
+    return rest
 
 
 def write_gpkg_with_gdal(plan, folder: Path) -> None:
