@@ -207,15 +207,15 @@ def _writers(chosen: set[str] | None) -> list[Callable]:
 #: one process (imports included): the weights by which :func:`write_plan` splits the
 #: writers between itself and a child process. Unlisted writers count as light.
 WRITER_COST: dict[str, float] = {
-    "write_points_geojson": 0.07,
-    "write_points_csv": 0.09,
+    "write_points_geojson": 0.06,
+    "write_points_csv": 0.05,
     "write_summary_csv": 0.01,
     "write_manifest": 0.0,
     "write_readme": 0.0,
     "write_gpkg": 0.11,
     "write_cores_geojson": 0.0,
-    "map_writer": 0.41,
-    "png_writer": 0.70,
+    "map_writer": 0.39,
+    "png_writer": 0.29,
     "kml_writer": 0.16,
     "gpx_writer": 0.05,
 }
