@@ -367,19 +367,22 @@ def _clip_intervals(full, keep_whole, clip, rows):
         off + k0 * ps - lo,
         segment_ends(first[pu] + prow * rs[pu], lo_u, hi_u, u[pu], v[pu]),
     )
-    whole = np.flatnonzero(keep_whole)
-    kept = (unit, row, length, plants, first_plant, offset, ends)
+    kept = (unit, row, length, plants, first_plant, offset, ends.reshape(-1, 4))
     # Back in piece order (by parent, then along the row): a parent kept whole takes one slot,
     # a cut one as many as its pieces; parents are sorted, so each piece's slot is an offset.
     slots = np.where(keep_whole, 1, np.bincount(parent, minlength=line.size))
     base = np.cumsum(slots) - slots
     at_cut = base[parent] + np.arange(parent.size) - np.searchsorted(parent, parent, side="left")
+    # Boolean masks copy the (many) whole pieces several times faster than index arrays.
+    is_whole = np.ones(int(slots.sum()), dtype=bool)
+    is_whole[at_cut] = False
     out = []
     for full_col, cut_col in zip(kept, cut, strict=True):
-        col = np.empty((int(slots.sum()), *full_col.shape[1:]), dtype=full_col.dtype)
-        col[base[whole]] = full_col[whole]
-        col[at_cut] = cut_col
+        col = np.empty((is_whole.size, *full_col.shape[1:]), dtype=full_col.dtype)
+        col[is_whole] = full_col[keep_whole]
+        col[at_cut] = cut_col.reshape(-1, *full_col.shape[1:])
         out.append(col)
+    out[-1] = out[-1].reshape(-1, 2, 2)
     return tuple(out)
 
 
