@@ -17,7 +17,7 @@ from fieldplan.read import read_blocks
 from fieldplan.sorting import natural_key, natural_sorted
 from fieldplan.words import plural
 from fieldplan.write.page import legend_colours, page_layout
-from fieldplan.write.png import render_png
+from fieldplan.write.png import render_figure, render_png
 from tests.geoms import blocks_frame, lonlat_estate_file, lonlat_square, write_geojson
 
 
@@ -110,6 +110,22 @@ def _assert_clear(layout, rgb=None):
 def test_north_arrow_clear_of_points_on_a_many_block_page(many_strata_plan):
     layout = page_layout(many_strata_plan)
     _assert_clear(layout, _pixels(layout))
+    # The same layout drawn by matplotlib (plan.pdf): the arrow's artists clear of every point.
+    # reference: matplotlib's own renderer extents of the drawn artists.
+    fig = render_figure(layout)
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    found = [a for a in fig.findobj() if a.get_gid() == "north-arrow"]
+    assert len(found) == 3  # shaft, head and "N"
+    shown = fig.axes[0].transData.transform(layout.points)
+    for box in (a.get_window_extent(renderer) for a in found):
+        inside = (
+            (shown[:, 0] >= box.x0)
+            & (shown[:, 0] <= box.x1)
+            & (shown[:, 1] >= box.y0)
+            & (shown[:, 1] <= box.y1)
+        )
+        assert not inside.any(), shown[inside][:3]
 
 
 def _with_points_at(plan, xy):

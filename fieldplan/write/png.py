@@ -522,10 +522,10 @@ _VA = {"a": "top", "m": "center", "s": "baseline", "d": "bottom"}
 _HA = {"l": "left", "m": "center", "r": "right"}
 
 
-def _mpl_text(ax: Any, text: Text) -> None:
+def _mpl_text(ax: Any, text: Text) -> Any:
     from matplotlib.patheffects import withStroke
 
-    ax.text(
+    return ax.text(
         text.x,
         text.y,
         text.text.translate(_ISOLATES),  # matplotlib lays text out left to right, without bidi
@@ -614,7 +614,7 @@ def render_figure(layout: PageLayout) -> Any:
     head = np.asarray(arrow["head"])
     base = head[1:].mean(axis=0)
     end = base + (np.asarray(arrow["tip"]) - base) * 0.3
-    ax.plot(
+    (shaft,) = ax.plot(
         [arrow["tail"][0], end[0]],
         [arrow["tail"][1], end[1]],
         color=COLOURS["ink"],
@@ -622,8 +622,9 @@ def render_figure(layout: PageLayout) -> Any:
         zorder=6,
         solid_capstyle="butt",
     )
-    ax.add_patch(Polygon(head, closed=True, color=COLOURS["ink"], zorder=6))
-    _mpl_text(ax, arrow["label"])
+    head_patch = ax.add_patch(Polygon(head, closed=True, color=COLOURS["ink"], zorder=6))
+    for artist in (shaft, head_patch, _mpl_text(ax, arrow["label"])):
+        artist.set_gid("north-arrow")  # so a figure's arrow can be found (and checked)
 
     lx0, ly0, lx1, ly1 = layout.legend_box
     ax.add_patch(
