@@ -254,6 +254,9 @@ def read_frame(
             count = feature_count(path, layer)
         check_block_count(path, count, max_blocks=max_features)
         check_json_nul(path, raw)  # the reader would cut a text value at a NUL without a word
+        frame = _read_plain_geojson(raw) if len(raw) <= _PLAIN_GEOJSON_BYTES else None
+        if frame is not None:
+            return _drop_z(frame, path, notes)
     else:
         # Counted from the layer's header or index, before a single feature is read.
         check_block_count(path, feature_count(path, layer), max_blocks=max_features)
@@ -281,6 +284,108 @@ def read_frame(
     if not isinstance(frame, gpd.GeoDataFrame) or "geometry" not in frame:
         raise InputError(f"{path}: holds no geometries; export the block boundaries as polygons")
     return _drop_z(frame, path, notes)
+
+
+# A GeoJSON file this small, of polygons with plain attributes, is read without GDAL: loading
+# the vector reader and starting GDAL cost more than the file (most block files are this kind).
+_PLAIN_GEOJSON_BYTES = 1_000_000
+# Text GDAL's GeoJSON reader would take for a date, time or date-time field (not plain text).
+_DATE_LIKE = re.compile(r"^\s*(\d{4}[-/]\d{1,2}[-/]\d{1,2}|\d{1,2}:\d{2})")
+_INT32 = (-(2**31), 2**31 - 1)
+
+
+class _NotPlain(Exception):
+    """The GeoJSON text holds something only GDAL's reader knows how to take."""
+
+
+def _plain_object(pairs: list[tuple[str, object]]) -> dict:
+    keys = [k for k, _ in pairs]
+    if len({k.casefold() for k in keys}) != len(keys):
+        raise _NotPlain  # keys repeated (in any case): which one GDAL keeps is its own rule
+    return dict(pairs)
+
+
+def _refuse_constant(name: str) -> float:
+    raise _NotPlain  # NaN or Infinity: not JSON
+
+
+def _read_plain_geojson(raw: bytes) -> gpd.GeoDataFrame | None:
+    """The frame GDAL's reader gives for a plain FeatureCollection, or None for any other file.
+
+    Plain: no ``crs`` member, no feature ``id``; every geometry a 2D Polygon or MultiPolygon;
+    every feature with the same properties in the same order, each property holding only text
+    (no dates), only whole numbers, or only numbers with gaps. Anything else, and any file
+    this reader cannot parse, goes to GDAL, whose errors the caller words.
+    """
+    try:
+        data = json.loads(raw, object_pairs_hook=_plain_object, parse_constant=_refuse_constant)
+        features = data["features"] if isinstance(data, dict) else None
+        if (
+            data.get("type") != "FeatureCollection"
+            or not data.keys() <= {"type", "features", "name", "bbox"}
+            or not isinstance(features, list)
+            or not features
+        ):
+            return None
+        names = _plain_properties(features)
+        columns = {name: _plain_column([f["properties"].get(name) for f in features]) for name in names}
+        geoms = shapely.get_parts(shapely.from_geojson(raw))
+    except (_NotPlain, ValueError, TypeError, KeyError, AttributeError, RecursionError, shapely.errors.ShapelyError):
+        return None
+    kinds = [_POLYGON_TYPES[f["geometry"]["type"]] for f in features]
+    if len(geoms) != len(features) or not np.array_equal(shapely.get_type_id(geoms), kinds) or shapely.has_z(geoms).any():
+        return None
+    return gpd.GeoDataFrame(columns, geometry=geoms, crs="EPSG:4326")
+
+
+_POLYGON_TYPES = {"Polygon": 3, "MultiPolygon": 6}
+
+
+def _plain_properties(features: list) -> list[str]:
+    """The first feature's property names: every other feature has them, or some of them in the
+    same order (a missing one is a gap, as in GDAL). Raises _NotPlain for features of another shape.
+    """
+    first = features[0].get("properties") if isinstance(features[0], dict) else None
+    names = list(first) if isinstance(first, dict) else []
+    folded = [n.casefold() for n in names]
+    if not names or "" in names or "geometry" in folded or len(set(folded)) != len(folded):
+        raise _NotPlain
+    position = {name: i for i, name in enumerate(names)}
+    for feature in features:
+        geometry = feature.get("geometry") if isinstance(feature, dict) else None
+        if (
+            feature.keys() - {"type", "properties", "geometry", "bbox"}
+            or feature.get("type") != "Feature"
+            or not isinstance(geometry, dict)
+            or geometry.keys() - {"type", "coordinates", "bbox"}
+            or geometry.get("type") not in _POLYGON_TYPES
+            or not isinstance(feature.get("properties"), dict)
+        ):
+            raise _NotPlain
+        # GDAL places a field first met later by rules of its own: only the first feature's order.
+        order = [position.get(name, -1) for name in feature["properties"]]
+        if -1 in order or order != sorted(order):
+            raise _NotPlain
+    return names
+
+
+def _plain_column(values: list) -> np.ndarray | pd.Series:
+    """A property's values as GDAL's reader types them: text, 32- or 64-bit integers, or reals."""
+    kinds = {type(v) for v in values}
+    if kinds <= {str, type(None)} and str in kinds:
+        if any(_DATE_LIKE.match(v) for v in values if v is not None):
+            raise _NotPlain
+        return pd.Series(values)
+    if kinds == {int}:
+        low, high = min(values), max(values)
+        if _INT32[0] <= low and high <= _INT32[1]:
+            return np.array(values, dtype=np.int32)
+        if -(2**63) <= low and high < 2**63:
+            return np.array(values, dtype=np.int64)
+        raise _NotPlain
+    if kinds <= {int, float, type(None)} and float in kinds:
+        return np.array([np.nan if v is None else v for v in values], dtype=np.float64)
+    raise _NotPlain
 
 
 def _gpkg_layer(path: Path, layer: str | None) -> str | None:

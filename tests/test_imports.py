@@ -67,6 +67,8 @@ def test_core_plan_imports_only_its_own_command_module(tmp_path):
     assert "fieldplan.cli.plan_cmd" in loaded
     others = [f"fieldplan.cli.{m}" for m in ("serve_cmd", "zones_cmd", "estimate_cmd", "size_cmd", "crews_cmd")]
     assert _heavy(loaded, (*others, "fastapi", "uvicorn", "jinja2", "starlette", "rich")) == []
+    # A plain GeoJSON of a few blocks is read without GDAL (fieldplan.read._read_plain_geojson).
+    assert "pyogrio" not in loaded
 
 
 def test_help_lists_every_command_in_order_with_its_one_line_help():
