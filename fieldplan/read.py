@@ -288,10 +288,14 @@ def read_frame(
 
 # A GeoJSON file this small, of polygons with plain attributes, is read without GDAL: loading
 # the vector reader and starting GDAL cost more than the file (most block files are this kind).
-_PLAIN_GEOJSON_BYTES = 1_000_000
+# Past about a megabyte GDAL's own parser wins; half of that leaves room for a file that is
+# parsed here and then turns out to need GDAL after all.
+_PLAIN_GEOJSON_BYTES = 512_000
 # Text GDAL's GeoJSON reader would take for a date, time or date-time field (not plain text).
 _DATE_LIKE = re.compile(r"^\s*(\d{4}[-/]\d{1,2}[-/]\d{1,2}|\d{1,2}:\d{2})")
 _INT32 = (-(2**31), 2**31 - 1)
+# The crs member GDAL, QGIS and geopandas write for longitude/latitude (read as EPSG:4326).
+_CRS84 = {"type": "name", "properties": {"name": "urn:ogc:def:crs:OGC:1.3:CRS84"}}
 
 
 class _NotPlain(Exception):
@@ -312,7 +316,7 @@ def _refuse_constant(name: str) -> float:
 def _read_plain_geojson(raw: bytes) -> gpd.GeoDataFrame | None:
     """The frame GDAL's reader gives for a plain FeatureCollection, or None for any other file.
 
-    Plain: no ``crs`` member, no feature ``id``; every geometry a 2D Polygon or MultiPolygon;
+    Plain: no ``crs`` member but CRS84's, no feature ``id``; every geometry a 2D Polygon or MultiPolygon;
     every feature with the same properties in the same order, each property holding only text
     (no dates), only whole numbers, or only numbers with gaps. Anything else, and any file
     this reader cannot parse, goes to GDAL, whose errors the caller words.
@@ -322,7 +326,8 @@ def _read_plain_geojson(raw: bytes) -> gpd.GeoDataFrame | None:
         features = data["features"] if isinstance(data, dict) else None
         if (
             data.get("type") != "FeatureCollection"
-            or not data.keys() <= {"type", "features", "name", "bbox"}
+            or not data.keys() <= {"type", "features", "name", "bbox", "crs"}
+            or data.get("crs", _CRS84) != _CRS84
             or not isinstance(features, list)
             or not features
         ):
@@ -360,6 +365,7 @@ def _plain_properties(features: list) -> list[str]:
             or geometry.keys() - {"type", "coordinates", "bbox"}
             or geometry.get("type") not in _POLYGON_TYPES
             or not isinstance(feature.get("properties"), dict)
+            or len(_first_vertex(geometry)) != 2  # a Z file (dropped with a note by the GDAL path)
         ):
             raise _NotPlain
         # GDAL places a field first met later by rules of its own: only the first feature's order.
@@ -367,6 +373,11 @@ def _plain_properties(features: list) -> list[str]:
         if -1 in order or order != sorted(order):
             raise _NotPlain
     return names
+
+
+def _first_vertex(geometry: dict) -> list:
+    coordinates = geometry["coordinates"]
+    return coordinates[0][0] if geometry["type"] == "Polygon" else coordinates[0][0][0]
 
 
 def _plain_column(values: list) -> np.ndarray | pd.Series:

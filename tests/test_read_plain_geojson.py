@@ -74,7 +74,8 @@ def test_attribute_types_as_gdal_types_them(tmp_path):
         }
         for i in range(n)
     ]
-    path = _write(tmp_path / "b.geojson", _features(props), name="blocks")
+    crs84 = {"type": "name", "properties": {"name": "urn:ogc:def:crs:OGC:1.3:CRS84"}}
+    path = _write(tmp_path / "b.geojson", _features(props), name="blocks", crs=crs84)
     plain = _read_plain_geojson(path.read_bytes())
     assert plain is not None
     _same(plain, _gdal(path))
@@ -125,7 +126,7 @@ def test_other_files_go_to_gdal(tmp_path, case):
     props = [{"block": "A", "v": 1}, {"block": "B", "v": 2}]
     extra: dict = {}
     if case == "crs":
-        extra = {"crs": {"type": "name", "properties": {"name": "urn:ogc:def:crs:OGC:1.3:CRS84"}}}
+        extra = {"crs": {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::4326"}}}
     change = {
         "bool": [{"block": "A", "v": True}, {"block": "B", "v": False}],
         "int_gaps": [{"block": "A", "v": 1}, {"block": "B", "v": None}],
