@@ -275,6 +275,15 @@ def test_frames_the_encoder_cannot_match_fall_back_to_gdal(tmp_path):
     plan.layers["later"] = pd.DataFrame({"v": [1, 2]})
     with pytest.raises(Unsupported):
         GeoPackage(tmp_path / "t.gpkg", last_change=STAMP).add_features("odd", odd)
+    # A layer refused after its CRS row went in leaves nothing behind once rolled back.
+    store = GeoPackage(tmp_path / "z.gpkg", last_change=STAMP)
+    store.con.execute("SAVEPOINT layer")
+    with pytest.raises(Unsupported, match="Z"):
+        store.add_features("z", gpd.GeoDataFrame(geometry=[shapely.Point(1, 2, 3)], crs="EPSG:3031"))
+    store.con.execute("ROLLBACK TO layer")
+    store.close()
+    assert [r[0] for r in _rows(tmp_path / "z.gpkg", "SELECT srs_id FROM gpkg_spatial_ref_sys")] == [-1, 0, 4326]
+    assert _rows(tmp_path / "z.gpkg", "PRAGMA integrity_check") == [("ok",)]
     new, old = _both(plan, tmp_path)
     assert_same_store(new, old)
     order = [row[0] for row in _rows(new, "SELECT table_name FROM gpkg_contents ORDER BY rowid")]

@@ -540,7 +540,7 @@ def _str_order(boxes: np.ndarray, fanout: int) -> np.ndarray:
     cy = (boxes[:, 2] + boxes[:, 3]) * 0.5
     nodes = math.ceil(n / fanout)
     slab = math.ceil(math.sqrt(nodes)) * fanout
-    by_x = np.argsort(cx, kind="stable")
+    by_x = np.argsort(cx, kind="stable")  # stable: ties (a grid has many) in the same order everywhere
     slab_of = np.empty(n, dtype=np.int64)
     slab_of[by_x] = np.arange(n) // slab
     # One sort on slab + y scaled into [0, 1): the slab decides, y orders within it.
@@ -624,7 +624,7 @@ def _bulk_load_rtree(con: sqlite3.Connection, name: str, ids: np.ndarray, boxes:
         f"INSERT INTO {_q(name + '_parent')} (nodeno, parentnode) VALUES (?, ?)", sorted(parent_rows)
     )
     leaf_ids = levels[0][0]
-    by_id = np.argsort(leaf_ids, kind="stable")
+    by_id = np.argsort(leaf_ids)  # ids are unique
     leaf_ids, leaf_of = leaf_ids[by_id], leaf_of[by_id]
     # Integers bind directly (no adapter lookup), many rows to a statement.
     _insert_columns(
@@ -727,9 +727,10 @@ class GeoPackage:
         self.last_change = last_change
         self.spatial_index = spatial_index
         self._srs: dict[str, int] = {}
-        # No journal and no syncs: the file is new, and a failed write leaves it to be discarded.
+        # No syncs (one fsync at close) and the journal in memory: the file is new and a failed
+        # write discards it; the journal serves only to roll back a layer left to GDAL.
         self.con = sqlite3.connect(self.path, isolation_level=None)
-        self.con.execute("PRAGMA journal_mode = OFF")
+        self.con.execute("PRAGMA journal_mode = MEMORY")
         self.con.execute("PRAGMA synchronous = OFF")
         self.con.execute(f"PRAGMA application_id = {APPLICATION_ID}")
         self.con.execute(f"PRAGMA user_version = {USER_VERSION}")
