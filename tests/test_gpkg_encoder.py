@@ -282,7 +282,11 @@ def test_frames_the_encoder_cannot_match_fall_back_to_gdal(tmp_path):
         store.add_features("z", gpd.GeoDataFrame(geometry=[shapely.Point(1, 2, 3)], crs="EPSG:3031"))
     store.con.execute("ROLLBACK TO layer")
     store.close()
-    assert [r[0] for r in _rows(tmp_path / "z.gpkg", "SELECT srs_id FROM gpkg_spatial_ref_sys")] == [-1, 0, 4326]
+    assert [r[0] for r in _rows(tmp_path / "z.gpkg", "SELECT srs_id FROM gpkg_spatial_ref_sys")] == [
+        -1,
+        0,
+        4326,
+    ]
     assert _rows(tmp_path / "z.gpkg", "PRAGMA integrity_check") == [("ok",)]
     new, old = _both(plan, tmp_path)
     assert_same_store(new, old)
