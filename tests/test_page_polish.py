@@ -102,7 +102,7 @@ def _assert_clear(layout, rgb=None):
     assert not inside.any(), xy[inside][:3]
     if rgb is not None:
         patch = rgb[int(y0) : int(y1) + 1, int(x0) : int(x1) + 1].reshape(-1, 3)
-        for style in layout.styles[:-1]:
+        for style in layout.styles[: layout.n_strata]:
             colour = np.array([int(style["colour"][i : i + 2], 16) for i in (1, 3, 5)])
             assert not (np.abs(patch - colour).sum(axis=1) <= 6).any(), style
 

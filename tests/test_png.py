@@ -278,6 +278,33 @@ def test_spares_have_their_own_symbol_and_legend_row(tmp_path):
     subtitle = next(t.text for t in layout.texts if t.role == "subtitle")
     assert "8 points in 2 blocks" in subtitle and "4 spares" in subtitle
 
+    # Two points marked inaccessible (fieldplan mark): the map's grey struck-through circle.
+    from types import SimpleNamespace
+
+    from fieldplan.write.html_map import INACCESSIBLE_STYLE
+
+    points = spared.points.copy()
+    gone = points.index[status.to_numpy() != "spare"][:2]
+    points.loc[gone, "status"] = "inaccessible"
+    marked = SimpleNamespace(
+        **{k: getattr(spared, k) for k in ("blocks", "crs", "exclusions", "meta", "params")}
+    )
+    marked.points = points
+    layout = page_layout(marked)
+    rows = [e for e in layout.legend if e.kind == "marker"]
+    assert [e.count for e in rows] == [2, 4, 4, 2]  # stratum A lost two to the marks
+    assert rows[-1].label.text.startswith(INACCESSIBLE_STYLE["legend"])
+    assert rows[-1].colour == INACCESSIBLE_STYLE["colour"] and rows[-1].shape == "circle-x"
+    rgb = _rgb(render_png(layout))
+    grey = np.array([int(INACCESSIBLE_STYLE["colour"][i : i + 2], 16) for i in (1, 3, 5)])
+    drawn = layout.points[layout.point_style == len(layout.styles) - 1]
+    assert len(drawn) == 2
+    for x, y in np.rint(drawn).astype(int):
+        patch = rgb[y - 4 : y + 5, x - 4 : x + 5].reshape(-1, 3)
+        assert (np.abs(patch - grey).sum(axis=1) <= 6).any()  # grey fill
+        assert (patch.sum(axis=1) < 150).any()  # and the dark strike
+    assert "2 marked inaccessible" in next(t.text for t in layout.texts if t.role == "subtitle")
+
 
 def test_page_draws_without_the_bundled_font(plan, monkeypatch):
     # No font file to be found (matplotlib not installed): Pillow's own default font is used.

@@ -29,7 +29,7 @@ import numpy as np
 import shapely
 
 from fieldplan.words import plural
-from fieldplan.write.html_map import PALETTE, plan_caption, stratum_styles
+from fieldplan.write.html_map import INACCESSIBLE_STYLE, PALETTE, plan_caption, stratum_styles
 
 __all__ = [
     "A4_LANDSCAPE_IN",
@@ -82,9 +82,17 @@ COLOURS = {
     "caution": "#333333",
     "legend_edge": "#cccccc",
 }
-#: Spare points (status "spare") are drawn white with a dark edge, in the shape no stratum
-#: uses, so they read as "not yet to be sampled" whatever their stratum.
-SPARE_SHAPE = "cross"
+#: Points whose ``status`` is one of these are drawn in its style, whatever their stratum, in
+#: shapes no stratum uses: spares (white X: "not yet to be sampled") and points marked
+#: inaccessible (the map's grey circle struck through). They draw after the strata, in this order.
+STATUS_STYLES: dict[str, dict[str, str]] = {
+    "spare": {"colour": "#ffffff", "shape": "cross", "legend": "Spare point, used only to replace one"},
+    "inaccessible": {
+        "colour": INACCESSIBLE_STYLE["colour"],
+        "shape": "circle-x",
+        "legend": INACCESSIBLE_STYLE["legend"],
+    },
+}
 
 # Paul Tol (2021), "Colour Schemes", SRON/EPS/TN/09-002, the muted qualitative scheme
 # (from memory): more distinct colours after Okabe & Ito's seven, so a page legend of up
@@ -400,7 +408,8 @@ class PageLayout:
     exclusions: Rings
     points: np.ndarray  # (n, 2) page xy, in drawing order
     point_style: np.ndarray  # (n,) index into ``styles``
-    styles: list[dict[str, str]]  # {"name", "colour", "shape"}
+    styles: list[dict[str, str]]  # {"name", "colour", "shape"}: the strata's, then STATUS_STYLES'
+    n_strata: int
     marker: float  # marker diameter, px
     labels: list[Text]
     legend_box: tuple[float, float, float, float]
@@ -513,7 +522,7 @@ def _scale_bar_at(
     }
 
 
-def _head_and_cautions(plan: Any, title: str | None, n_planned: int, n_spare: int) -> list[Text]:
+def _head_and_cautions(plan: Any, title: str | None, n_planned: int, n_spare: int, n_gone: int) -> list[Text]:
     """Title and subtitle at the top, the cautions wrapped at the foot (as many lines as they need)."""
     from fieldplan.safety import plan_cautions
 
@@ -530,6 +539,8 @@ def _head_and_cautions(plan: Any, title: str | None, n_planned: int, n_spare: in
     )
     if n_spare:
         sub += f"   {plural(n_spare, 'spare')}"
+    if n_gone:
+        sub += f"   {n_gone} marked inaccessible"
     if n_blocks > MAX_LABELLED_BLOCKS:
         sub += f"   Block labels left out (over {MAX_LABELLED_BLOCKS} blocks): see map.html or points.csv"
     sub = _fit_width(sub, 8, False, width - 2 * margin)
@@ -570,28 +581,39 @@ def _map_frame(plan: Any, bottom: float) -> tuple[tuple, tuple, float, tuple]:
     return box, (fx0, fy0, fx0 + fw, fy0 + fh), scale, extent
 
 
-def _spare_mask(points: Any) -> np.ndarray:
+def _status_code(points: Any) -> np.ndarray:
+    """Per point: 0 for a point drawn by its stratum, else 1 + the index of its status in
+    :data:`STATUS_STYLES`."""
+    code = np.zeros(len(points), dtype=np.int64)
     if len(points) and "status" in points.columns:
-        return points["status"].astype(str).str.lower().eq("spare").to_numpy()
-    return np.zeros(len(points), dtype=bool)
+        status = points["status"].astype(str).str.lower().to_numpy()
+        for i, kind in enumerate(STATUS_STYLES):
+            code[status == kind] = i + 1
+    return code
 
 
-def _point_layer(points: Any, is_spare: np.ndarray) -> tuple[np.ndarray, np.ndarray, list[dict[str, str]]]:
-    """World xy in drawing order, a style code per point, and the styles (the spare style last).
+def _point_layer(points: Any, status: np.ndarray) -> tuple[np.ndarray, np.ndarray, list[dict[str, str]]]:
+    """World xy in drawing order, a style code per point, and the styles: the strata's, then
+    one per :data:`STATUS_STYLES` entry.
 
-    Planned points go by stratum in the legend's order (later strata draw on top), then spares.
+    Points go by stratum in the legend's order (later strata draw on top), then by status.
     """
+    plain = status == 0
     strata = points["stratum"].astype(str).to_numpy() if len(points) else np.array([], dtype=str)
-    by_name = page_styles(strata[~is_spare]) if (~is_spare).any() else {}
+    by_name = page_styles(strata[plain]) if plain.any() else {}
     styles = [{"name": name, **style} for name, style in by_name.items()]
-    code = np.full(len(points), len(styles), dtype=np.int64)
-    if len(styles):
+    n_strata = len(styles)
+    code = np.zeros(len(points), dtype=np.int64)
+    if n_strata:
         uniq, inverse = np.unique(strata, return_inverse=True)
         position = {name: i for i, name in enumerate(by_name)}
-        lookup = np.array([position.get(u, len(styles)) for u in uniq.tolist()], dtype=np.int64)
+        lookup = np.array([position.get(u, 0) for u in uniq.tolist()], dtype=np.int64)
         code = lookup[inverse.ravel()]
-    code[is_spare] = len(styles)
-    styles.append({"name": "spare", "colour": COLOURS["spare"], "shape": SPARE_SHAPE})
+    code = np.where(plain, code, n_strata + status - 1)
+    styles += [
+        {"name": kind, "colour": style["colour"], "shape": style["shape"]}
+        for kind, style in STATUS_STYLES.items()
+    ]
     order = np.argsort(code, kind="stable")
     world = shapely.get_coordinates(points.geometry.values) if len(points) else np.empty((0, 2))
     return world[order], code[order], styles
@@ -629,25 +651,32 @@ def _overlap(a: tuple, b: tuple) -> bool:
 
 
 def _legend(
-    styles: list[dict[str, str]], counts: np.ndarray, n_spare: int, has_exclusions: bool
+    styles: list[dict[str, str]], counts: np.ndarray, n_strata: int, has_exclusions: bool
 ) -> tuple[tuple[float, float, float, float], Text, list[LegendEntry]]:
-    """Legend at the top right: strata in natural order with their counts, spares, block, exclusion."""
+    """Legend at the top right: strata in natural order with their counts, spares and
+    inaccessible points when there are any, block, exclusion."""
     width, height = PAGE_SIZE
     lx, ly = 0.75 * width, 0.10 * height
     row_h, swatch_w = LEGEND_PT * PX_PER_PT * 1.45, 22.0
     max_label = width - MARGIN * width - lx - swatch_w - 24
     rows: list[tuple[str, str, dict, str | None, int]] = []
-    planned = styles[:-1]
-    for i, style in enumerate(planned[:MAX_LEGEND_STRATA]):
+    for i, style in enumerate(styles[: min(n_strata, MAX_LEGEND_STRATA)]):
         # the name in a direction isolate: a right-to-left name keeps its count after it
         label = f"Stratum \u2068{page_text(style['name'])}\u2069 ({int(counts[i])})"
         rows.append(("marker", label, style, style["name"], int(counts[i])))
-    if len(planned) > MAX_LEGEND_STRATA:
-        rows.append(("none", f"... and {len(planned) - MAX_LEGEND_STRATA} more strata", {}, None, 0))
-    if n_spare:
-        rows.append(
-            ("marker", f"Spare point, used only to replace one ({n_spare})", styles[-1], None, n_spare)
-        )
+    if n_strata > MAX_LEGEND_STRATA:
+        rows.append(("none", f"... and {n_strata - MAX_LEGEND_STRATA} more strata", {}, None, 0))
+    for i, kind in enumerate(STATUS_STYLES, start=n_strata):
+        if counts[i]:
+            rows.append(
+                (
+                    "marker",
+                    f"{STATUS_STYLES[kind]['legend']} ({int(counts[i])})",
+                    styles[i],
+                    None,
+                    int(counts[i]),
+                )
+            )
     rows.append(("block", "Block (id, variety)", {}, None, 0))
     if has_exclusions:
         rows.append(("exclusion", "Exclusion (not sampled)", {}, None, 0))
@@ -663,7 +692,8 @@ def _legend(
         entries.append(
             LegendEntry(kind, label, swatch, style.get("colour", ""), style.get("shape", ""), stratum, count)
         )
-    legend_w = max(10 + swatch_w + 8 + widest + 12, text_width("Legend", 8, True) + 24)
+    # 5 % slack: matplotlib (the PDF) sets the same text a little wider than FreeType
+    legend_w = max(10 + swatch_w + 8 + 1.05 * widest + 12, text_width("Legend", 8, True) + 24)
     box = (lx, ly, lx + legend_w, ly + title_h + 6 + len(rows) * row_h + 6)
     title = Text(
         lx + legend_w / 2, ly + 6 + title_h / 2, "Legend", 8, bold=True, anchor="mm", role="legend-title"
@@ -703,9 +733,10 @@ def page_layout(plan: Any, *, title: str | None = None) -> PageLayout:
     """Lay out the printable page of ``plan`` (no drawing; see ``fieldplan.write.png``)."""
     width, height = PAGE_SIZE
     points = plan.points
-    is_spare = _spare_mask(points)
-    n_spare = int(is_spare.sum())
-    texts = _head_and_cautions(plan, title, len(points) - n_spare, n_spare)
+    status = _status_code(points)
+    n_spare = int((status == 1 + list(STATUS_STYLES).index("spare")).sum())
+    n_gone = int((status == 1 + list(STATUS_STYLES).index("inaccessible")).sum())
+    texts = _head_and_cautions(plan, title, len(points) - n_spare, n_spare, n_gone)
     caution_top = min(t.y for t in texts if t.role == "caution")
     box, frame, scale, extent = _map_frame(plan, min(0.88 * height, caution_top - 0.02 * height))
     to_page = _transform(frame, extent, scale)
@@ -716,12 +747,13 @@ def page_layout(plan: Any, *, title: str | None = None) -> PageLayout:
     geoms = exclusions.to_crs(plan.crs).geometry.values if has_exclusions else []
     exclusion_rings = _rings(geoms, to_page)
 
-    world, point_style, styles = _point_layer(points, is_spare)
+    world, point_style, styles = _point_layer(points, status)
+    n_strata = len(styles) - len(STATUS_STYLES)
     xy = to_page(world) if len(world) else np.empty((0, 2))
     marker = marker_diameter(len(points))
     labels = _block_labels(plan.blocks, to_page)
     counts = np.bincount(point_style, minlength=len(styles))
-    legend_box, legend_title, entries = _legend(styles, counts, n_spare, len(exclusion_rings) > 0)
+    legend_box, legend_title, entries = _legend(styles, counts, n_strata, len(exclusion_rings) > 0)
 
     north = true_north_bearing(plan.crs, (extent[0] + extent[2]) / 2, (extent[1] + extent[3]) / 2)
     radius = marker / 2 + 1
@@ -747,6 +779,7 @@ def page_layout(plan: Any, *, title: str | None = None) -> PageLayout:
         points=xy,
         point_style=point_style,
         styles=styles,
+        n_strata=n_strata,
         marker=marker,
         labels=labels,
         legend_box=legend_box,

@@ -75,6 +75,7 @@ MARKERS = {
     "triangle-down": "v",
     "hexagon": "h",
     "cross": "X",
+    "circle-x": "o",  # with an "x" drawn over it
 }
 #: Shapes are drawn at this many times the page resolution, then averaged down.
 SUPERSAMPLE = 3
@@ -135,8 +136,12 @@ def _sprite(shape: str, diameter: float, edge: float) -> tuple[np.ndarray, np.nd
     """
     reach = int(math.ceil(0.75 * diameter + edge)) + 1
     dy, dx = np.mgrid[-reach : reach + 1, -reach : reach + 1].astype(float)
-    outer = _inside(shape, dx, dy, diameter, inset=-edge / 2).ravel()
-    inner = _inside(shape, dx, dy, diameter, inset=edge / 2).ravel()
+    base = "circle" if shape == "circle-x" else shape
+    outer = _inside(base, dx, dy, diameter, inset=-edge / 2).ravel()
+    inner = _inside(base, dx, dy, diameter, inset=edge / 2).ravel()
+    if shape == "circle-x":  # struck through: an X of edge-wide bars across the circle
+        bars = (np.abs(dx + dy) <= edge / 2 * math.sqrt(2)) | (np.abs(dx - dy) <= edge / 2 * math.sqrt(2))
+        inner &= ~bars.ravel()
     offsets = np.column_stack([dy.ravel()[outer], dx.ravel()[outer]]).astype(np.int64)
     return offsets, inner[outer]
 
@@ -585,6 +590,17 @@ def render_figure(layout: PageLayout) -> Any:
                 zorder=3,
             )
             dots.set_clip_path(clip)
+            if style["shape"] == "circle-x":
+                strike = ax.scatter(
+                    xy[sel, 0],
+                    xy[sel, 1],
+                    s=(layout.marker * pt) ** 2 * 0.5,
+                    marker="x",
+                    c=COLOURS["marker_edge"],
+                    linewidths=0.8,
+                    zorder=3,
+                )
+                strike.set_clip_path(clip)
     ax.add_patch(
         Rectangle(
             (fx0, fy0), fx1 - fx0, fy1 - fy0, fill=False, edgecolor=COLOURS["frame"], linewidth=0.8, zorder=4
@@ -652,6 +668,9 @@ def render_figure(layout: PageLayout) -> Any:
                 linewidths=0.5,
                 zorder=5,
             )
+            if entry.shape == "circle-x":
+                size = (layout.legend_marker * pt) ** 2 * 0.5
+                ax.scatter([cx], [cy], s=size, marker="x", c=COLOURS["marker_edge"], linewidths=0.8, zorder=5)
         elif entry.kind == "block":
             ax.add_patch(
                 Rectangle(
