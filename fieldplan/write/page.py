@@ -534,7 +534,8 @@ def _head_and_cautions(plan: Any, title: str | None, n_planned: int, n_spare: in
     crs_name = page_text(getattr(plan.crs, "name", plan.crs), limit=60)
     n_blocks = len(plan.blocks)
     sub = (
-        f"Seed {caption['seed']}   Date {caption['date'] or '-'}   Design {page_text(caption['design']) or '-'}"
+        f"Seed {page_text(caption['seed'])}   Date {page_text(caption['date']) or '-'}"
+        f"   Design {page_text(caption['design']) or '-'}"
         f"   {plural(n_planned, 'point')} in {plural(n_blocks, 'block')}   CRS {crs_name}"
     )
     if n_spare:
