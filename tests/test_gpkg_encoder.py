@@ -199,6 +199,32 @@ def test_every_column_type_is_typed_and_valued_as_gdal_does(tmp_path):
     _compare_layer(tmp_path, "empty_table", pd.DataFrame({"key": pd.Series([], dtype="str")}))
 
 
+def test_values_bound_once_per_statement_or_as_null_markers_read_back_as_given(tmp_path):
+    # Constant columns, all-null columns, nulls among values and the null marker itself as a
+    # value, over more rows than one statement takes.
+    from fieldplan.write.geopackage import _NULL
+
+    n = 300
+    text = [f"v{k}" for k in range(n)]
+    text[7] = None
+    marked = list(text)
+    marked[9] = _NULL
+    frame = pd.DataFrame(
+        {
+            "same_text": ["grid"] * n,
+            "same_int": np.full(n, 7, dtype="int64"),
+            "nothing": pd.Series([None] * n, dtype=object),
+            "some_null": pd.Series(text, dtype=object),
+            "with_marker": pd.Series(marked, dtype=object),
+            "nan_only": np.full(n, np.nan),
+        }
+    )
+    _compare_layer(tmp_path, "bindings", frame)
+    back = pyogrio.read_dataframe(tmp_path / "bindings_new.gpkg", layer="bindings", read_geometry=False)
+    assert back["with_marker"].iloc[9] == _NULL and pd.isna(back["with_marker"].iloc[7])
+    assert (back["same_int"] == 7).all() and back["nothing"].isna().all()
+
+
 @pytest.mark.parametrize(
     ("geoms", "geometry_type"),
     [

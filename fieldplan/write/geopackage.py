@@ -324,6 +324,22 @@ def _object_text(series: pd.Series, name: str) -> list:
     return _with_nulls(values.tolist(), null)
 
 
+def _numpy_numbers(raw: np.ndarray, name: str) -> tuple[str, list]:
+    """A plain numpy bool, integer or float column, without pandas' dtype checks (costlier here)."""
+    dtype = raw.dtype
+    if dtype.kind == "b":
+        return "BOOLEAN", raw.astype(np.int64).tolist()
+    if dtype.kind == "f":
+        if dtype not in (np.float32, np.float64):
+            raise Unsupported(f"column {name!r}: float dtype {dtype}")
+        # NaN stays: SQLite binds it as NULL, which is what GDAL writes for NaN.
+        return ("FLOAT" if dtype == np.float32 else "REAL"), raw.tolist()
+    sql = _INT_TYPES.get(dtype.name)
+    if sql is None or (dtype == np.uint64 and len(raw) and raw.max() > np.iinfo(np.int64).max):
+        raise Unsupported(f"column {name!r}: integer dtype {dtype} or values beyond 64-bit signed")
+    return sql, raw.tolist()
+
+
 def column_values(series: pd.Series, name: str) -> tuple[str, list]:
     """The GeoPackage type of a column and its values ready to bind (None for null).
 
@@ -332,6 +348,8 @@ def column_values(series: pd.Series, name: str) -> tuple[str, list]:
     import pandas as pd
 
     dtype = series.dtype
+    if isinstance(dtype, np.dtype) and dtype.kind in "biuf":
+        return _numpy_numbers(series.to_numpy(), name)
     if isinstance(dtype, pd.CategoricalDtype):
         raise Unsupported(f"column {name!r}: categorical")
     typed = _numbers(series, name)
@@ -675,33 +693,27 @@ def _insert_columns(
     if not kept:
         con.executemany(f"INSERT INTO {quoted} DEFAULT VALUES", [()] * count)
         return
-    head = f"INSERT INTO {quoted} ({', '.join(_q(c) for c in kept)}) VALUES "
+    # Constant columns first, as ?1, ?2, ...: each row's bare ? then number on from them.
+    names = [kept[slot] for slot, _ in constant] + [kept[slot] for slot, _, _ in varying]
+    cells = [f"?{k + 1}" for k in range(len(constant))]
+    cells += [f"NULLIF(?,'{_NULL}')" if wrap else "?" for _, _, wrap in varying]
+    head = f"INSERT INTO {quoted} ({', '.join(_q(c) for c in names)}) VALUES "
+    group = "(" + ",".join(cells) + ")"
     width = len(varying)
     # Row-major values by slice assignment: no tuple per row.
     flat: list = [None] * (count * width)
     for k, (_, vals, _) in enumerate(varying):
         flat[k::width] = vals
     per = max(1, min(_ROWS_PER_STATEMENT, (_MAX_VARIABLES - len(constant)) // max(width, 1)))
-
-    def template(n: int) -> str:
-        groups = []
-        for r in range(n):
-            cells = [""] * len(kept)
-            for k, (slot, _, wrap) in enumerate(varying):
-                mark = f"?{r * width + k + 1}"
-                cells[slot] = f"NULLIF({mark},'{_NULL}')" if wrap else mark
-            for k, (slot, _) in enumerate(constant):
-                cells[slot] = f"?{n * width + k + 1}"
-            groups.append("(" + ",".join(cells) + ")")
-        return head + ",".join(groups)
-
     tail = [value for _, value in constant]
     full = count // per
     step = per * width
     if full:
-        con.executemany(template(per), (flat[k * step : (k + 1) * step] + tail for k in range(full)))
+        con.executemany(
+            head + ",".join([group] * per), (tail + flat[k * step : (k + 1) * step] for k in range(full))
+        )
     if count > full * per:
-        con.execute(template(count - full * per), flat[full * step :] + tail)
+        con.execute(head + ",".join([group] * (count - full * per)), tail + flat[full * step :])
 
 
 # --- the file -------------------------------------------------------------------------------
