@@ -171,13 +171,18 @@ def _stamp(
         reach = int(np.abs(offsets).max(initial=0))
         sel = shapes == shape
         whole = (ij[:, 0] >= reach) & (ij[:, 0] < w - reach) & (ij[:, 1] >= reach) & (ij[:, 1] < h - reach)
-        for part, cut in ((sel & whole, False), (sel & ~whole, True)):
-            if not part.any():
-                continue
-            ys = ij[part, 1][:, None] + offsets[:, 0][None, :]
-            xs = ij[part, 0][:, None] + offsets[:, 1][None, :]
-            values = np.where(is_fill[None, :], fill[part][:, None], np.uint8(edge_index)).astype(np.uint8)
-            ok = (xs >= 0) & (xs < w) & (ys >= 0) & (ys < h) if cut else np.ones(xs.shape, dtype=bool)
+        flat_offsets = offsets[:, 0] * w + offsets[:, 1]
+        edge_value = np.uint8(edge_index)
+        inner = sel & whole  # the usual case: whole markers, one fancy-index assignment
+        if inner.any():
+            values = np.where(is_fill[None, :], fill[inner][:, None], edge_value)
+            flat[(ij[inner, 1] * w + ij[inner, 0])[:, None] + flat_offsets[None, :]] = values
+        cut = sel & ~whole  # markers reaching past the edge: only their pixels inside
+        if cut.any():
+            ys = ij[cut, 1][:, None] + offsets[:, 0][None, :]
+            xs = ij[cut, 0][:, None] + offsets[:, 1][None, :]
+            values = np.where(is_fill[None, :], fill[cut][:, None], edge_value)
+            ok = (xs >= 0) & (xs < w) & (ys >= 0) & (ys < h)
             flat[(ys * w + xs)[ok]] = values[ok]
 
 
