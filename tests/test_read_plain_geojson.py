@@ -120,6 +120,7 @@ def test_multipolygons_and_holes_bit_for_bit(tmp_path):
     [
         "crs", "feature_id", "bool", "int_gaps", "date", "time", "list", "object", "only_nulls", "text_and_number",
         "point", "z", "null_geometry", "case_twins", "nan", "geometry_key", "not_utf8", "keys_added", "keys_order",
+        "open_ring", "short_ring", "empty_polygon", "huge", "z_later",
     ],
 )  # fmt: skip
 def test_other_files_go_to_gdal(tmp_path, case):
@@ -150,21 +151,45 @@ def test_other_files_go_to_gdal(tmp_path, case):
         features[0]["geometry"]["coordinates"][0] = [[*c, 120.0] for c in features[0]["geometry"]["coordinates"][0]]
     if case == "null_geometry":
         features[1]["geometry"] = None
+    ring = features[1]["geometry"]["coordinates"][0] if features[1]["geometry"] else None
+    if case == "open_ring":
+        del ring[-1]
+    if case == "short_ring":
+        features[1]["geometry"]["coordinates"][0] = [ring[0], ring[1], ring[0]]
+    if case == "empty_polygon":
+        features[1]["geometry"]["coordinates"] = []
+    if case == "z_later":
+        ring[2] = [*ring[2], 5.0]
     text = json.dumps({"type": "FeatureCollection", **extra, "features": features})
     if case == "case_twins":
         text = text.replace('"v": 1', '"v": 1, "V": 3').replace('"v": 2', '"v": 2, "V": 4')
     if case == "nan":
         text = text.replace('"v": 1', '"v": NaN')
+    if case == "huge":
+        text = text.replace("18.85,", "1e400,", 1)
     raw = text.encode("latin-1" if case == "not_utf8" else "utf-8")
     if case == "not_utf8":
         raw = raw.replace(b'"A"', '"\xe9"'.encode("latin-1"))
     assert _read_plain_geojson(raw) is None
 
 
+def test_estate_with_holes_and_multipolygons_as_gdal_exports_it(tmp_path):
+    from benchmarks.workloads import estate, write_geojson
+
+    # Written by GDAL itself (crs member CRS84, layer name), as a GIS would export it.
+    path = write_geojson(estate(200, seed=3), tmp_path / "estate.geojson")
+    plain = _read_plain_geojson(path.read_bytes())
+    assert plain is not None
+    assert (shapely.get_num_interior_rings(plain.geometry.values[shapely.get_type_id(plain.geometry.values) == 3]) > 0).any()
+    assert (shapely.get_type_id(plain.geometry.values) == 6).any()
+    _same(plain, _gdal(path))
+
+
 def test_read_blocks_is_the_same_either_way(tmp_path, monkeypatch):
+    from benchmarks.workloads import estate, write_geojson
     from tests.real_exports import phone_geojson
 
-    files = [DEMO, phone_geojson(tmp_path)]
+    files = [DEMO, phone_geojson(tmp_path), write_geojson(estate(60, seed=8), tmp_path / "estate.geojson")]
     hostile = _features(
         [
             {"block": name, "variety": "Syrah, old", "row_spacing_m": 2.5, "plant_spacing_m": 1.2, "row_bearing_deg": 15.0}
