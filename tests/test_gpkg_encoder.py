@@ -298,6 +298,7 @@ def test_frames_the_encoder_cannot_match_fall_back_to_gdal(tmp_path):
         crs=UTM33N,
     )
     plan.layers["odd"] = odd
+    plan.layers["nul"] = pd.DataFrame({"note": ["a\x00b", "c"]})  # GDAL keeps text up to a NUL
     plan.layers["later"] = pd.DataFrame({"v": [1, 2]})
     with pytest.raises(Unsupported):
         GeoPackage(tmp_path / "t.gpkg", last_change=STAMP).add_features("odd", odd)
@@ -317,7 +318,9 @@ def test_frames_the_encoder_cannot_match_fall_back_to_gdal(tmp_path):
     new, old = _both(plan, tmp_path)
     assert_same_store(new, old)
     order = [row[0] for row in _rows(new, "SELECT table_name FROM gpkg_contents ORDER BY rowid")]
-    assert order == ["blocks", "points", "exclusions", "plan_info", "odd", "later"]
+    assert order == ["blocks", "points", "exclusions", "plan_info", "odd", "nul", "later"]
+    with pytest.raises(Unsupported, match="NUL"):
+        GeoPackage(tmp_path / "n.gpkg", last_change=STAMP).add_attributes("nul", plan.layers["nul"])
 
 
 def test_same_plan_gives_the_same_bytes_stamped_with_its_creation_time(tmp_path, monkeypatch):

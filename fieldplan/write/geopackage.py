@@ -324,6 +324,13 @@ def _object_text(series: pd.Series, name: str) -> list:
     return _with_nulls(values.tolist(), null)
 
 
+def _no_nul(values: list, name: str) -> list:
+    """``values`` unless a text holds NUL, which GDAL's C strings would cut short there."""
+    if "\x00" in "".join(filter(None, values)):
+        raise Unsupported(f"column {name!r}: text with NUL characters")
+    return values
+
+
 def _numpy_numbers(raw: np.ndarray, name: str) -> tuple[str, list]:
     """A plain numpy bool, integer or float column, without pandas' dtype checks (costlier here)."""
     dtype = raw.dtype
@@ -358,9 +365,11 @@ def column_values(series: pd.Series, name: str) -> tuple[str, list]:
     if pd.api.types.is_datetime64_any_dtype(dtype):
         return "DATETIME", _datetime_text(series, name)
     if isinstance(dtype, pd.StringDtype):
-        return "TEXT", _with_nulls(series.to_numpy(dtype=object).tolist(), series.isna().to_numpy())
+        return "TEXT", _no_nul(
+            _with_nulls(series.to_numpy(dtype=object).tolist(), series.isna().to_numpy()), name
+        )
     if pd.api.types.is_object_dtype(dtype):
-        return "TEXT", _object_text(series, name)
+        return "TEXT", _no_nul(_object_text(series, name), name)
     raise Unsupported(f"column {name!r}: dtype {dtype}")
 
 
