@@ -257,7 +257,9 @@ def read_frame(
             count = feature_count(path, layer)
         check_block_count(path, count, max_blocks=max_features)
         check_json_nul(path, raw)  # the reader would cut a text value at a NUL without a word
-        frame = _read_plain_geojson(raw) if len(raw) <= _PLAIN_GEOJSON_BYTES else None
+        # A layer asked for by name is GDAL's to find (or to refuse, naming the file's layer).
+        plain = layer is None and len(raw) <= _PLAIN_GEOJSON_BYTES
+        frame = _read_plain_geojson(raw) if plain else None
         if frame is not None:
             return _drop_z(frame, path, notes)
     else:

@@ -71,6 +71,8 @@ def test_attribute_types_as_gdal_types_them(tmp_path):
             "whole_reals": float(i),
             "late_real": i + 0.25 if i == n - 1 else i,
             "id": f"x{i}",
+            " Row Spacing ": 2.5,
+            "Sorte.ä": "Weißburgunder" if i % 2 else "Grüner Veltliner",
         }
         for i in range(n)
     ]
@@ -205,3 +207,14 @@ def test_read_blocks_is_the_same_either_way(tmp_path, monkeypatch):
         pd.testing.assert_frame_equal(fast, slow, check_exact=True)
         assert fast.crs == slow.crs
         assert fast.attrs == slow.attrs
+
+
+def test_a_layer_asked_for_by_name_is_left_to_gdal(tmp_path):
+    from fieldplan.errors import InputError
+
+    path = _write(tmp_path / "b.geojson", _features([{"block": "A"}, {"block": "B"}]))
+    assert _read_plain_geojson(path.read_bytes()) is not None
+    # reference: GDAL names a GeoJSON file's one layer after the file
+    assert len(read.read_frame(path, layer="b")) == 2
+    with pytest.raises(InputError, match="cannot read"):
+        read.read_frame(path, layer="fields")
