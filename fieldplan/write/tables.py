@@ -156,23 +156,22 @@ def _json_column(values: pd.Series) -> tuple[np.ndarray, bool] | None:
         text = _repr(numbers)
         text[~np.isfinite(numbers)] = "null"
         return text, False
-    column = _text_column(values)
-    if column is None:
+    distinct = _text_codes(values)
+    if distinct is None:
         return None
-    strings, missing = column
+    strings, codes = distinct
     # Only quotes, backslashes and control characters need escaping (RFC 8259 §7): found in one
-    # pass over the column's characters; the few cells holding one go through json.dumps.
+    # pass over the characters of the distinct values; those holding one go through json.dumps.
     escape = _Scan(strings).cells_with(lambda c: (c < 0x20) | (c == 0x22) | (c == 0x5C))
     escaped = [json.dumps(v, ensure_ascii=False) for v in strings[escape].tolist()] if escape.any() else []
-    if not missing.any():
+    if (codes >= 0).all():
         if escaped:
             strings[escape] = [v[1:-1] for v in escaped]
-        return strings, True
+        return strings[codes], True
     out = '"' + strings + '"'
     if escaped:
         out[escape] = escaped
-    out[missing] = "null"
-    return out, False
+    return np.append(out, "null")[codes], False  # code -1 (a gap) takes the last: null
 
 
 _FEATURE = '{"type": "Feature", "properties": {'
@@ -273,13 +272,12 @@ def write_points_csv(plan, folder: Path) -> None:
         lon, lat = _lonlat_text(pts)
         columns = [_csv_cells(_table_column(pts[c])) for c in _CSV_BASE]
         columns += [_blank_nan(lon, lonlat[:, 0]), _blank_nan(lat, lonlat[:, 1])]
-        columns += [_csv_cells(xy[:, 0]), _csv_cells(xy[:, 1]), np.full(len(pts), crs_text, dtype=object)]
+        crs_cell = _csv_text_cells(np.array([crs_text], dtype=object))[0]
+        columns += [_csv_cells(xy[:, 0]), _csv_cells(xy[:, 1]), np.full(len(pts), crs_cell, dtype=object)]
         columns += [_csv_cells(_table_column(pts[c])) for c in rest]
-        kinds = [_table_column(pts[c]).dtype for c in _CSV_BASE] + [np.float64] * 4 + [object]
-        kinds += [_table_column(pts[c]).dtype for c in rest]
         names = [*_CSV_BASE, *_CSV_COORDS, *map(str, rest)]
         if all(c is not None for c in columns):
-            text = _csv_join(names, columns, [not _is_number(k) for k in kinds])
+            text = _csv_join(names, columns)
     if text is None:
         table = pd.DataFrame({c: pts[c].to_numpy() for c in _CSV_BASE})
         table["lon"] = lonlat[:, 0]
@@ -332,37 +330,38 @@ def _csv_text(table: pd.DataFrame) -> str | None:
     columns = [_csv_cells(table.iloc[:, i]) for i in range(table.shape[1])]
     if any(c is None for c in columns):
         return None
-    return _csv_join([str(c) for c in table.columns], columns, [not _is_number(d) for d in table.dtypes])
+    return _csv_join([str(c) for c in table.columns], columns)
 
 
-def _csv_join(names: list[str], columns: list[np.ndarray], text: list[bool]) -> str | None:
-    """CSV text of the columns' cells (:func:`_csv_cells`); the ``text`` ones neutralised and
-    quoted as needed (changed in place). None when a column name would need quotes."""
+def _csv_join(names: list[str], columns: list[np.ndarray]) -> str | None:
+    """CSV text of the columns' finished cells (:func:`_csv_cells`); None when a name needs quotes."""
     if _CSV_QUOTE.search("".join(names)):
         return None
-    for cells, is_text in zip(columns, text, strict=True):
-        if not is_text:
-            continue
-        scan = _Scan(cells)
-        # As neutralise_frame does to text cells (numbers stay as they are).
-        formula = scan.first_in(_FORMULA_CODES)
-        # Then quoted as the csv module's QUOTE_MINIMAL does (what pandas writes) with the "\n"
-        # line terminator plan files use: a cell with a comma, quote or "\n" goes in quotes, its
-        # quotes doubled (a lone "\r" is not quoted). The apostrophe added above changes neither.
-        quote = scan.cells_with(lambda c: (c == 0x2C) | (c == 0x22) | (c == 0x0A))
-        if formula.any():
-            cells[formula] = "'" + cells[formula]
-        if quote.any():
-            doubled = scan.cells_with(lambda c: c == 0x22)
-            if doubled.any():
-                cells[doubled] = [v.replace('"', '""') for v in cells[doubled].tolist()]
-            cells[quote] = '"' + cells[quote] + '"'
     pieces = np.empty((len(columns[0]), 2 * len(columns)), dtype=object)
     pieces[:, 1::2] = ","
     pieces[:, -1] = "\n"
     for k, cells in enumerate(columns):
         pieces[:, 2 * k] = cells
     return ",".join(names) + "\n" + "".join(pieces.ravel().tolist())
+
+
+def _csv_text_cells(strings: np.ndarray) -> np.ndarray:
+    """Text cells as pandas writes them after neutralise_frame (``strings`` changed in place)."""
+    scan = _Scan(strings)
+    # As neutralise_frame does to text cells (numbers stay as they are).
+    formula = scan.first_in(_FORMULA_CODES)
+    # Then quoted as the csv module's QUOTE_MINIMAL does (what pandas writes) with the "\n"
+    # line terminator plan files use: a cell with a comma, quote or "\n" goes in quotes, its
+    # quotes doubled (a lone "\r" is not quoted). The apostrophe added above changes neither.
+    quote = scan.cells_with(lambda c: (c == 0x2C) | (c == 0x22) | (c == 0x0A))
+    if formula.any():
+        strings[formula] = "'" + strings[formula]
+    if quote.any():
+        doubled = scan.cells_with(lambda c: c == 0x22)
+        if doubled.any():
+            strings[doubled] = [v.replace('"', '""') for v in strings[doubled].tolist()]
+        strings[quote] = '"' + strings[quote] + '"'
+    return strings
 
 
 class _Scan:
@@ -395,25 +394,34 @@ class _Scan:
         return out
 
 
-def _is_number(dtype) -> bool:
-    # Cells of these types are digits, signs, dots, "e", "inf", "nan", "True"/"False": never quoted.
-    return dtype == np.float64 or dtype == np.int64 or dtype == np.bool_
+def _text_codes(column: pd.Series) -> tuple[np.ndarray, np.ndarray] | None:
+    """A text column's distinct strings and each cell's index into them (-1 where missing).
 
-
-def _text_column(column: pd.Series) -> tuple[np.ndarray, np.ndarray] | None:
-    """A text column's strings ("" where missing) and its missing mask; None for other columns."""
+    Cells are checked, quoted and escaped once per distinct value (block names, strata and
+    designs repeat on every point). None for a column that is not text.
+    """
     dtype = column.dtype
-    if isinstance(dtype, pd.StringDtype):
-        # A copy: callers change cells in place, and a string array may hand out its own storage.
-        cells = np.array(column.to_numpy(dtype=object, na_value=""), dtype=object, copy=True)
-        return cells, column.isna().to_numpy(dtype=bool)
-    if not pd.api.types.is_object_dtype(dtype):
-        return None
-    if pd.api.types.infer_dtype(column, skipna=True) not in ("string", "empty"):
-        return None
-    values = column.to_numpy(dtype=object)
-    missing = pd.isna(values)
-    return np.where(missing, "", values).astype(object), missing
+    if not isinstance(dtype, pd.StringDtype):
+        if not pd.api.types.is_object_dtype(dtype):
+            return None
+        if pd.api.types.infer_dtype(column, skipna=True) not in ("string", "empty"):
+            return None
+    sample = column.iloc[:_SAMPLE]
+    if 2 * sample.nunique() <= len(sample):
+        codes, uniques = pd.factorize(column, use_na_sentinel=True)
+        return np.array(np.asarray(uniques, dtype=object), dtype=object, copy=True), np.asarray(codes)
+    # Mostly distinct values (ids, instructions): each cell is its own value.
+    missing = column.isna().to_numpy(dtype=bool)
+    # A copy: the caller changes cells in place, and a string array may hand out its own storage.
+    strings = np.array(column.to_numpy(dtype=object), dtype=object, copy=True)
+    strings[missing] = ""
+    codes = np.arange(len(strings))
+    codes[missing] = -1
+    return strings, codes
+
+
+#: Cells looked at to tell a column of repeated values from one of mostly distinct ones.
+_SAMPLE = 256
 
 
 def _csv_cells(column: pd.Series | np.ndarray) -> np.ndarray | None:
@@ -430,8 +438,11 @@ def _csv_cells(column: pd.Series | np.ndarray) -> np.ndarray | None:
         return np.array(list(map(str, column.to_numpy().tolist())), dtype=object)
     if dtype == np.bool_:
         return np.where(column.to_numpy(), "True", "False").astype(object)
-    text = _text_column(column)
-    return None if text is None else text[0]
+    distinct = _text_codes(column)
+    if distinct is None:
+        return None
+    strings, codes = distinct
+    return np.append(_csv_text_cells(strings), "")[codes]  # code -1 (a gap) takes the last: empty
 
 
 def write_summary_csv(plan, folder: Path) -> None:
