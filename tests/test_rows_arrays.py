@@ -245,3 +245,42 @@ def test_ranks_for_many_populations_equal_each_population_alone():
             short += np.unique(first).size < n
     # the rare path (a population's first batch holds too few distinct ranks) was taken
     assert short > 0
+
+
+_TOUCHING = shapely.MultiPolygon(  # two parts meeting at one corner: envelopes touch
+    [shapely.box(g.E0, g.N0, g.E0 + 60, g.N0 + 50), shapely.box(g.E0 + 60, g.N0 + 50, g.E0 + 130, g.N0 + 95)]
+)
+_WRAPPED = shapely.MultiPolygon(  # a part inside the bay of a U-shaped one: envelopes overlap
+    [
+        shapely.Polygon(
+            [
+                (g.E0, g.N0),
+                (g.E0 + 120, g.N0),
+                (g.E0 + 120, g.N0 + 90),
+                (g.E0 + 90, g.N0 + 90),
+                (g.E0 + 90, g.N0 + 30),
+                (g.E0 + 30, g.N0 + 30),
+                (g.E0 + 30, g.N0 + 90),
+                (g.E0, g.N0 + 90),
+            ]
+        ),
+        shapely.box(g.E0 + 45, g.N0 + 45, g.E0 + 75, g.N0 + 85),
+    ]
+)
+
+
+def test_multi_part_block_clipped_by_itself_equals_the_general_cut_bit_for_bit():
+    # reference: the general clip (each part's rows cut by every ring of the whole outline),
+    # reached by clipping with an equal geometry that is not the block's own object
+    blocks = [g.multipart, _HOLED_PARTS, _TOUCHING, _WRAPPED, g.square, _ROTATED] * 3
+    rng = np.random.default_rng(3)
+    rs = rng.uniform(1.5, 4.0, len(blocks))
+    ps = rng.uniform(0.6, 2.5, len(blocks))
+    bearing = rng.uniform(0, 360, len(blocks))
+    kw = {"row_spacing_m": rs, "plant_spacing_m": ps, "row_bearing_deg": bearing}
+    own, own_block = new.block_row_segments(blocks, clips=blocks, **kw)
+    copies = [shapely.from_wkb(shapely.to_wkb(b)) for b in blocks]
+    ref, ref_block = new.block_row_segments(blocks, clips=copies, **kw)
+    assert own_block.tolist() == ref_block.tolist()
+    for name in ("row", "part", "plants", "first_plant", "length", "offset", "ends", "plant_spacing"):
+        assert np.array_equal(getattr(own, name), getattr(ref, name)), name

@@ -279,6 +279,7 @@ def block_row_segments(
     first, count = row_span(pv, vunit, parts.size, rs_u)
     unit, row, start, end = row_pieces(pu, pv, ring, first, rs_u, count, unit=vunit)
     length, plants, first_plant, offset, ends = plant_layout(unit, row, start, end, first, rs_u, ps_u, u, v)
+    full = (unit, row, start, length, plants, first_plant, offset)
 
     if clips is not None:
         clips = _object_array(clips)
@@ -288,6 +289,21 @@ def block_row_segments(
         none = np.fromiter((c is None for c in clips), bool, nb)
         itself = np.fromiter((c is g for c, g in zip(clips, geoms, strict=True)), bool, nb)
         clipped_block = ~(none | (itself & (n_parts == 1)))
+        rows = (first, rs_u, ps_u, count, u, v)
+        own = itself & (n_parts > 1)
+        if own.any():
+            # Parts whose envelopes are apart: another part's pieces never meet a part's own
+            # pieces on its row lines, so the cut keeps each piece, trimmed to its own end.
+            own &= _parts_apart(parts, pblock, unit_of_block, n_parts, nb)
+            at = np.flatnonzero(own[pblock[unit]])
+            if at.size:
+                trimmed = _cut(at, start[at], np.minimum(start[at] + length[at], end[at]), full, rows)
+                if trimmed[0].size == at.size and (trimmed[0] == at).all():
+                    for col, cut_col in zip(
+                        (length, plants, first_plant, offset, ends), trimmed[3:], strict=True
+                    ):
+                        col[at] = cut_col
+                    clipped_block &= ~own
         if clipped_block.any():
             cb = np.flatnonzero(clipped_block)
             cpoly, cp_block = _polygons(clips[cb])
@@ -309,7 +325,7 @@ def block_row_segments(
                 (unit, row, start, length, plants, first_plant, offset, ends),
                 keep_whole,
                 (c_unit, c_row, c_start, c_end),
-                (first, rs_u, ps_u, count, u, v),
+                rows,
             )
 
     segments = RowSegments(
@@ -323,6 +339,50 @@ def block_row_segments(
         part=part_no[unit],
     )
     return segments, pblock[unit]
+
+
+def _parts_apart(parts, pblock, unit_of_block, n_parts, nb) -> np.ndarray:
+    """Per block: whether the envelopes of its parts are pairwise apart (no overlap, no touch)."""
+    lo_x, lo_y, hi_x, hi_y = shapely.bounds(parts).T
+    # Every pair (i, j > i) of parts of the same block.
+    later = n_parts[pblock] - (np.arange(parts.size) - unit_of_block[pblock]) - 1
+    i = np.repeat(np.arange(parts.size), later)
+    j = i + 1 + _ranges(np.zeros_like(later), later)
+    apart = (hi_x[i] < lo_x[j]) | (hi_x[j] < lo_x[i]) | (hi_y[i] < lo_y[j]) | (hi_y[j] < lo_y[i])
+    return np.bincount(pblock[i], weights=~apart, minlength=nb) == 0
+
+
+def _cut(parent, lo_u, hi_u, full, rows):
+    """The part ``lo_u .. hi_u`` (along the row) of pieces ``parent``: pieces kept if longer than
+    :data:`LEN_TOL`, with the parent's plants that fall inside, at their unclipped positions
+    and numbers.
+
+    Returns the kept parents and the cut pieces' unit, row, length, plants, first plant,
+    offset and ``(k, 2, 2)`` ends.
+    """
+    unit, row, start, length, plants, first_plant, offset = full
+    first, rs, ps_u, count, u, v = rows
+    keep = hi_u - lo_u > LEN_TOL
+    parent, lo_u, hi_u = parent[keep], lo_u[keep], hi_u[keep]
+    a0 = start[parent]
+    lo, hi = lo_u - a0, hi_u - a0
+    off = offset[parent]
+    pu = unit[parent]
+    ps = ps_u[pu]
+    # Plant k of the parent sits at off + k * ps; keep those with lo <= position <= hi.
+    k0 = np.maximum(np.ceil((lo - off) / ps - 1e-9), 0).astype(np.int64)
+    k1 = np.minimum(np.floor((hi - off) / ps + 1e-9), plants[parent] - 1).astype(np.int64)
+    prow = row[parent]
+    return (
+        parent,
+        pu,
+        prow,
+        hi_u - lo_u,
+        np.maximum(k1 - k0 + 1, 0),
+        first_plant[parent] + k0,
+        off + k0 * ps - lo,
+        segment_ends(first[pu] + prow * rs[pu], lo_u, hi_u, u[pu], v[pu]),
+    )
 
 
 def _clip_intervals(full, keep_whole, clip, rows):
@@ -348,25 +408,7 @@ def _clip_intervals(full, keep_whole, clip, rows):
     a0 = start[parent]
     lo_u = np.maximum(a0, c_start[piece])
     hi_u = np.minimum(a0 + length[parent], c_end[piece])
-    keep = hi_u - lo_u > LEN_TOL
-    parent, lo_u, hi_u, a0 = parent[keep], lo_u[keep], hi_u[keep], a0[keep]
-    lo, hi = lo_u - a0, hi_u - a0
-    off = offset[parent]
-    pu = unit[parent]
-    ps = ps_u[pu]
-    # Plant k of the parent sits at off + k * ps; keep those with lo <= position <= hi.
-    k0 = np.maximum(np.ceil((lo - off) / ps - 1e-9), 0).astype(np.int64)
-    k1 = np.minimum(np.floor((hi - off) / ps + 1e-9), plants[parent] - 1).astype(np.int64)
-    prow = row[parent]
-    cut = (
-        pu,
-        prow,
-        hi_u - lo_u,
-        np.maximum(k1 - k0 + 1, 0),
-        first_plant[parent] + k0,
-        off + k0 * ps - lo,
-        segment_ends(first[pu] + prow * rs[pu], lo_u, hi_u, u[pu], v[pu]),
-    )
+    parent, *cut = _cut(parent, lo_u, hi_u, full[:7], rows)
     kept = (unit, row, length, plants, first_plant, offset, ends.reshape(-1, 4))
     # Back in piece order (by parent, then along the row): a parent kept whole takes one slot,
     # a cut one as many as its pieces; parents are sorted, so each piece's slot is an offset.
@@ -661,7 +703,9 @@ def sample_ranks_many(totals, ns, rngs: list[np.random.Generator]) -> tuple[np.n
         raise DesignError(f"cannot draw {ns[j]} distinct plants from {totals[j]}")
     whole = 2 * ns >= totals
     draws = [
-        rng.permutation(int(t))[: int(n)] if w else rng.integers(0, int(t), size=int(n + n // 8 + 8), dtype=np.int64)
+        rng.permutation(int(t))[: int(n)]
+        if w
+        else rng.integers(0, int(t), size=int(n + n // 8 + 8), dtype=np.int64)
         for rng, t, n, w in zip(rngs, totals.tolist(), ns.tolist(), whole.tolist(), strict=True)
     ]
     size = np.array([d.size for d in draws], dtype=np.int64)
@@ -807,7 +851,9 @@ def pick_plants_many(
     if segments.ends is not None:
         xy = straight_points(seg, dist, segments.ends, segments.length)
     else:
-        xy = shapely.get_coordinates(shapely.line_interpolate_point(segments.lines_at(seg), dist)).reshape(-1, 2)
+        xy = shapely.get_coordinates(shapely.line_interpolate_point(segments.lines_at(seg), dist)).reshape(
+            -1, 2
+        )
     picks = PlantPicks(
         row=segments.row[seg],
         plant=segments.first_plant[seg] + within,

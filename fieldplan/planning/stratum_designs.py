@@ -41,7 +41,7 @@ from fieldplan.design.clusters import (
 from fieldplan.design.random import random_points
 from fieldplan.errors import DesignError, InputError, OptionError
 from fieldplan.field.spares import SELECTED, SPARE, order_draw
-from fieldplan.rng import stream
+from fieldplan.rng import stream, streams
 
 __all__ = [
     "DEFAULT_INSTRUCTIONS",
@@ -72,7 +72,8 @@ def strata_labels(blocks: pd.DataFrame, strata_by: str | None) -> np.ndarray:
     if strata_by not in blocks.columns:
         fields = ", ".join(str(c) for c in blocks.columns if c != "geometry")
         raise SpecError(
-            "strata_by", "{strata_by} " + text(f"{strata_by!r}: no such field in the blocks; fields are {fields}")
+            "strata_by",
+            "{strata_by} " + text(f"{strata_by!r}: no such field in the blocks; fields are {fields}"),
         )
     values = blocks[strata_by]
     missing = np.flatnonzero(values.isna().to_numpy())
@@ -336,13 +337,19 @@ def _cluster_population(blocks, use, fallback, gone, opts, rows_frame, flags):
     ps = _numeric(blocks, "plant_spacing_m")
     has_ps = np.isfinite(ps) & (ps > 0)
     # Arable fields in the same file have no rows: they are left out, with a flag.
-    _add_flag(flags, np.flatnonzero(~gone & ~has_ps), "no plant_spacing_m: no plants to sample clusters from (block left out)")
+    _add_flag(
+        flags,
+        np.flatnonzero(~gone & ~has_ps),
+        "no plant_spacing_m: no plants to sample clusters from (block left out)",
+    )
     todo = ~gone & has_ps
     if rows_frame is not None:
         lines = np.asarray(rows_frame.geometry.values, dtype=object)
         tree = shapely.STRtree(lines)
         hit = np.zeros(n, dtype=bool)
-        hit[np.unique(tree.query(np.asarray(blocks.geometry.values, dtype=object), predicate="intersects")[0])] = True
+        hit[
+            np.unique(tree.query(np.asarray(blocks.geometry.values, dtype=object), predicate="intersects")[0])
+        ] = True
         _add_flag(flags, np.flatnonzero(todo & ~hit), "no mapped rows cross the block: no plants to sample")
         todo &= hit
     else:
@@ -388,12 +395,15 @@ def _cluster_population(blocks, use, fallback, gone, opts, rows_frame, flags):
         total = np.bincount(owner, weights=count, minlength=n)
     # Blocks left with no eligible plant keep their segments (every one with 0 eligible): no
     # rank ever falls in them.
-    _add_flag(flags, np.flatnonzero(todo & (total == 0)), "no eligible plants in the sampled area: not sampled")
+    _add_flag(
+        flags, np.flatnonzero(todo & (total == 0)), "no eligible plants in the sampled area: not sampled"
+    )
     return seg, owner, count, True
 
 
 def _take(seg: RowSegments, index) -> RowSegments:
     """The segments at ``index`` (a mask or indices), keeping per-segment fields aligned."""
+
     def pick(a):
         return None if a is None else (a[index] if np.ndim(a) else a)
 
@@ -438,10 +448,9 @@ def _cluster_draws(
     seg_slot = slot[sidx[owner]]
     order = np.flatnonzero(seg_slot >= 0)
     order = order[np.argsort(seg_slot[order], kind="stable")]
-    rngs = []
-    for h in drawn.tolist():
-        rngs.append(stream(seed, "design", str(strata[h])))
-        if progress is not None:
+    rngs = streams(seed, ("design",), [str(strata[h]) for h in drawn.tolist()])
+    if progress is not None:
+        for h in drawn.tolist():
             progress(h + 1, len(strata))
     picks, which = pick_plants_many(
         segments,
@@ -520,7 +529,9 @@ def _stratified(
         fallback = shapely.difference(fallback, exclusion_union)
     use = np.where(empty, fallback, areas)
     gone = shapely.is_empty(use) | (shapely.area(use) <= 0)
-    _add_flag(flags, np.flatnonzero(empty & ~gone), "edge buffer leaves nothing: sampled the block without it")
+    _add_flag(
+        flags, np.flatnonzero(empty & ~gone), "edge buffer leaves nothing: sampled the block without it"
+    )
     _add_flag(flags, np.flatnonzero(gone), "exclusions cover the block: not sampled")
     area_ha = shapely.area(use) / 10_000.0
     stratum_ha = np.bincount(sidx, weights=area_ha, minlength=len(strata))
@@ -557,8 +568,19 @@ def _stratified(
     if design == "clusters":
         parts.append(
             _cluster_draws(
-                strata, sidx, counts, capacity, active, segments, seg_owner, eligible, members,
-                opts, params, flags, progress,
+                strata,
+                sidx,
+                counts,
+                capacity,
+                active,
+                segments,
+                seg_owner,
+                eligible,
+                members,
+                opts,
+                params,
+                flags,
+                progress,
             )
         )
     for h, stratum in enumerate(strata if design != "clusters" else ()):
