@@ -49,10 +49,14 @@ def _table(n: int, seed: int) -> gpd.GeoDataFrame:
             "row": rng.integers(1, 80, n),
             "plant": rng.integers(1, 200, n),
             "units": np.full(n, 2),
-            "instructions": [f"Start at row {r}, plant {p}; sample 2 plant(s)" for r, p in rng.integers(1, 99, (n, 2))],
+            "instructions": [
+                f"Start at row {r}, plant {p}; sample 2 plant(s)" for r, p in rng.integers(1, 99, (n, 2))
+            ],
             "note": pd.Series(rng.choice([*HOSTILE, None], n).tolist(), dtype=object),
             "label": pd.Series(rng.choice([*HOSTILE, None], n).tolist(), dtype="string"),
-            "value": np.where(rng.random(n) < 0.1, np.nan, rng.normal(size=n) * 10.0 ** rng.integers(-7, 18, n)),
+            "value": np.where(
+                rng.random(n) < 0.1, np.nan, rng.normal(size=n) * 10.0 ** rng.integers(-7, 18, n)
+            ),
             "flag": rng.random(n) < 0.5,
         },
         geometry=shapely.points(x, y),
@@ -73,7 +77,9 @@ def _reference_csv(plan) -> bytes:
     if not crs.equals(plan.crs):
         from pyproj import Transformer
 
-        xy = np.column_stack(Transformer.from_crs(plan.crs, crs, always_xy=True).transform(xy[:, 0], xy[:, 1]))
+        xy = np.column_stack(
+            Transformer.from_crs(plan.crs, crs, always_xy=True).transform(xy[:, 0], xy[:, 1])
+        )
     xy = np.round(xy, 3)
     base = ["point_id", "block", "stratum", "design"]
     table = pd.DataFrame({c: pts[c].to_numpy() for c in base})

@@ -30,7 +30,11 @@ def test_text_column_of_strings_with_gaps_reads_as_the_general_rule():
     for column in ("arrow", "python", "plain"):
         got = _text_column(frame, column)
         assert got.dtype == object
-        assert got.tolist() == _general_text(pd.Series(texts, dtype=object)) == ["Merlot", None, "Chenin, blanc", "", "é"]
+        assert (
+            got.tolist()
+            == _general_text(pd.Series(texts, dtype=object))
+            == ["Merlot", None, "Chenin, blanc", "", "é"]
+        )
 
 
 def test_numeric_column_of_numbers_reads_as_parsed_text():
@@ -49,4 +53,6 @@ def test_numeric_column_of_numbers_reads_as_parsed_text():
     # reference: pandas.to_numeric of the same values written as text
     np.testing.assert_array_equal(floats, pd.to_numeric(pd.Series(["2.5", None, "3", "1.2"])).to_numpy(float))
     np.testing.assert_array_equal(floats, parsed)
-    np.testing.assert_array_equal(_numeric_column(frame, "ints", "row_spacing_m", path, "block"), [2.0, np.nan, 3.0, 1.0])
+    np.testing.assert_array_equal(
+        _numeric_column(frame, "ints", "row_spacing_m", path, "block"), [2.0, np.nan, 3.0, 1.0]
+    )

@@ -30,14 +30,18 @@ def _same(plain: gpd.GeoDataFrame, gdal: gpd.GeoDataFrame) -> None:
     assert list(plain.columns) == list(gdal.columns)
     assert plain.crs == gdal.crs
     pd.testing.assert_frame_equal(
-        pd.DataFrame(plain.drop(columns="geometry")), pd.DataFrame(gdal.drop(columns="geometry")), check_exact=True
+        pd.DataFrame(plain.drop(columns="geometry")),
+        pd.DataFrame(gdal.drop(columns="geometry")),
+        check_exact=True,
     )
     assert dict(plain.dtypes.astype(str)) == dict(gdal.dtypes.astype(str))
     assert shapely.to_wkb(plain.geometry.values).tolist() == shapely.to_wkb(gdal.geometry.values).tolist()
 
 
 def _write(path: Path, features: list, **extra) -> Path:
-    path.write_text(json.dumps({"type": "FeatureCollection", **extra, "features": features}), encoding="utf-8")
+    path.write_text(
+        json.dumps({"type": "FeatureCollection", **extra, "features": features}), encoding="utf-8"
+    )
     return path
 
 
@@ -103,13 +107,22 @@ def test_multipolygons_and_holes_bit_for_bit(tmp_path):
     for i in range(30):
         x, y = 18.8 + rng.random() * 0.1, -33.9 + rng.random() * 0.1
         outer = [[x, y], [x + 0.003, y], [x + 0.003, y + 0.002], [x, y + 0.002], [x, y]]
-        hole = [[x + 0.001, y + 0.0005], [x + 0.001, y + 0.001], [x + 0.0012, y + 0.001], [x + 0.001, y + 0.0005]]
+        hole = [
+            [x + 0.001, y + 0.0005],
+            [x + 0.001, y + 0.001],
+            [x + 0.0012, y + 0.001],
+            [x + 0.001, y + 0.0005],
+        ]
         if i % 3 == 0:
-            geoms.append({"type": "MultiPolygon", "coordinates": [[outer], [[[c[0] + 0.01, c[1]] for c in outer]]]})
+            geoms.append(
+                {"type": "MultiPolygon", "coordinates": [[outer], [[[c[0] + 0.01, c[1]] for c in outer]]]}
+            )
         else:
             geoms.append({"type": "Polygon", "coordinates": [outer, hole] if i % 2 else [outer]})
     # 17 significant digits: the parse must give the same doubles as GDAL's
-    text = json.dumps({"type": "FeatureCollection", "features": _features([{"block": f"P{i}"} for i in range(30)], geoms)})
+    text = json.dumps(
+        {"type": "FeatureCollection", "features": _features([{"block": f"P{i}"} for i in range(30)], geoms)}
+    )
     path = tmp_path / "m.geojson"
     path.write_text(text)
     plain = _read_plain_geojson(path.read_bytes())
@@ -150,7 +163,9 @@ def test_other_files_go_to_gdal(tmp_path, case):
     if case == "point":
         features[1]["geometry"] = {"type": "Point", "coordinates": [18.85, -33.9]}
     if case == "z":
-        features[0]["geometry"]["coordinates"][0] = [[*c, 120.0] for c in features[0]["geometry"]["coordinates"][0]]
+        features[0]["geometry"]["coordinates"][0] = [
+            [*c, 120.0] for c in features[0]["geometry"]["coordinates"][0]
+        ]
     if case == "null_geometry":
         features[1]["geometry"] = None
     ring = features[1]["geometry"]["coordinates"][0] if features[1]["geometry"] else None
@@ -182,7 +197,10 @@ def test_estate_with_holes_and_multipolygons_as_gdal_exports_it(tmp_path):
     path = write_geojson(estate(200, seed=3), tmp_path / "estate.geojson")
     plain = _read_plain_geojson(path.read_bytes())
     assert plain is not None
-    assert (shapely.get_num_interior_rings(plain.geometry.values[shapely.get_type_id(plain.geometry.values) == 3]) > 0).any()
+    assert (
+        shapely.get_num_interior_rings(plain.geometry.values[shapely.get_type_id(plain.geometry.values) == 3])
+        > 0
+    ).any()
     assert (shapely.get_type_id(plain.geometry.values) == 6).any()
     _same(plain, _gdal(path))
 
@@ -194,7 +212,13 @@ def test_read_blocks_is_the_same_either_way(tmp_path, monkeypatch):
     files = [DEMO, phone_geojson(tmp_path), write_geojson(estate(60, seed=8), tmp_path / "estate.geojson")]
     hostile = _features(
         [
-            {"block": name, "variety": "Syrah, old", "row_spacing_m": 2.5, "plant_spacing_m": 1.2, "row_bearing_deg": 15.0}
+            {
+                "block": name,
+                "variety": "Syrah, old",
+                "row_spacing_m": 2.5,
+                "plant_spacing_m": 1.2,
+                "row_bearing_deg": 15.0,
+            }
             for name in ("Blk 10", "=cmd", 'q "x"', "Blk 2", "é")
         ]
     )
