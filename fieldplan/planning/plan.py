@@ -27,6 +27,7 @@ from fieldplan.field.substitutes import SUBSTITUTES_LAYER, substitutes_layer
 from fieldplan.limits import check_point_budget
 from fieldplan.planning.grid import grid_design
 from fieldplan.planning.stratum_designs import STRATIFIED_DESIGNS, check_design_options, strata_labels
+from fieldplan.planning.text_columns import is_text, join_text, repeat_text, zero_padded
 from fieldplan.spec import PlanSpec, SpecDesignError, SpecError
 
 __all__ = ["Plan", "PlanSpec", "make_plan", "sample_areas", "DESIGNS", "DEFAULT_MAX_POINTS"]
@@ -131,10 +132,41 @@ def sample_areas(
 DESIGNS: dict[str, Callable] = {"grid": grid_design, **STRATIFIED_DESIGNS}
 
 
-def _point_ids(block_column: pd.Series) -> np.ndarray:
-    counts = block_column.groupby(block_column, sort=False).cumcount() + 1
-    width = max(3, len(str(int(counts.max())))) if len(counts) else 3
-    return (block_column.astype(str) + "-" + counts.astype(str).str.zfill(width)).to_numpy()
+def _point_ids(block_column: pd.Series) -> Any:
+    """``BLOCK-NNN``: the block and the point's number within it (in table order), as a text column."""
+    codes, _ = pd.factorize(block_column)
+    if (codes < 0).any():  # a missing block: numbered as pandas' groupby numbers it
+        counts = block_column.groupby(block_column, sort=False).cumcount() + 1
+        width = max(3, len(str(int(counts.max())))) if len(counts) else 3
+        return (block_column.astype(str) + "-" + counts.astype(str).str.zfill(width)).to_numpy()
+    # Number within the block: position in a stable sort by block, less the block's first position.
+    order = np.argsort(codes, kind="stable")
+    sorted_codes = codes[order]
+    first = np.searchsorted(sorted_codes, sorted_codes, side="left")
+    counts = np.empty(codes.size, dtype=np.int64)
+    counts[order] = np.arange(codes.size) - first + 1
+    width = max(3, len(str(int(counts.max())))) if counts.size else 3
+    return join_text([block_column.astype(str), "-", zero_padded(counts, width)], codes.size)
+
+
+def _column(series: pd.Series) -> Any:
+    """A column to carry into another frame as it is: text and numbers without a round trip."""
+    dtype = series.dtype
+    if is_text(dtype) or (isinstance(dtype, np.dtype) and dtype.kind in "biuf"):
+        return series.array
+    return series.to_numpy()
+
+
+def _strata_of(table: pd.DataFrame, out_blocks: pd.DataFrame) -> tuple[np.ndarray | None, Any]:
+    """Index into ``out_blocks`` of each point's block, and each point's stratum."""
+    names = pd.Index(out_blocks["block"])
+    if names.is_unique:
+        index = names.get_indexer(table["block"])
+        stratum = out_blocks["stratum"]
+        if (index >= 0).all() and is_text(stratum.dtype):
+            return index, stratum.array.take(index)
+    strata = dict(zip(out_blocks["block"], out_blocks["stratum"], strict=True))
+    return None, table["block"].map(strata).to_numpy()
 
 
 def _run_params(spec: PlanSpec, seed: int) -> dict:
@@ -332,11 +364,18 @@ def make_plan(
     is_spare = (
         table["status"].eq("spare") if "status" in table.columns else pd.Series(False, index=table.index)
     )
-    counts = table[~is_spare].groupby("block").size()
-    out_blocks["n_points"] = out_blocks["block"].map(counts).fillna(0).astype(int)
-    if spec.replacements.spares:
-        n_spare = table[is_spare].groupby("block").size()
-        out_blocks["n_spares"] = out_blocks["block"].map(n_spare).fillna(0).astype(int)
+    owner, stratum = _strata_of(table, out_blocks)
+    if owner is not None:
+        spare = is_spare.to_numpy(dtype=bool)
+        out_blocks["n_points"] = np.bincount(owner[~spare], minlength=len(out_blocks)).astype(int)
+        if spec.replacements.spares:
+            out_blocks["n_spares"] = np.bincount(owner[spare], minlength=len(out_blocks)).astype(int)
+    else:
+        counts = table[~is_spare].groupby("block").size()
+        out_blocks["n_points"] = out_blocks["block"].map(counts).fillna(0).astype(int)
+        if spec.replacements.spares:
+            n_spare = table[is_spare].groupby("block").size()
+            out_blocks["n_spares"] = out_blocks["block"].map(n_spare).fillna(0).astype(int)
     allocation = table.attrs.get("strata")
     if allocation is not None:
         # A stratum spanning several blocks repeats its allocation on each of them.
@@ -344,24 +383,22 @@ def make_plan(
         key = out_blocks["stratum"].astype(str)
         out_blocks["n_target_exact"] = key.map(by["n_target_exact"]).to_numpy()
         out_blocks["n_allocated"] = key.map(by["n_allocated"]).astype(int).to_numpy()
+    emptied = shapely.is_empty(areas).tolist() if edge_buffer > 0 else [False] * len(flags)
     buffer_flags = [
         ["edge buffer wider than the block: sampled without it"]
-        if edge_buffer > 0
-        and shapely.is_empty(a)
-        and not any("edge buffer" in f or "not sampled" in f for f in fl)
+        if gone and not any("edge buffer" in f or "not sampled" in f for f in fl)
         else []
-        for a, fl in zip(areas, flags, strict=True)
+        for gone, fl in zip(emptied, flags, strict=True)
     ]
     out_blocks["flags"] = ["; ".join(f + b) for f, b in zip(flags, buffer_flags, strict=True)]
 
-    strata = dict(zip(out_blocks["block"], out_blocks["stratum"], strict=True))
     points = gpd.GeoDataFrame(
         {
             "point_id": _point_ids(table["block"]),
-            "block": table["block"].to_numpy(),
-            "stratum": table["block"].map(strata).to_numpy(),
-            "design": design,
-            **{c: table[c].to_numpy() for c in table.columns if c not in ("block", "x", "y")},
+            "block": _column(table["block"]),
+            "stratum": stratum,
+            "design": repeat_text(design, len(table)),
+            **{c: _column(table[c]) for c in table.columns if c not in ("block", "x", "y")},
         },
         geometry=shapely.points(table["x"].to_numpy(), table["y"].to_numpy()),
         crs=crs,
@@ -401,7 +438,9 @@ def make_plan(
     return plan
 
 
-def _grid_substitutes(points: gpd.GeoDataFrame, blocks: pd.DataFrame, areas: np.ndarray, params: dict) -> gpd.GeoDataFrame:
+def _grid_substitutes(
+    points: gpd.GeoDataFrame, blocks: pd.DataFrame, areas: np.ndarray, params: dict
+) -> gpd.GeoDataFrame:
     """One within-cell substitute per grid point at its design position (see fieldplan.field.substitutes)."""
     index = pd.Index(blocks["block"]).get_indexer(points["block"])
     if params["angle"] == "rows":
@@ -431,14 +470,13 @@ def _keep_design_columns(designed: Plan, purposed: Plan) -> Plan:
     for column in ("units", "instructions"):
         if column not in designed.points.columns:
             continue
-        mine = designed.points[column].to_numpy()
+        mine = _column(designed.points[column])
         if column in points.columns and column == "instructions":
-            theirs = points[column].astype(str).to_numpy(dtype=object)
-            mine = (pd.Series(mine, dtype=object).astype(str) + "; " + pd.Series(theirs, dtype=object)).to_numpy(
-                dtype=object
+            mine = join_text(
+                [designed.points[column].astype(str), "; ", points[column].astype(str)], len(points)
             )
         if not changed:
-            points = points.copy()
+            points = points.copy(deep=False)
             changed = True
         points[column] = mine
     return replace(purposed, points=points) if changed else purposed

@@ -41,6 +41,7 @@ from fieldplan.design.clusters import (
 from fieldplan.design.random import random_points
 from fieldplan.errors import DesignError, InputError, OptionError
 from fieldplan.field.spares import SELECTED, SPARE, order_draw
+from fieldplan.planning.text_columns import join_text, text_dtype, to_text
 from fieldplan.rng import stream, streams
 
 __all__ = [
@@ -201,22 +202,37 @@ def format_instructions(template: str, table: pd.DataFrame) -> np.ndarray:
 
     Built column by column (no loop per point).
     """
+    return np.asarray(join_text(_template_parts(template, table, len(table)), len(table)), dtype=object)
+
+
+def _template_parts(template: str, columns, n: int) -> list:
+    """The literals and field columns of ``template``, in order, for :func:`join_text`.
+
+    ``columns`` maps field names to columns of ``n`` rows (a frame, or a dict).
+    """
     try:
-        parts = list(string.Formatter().parse(template))
+        parsed = list(string.Formatter().parse(template))
     except ValueError as err:
         raise OptionError(f"--instructions: {err}; use {{row}}, {{plant}}, {{units}} or {{block}}") from None
-    out = pd.Series([""] * len(table), index=table.index, dtype=object)
-    for literal, name, spec, conv in parts:
-        out = out + literal
+    parts: list = []
+    for literal, name, spec, conv in parsed:
+        if literal:
+            parts.append(literal)
         if name is None:
             continue
         if name not in _FIELDS or spec or conv:
             raise OptionError(
                 f"--instructions: unknown placeholder {{{name}}}; use {{row}}, {{plant}}, {{units}}, {{part}} or {{block}}"
             )
-        if len(table):
-            out = out + table[name].astype(str)
-    return out.to_numpy(dtype=object)
+        if n:
+            column = columns[name]
+            dtype = getattr(column, "dtype", None)
+            if isinstance(dtype, np.dtype) and dtype.kind in "iu":
+                parts.append(np.asarray(column))  # written in decimal, as str() writes it
+            else:
+                series = column if isinstance(column, pd.Series) else pd.Series(column, copy=False)
+                parts.append(series if series.dtype == text_dtype() else series.astype(str))
+    return parts
 
 
 _COMPASS = ("north", "north-east", "east", "south-east", "south", "south-west", "west", "north-west")
@@ -617,29 +633,41 @@ def _stratified(
         joined = {key: np.concatenate([part[key] for part in parts]) for key in columns}
         order = np.argsort(joined.pop("_order"), kind="stable")
         owner_all = np.concatenate([part["_order"] for part in parts])[order]
-        table = pd.DataFrame(
-            {"block": blocks["block"].to_numpy()[owner_all], **{k: v[order] for k, v in joined.items()}}
-        )
+        data = {"block": to_text(blocks["block"].astype(str).array.take(owner_all))}
+        data.update({k: v[order] for k, v in joined.items()})
+        if design == "clusters":
+            data.update(_cluster_texts(blocks, owner_all, data, opts))
+        table = pd.DataFrame(data)
     else:
         owner_all = np.zeros(0, dtype=np.int64)
         table = pd.DataFrame(columns=["block", *columns[1:]])
-    table["block"] = table["block"].astype(str)
-    if design == "clusters":
-        for key in ("row", "plant", "units", "part"):
-            table[key] = table[key].astype(np.int64)
-        # Multi-part blocks number rows per part: the text names the part first.
-        names = part_names(blocks, owner_all, table["part"].to_numpy(), which=owner_all)
-        table["part"] = names
-        text = format_instructions(opts["instructions"] or DEFAULT_INSTRUCTIONS, table)
-        if not opts["instructions"]:
-            named = np.flatnonzero(names != "")
-            text[named] = "In " + names[named] + " (count rows from that part's own edge): " + text[named]
-        table["instructions"] = text
-        table = table.drop(columns="part")
+        table["block"] = table["block"].astype(str)
+        if design == "clusters":
+            for key in ("row", "plant", "units", "part"):
+                table[key] = table[key].astype(np.int64)
+            table["instructions"] = format_instructions(opts["instructions"] or DEFAULT_INSTRUCTIONS, table)
+            table = table.drop(columns="part")
     table.attrs["strata"] = pd.DataFrame(
         {"stratum": strata, "n_target_exact": np.round(exact, 4), "n_allocated": counts.astype(int)}
     )
     return table, flags
+
+
+def _cluster_texts(blocks, owner_all: np.ndarray, data: dict, opts: dict) -> dict:
+    """The ``instructions`` column of the picks (and their ``part``, dropped: the text names it)."""
+    n = owner_all.size
+    for key in ("row", "plant", "units", "part"):
+        data[key] = data[key].astype(np.int64, copy=False)
+    # Multi-part blocks number rows per part: the text names the part first.
+    names = part_names(blocks, owner_all, data.pop("part"), which=owner_all)
+    fields = {**data, "part": names}
+    parts = _template_parts(opts["instructions"] or DEFAULT_INSTRUCTIONS, fields, n)
+    named = np.flatnonzero(names != "")
+    if not opts["instructions"] and named.size:
+        prefix = np.full(n, "", dtype=object)
+        prefix[named] = "In " + names[named] + " (count rows from that part's own edge): "
+        parts.insert(0, prefix)
+    return {"instructions": join_text(parts, n)}
 
 
 def _sizes(

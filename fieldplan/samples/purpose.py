@@ -17,6 +17,7 @@ import pandas as pd
 import shapely
 
 from fieldplan.errors import DesignError, OptionError
+from fieldplan.planning.text_columns import repeat_text, text_column
 from fieldplan.rng import stream
 from fieldplan.samples.cores import (
     DEFAULT_BUFFER_M,
@@ -555,18 +556,20 @@ def apply_purpose(
     params["plan_id"] = code
 
     points = plan.points.drop(columns=[c for c in _OWN_COLUMNS if c in plan.points.columns])
-    points["purpose"] = purpose
-    points["depth_cm"] = depth_text
-    if purpose == "soil" and composite == "block":
+    # Columns of one value, and the ids, built whole in pandas' text type (fieldplan.planning.text_columns).
+    points["purpose"] = repeat_text(purpose, len(points))
+    points["depth_cm"] = repeat_text(depth_text, len(points))
+    one_per_point = not (purpose == "soil" and composite == "block")
+    if not one_per_point:
         blocks = points["block"].astype(str)
         order = pd.unique(blocks)
         ids = dict(zip(order, make_sample_ids(len(order), code=code), strict=True))
         points["sample_id"] = blocks.map(ids).to_numpy()
     else:
-        points["sample_id"] = make_sample_ids(len(points), code=code)
+        points["sample_id"] = text_column(make_sample_ids(len(points), code=code))
     profile_notes: list[str] = []
     if profile is not None:
-        points["per_sample"] = profile.units_text
+        points["per_sample"] = repeat_text(profile.units_text, len(points))
         points["instructions"], profile_notes = _profile_instructions(plan, points, profile)
 
     layers = dict(plan.layers)
@@ -585,7 +588,9 @@ def apply_purpose(
     if profile_notes:
         meta["notes"] = [*meta.get("notes", []), *profile_notes]
     if "counts" in meta:
-        meta["counts"] = {**meta["counts"], "samples": int(points["sample_id"].nunique())}
+        # One id per point, all distinct (serials), unless a block shares one composite.
+        samples = len(points) if one_per_point else int(points["sample_id"].nunique())
+        meta["counts"] = {**meta["counts"], "samples": samples}
         if "cores" in layers:
             meta["counts"]["cores"] = int(len(layers["cores"]))
     return replace(plan, blocks=blocks, points=points, params=params, meta=meta, layers=layers)
