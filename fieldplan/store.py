@@ -15,6 +15,7 @@ A freshly planned folder has neither and counts as generation 1 on both sides.
 
 from __future__ import annotations
 
+import gc
 import importlib
 import json
 import os
@@ -285,9 +286,14 @@ def _run_writers(plan, stage: Path, writers: list[Callable]) -> None:
     _flush()  # else text buffered before the fork could be printed twice
     read_end, write_end = os.pipe()
     parent = os.getpid()
+    # Objects made before the fork leave the collector's view while both processes run:
+    # a collection writes into every object it scans, and each page so touched would be
+    # copied for the process that touched it (gc.freeze, Python docs).
+    gc.freeze()
     try:
         pid = os.fork()
     except OSError:  # no process to spare (EAGAIN, ENOMEM): write here, one after another
+        gc.unfreeze()
         os.close(read_end)
         os.close(write_end)
         for writer in writers:
@@ -313,6 +319,7 @@ def _run_writers(plan, stage: Path, writers: list[Callable]) -> None:
             # folder is removed, so it cannot write into it (or make it again) afterwards.
             os.kill(pid, signal.SIGKILL)
             os.waitpid(pid, 0)
+        gc.unfreeze()
     _raise_child_failure(report, status, stage, theirs)
 
 
