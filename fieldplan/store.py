@@ -284,43 +284,65 @@ def _run_writers(plan, stage: Path, writers: list[Callable]) -> None:
     if points is not None:
         points_lonlat(points)  # projected once, before the fork, for the writers on both sides
     _flush()  # else text buffered before the fork could be printed twice
-    read_end, write_end = os.pipe()
-    parent = os.getpid()
-    # Objects made before the fork leave the collector's view while both processes run:
-    # a collection writes into every object it scans, and each page so touched would be
-    # copied for the process that touched it (gc.freeze, Python docs).
-    gc.freeze()
-    try:
-        pid = os.fork()
-    except OSError:  # no process to spare (EAGAIN, ENOMEM): write here, one after another
-        gc.unfreeze()
-        os.close(read_end)
-        os.close(write_end)
+    with _frozen_objects():
+        read_end, write_end = os.pipe()
+        parent = os.getpid()
+        try:
+            pid = os.fork()
+        except OSError:  # no process to spare (EAGAIN, ENOMEM): write here, one after another
+            os.close(read_end)
+            os.close(write_end)
+            pid = None
+        else:
+            if pid == 0:  # the child: never returns
+                os.close(read_end)
+                _child_writes(plan, stage, theirs, write_end, parent)
+            os.close(write_end)
+            report, status = _beside_child(plan, stage, mine, pid, read_end)
+    if pid is None:
         for writer in writers:
             writer(plan, stage)
         return
-    if pid == 0:  # the child: never returns
-        os.close(read_end)
-        _child_writes(plan, stage, theirs, write_end, parent)
-    os.close(write_end)
+    _raise_child_failure(report, status, stage, theirs)
+
+
+@contextmanager
+def _frozen_objects() -> Iterator[None]:
+    """Keep the objects made so far out of the collector's view while the writer child runs.
+
+    A collection writes into every object it scans, and each page so touched would be
+    copied for the process that touched it (``gc.freeze``, Python docs). Objects an
+    application froze itself stay as it left them.
+    """
+    froze = gc.get_freeze_count() == 0
+    if froze:
+        gc.freeze()
     try:
-        for writer in mine:
+        yield
+    finally:
+        if froze:
+            gc.unfreeze()
+
+
+def _beside_child(plan, stage: Path, writers: list[Callable], pid: int, pipe: int) -> tuple[bytes, int]:
+    """Run ``writers`` here, then collect the child's report and exit status."""
+    try:
+        for writer in writers:
             writer(plan, stage)
-        with os.fdopen(read_end, "rb") as pipe:
-            read_end = None
-            report = pipe.read()
+        with os.fdopen(pipe, "rb") as stream:
+            pipe = None
+            report = stream.read()
         _, status = os.waitpid(pid, 0)
         pid = None
     finally:
-        if read_end is not None:
-            os.close(read_end)
+        if pipe is not None:
+            os.close(pipe)
         if pid is not None:
             # This process failed (or was interrupted): stop the child before the staging
             # folder is removed, so it cannot write into it (or make it again) afterwards.
             os.kill(pid, signal.SIGKILL)
             os.waitpid(pid, 0)
-        gc.unfreeze()
-    _raise_child_failure(report, status, stage, theirs)
+    return report, status
 
 
 def _child_writes(plan, stage: Path, writers: list[Callable], pipe: int, parent: int) -> None:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import errno
+import gc
 import itertools
 import os
 import signal
@@ -71,8 +72,10 @@ def _replace_writer(monkeypatch, name: str, func) -> None:
 def test_outputs_are_byte_identical_with_and_without_the_child(demo_plan, tmp_path, monkeypatch, forks):
     monkeypatch.setenv("SOURCE_DATE_EPOCH", "1800000000")
     # Same folder name on both sides: the manifest and README name the folder.
+    assert gc.get_freeze_count() == 0
     store.write_plan(demo_plan, tmp_path / "forked" / "plan")
     assert forks == [1]
+    assert gc.get_freeze_count() == 0  # the collector sees every object again
     monkeypatch.setenv(store.WRITE_JOBS_ENV, "1")
     store.write_plan(demo_plan, tmp_path / "serial" / "plan")
     assert forks == [1]
