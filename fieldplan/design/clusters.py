@@ -62,6 +62,7 @@ from fieldplan.errors import DesignError, OptionError
 __all__ = [
     "PlantPicks",
     "RowSegments",
+    "StraightPieces",
     "block_row_segments",
     "block_rows_from_lines",
     "cluster_count",
@@ -75,6 +76,41 @@ __all__ = [
     "sample_ranks",
     "sample_ranks_many",
 ]
+
+
+@dataclass(frozen=True)
+class StraightPieces:
+    """Straight row segments in their row frame; end points are computed on demand.
+
+    Attributes
+    ----------
+    across : numpy.ndarray
+        Offset ``v`` of each segment's row line.
+    start, end : numpy.ndarray
+        Range ``u`` along the row of each segment.
+    unit : numpy.ndarray
+        Row frame of each segment (index into ``u`` and ``v``).
+    u, v : numpy.ndarray
+        ``(k, 2)`` unit vectors along and across the rows of each frame.
+    """
+
+    across: np.ndarray
+    start: np.ndarray
+    end: np.ndarray
+    unit: np.ndarray
+    u: np.ndarray
+    v: np.ndarray
+
+    def ends_at(self, index) -> np.ndarray:
+        """``(k, 2, 2)`` end points of the segments at ``index`` (element by element as for all)."""
+        unit = self.unit[index]
+        return segment_ends(self.across[index], self.start[index], self.end[index], self.u[unit], self.v[unit])
+
+    def take(self, index) -> StraightPieces:
+        """The segments at ``index`` (a mask or indices)."""
+        return replace(
+            self, across=self.across[index], start=self.start[index], end=self.end[index], unit=self.unit[index]
+        )
 
 
 @dataclass(frozen=True)
@@ -99,11 +135,15 @@ class RowSegments:
     lines : numpy.ndarray, optional
         LineString of each segment, oriented from the row's start (mapped rows).
     ends : numpy.ndarray, optional
-        ``(k, 2, 2)`` start and end coordinates of straight segments (row model);
-        their LineStrings are built only when :attr:`geometry` is asked for.
+        ``(k, 2, 2)`` start and end coordinates of straight segments; their
+        LineStrings are built only when :attr:`geometry` is asked for.
     part : numpy.ndarray, optional
         1-based part of a multi-part block each segment lies in; rows and plants
         are numbered within their part. None means one part.
+    pieces : StraightPieces, optional
+        Straight segments held in their row frame (the row model), instead of
+        ``ends``: end points are computed only for the segments asked for
+        (:meth:`ends_at`), e.g. those a plant was drawn from.
     """
 
     row: np.ndarray
@@ -115,6 +155,7 @@ class RowSegments:
     lines: np.ndarray | None = None
     ends: np.ndarray | None = None
     part: np.ndarray | None = None
+    pieces: StraightPieces | None = None
 
     @property
     def parts(self) -> np.ndarray:
@@ -127,11 +168,19 @@ class RowSegments:
         return self.lines_at(slice(None))
 
     def lines_at(self, index) -> np.ndarray:
-        """LineStrings of the segments at ``index`` (built from :attr:`ends` if needed)."""
+        """LineStrings of the segments at ``index`` (built from their end points if needed)."""
         if self.lines is not None:
             return self.lines[index]
-        ends = self.ends[index]
+        ends = self.ends_at(index)
         return shapely.linestrings(ends) if ends.size else np.empty(0, dtype=object)
+
+    def ends_at(self, index) -> np.ndarray:
+        """``(k, 2, 2)`` start and end points of the straight segments at ``index``."""
+        if self.ends is not None:
+            return self.ends[index]
+        if self.pieces is not None:
+            return self.pieces.ends_at(index)
+        raise DesignError("mapped rows have no straight ends; use lines_at")
 
     @property
     def total_plants(self) -> int:
@@ -278,7 +327,7 @@ def block_row_segments(
     pu, pv = frame_coordinates(xy, u[vunit], v[vunit])
     first, count = row_span(pv, vunit, parts.size, rs_u)
     unit, row, start, end = row_pieces(pu, pv, ring, first, rs_u, count, unit=vunit)
-    length, plants, first_plant, offset, ends = plant_layout(unit, row, start, end, first, rs_u, ps_u, u, v)
+    length, plants, first_plant, offset, across = plant_layout(unit, row, start, end, first, rs_u, ps_u)
     full = (unit, row, start, length, plants, first_plant, offset)
 
     if clips is not None:
@@ -289,7 +338,7 @@ def block_row_segments(
         none = np.fromiter((c is None for c in clips), bool, nb)
         itself = np.fromiter((c is g for c, g in zip(clips, geoms, strict=True)), bool, nb)
         clipped_block = ~(none | (itself & (n_parts == 1)))
-        rows = (first, rs_u, ps_u, count, u, v)
+        rows = (first, rs_u, ps_u, count)
         own = itself & (n_parts > 1)
         if own.any():
             # Parts whose envelopes are apart: another part's pieces never meet a part's own
@@ -299,9 +348,8 @@ def block_row_segments(
             if at.size:
                 trimmed = _cut(at, start[at], np.minimum(start[at] + length[at], end[at]), full, rows)
                 if trimmed[0].size == at.size and (trimmed[0] == at).all():
-                    for col, cut_col in zip(
-                        (length, plants, first_plant, offset, ends), trimmed[3:], strict=True
-                    ):
+                    columns = (length, plants, first_plant, offset, across, start, end)
+                    for col, cut_col in zip(columns, trimmed[3:], strict=True):
                         col[at] = cut_col
                     clipped_block &= ~own
         if clipped_block.any():
@@ -321,8 +369,8 @@ def block_row_segments(
             cu, cv = frame_coordinates(cxy[take], u[cunit], v[cunit])
             c_unit, c_row, c_start, c_end = row_pieces(cu, cv, copy_of_vertex, first, rs_u, count, unit=cunit)
             keep_whole = ~clipped_block[pblock[unit]]
-            (unit, row, length, plants, first_plant, offset, ends) = _clip_intervals(
-                (unit, row, start, length, plants, first_plant, offset, ends),
+            (unit, row, length, plants, first_plant, offset, across, start, end) = _clip_intervals(
+                (*full, across, end),
                 keep_whole,
                 (c_unit, c_row, c_start, c_end),
                 rows,
@@ -330,13 +378,13 @@ def block_row_segments(
 
     segments = RowSegments(
         row=row + 1,
-        ends=ends,
         length=length,
         plants=plants,
         first_plant=first_plant,
         offset=offset,
         plant_spacing=ps_u[unit],
         part=part_no[unit],
+        pieces=StraightPieces(across=across, start=start, end=end, unit=unit, u=u, v=v),
     )
     return segments, pblock[unit]
 
@@ -358,10 +406,10 @@ def _cut(parent, lo_u, hi_u, full, rows):
     and numbers.
 
     Returns the kept parents and the cut pieces' unit, row, length, plants, first plant,
-    offset and ``(k, 2, 2)`` ends.
+    offset, row line offset ``across`` and ``u`` range.
     """
     unit, row, start, length, plants, first_plant, offset = full
-    first, rs, ps_u, count, u, v = rows
+    first, rs, ps_u, count = rows
     keep = hi_u - lo_u > LEN_TOL
     parent, lo_u, hi_u = parent[keep], lo_u[keep], hi_u[keep]
     a0 = start[parent]
@@ -381,7 +429,9 @@ def _cut(parent, lo_u, hi_u, full, rows):
         np.maximum(k1 - k0 + 1, 0),
         first_plant[parent] + k0,
         off + k0 * ps - lo,
-        segment_ends(first[pu] + prow * rs[pu], lo_u, hi_u, u[pu], v[pu]),
+        first[pu] + prow * rs[pu],
+        lo_u,
+        hi_u,
     )
 
 
@@ -390,12 +440,17 @@ def _clip_intervals(full, keep_whole, clip, rows):
 
     Plants keep the positions and numbers of the unclipped model; a clipped
     piece holds the plants of its parent piece that fall inside it. Pieces with
-    ``keep_whole`` are kept as they are. ``rows`` is, per unit, the first row's
-    offset, row spacing, plant spacing, row count and frame vectors.
+    ``keep_whole`` are kept as they are. ``full`` is each piece's unit, row,
+    start, length, plants, first plant, offset, row line offset and end;
+    ``rows`` is, per unit, the first row's offset, row spacing, plant spacing
+    and row count.
+
+    Returns the pieces' unit, row, length, plants, first plant, offset, row line
+    offset, start and end.
     """
-    unit, row, start, length, plants, first_plant, offset, ends = full
+    unit, row, start, length, plants, first_plant, offset, across, end = full
     c_unit, c_row, c_start, c_end = clip
-    first, rs, ps_u, count, u, v = rows
+    first, rs, ps_u, count = rows
     row_base = np.cumsum(count) - count
     line = row_base[unit] + row
     c_line = row_base[c_unit] + c_row
@@ -409,7 +464,7 @@ def _clip_intervals(full, keep_whole, clip, rows):
     lo_u = np.maximum(a0, c_start[piece])
     hi_u = np.minimum(a0 + length[parent], c_end[piece])
     parent, *cut = _cut(parent, lo_u, hi_u, full[:7], rows)
-    kept = (unit, row, length, plants, first_plant, offset, ends.reshape(-1, 4))
+    kept = (unit, row, length, plants, first_plant, offset, across, start, end)
     # Back in piece order (by parent, then along the row): a parent kept whole takes one slot,
     # a cut one as many as its pieces; parents are sorted, so each piece's slot is an offset.
     slots = np.where(keep_whole, 1, np.bincount(parent, minlength=line.size))
@@ -420,11 +475,10 @@ def _clip_intervals(full, keep_whole, clip, rows):
     is_whole[at_cut] = False
     out = []
     for full_col, cut_col in zip(kept, cut, strict=True):
-        col = np.empty((is_whole.size, *full_col.shape[1:]), dtype=full_col.dtype)
+        col = np.empty(is_whole.size, dtype=full_col.dtype)
         col[is_whole] = full_col[keep_whole]
-        col[at_cut] = cut_col.reshape(-1, *full_col.shape[1:])
+        col[at_cut] = cut_col
         out.append(col)
-    out[-1] = out[-1].reshape(-1, 2, 2)
     return tuple(out)
 
 
@@ -576,7 +630,7 @@ def concat_segments(parts: list[RowSegments]) -> tuple[RowSegments, np.ndarray]:
     joined = RowSegments(
         row=cat("row"),
         lines=None if straight else np.concatenate([p.geometry for p in parts]),
-        ends=np.concatenate([p.ends for p in parts]) if straight else None,
+        ends=np.concatenate([p.ends_at(slice(None)) for p in parts]) if straight else None,
         length=cat("length"),
         plants=cat("plants"),
         first_plant=cat("first_plant"),
@@ -776,9 +830,9 @@ def pick_plants(
     seg, within = locate_ranks(np.asarray(eligible, dtype=np.int64), ranks, int(skip_row_ends))
     spacing = np.asarray(segments.plant_spacing, dtype=float)
     dist = segments.offset[seg] + within * (spacing if spacing.ndim == 0 else spacing[seg])
-    if segments.ends is not None:
+    if segments.lines is None:
         # Straight segments: the plant is a linear interpolation of the ends.
-        xy = straight_points(seg, dist, segments.ends, segments.length)
+        xy = straight_points(dist, segments.ends_at(seg), segments.length[seg])
     else:
         xy = shapely.get_coordinates(shapely.line_interpolate_point(segments.lines_at(seg), dist)).reshape(
             -1, 2
@@ -848,8 +902,8 @@ def pick_plants_many(
         seg = order[seg]
     spacing = np.asarray(segments.plant_spacing, dtype=float)
     dist = segments.offset[seg] + within * (spacing if spacing.ndim == 0 else spacing[seg])
-    if segments.ends is not None:
-        xy = straight_points(seg, dist, segments.ends, segments.length)
+    if segments.lines is None:
+        xy = straight_points(dist, segments.ends_at(seg), segments.length[seg])
     else:
         xy = shapely.get_coordinates(shapely.line_interpolate_point(segments.lines_at(seg), dist)).reshape(
             -1, 2

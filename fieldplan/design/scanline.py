@@ -207,20 +207,19 @@ def plant_layout(
     first: np.ndarray,
     spacing: np.ndarray,
     plant_spacing: np.ndarray,
-    u: np.ndarray,
-    v: np.ndarray,
 ):
-    """Plants on each piece, their numbering along the row, and the piece's end points.
+    """Plants on each piece, their numbering along the row, and the offset of the piece's row line.
 
     A piece of length ``L`` holds ``c = floor(L / plant_spacing)`` plants centred
     on it; plant numbers continue along a row over its pieces (pieces sorted by
-    unit and row, a row's pieces consecutive). ``first``, ``spacing``,
-    ``plant_spacing``, ``u`` and ``v`` are per unit.
+    unit and row, a row's pieces consecutive). ``first``, ``spacing`` and
+    ``plant_spacing`` are per unit.
 
     Returns
     -------
-    length, plants, first_plant, offset, ends : numpy.ndarray
-        ``ends`` is ``(k, 2, 2)``: start and end point of each piece.
+    length, plants, first_plant, offset, across : numpy.ndarray
+        ``across`` is the ``v`` of each piece's row line: with ``start`` and ``end``
+        it gives the piece's end points (:func:`segment_ends`).
     """
     ps = plant_spacing[unit]
     length = end - start
@@ -230,8 +229,7 @@ def plant_layout(
     row_base = np.repeat(before[starts], np.diff(np.append(starts, row.size)))
     first_plant = before - row_base + 1
     offset = (length - plants * ps) / 2.0 + ps / 2.0
-    ends = segment_ends(first[unit] + row * spacing[unit], start, end, u[unit], v[unit])
-    return length, plants, first_plant, offset, ends
+    return length, plants, first_plant, offset, first[unit] + row * spacing[unit]
 
 
 def segment_ends(across: np.ndarray, start: np.ndarray, end: np.ndarray, u: np.ndarray, v: np.ndarray):
@@ -267,8 +265,7 @@ def locate_ranks(eligible: np.ndarray, ranks: np.ndarray, skip) -> tuple[np.ndar
     return seg, ranks - (cum[seg] - eligible[seg]) + skip
 
 
-def straight_points(seg: np.ndarray, dist: np.ndarray, ends: np.ndarray, length: np.ndarray) -> np.ndarray:
-    """``(n, 2)`` points ``dist`` metres along straight segments ``seg`` (given by their ends)."""
-    t = dist / length[seg]
-    e = ends[seg]
-    return e[:, 0, :] + (e[:, 1, :] - e[:, 0, :]) * t[:, None]
+def straight_points(dist: np.ndarray, ends: np.ndarray, length: np.ndarray) -> np.ndarray:
+    """``(n, 2)`` points ``dist`` metres along straight segments given by their ``(n, 2, 2)`` ends."""
+    t = dist / length
+    return ends[:, 0, :] + (ends[:, 1, :] - ends[:, 0, :]) * t[:, None]

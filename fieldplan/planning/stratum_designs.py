@@ -433,6 +433,7 @@ def _take(seg: RowSegments, index) -> RowSegments:
         lines=pick(seg.lines),
         ends=pick(seg.ends),
         part=pick(seg.part),
+        pieces=None if seg.pieces is None else seg.pieces.take(index),
     )
 
 
