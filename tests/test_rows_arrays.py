@@ -61,7 +61,11 @@ def _assert_same_segments(got, ref):
     assert got.first_plant.tolist() == ref.first_plant.tolist()
     np.testing.assert_allclose(got.length, ref.length, atol=1e-9, rtol=0)
     np.testing.assert_allclose(got.offset, ref.offset, atol=1e-9, rtol=0)
-    got_ends = shapely.get_coordinates(got.geometry).reshape(-1, 2, 2) if got.lines is not None else got.ends_at(slice(None))
+    got_ends = (
+        shapely.get_coordinates(got.geometry).reshape(-1, 2, 2)
+        if got.lines is not None
+        else got.ends_at(slice(None))
+    )
     ref_ends = shapely.get_coordinates(ref.geometry).reshape(-1, 2, 2) if ref.ends is None else ref.ends
     np.testing.assert_allclose(got_ends, ref_ends, atol=1e-9, rtol=0)
 

@@ -104,12 +104,18 @@ class StraightPieces:
     def ends_at(self, index) -> np.ndarray:
         """``(k, 2, 2)`` end points of the segments at ``index`` (element by element as for all)."""
         unit = self.unit[index]
-        return segment_ends(self.across[index], self.start[index], self.end[index], self.u[unit], self.v[unit])
+        return segment_ends(
+            self.across[index], self.start[index], self.end[index], self.u[unit], self.v[unit]
+        )
 
     def take(self, index) -> StraightPieces:
         """The segments at ``index`` (a mask or indices)."""
         return replace(
-            self, across=self.across[index], start=self.start[index], end=self.end[index], unit=self.unit[index]
+            self,
+            across=self.across[index],
+            start=self.start[index],
+            end=self.end[index],
+            unit=self.unit[index],
         )
 
 

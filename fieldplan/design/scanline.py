@@ -66,7 +66,9 @@ def group_starts(key: np.ndarray) -> np.ndarray:
     return np.flatnonzero(np.r_[True, key[1:] != key[:-1]])
 
 
-def row_span(pv: np.ndarray, unit: np.ndarray, units: int, spacing: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def row_span(
+    pv: np.ndarray, unit: np.ndarray, units: int, spacing: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
     """First row offset (half a spacing in from the lowest ``v``) and the number of rows, per unit.
 
     ``unit`` (sorted) is the unit of each vertex; a unit with no vertex has no rows.
