@@ -112,9 +112,16 @@ def _utc_now() -> str:
 
 
 def sample_areas(
-    blocks: gpd.GeoDataFrame, *, edge_buffer: float = 0.0, exclusions: gpd.GeoDataFrame | None = None
+    blocks: gpd.GeoDataFrame,
+    *,
+    edge_buffer: float = 0.0,
+    exclusions: gpd.GeoDataFrame | None = None,
+    exclusion_union: Any = None,
 ) -> np.ndarray:
     """Each block minus its inward edge buffer (headland) and minus exclusions.
+
+    ``exclusion_union``, the union of the exclusions' geometries when the caller
+    has it already, saves building it again.
 
     Returns an object array of (possibly empty) polygons aligned with ``blocks``.
     """
@@ -123,7 +130,9 @@ def sample_areas(
     geoms = blocks.geometry.values
     areas = shapely.buffer(geoms, -edge_buffer, join_style="mitre") if edge_buffer > 0 else geoms
     if exclusions is not None and len(exclusions):
-        union = shapely.union_all(exclusions.geometry.values)
+        union = (
+            exclusion_union if exclusion_union is not None else shapely.union_all(exclusions.geometry.values)
+        )
         areas = shapely.difference(areas, union)
     return np.asarray(areas, dtype=object)
 
@@ -324,8 +333,10 @@ def make_plan(
             "use a wider {spacing} or a lower {per_ha} (or raise {max_points})",
         )
     check_point_budget(spec, blocks, max_points=max_points)  # every other design, before drawing
-    areas = sample_areas(blocks, edge_buffer=edge_buffer, exclusions=exclusions)
     exclusion_union = shapely.union_all(exclusions.geometry.values) if len(exclusions) else None
+    areas = sample_areas(
+        blocks, edge_buffer=edge_buffer, exclusions=exclusions, exclusion_union=exclusion_union
+    )
     run["rows_frame"] = rows
     if spec.size.zones:
         # Block-zone pieces become the units the design samples (fieldplan.zones_plan).

@@ -334,10 +334,12 @@ def _row_models(blocks: pd.DataFrame, which: np.ndarray, clips: np.ndarray, rows
     return seg, which[owner], owner * (int(seg.parts.max(initial=0)) + 1) + seg.parts
 
 
-def _cluster_population(blocks, use, fallback, gone, opts, rows_frame, flags):
+def _cluster_population(blocks, use, fallback, other, gone, opts, rows_frame, flags):
     """Row segments and eligible plants of every block, block by block in one array each.
 
     Blocks without a row layout, or left with no eligible plant, are flagged and left out.
+    ``fallback(idx)`` gives blocks ``idx`` without the edge buffer, and ``other`` marks the
+    blocks where that is another area than ``use``.
 
     Returns
     -------
@@ -391,10 +393,9 @@ def _cluster_population(blocks, use, fallback, gone, opts, rows_frame, flags):
     total = np.bincount(owner, weights=count, minlength=n)
     # The edge buffer left a sliver with no whole plant: as the other designs do when it leaves
     # nothing, sample the block's rows without it.
-    other = np.fromiter((a is not b for a, b in zip(use, fallback, strict=True)), bool, n)
     retry = np.flatnonzero(todo & (total == 0) & other)
     if retry.size:
-        seg2, owner2, group2 = _row_models(blocks, retry, fallback[retry], rows_frame)
+        seg2, owner2, group2 = _row_models(blocks, retry, fallback(retry), rows_frame)
         count2 = eligible_plants(seg2, groups=group2 + int(group.max(initial=0)) + 1, **skips)
         total2 = np.bincount(owner2, weights=count2, minlength=n)
         _add_flag(
@@ -541,10 +542,18 @@ def _stratified(
 
     # The population of each stratum: its blocks' sampled areas.
     empty = shapely.is_empty(areas) | (shapely.area(areas) <= 0)
-    fallback = np.asarray(blocks.geometry.values, dtype=object)
-    if exclusion_union is not None:
-        fallback = shapely.difference(fallback, exclusion_union)
-    use = np.where(empty, fallback, areas)
+    geoms = np.asarray(blocks.geometry.values, dtype=object)
+
+    def fallback(idx: np.ndarray) -> np.ndarray:
+        # The blocks at idx without the edge buffer (exclusions still out), built only where needed.
+        return geoms[idx] if exclusion_union is None else shapely.difference(geoms[idx], exclusion_union)
+
+    use = np.array(areas, dtype=object)
+    at = np.flatnonzero(empty)
+    if at.size:
+        use[at] = fallback(at)
+    # Where the block without the buffer is another area than the one sampled (a retry can help).
+    other = ~empty & np.fromiter((a is not g for a, g in zip(areas, geoms, strict=True)), bool, len(geoms))
     gone = shapely.is_empty(use) | (shapely.area(use) <= 0)
     _add_flag(
         flags, np.flatnonzero(empty & ~gone), "edge buffer leaves nothing: sampled the block without it"
@@ -558,7 +567,7 @@ def _stratified(
     modelled = False
     if design == "clusters":
         segments, seg_owner, eligible, modelled = _cluster_population(
-            blocks, use, fallback, gone, opts, params.get("rows_frame"), flags
+            blocks, use, fallback, other, gone, opts, params.get("rows_frame"), flags
         )
         capacity = np.bincount(sidx[seg_owner], weights=eligible, minlength=len(strata)).astype(float)
 
