@@ -56,6 +56,8 @@ __all__ = [
     "write_plan",
     "split_writers",
     "WRITER_COST",
+    "WRITER_FIXED",
+    "writer_cost",
     "CHILD_WRITERS",
     "WRITE_JOBS_ENV",
     "WriterProcessError",
@@ -213,15 +215,31 @@ WRITER_COST: dict[str, float] = {
     "write_summary_csv": 0.01,
     "write_manifest": 0.0,
     "write_readme": 0.0,
-    "write_gpkg": 0.11,
+    "write_gpkg": 0.08,
     "write_cores_geojson": 0.0,
     "map_writer": 0.39,
     "png_writer": 0.29,
     "kml_writer": 0.16,
     "gpx_writer": 0.05,
 }
+#: The part of :data:`WRITER_COST` a writer pays whatever the plan's size (its imports); the
+#: rest grows with the number of points.
+WRITER_FIXED: dict[str, float] = {"map_writer": 0.18, "png_writer": 0.08, "kml_writer": 0.01}
+#: Points of the plan :data:`WRITER_COST` was measured on.
+COST_POINTS = 20_000
+#: A child is made only for at least this much work: making and collecting one costs a few
+#: milliseconds, and a small plan's tables take less than that.
+MIN_CHILD_SECONDS = 0.03
 #: Writers that may run in the child: each only reads the plan and writes its own file.
-CHILD_WRITERS = ("map_writer", "png_writer", "kml_writer", "gpx_writer")
+CHILD_WRITERS = (
+    "map_writer",
+    "png_writer",
+    "kml_writer",
+    "gpx_writer",
+    "write_points_geojson",
+    "write_points_csv",
+    "write_cores_geojson",
+)
 #: ``FIELDPLAN_WRITE_JOBS=1`` writes every file in this process, one after another.
 WRITE_JOBS_ENV = "FIELDPLAN_WRITE_JOBS"
 
@@ -230,24 +248,35 @@ class WriterProcessError(FieldplanError, ChildProcessError):
     """The process writing some of a plan's files stopped without finishing (e.g. killed)."""
 
 
-def split_writers(writers: list[Callable]) -> tuple[list[Callable], list[Callable]]:
-    """Split ``writers`` into (this process's, the child's), balanced by :data:`WRITER_COST`.
+def writer_cost(writer: Callable, n_points: int = COST_POINTS) -> float:
+    """Expected seconds of ``writer`` on a plan of ``n_points`` points (:data:`WRITER_COST`)."""
+    name = getattr(writer, "__name__", "")
+    total = WRITER_COST.get(name, 0.0)
+    fixed = min(WRITER_FIXED.get(name, 0.0), total)
+    return fixed + (total - fixed) * n_points / COST_POINTS
+
+
+def split_writers(writers: list[Callable], n_points: int = COST_POINTS) -> tuple[list[Callable], list[Callable]]:
+    """Split ``writers`` into (this process's, the child's), balanced by their expected cost
+    on a plan of ``n_points`` points (:func:`writer_cost`).
 
     Only :data:`CHILD_WRITERS` may go to the child; the heaviest is placed first, each on
     the side with less work so far (longest processing time first). Both lists keep the
-    order of ``writers``.
+    order of ``writers``. The child's list is empty when its share would be under
+    :data:`MIN_CHILD_SECONDS`.
     """
     name = lambda w: getattr(w, "__name__", "")  # noqa: E731
-    movable = sorted(
-        (w for w in writers if name(w) in CHILD_WRITERS), key=lambda w: -WRITER_COST.get(name(w), 0.0)
-    )
-    load = [sum(WRITER_COST.get(name(w), 0.05) for w in writers if name(w) not in CHILD_WRITERS), 0.0]
+    cost = {id(w): writer_cost(w, n_points) for w in writers}
+    movable = sorted((w for w in writers if name(w) in CHILD_WRITERS), key=lambda w: -cost[id(w)])
+    load = [sum(cost[id(w)] for w in writers if name(w) not in CHILD_WRITERS), 0.0]
     to_child = set()
     for writer in movable:
         side = 1 if load[1] < load[0] else 0
-        load[side] += WRITER_COST.get(name(writer), 0.0)
+        load[side] += cost[id(writer)]
         if side:
             to_child.add(id(writer))
+    if load[1] < MIN_CHILD_SECONDS:
+        return list(writers), []
     return [w for w in writers if id(w) not in to_child], [w for w in writers if id(w) in to_child]
 
 
@@ -275,12 +304,13 @@ def _write_jobs() -> int:
 def _run_writers(plan, stage: Path, writers: list[Callable]) -> None:
     """Run ``writers`` into ``stage``: the heavy ones in a forked child while this process
     runs the rest (see :func:`split_writers`), or all here, one after another."""
-    mine, theirs = split_writers(writers) if _write_jobs() > 1 else (writers, [])
+    points = getattr(plan, "points", None)
+    n_points = COST_POINTS if points is None else len(points)
+    mine, theirs = split_writers(writers, n_points) if _write_jobs() > 1 else (writers, [])
     if not theirs:
         for writer in writers:
             writer(plan, stage)
         return
-    points = getattr(plan, "points", None)
     if points is not None:
         points_lonlat(points)  # projected once, before the fork, for the writers on both sides
     _flush()  # else text buffered before the fork could be printed twice

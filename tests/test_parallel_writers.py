@@ -69,20 +69,25 @@ def _replace_writer(monkeypatch, name: str, func) -> None:
     assert func in store.split_writers(writers)[1]
 
 
-def test_outputs_are_byte_identical_with_and_without_the_child(demo_plan, tmp_path, monkeypatch, forks):
+@pytest.mark.parametrize("formats", [None, ["core"]])
+def test_outputs_are_byte_identical_with_and_without_the_child(demo_plan, tmp_path, monkeypatch, forks, formats):
     monkeypatch.setenv("SOURCE_DATE_EPOCH", "1800000000")
+    if formats:  # weigh the demo's tables as a large plan's, so the child takes some of them
+        monkeypatch.setattr(store, "COST_POINTS", 10)
+        assert store.split_writers(store._writers(store.selected_formats(formats)), len(demo_plan.points))[1]
     # Same folder name on both sides: the manifest and README name the folder.
     assert gc.get_freeze_count() == 0
-    store.write_plan(demo_plan, tmp_path / "forked" / "plan")
+    store.write_plan(demo_plan, tmp_path / "forked" / "plan", formats=formats)
     assert forks == [1]
     assert gc.get_freeze_count() == 0  # the collector sees every object again
     monkeypatch.setenv(store.WRITE_JOBS_ENV, "1")
-    store.write_plan(demo_plan, tmp_path / "serial" / "plan")
+    store.write_plan(demo_plan, tmp_path / "serial" / "plan", formats=formats)
     assert forks == [1]
     forked = {p.name: p.read_bytes() for p in (tmp_path / "forked" / "plan").iterdir()}
     serial = {p.name: p.read_bytes() for p in (tmp_path / "serial" / "plan").iterdir()}
     # reference: the writers run one after another in one process (FIELDPLAN_WRITE_JOBS=1)
-    assert {"map.html", "plan.png", "points.kml", "points.gpx", "plan.gpkg"} <= set(serial)
+    expected = {"points.csv", "points.geojson", "plan.gpkg"}
+    assert expected | (set() if formats else {"map.html", "plan.png", "points.kml", "points.gpx"}) <= set(serial)
     assert sorted(forked) == sorted(serial)
     for name in serial:
         assert forked[name] == serial[name], name
@@ -227,15 +232,16 @@ def test_no_fork_when_turned_off_in_a_thread_or_beside_other_threads(demo_plan, 
     assert not (tmp_path / "bad").exists()
 
 
-def test_split_is_within_grahams_bound_and_keeps_order():
+@pytest.mark.parametrize("n_points", [store.COST_POINTS, 200_000])
+def test_split_is_within_grahams_bound_and_keeps_order(n_points):
     writers = store.WRITERS
-    mine, theirs = store.split_writers(writers)
+    mine, theirs = store.split_writers(writers, n_points)
     assert mine + theirs != [] and sorted(map(id, mine + theirs)) == sorted(map(id, writers))
     assert all(w.__name__ in store.CHILD_WRITERS for w in theirs) and theirs
     assert mine == [w for w in writers if w in mine] and theirs == [w for w in writers if w in theirs]
 
     def cost(group):
-        return sum(store.WRITER_COST.get(w.__name__, 0.05) for w in group)
+        return sum(store.writer_cost(w, n_points) for w in group)
 
     fixed = [w for w in writers if w.__name__ not in store.CHILD_WRITERS]
     movable = [w for w in writers if w.__name__ in store.CHILD_WRITERS]
@@ -247,9 +253,16 @@ def test_split_is_within_grahams_bound_and_keeps_order():
     # reference: Graham (1969), "Bounds on multiprocessing timing anomalies": longest
     # processing time first is within 4/3 - 1/(3m) of the best makespan (m = 2 machines).
     assert max(cost(mine), cost(theirs)) <= (4 / 3 - 1 / 6) * best + 1e-9
-    # Core writers only: nothing to move, no child.
-    core = [w for w in writers if w.__name__ not in store.CHILD_WRITERS]
-    assert store.split_writers(core) == (core, [])
+
+
+def test_small_core_plans_make_no_child_and_large_ones_share_the_tables():
+    core = [w for w in store.WRITERS if store.FORMATS.get(w.__name__, "core") in (*store.CORE_FORMATS, "core")]
+    # A small plan's tables take less than making a process would save.
+    assert store.split_writers(core, 500) == (core, [])
+    mine, theirs = store.split_writers(core, 30_000)
+    names = {w.__name__ for w in theirs}
+    assert theirs and names <= {"write_points_geojson", "write_points_csv", "write_cores_geojson"}
+    assert "write_gpkg" in {w.__name__ for w in mine}  # the plan store stays with this process
 
 
 def test_writes_serially_when_no_process_can_be_made(demo_plan, tmp_path, monkeypatch):
