@@ -162,13 +162,19 @@ def row_pieces(
     n_at = cross[e_idx]
     with np.errstate(divide="ignore", invalid="ignore"):
         slope = (u1[e_idx] - u0[e_idx]) / (v1[e_idx] - v0[e_idx])
-    which = np.repeat(np.arange(e_idx.size), n_at)
-    k = a[e_idx][which] + (np.arange(which.size) - np.repeat(np.cumsum(n_at) - n_at, n_at))
-    edge = e_idx[which]
-    at = u0[edge] + ((f[edge] + k * s[edge]) - v0[edge]) * slope[which]
+    # Crossing j of a spanning edge lies on its row a + j; per-edge values are repeated (in
+    # order, cheaper than gathering them) and combined in the same order of operations.
+    k = np.arange(int(n_at.sum())) - np.repeat(np.cumsum(n_at) - n_at - a[e_idx], n_at)
+
+    def per_crossing(values: np.ndarray) -> np.ndarray:
+        return np.repeat(values[e_idx], n_at)
+
+    at = per_crossing(u0) + ((per_crossing(f) + k * per_crossing(s)) - per_crossing(v0)) * np.repeat(
+        slope, n_at
+    )
     # One number per row line of every unit: pieces sort by unit, then row, then along the row.
     row_base = np.cumsum(count) - count
-    line = row_base[eu[edge]] + k
+    line = k + per_crossing(row_base[eu])
     order = np.argsort(line, kind="stable")
     line, at = line[order], at[order]
     starts = group_starts(line)
@@ -185,18 +191,20 @@ def row_pieces(
     # even number of times, so pairs start at every other crossing; an odd count (a ring left
     # open) drops its last crossing.
     if (size % 2 == 0).all():
-        lead = np.arange(0, line.size, 2)
+        line, start, end = line[0::2], at[0::2], at[1::2]
     else:
         pos = np.arange(line.size) - np.repeat(starts, size)
         lead = np.flatnonzero((pos % 2 == 0) & (pos + 1 < np.repeat(size, size)))
-    line, start, end = line[lead], at[lead], at[lead + 1]
+        line, start, end = line[lead], at[lead], at[lead + 1]
     # Join pieces that meet end to end on the same row line.
     joined = np.r_[False, (line[1:] == line[:-1]) & (end[:-1] == start[1:])] if line.size else line > 0
-    heads = np.flatnonzero(~joined)
-    last = np.append(heads[1:] - 1, line.size - 1) if heads.size else heads
-    line, start, end = line[heads], start[heads], end[last]
+    if joined.any():
+        heads = np.flatnonzero(~joined)
+        last = np.append(heads[1:] - 1, line.size - 1) if heads.size else heads
+        line, start, end = line[heads], start[heads], end[last]
     keep = end - start > LEN_TOL
-    line, start, end = line[keep], start[keep], end[keep]
+    if not keep.all():
+        line, start, end = line[keep], start[keep], end[keep]
     piece_unit = np.searchsorted(row_base + count, line, side="right")
     return piece_unit, line - row_base[piece_unit], start, end
 
