@@ -39,6 +39,9 @@ def test_repeat_zero_padding_and_conversion(mode):
     assert list(tc.to_text(ROWS)) == [str(r) for r in ROWS.tolist()]
     assert list(tc.text_column(NAMES)) == NAMES.tolist()
     assert list(tc.join_text(["a", "b"], 2)) == ["ab", "ab"]
+    labels = ["", "part 1 of 2 (west)", "part 2 of 2 (east)"]
+    index = np.array([0, 2, 2, 1, 0])
+    assert list(tc.take_text(labels, index)) == [labels[i] for i in index.tolist()]
 
 
 def test_instructions_match_str_format(mode):
@@ -56,3 +59,20 @@ def test_instructions_match_str_format(mode):
     want = [template.format(**rec) for rec in table.to_dict("records")]
     assert got.dtype == object and got.tolist() == want
     assert format_instructions(template, table.iloc[:0]).tolist() == []
+
+
+@pytest.mark.parametrize("with_codes", [False, True])
+def test_point_ids_number_points_within_their_block(mode, with_codes):
+    # reference: pandas groupby().cumcount() and str.zfill, one point at a time
+    from fieldplan.planning.plan import _point_ids
+
+    rng = np.random.default_rng(4)
+    names = np.array(["B1", "B10", "Zone 3", "é"], dtype=object)
+    which = np.concatenate([rng.integers(0, 4, 300), np.full(1200, 1)])
+    rng.shuffle(which)
+    block = pd.Series(names[which]).astype(str)
+    got = _point_ids(block, which if with_codes else None)
+    counts = block.groupby(block, sort=False).cumcount() + 1
+    width = max(3, len(str(int(counts.max()))))
+    assert width == 4
+    assert list(got) == [f"{b}-{str(c).zfill(width)}" for b, c in zip(block, counts, strict=True)]

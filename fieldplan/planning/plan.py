@@ -141,9 +141,13 @@ def sample_areas(
 DESIGNS: dict[str, Callable] = {"grid": grid_design, **STRATIFIED_DESIGNS}
 
 
-def _point_ids(block_column: pd.Series) -> Any:
-    """``BLOCK-NNN``: the block and the point's number within it (in table order), as a text column."""
-    codes, _ = pd.factorize(block_column)
+def _point_ids(block_column: pd.Series, codes: np.ndarray | None = None) -> Any:
+    """``BLOCK-NNN``: the block and the point's number within it (in table order), as a text column.
+
+    ``codes``, one whole number per distinct block (e.g. the block's row), saves finding them.
+    """
+    if codes is None:
+        codes, _ = pd.factorize(block_column)
     if (codes < 0).any():  # a missing block: numbered as pandas' groupby numbers it
         counts = block_column.groupby(block_column, sort=False).cumcount() + 1
         width = max(3, len(str(int(counts.max())))) if len(counts) else 3
@@ -405,7 +409,7 @@ def make_plan(
 
     points = gpd.GeoDataFrame(
         {
-            "point_id": _point_ids(table["block"]),
+            "point_id": _point_ids(table["block"], owner),
             "block": _column(table["block"]),
             "stratum": stratum,
             "design": repeat_text(design, len(table)),

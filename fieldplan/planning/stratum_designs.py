@@ -41,7 +41,7 @@ from fieldplan.design.clusters import (
 from fieldplan.design.random import random_points
 from fieldplan.errors import DesignError, InputError, OptionError
 from fieldplan.field.spares import SELECTED, SPARE, order_draw
-from fieldplan.planning.text_columns import join_text, text_dtype, to_text
+from fieldplan.planning.text_columns import join_text, take_text, text_dtype, to_text
 from fieldplan.rng import stream, streams
 
 __all__ = [
@@ -247,32 +247,41 @@ def part_names(
     the block the part's centroid lies on, so a crew can tell the parts apart on the ground.
     ``which``, the row of each pick's block in ``blocks``, saves looking ``block`` up.
     """
-    out = np.full(len(block), "", dtype=object)
+    labels, index = _part_labels(blocks, block, part, which=which)
+    return np.asarray(labels, dtype=object)[index]
+
+
+def _part_labels(
+    blocks: pd.DataFrame, block: np.ndarray, part: np.ndarray, *, which: np.ndarray | None = None
+) -> tuple[list[str], np.ndarray]:
+    """:func:`part_names` as the distinct names (the first is '') and the name of each pick."""
+    index = np.zeros(len(block), dtype=np.int64)
     if not len(block):
-        return out
+        return [""], index
     geoms = blocks.geometry.values
     if which is None:
         names = blocks["block"].astype(str).to_numpy()
         which = pd.Index(names).get_indexer(np.asarray(block, dtype=str))
     count = shapely.get_num_geometries(geoms)
-    multi = (count[which] > 1) & (np.asarray(part) > 0)
+    part = np.asarray(part, dtype=np.int64)
+    multi = (count[which] > 1) & (part > 0)
     if not multi.any():
-        return out
-    pairs, inverse = np.unique(np.column_stack([which[multi], part[multi]]), axis=0, return_inverse=True)
+        return [""], index
+    # Distinct (block, part) pairs, ordered by block then part.
+    width = int(part[multi].max()) + 1
+    keys, inverse = np.unique(which[multi] * width + part[multi], return_inverse=True)
+    pairs = np.column_stack([keys // width, keys % width])
     whole = shapely.centroid(geoms[pairs[:, 0]])
     piece = shapely.centroid(shapely.get_geometry(geoms[pairs[:, 0]], pairs[:, 1] - 1))
     dx = shapely.get_x(piece) - shapely.get_x(whole)
     dy = shapely.get_y(piece) - shapely.get_y(whole)
     sector = np.round(np.degrees(np.arctan2(dx, dy)) % 360.0 / 45.0).astype(int) % 8
-    label = np.array(
-        [
-            f"part {p} of {count[b]} ({_COMPASS[k]})"
-            for (b, p), k in zip(pairs.tolist(), sector.tolist(), strict=True)
-        ],
-        dtype=object,
-    )
-    out[multi] = label[inverse.reshape(-1)]
-    return out
+    labels = [""] + [
+        f"part {p} of {count[b]} ({_COMPASS[k]})"
+        for (b, p), k in zip(pairs.tolist(), sector.tolist(), strict=True)
+    ]
+    index[multi] = inverse.reshape(-1) + 1
+    return labels, index
 
 
 def _field_per_stratum(
@@ -669,14 +678,14 @@ def _cluster_texts(blocks, owner_all: np.ndarray, data: dict, opts: dict) -> dic
     for key in ("row", "plant", "units", "part"):
         data[key] = data[key].astype(np.int64, copy=False)
     # Multi-part blocks number rows per part: the text names the part first.
-    names = part_names(blocks, owner_all, data.pop("part"), which=owner_all)
-    fields = {**data, "part": names}
-    parts = _template_parts(opts["instructions"] or DEFAULT_INSTRUCTIONS, fields, n)
-    named = np.flatnonzero(names != "")
-    if not opts["instructions"] and named.size:
-        prefix = np.full(n, "", dtype=object)
-        prefix[named] = "In " + names[named] + " (count rows from that part's own edge): "
-        parts.insert(0, prefix)
+    labels, which = _part_labels(blocks, owner_all, data.pop("part"), which=owner_all)
+    template = opts["instructions"] or DEFAULT_INSTRUCTIONS
+    needs_part = any(name == "part" for _, name, _, _ in string.Formatter().parse(template))
+    fields = {**data, "part": take_text(labels, which) if needs_part and n else None}
+    parts = _template_parts(template, fields, n)
+    if not opts["instructions"] and len(labels) > 1:
+        prefixes = [""] + [f"In {label} (count rows from that part's own edge): " for label in labels[1:]]
+        parts.insert(0, take_text(prefixes, which))
     return {"instructions": join_text(parts, n)}
 
 

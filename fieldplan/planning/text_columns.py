@@ -17,7 +17,16 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-__all__ = ["is_text", "join_text", "repeat_text", "text_column", "text_dtype", "to_text", "zero_padded"]
+__all__ = [
+    "is_text",
+    "join_text",
+    "repeat_text",
+    "take_text",
+    "text_column",
+    "text_dtype",
+    "to_text",
+    "zero_padded",
+]
 
 
 @lru_cache(maxsize=1)
@@ -98,6 +107,16 @@ def repeat_text(value: str, n: int) -> Any:
     out = np.empty(n, dtype=object)
     out[:] = value
     return out
+
+
+def take_text(labels: list[str], index: np.ndarray) -> Any:
+    """The column ``labels[index]``: a few distinct strings spread over many rows."""
+    index = np.asarray(index, dtype=np.int64)
+    if _arrow():
+        import pyarrow as pa
+
+        return _wrap(pa.array(labels, type=_arrow_type()).take(pa.array(index)))
+    return np.asarray(labels, dtype=object)[index]
 
 
 def join_text(parts: list[Any], n: int) -> Any:
