@@ -76,3 +76,11 @@ def test_point_ids_number_points_within_their_block(mode, with_codes):
     width = max(3, len(str(int(counts.max()))))
     assert width == 4
     assert list(got) == [f"{b}-{str(c).zfill(width)}" for b, c in zip(block, counts, strict=True)]
+
+
+def test_sample_id_bytes_become_the_same_ids(mode):
+    # reference: make_sample_ids, the ids as Python strings
+    from fieldplan.samples.ids import make_sample_ids, sample_id_bytes
+
+    for n in (0, 1, 40, 31**3 + 2):
+        assert list(tc.to_text(sample_id_bytes(n, code="K7MQ"))) == make_sample_ids(n, code="K7MQ").tolist()

@@ -83,14 +83,31 @@ def to_text(values: Any) -> Any:
     Parameters
     ----------
     values : numpy.ndarray, pandas Series or array
-        Python strings (object array), integers, or a pandas text column.
+        Python strings (object array), integers, fixed-width ASCII byte strings
+        (each its full width, as :func:`fieldplan.samples.ids.sample_id_bytes` gives
+        them), or a pandas text column.
     """
     if isinstance(values, pd.Series):
         values = values.array
+    if isinstance(values, np.ndarray) and values.dtype.kind == "S":
+        return _ascii_text(values)
     if _arrow():
         return _wrap(_arrow_part(values, len(values)))
     arr = np.asarray(values)
     return (arr.astype(str) if arr.dtype.kind in "iu" else arr).astype(object)
+
+
+def _ascii_text(values: np.ndarray) -> Any:
+    """Fixed-width ASCII byte strings (``numpy.bytes_``, no padding) as text, without a Python string each."""
+    width = values.dtype.itemsize
+    if not _arrow() or not values.size:
+        return to_text(values.astype(f"<U{width}").astype(object))
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    data = pa.py_buffer(np.ascontiguousarray(values).view(np.uint8))
+    fixed = pa.FixedSizeBinaryArray.from_buffers(pa.binary(width), len(values), [None, data])
+    return _wrap(pc.cast(pc.cast(fixed, pa.binary()), _arrow_type()))
 
 
 def text_column(values: Any) -> Any:

@@ -42,6 +42,7 @@ __all__ = [
     "normalise_id",
     "plan_code",
     "make_sample_ids",
+    "sample_id_bytes",
     "round_sample_ids",
 ]
 
@@ -135,6 +136,14 @@ def make_sample_ids(n: int, *, code: str, serial_length: int | None = None) -> n
     serial_length : int, optional, keyword-only
         Digits of the serial; by default 3, more when ``n`` needs them.
     """
+    return _as_text(sample_id_bytes(n, code=code, serial_length=serial_length))
+
+
+def sample_id_bytes(n: int, *, code: str, serial_length: int | None = None) -> np.ndarray:
+    """:func:`make_sample_ids` as one fixed-width ASCII byte string per id (``numpy.bytes_``).
+
+    For building a text column without a Python string per id first.
+    """
     p = len(ALPHABET)
     code_values = np.asarray(_values(code, ALPHABET), dtype=np.int64)
     if serial_length is None:
@@ -146,23 +155,36 @@ def make_sample_ids(n: int, *, code: str, serial_length: int | None = None) -> n
     serial = np.arange(n, dtype=np.int64)
     digits = (serial[:, None] // p ** np.arange(serial_length - 1, -1, -1)) % p
     payload = np.hstack([np.broadcast_to(code_values, (n, len(code_values))), digits])
-    return _encode(payload, len(code_values))
+    return _encode_bytes(payload, len(code_values))
+
+
+def _as_text(ids: np.ndarray) -> np.ndarray:
+    """Python strings (an object array) of ASCII byte-string ids."""
+    if not ids.size:
+        return np.array([], dtype=object)
+    return ids.astype(f"<U{ids.dtype.itemsize}").astype(object)
 
 
 def _encode(payload: np.ndarray, head: int) -> np.ndarray:
     """Ids ``HEAD-TAIL`` + check character from an ``(n, k)`` array of character values."""
+    return _as_text(_encode_bytes(payload, head))
+
+
+def _encode_bytes(payload: np.ndarray, head: int) -> np.ndarray:
+    """:func:`_encode` as fixed-width ASCII byte strings."""
     p = len(ALPHABET)
     n, k = payload.shape
-    if n == 0:
-        return np.array([], dtype=object)
     # Horner's rule unrolled: payload char i carries weight radix**(k - i).
     weights = np.array([pow(RADIX, k - i, p) for i in range(k)], dtype=np.int64)
-    checks = (1 - payload @ weights) % p
-    chars = np.array(list(ALPHABET), dtype="<U1")[np.hstack([payload, checks[:, None]])]
-    # Viewing a row of one-character cells as one fixed-width string joins it without a loop.
-    first = np.ascontiguousarray(chars[:, :head]).view(f"<U{head}")
-    rest = np.ascontiguousarray(chars[:, head:]).view(f"<U{k + 1 - head}")
-    return np.char.add(np.char.add(first.ravel(), "-"), rest.ravel()).astype(object)
+    checks = (1 - payload @ weights) % p if n else np.zeros(0, dtype=np.int64)
+    # One byte per character, the hyphen after the head: each row read as one string.
+    letters = np.frombuffer(ALPHABET.encode("ascii"), dtype=np.uint8)
+    out = np.empty((n, k + 2), dtype=np.uint8)
+    out[:, :head] = letters[payload[:, :head]]
+    out[:, head] = ord("-")
+    out[:, head + 1 : k + 1] = letters[payload[:, head:]]
+    out[:, k + 1] = letters[checks]
+    return out.view(f"S{k + 2}").reshape(n)
 
 
 def round_sample_ids(sample_ids, round_no: int) -> np.ndarray:

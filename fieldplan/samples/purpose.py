@@ -17,7 +17,7 @@ import pandas as pd
 import shapely
 
 from fieldplan.errors import DesignError, OptionError
-from fieldplan.planning.text_columns import repeat_text, text_column
+from fieldplan.planning.text_columns import repeat_text, to_text
 from fieldplan.rng import stream
 from fieldplan.samples.cores import (
     DEFAULT_BUFFER_M,
@@ -28,7 +28,7 @@ from fieldplan.samples.cores import (
     usable_core_area,
     zigzag_cores,
 )
-from fieldplan.samples.ids import make_sample_ids, plan_code
+from fieldplan.samples.ids import make_sample_ids, plan_code, sample_id_bytes
 from fieldplan.samples.profiles import load_profile
 
 __all__ = [
@@ -566,7 +566,7 @@ def apply_purpose(
         ids = dict(zip(order, make_sample_ids(len(order), code=code), strict=True))
         points["sample_id"] = blocks.map(ids).to_numpy()
     else:
-        points["sample_id"] = text_column(make_sample_ids(len(points), code=code))
+        points["sample_id"] = to_text(sample_id_bytes(len(points), code=code))
     profile_notes: list[str] = []
     if profile is not None:
         points["per_sample"] = repeat_text(profile.units_text, len(points))
