@@ -28,7 +28,6 @@ import pandas as pd
 import shapely
 
 from fieldplan.design.allocation import ALLOCATION_METHODS, allocate
-from fieldplan.design.balanced import balanced_points
 from fieldplan.design.clusters import (
     RowSegments,
     block_row_segments,
@@ -38,7 +37,6 @@ from fieldplan.design.clusters import (
     eligible_plants,
     pick_plants_many,
 )
-from fieldplan.design.random import random_points
 from fieldplan.errors import DesignError, InputError, OptionError
 from fieldplan.field.spares import SELECTED, SPARE, order_draw
 from fieldplan.planning.text_columns import join_text, take_text, text_dtype, to_text
@@ -631,8 +629,12 @@ def _stratified(
         m = m[~gone[m]]
         poly = shapely.union_all(use[m]) if m.size > 1 else use[m[0]]
         if design == "random":
+            from fieldplan.design.random import random_points
+
             xy = random_points(poly, n_h, rng=rng)
         else:
+            from fieldplan.design.balanced import balanced_points
+
             # Enough lattice points to spread n points well, few enough to stay fast.
             cand = opts["candidates"] or int(np.clip(200 * n_h, 2_000, 20_000))
             xy = balanced_points(poly, n_h, rng=rng, candidates=int(cand)).points

@@ -29,7 +29,6 @@ from fieldplan.samples.cores import (
     zigzag_cores,
 )
 from fieldplan.samples.ids import make_sample_ids, plan_code, sample_id_bytes
-from fieldplan.samples.profiles import load_profile
 
 __all__ = [
     "apply_samples",
@@ -467,6 +466,8 @@ def resolve_purpose(
     else:
         out["depth_cm"] = parse_depth(depth)
     if purpose == "ripeness":
+        from fieldplan.samples.profiles import load_profile  # ripeness only: TOML profiles
+
         out["profile"] = load_profile(crop_profile or DEFAULT_PROFILE)
     return out
 
