@@ -616,13 +616,16 @@ def _stratified(
                 progress,
             )
         )
-    for h, stratum in enumerate(strata if design != "clusters" else ()):
+    # Each drawing stratum's generator, seeded for all strata at once (the same as stream()).
+    drawing = np.flatnonzero(counts > 0).tolist() if design != "clusters" else []
+    rngs = dict(zip(drawing, streams(seed, ("design",), [str(strata[h]) for h in drawing]), strict=True))
+    for h in range(len(strata)) if design != "clusters" else ():
         n_h = int(counts[h])
         if n_h == 0:
             if active[h]:
                 _add_flag(flags, members[h], "no points allocated to this stratum")
             continue
-        rng = stream(seed, "design", str(stratum))
+        rng = rngs[h]
         m = members[h]
         n_sel = n_h
         n_h = n_h + n_spares
