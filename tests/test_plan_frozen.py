@@ -103,3 +103,20 @@ def test_plan_points_match_the_frozen_plans(name):
 if __name__ == "__main__":
     if sys.argv[1:] == ["--write"]:
         _write()
+
+
+def test_plan_leaves_the_garbage_collector_as_it_found_it():
+    # common practice, no source: a library may pause the collector, never leave it changed
+    import gc
+
+    blocks, _ = _estate()
+    spec = PLANS["grid"][0]
+    assert gc.isenabled()
+    make_plan(blocks, spec, seed=1, command=["frozen"])
+    assert gc.isenabled()
+    gc.disable()
+    try:
+        make_plan(blocks, spec, seed=1, command=["frozen"])
+        assert not gc.isenabled()
+    finally:
+        gc.enable()
