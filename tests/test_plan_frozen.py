@@ -9,7 +9,8 @@ The estate (``blocks.geojson``, metric EPSG:32633) is 24 blocks of
 ``benchmarks.workloads.estate(24, seed=7, max_ha=3.0, hole_share=0.25, multi_share=0.25,
 vertices=24)`` (row spacings 2.2-3.2 m, plant spacings 0.9-1.6 m; coordinates to the mm) with
 holes and two-part blocks;
-``exclusions.geojson`` cuts circles out of eight of them.
+``exclusions.geojson`` cuts circles out of eight of them. Soil plans also keep their cores
+layer (``*-cores.csv``).
 """
 
 from __future__ import annotations
@@ -48,8 +49,15 @@ PLANS = {
     ),
     "grid": ({"design": "grid", "per_ha": 4, "edge_buffer": 2.0}, 1, True),
     "grid-soil": ({"design": "grid", "per_ha": 2, "purpose": "soil", "cores": 4}, 2, False),
+    "grid-soil-block": (
+        {"design": "grid", "per_ha": 2, "purpose": "soil", "composite": "block", "cores": 5},
+        4,
+        True,
+    ),
     "random": ({"design": "random", "per_block": 2, "spares": 1}, 9, True),
 }
+#: Soil plans whose cores layer is frozen too.
+CORES = ["grid-soil", "grid-soil-block"]
 
 
 def _estate():
@@ -64,11 +72,15 @@ def _dtype(dtype) -> str:
     return f"{dtype}[{storage}]" if storage else str(dtype)
 
 
-def _points(name: str) -> pd.DataFrame:
+def _plan(name: str):
     spec, seed, excluded = PLANS[name]
     blocks, exclusions = _estate()
-    plan = make_plan(blocks, spec, seed=seed, exclusions=exclusions if excluded else None, command=["frozen"])
-    points = plan.points
+    return make_plan(blocks, spec, seed=seed, exclusions=exclusions if excluded else None, command=["frozen"])
+
+
+def _points(name: str, layer: str | None = None) -> pd.DataFrame:
+    plan = _plan(name)
+    points = plan.points if layer is None else plan.layers[layer]
     xy = np.column_stack([points.geometry.x.to_numpy(), points.geometry.y.to_numpy()])
     table = pd.DataFrame(points.drop(columns=points.geometry.name))
     # Every bit of the coordinates: floats as their exact hexadecimal text.
@@ -84,20 +96,32 @@ def _write() -> None:
         table = _points(name)
         dtypes[name] = table.attrs["dtypes"]
         table.to_csv(DATA / f"{name}.csv", index=False)
+    for name in CORES:
+        table = _points(name, "cores")
+        dtypes[f"{name} cores"] = table.attrs["dtypes"]
+        table.to_csv(DATA / f"{name}-cores.csv", index=False)
     (DATA / "dtypes.json").write_text(json.dumps(dtypes, indent=1, sort_keys=True) + "\n")
 
 
-@pytest.mark.parametrize("name", list(PLANS))
-def test_plan_points_match_the_frozen_plans(name):
-    got = _points(name)
-    want = pd.read_csv(DATA / f"{name}.csv", dtype=str, keep_default_na=False)
+def _same_table(got: pd.DataFrame, file: str, key: str) -> None:
+    want = pd.read_csv(DATA / file, dtype=str, keep_default_na=False)
     assert list(got.columns) == list(want.columns)
     assert len(got) == len(want) > 0
     for column in want.columns:
         mine = ["" if pd.isna(v) else str(v) for v in got[column].tolist()]
         assert mine == want[column].tolist(), column
     # The writers see the same column types as before.
-    assert got.attrs["dtypes"] == json.loads((DATA / "dtypes.json").read_text())[name]
+    assert got.attrs["dtypes"] == json.loads((DATA / "dtypes.json").read_text())[key]
+
+
+@pytest.mark.parametrize("name", list(PLANS))
+def test_plan_points_match_the_frozen_plans(name):
+    _same_table(_points(name), f"{name}.csv", name)
+
+
+@pytest.mark.parametrize("name", CORES)
+def test_soil_cores_match_the_frozen_plans(name):
+    _same_table(_points(name, "cores"), f"{name}-cores.csv", f"{name} cores")
 
 
 if __name__ == "__main__":

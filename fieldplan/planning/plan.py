@@ -6,7 +6,6 @@
 
 from __future__ import annotations
 
-import gc
 import os
 import shlex
 import sys
@@ -28,7 +27,7 @@ from fieldplan.field.substitutes import SUBSTITUTES_LAYER, substitutes_layer
 from fieldplan.limits import check_point_budget
 from fieldplan.planning.grid import grid_design
 from fieldplan.planning.stratum_designs import STRATIFIED_DESIGNS, check_design_options, strata_labels
-from fieldplan.planning.text_columns import is_text, join_text, repeat_text, zero_padded
+from fieldplan.planning.text_columns import bulk_points, is_text, join_text, repeat_text, zero_padded
 from fieldplan.spec import PlanSpec, SpecDesignError, SpecError
 
 __all__ = ["Plan", "PlanSpec", "make_plan", "sample_areas", "DESIGNS", "DEFAULT_MAX_POINTS"]
@@ -161,22 +160,6 @@ def _point_ids(block_column: pd.Series, codes: np.ndarray | None = None) -> Any:
     counts[order] = np.arange(codes.size) - first + 1
     width = max(3, len(str(int(counts.max())))) if counts.size else 3
     return join_text([block_column.astype(str), "-", zero_padded(counts, width)], codes.size)
-
-
-def _bulk_points(x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """Point geometries, made with the cyclic garbage collector paused.
-
-    Every geometry is a collector-tracked object; tens of thousands of them in
-    a row set off dozens of collections (and with them, full ones) that find
-    nothing: points hold no reference cycles.
-    """
-    enabled = gc.isenabled()
-    gc.disable()
-    try:
-        return shapely.points(x, y)
-    finally:
-        if enabled:
-            gc.enable()
 
 
 def _column(series: pd.Series) -> Any:
@@ -432,7 +415,7 @@ def make_plan(
             "design": repeat_text(design, len(table)),
             **{c: _column(table[c]) for c in table.columns if c not in ("block", "x", "y")},
         },
-        geometry=_bulk_points(table["x"].to_numpy(), table["y"].to_numpy()),
+        geometry=bulk_points(table["x"].to_numpy(), table["y"].to_numpy()),
         crs=crs,
     )
     meta = {

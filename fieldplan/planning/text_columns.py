@@ -7,10 +7,15 @@ pandas' checks. Here a column is joined once, element by element, in Arrow when
 pandas keeps its text in Arrow (pandas 3 with pyarrow), and with one Python pass
 otherwise. Either way the column has the type pandas would give the same strings
 (so writers see the same frame), and the same text.
+
+:func:`bulk_points` makes a table's point geometries with the cyclic garbage
+collector paused: each geometry is a tracked object, and tens of thousands in a
+row set off collections (full ones too) that find nothing.
 """
 
 from __future__ import annotations
 
+import gc
 from functools import lru_cache
 from typing import Any
 
@@ -18,6 +23,7 @@ import numpy as np
 import pandas as pd
 
 __all__ = [
+    "bulk_points",
     "is_text",
     "join_text",
     "repeat_text",
@@ -182,3 +188,16 @@ def zero_padded(values: np.ndarray, width: int) -> Any:
         text = pc.cast(pa.array(values), _arrow_type())
         return _wrap(pc.utf8_lpad(text, width=width, padding="0"))
     return np.char.zfill(values.astype(str), width).astype(object)
+
+
+def bulk_points(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """:func:`shapely.points` of ``x``, ``y`` with the cyclic collector paused (points hold no cycles)."""
+    import shapely
+
+    enabled = gc.isenabled()
+    gc.disable()
+    try:
+        return shapely.points(np.asarray(x, dtype=float), np.asarray(y, dtype=float))
+    finally:
+        if enabled:
+            gc.enable()

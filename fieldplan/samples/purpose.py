@@ -17,7 +17,14 @@ import pandas as pd
 import shapely
 
 from fieldplan.errors import DesignError, OptionError
-from fieldplan.planning.text_columns import repeat_text, to_text
+from fieldplan.planning.text_columns import (
+    bulk_points,
+    join_text,
+    repeat_text,
+    take_text,
+    to_text,
+    zero_padded,
+)
 from fieldplan.rng import stream
 from fieldplan.samples.cores import (
     DEFAULT_BUFFER_M,
@@ -187,13 +194,20 @@ def core_status(cores: gpd.GeoDataFrame, points: pd.DataFrame) -> gpd.GeoDataFra
 
 
 def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
-    """Cores layer, points (moved where their cores needed it) and per-block notes for a soil plan."""
+    """Cores layer, points (moved where their cores needed it) and per-block notes for a soil plan.
+
+    Each block's cores are drawn from its own generator; the layer is assembled once
+    for all blocks (no frame per block).
+    """
     seed = plan.seed
     exclusions = _exclusion_geoms(plan)
-    frames, notes = [], {}
+    notes = {}
     xy_all = shapely.get_coordinates(points.geometry.values).copy()
     shift_all = np.zeros(len(points))
     groups = points.groupby(points["block"].astype(str), sort=False).indices
+    point_ids = points["point_id"].astype(str).to_numpy() if composite == "cell" else None
+    # Per block: the point each core's sample comes from, core numbers, positions, moves.
+    owner, number, xys, moved, block_of, names = [], [], [], [], [], []
     for row in plan.blocks.itertuples(index=False):
         block = str(row.block)
         if block not in groups:
@@ -203,47 +217,38 @@ def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
         if used < buffer_m:
             block_notes.append(f"cores: edge buffer cut to {used:g} m (block too small for {buffer_m:g} m)")
         idx = groups[block]
-        pts = points.iloc[idx]
         if composite == "cell":
             out = disc_composites(
                 xy_all[idx], n=n, radius=radius, area=area, rng=stream(seed, "cores", block)
             )
             xy_all[idx], shift_all[idx] = out.centres, out.shift_m
-            ids = pts["point_id"].astype(str).to_numpy()
-            block_notes += _move_notes(ids, out.shift_m, out.moved, radius)
-            frames.append(
-                _cores_frame(
-                    np.repeat(pts["sample_id"].to_numpy(), n),
-                    np.tile(np.arange(1, n + 1), len(pts)),
-                    block,
-                    np.repeat(pts["point_id"].to_numpy(), n),
-                    composite,
-                    depth,
-                    out.xy.reshape(-1, 2),
-                    out.moved.reshape(-1),
-                    plan.crs,
-                )
-            )
+            block_notes += _move_notes(point_ids[idx], out.shift_m, out.moved, radius)
+            owner.append(np.repeat(idx, n))
+            number.append(np.tile(np.arange(1, n + 1), len(idx)))
+            xys.append(out.xy.reshape(-1, 2))
+            moved.append(np.asarray(out.moved, dtype=np.int64).reshape(-1))
         else:
             xy = zigzag_cores(row.geometry, n=n, area=area, rng=stream(seed, "zone-cores", block))
-            frames.append(
-                _cores_frame(
-                    np.repeat(pts["sample_id"].iloc[0], n),
-                    np.arange(1, n + 1),
-                    block,
-                    np.repeat("", n),
-                    composite,
-                    depth,
-                    xy,
-                    np.zeros(n),
-                    plan.crs,
-                )
-            )
+            owner.append(np.repeat(idx[0], n))
+            number.append(np.arange(1, n + 1))
+            xys.append(np.asarray(xy, dtype=float).reshape(-1, 2))
+            moved.append(np.zeros(n, dtype=np.int64))
+        block_of.append(np.full(owner[-1].size, len(names), dtype=np.int64))
+        names.append(block)
         if block_notes:
             notes[block] = block_notes
-    if frames:
-        cores = pd.concat(frames, ignore_index=True)
-        cores = gpd.GeoDataFrame(cores, geometry="geometry", crs=plan.crs)
+    if owner:
+        cores = _cores_layer(
+            points,
+            np.concatenate(owner),
+            np.concatenate(number),
+            (names, np.concatenate(block_of)),
+            composite,
+            depth,
+            np.concatenate(xys),
+            np.concatenate(moved),
+            plan.crs,
+        )
     else:
         cores = _cores_frame([], [], [], [], [], [], np.empty((0, 2)), [], plan.crs)
     if composite == "cell":
@@ -255,6 +260,29 @@ def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
         # Metres the point moved so its cores fit in the allowed area (0 for most).
         points["moved_m"] = np.round(shift_all, 2)
     return core_status(cores, points), points, notes
+
+
+def _cores_layer(points, owner, core, blocks, composite, depth, xy, moved, crs) -> gpd.GeoDataFrame:
+    """:func:`_cores_frame` for many blocks at once, its text columns built whole.
+
+    ``owner`` is the row in ``points`` of each core's sample (its point for cell
+    composites; block composites have no point); ``blocks`` the block names and
+    each core's index into them.
+    """
+    size = owner.size
+    sample = to_text(points["sample_id"].astype(str).array.take(owner))
+    point = to_text(points["point_id"].astype(str).array.take(owner)) if composite == "cell" else None
+    columns = {
+        "core_id": join_text([sample, "-", zero_padded(core, 2)], size),
+        "sample_id": sample,
+        "core": np.asarray(core, dtype=np.int64),
+        "block": take_text(*blocks),
+        "point_id": point if point is not None else repeat_text("", size),
+        "composite": repeat_text(composite, size),
+        "depth_cm": repeat_text(depth, size),
+        "moved": np.asarray(moved, dtype=np.int64),
+    }
+    return gpd.GeoDataFrame(columns, geometry=bulk_points(xy[:, 0], xy[:, 1]), crs=crs)
 
 
 def field_cores(
