@@ -25,7 +25,7 @@ from fieldplan.planning.text_columns import (
     to_text,
     zero_padded,
 )
-from fieldplan.rng import stream
+from fieldplan.rng import stream, streams
 from fieldplan.samples.cores import (
     DEFAULT_BUFFER_M,
     DEFAULT_CORE_RADIUS_M,
@@ -208,19 +208,21 @@ def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
     point_ids = points["point_id"].astype(str).to_numpy() if composite == "cell" else None
     # Per block: the point each core's sample comes from, core numbers, positions, moves.
     owner, number, xys, moved, block_of, names = [], [], [], [], [], []
+    # Every block's own generator, seeded for all blocks at once (the same as stream()).
+    sampled = [b for b in plan.blocks["block"].astype(str).tolist() if b in groups]
+    rngs = iter(streams(seed, ("cores" if composite == "cell" else "zone-cores",), sampled))
     for row in plan.blocks.itertuples(index=False):
         block = str(row.block)
         if block not in groups:
             continue
+        rng = next(rngs)
         area, used = _block_core_area(block, row.geometry, exclusions, buffer_m)
         block_notes = []
         if used < buffer_m:
             block_notes.append(f"cores: edge buffer cut to {used:g} m (block too small for {buffer_m:g} m)")
         idx = groups[block]
         if composite == "cell":
-            out = disc_composites(
-                xy_all[idx], n=n, radius=radius, area=area, rng=stream(seed, "cores", block)
-            )
+            out = disc_composites(xy_all[idx], n=n, radius=radius, area=area, rng=rng)
             xy_all[idx], shift_all[idx] = out.centres, out.shift_m
             block_notes += _move_notes(point_ids[idx], out.shift_m, out.moved, radius)
             owner.append(np.repeat(idx, n))
@@ -228,7 +230,7 @@ def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
             xys.append(out.xy.reshape(-1, 2))
             moved.append(np.asarray(out.moved, dtype=np.int64).reshape(-1))
         else:
-            xy = zigzag_cores(row.geometry, n=n, area=area, rng=stream(seed, "zone-cores", block))
+            xy = zigzag_cores(row.geometry, n=n, area=area, rng=rng)
             owner.append(np.repeat(idx[0], n))
             number.append(np.arange(1, n + 1))
             xys.append(np.asarray(xy, dtype=float).reshape(-1, 2))
