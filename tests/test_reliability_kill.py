@@ -125,6 +125,20 @@ def test_stale_partial_from_dead_process_removed(tmp_path):
     assert (out / "manifest.json").read_text() == "{}"
 
 
+def test_stale_stages_of_a_folder_whose_name_extends_this_one_stay(tmp_path):
+    # Only this folder's stages are looked at (names starting ".plan."), yet "plan.v2" shares that
+    # start: its stage stays, this folder's stale ones go, in name order, and unrelated entries stay.
+    dead = 99999999  # above any Linux pid_max (2**22): not running
+    other = tmp_path / f".plan.v2.{dead}.abc.partial"
+    mine = [tmp_path / f".plan.{dead}.{tag}.partial" for tag in ("b2", "a1")]
+    for folder in (other, *mine):
+        folder.mkdir()
+    (tmp_path / "notes.txt").write_text("keep")
+    removed = clean_stale_stages(tmp_path / "plan")
+    assert removed == sorted(mine)
+    assert other.exists() and (tmp_path / "notes.txt").read_text() == "keep"
+
+
 def test_failing_writer_leaves_old_plan_and_no_stage(tmp_path, monkeypatch):
     import fieldplan.store as store
 

@@ -180,7 +180,10 @@ def clean_stale_stages(out_dir: Path) -> list[Path]:
         return []
     removed: list[Path] = []
     now = time.time()
-    for entry in sorted(parent.iterdir()):
+    # Only names that can be this folder's stages are sorted and checked: a busy parent (a home
+    # folder, /tmp) holds thousands of other entries that would cost more than the whole write.
+    prefix = f".{out_dir.name}."
+    for entry in sorted(parent / name for name in os.listdir(parent) if name.startswith(prefix)):
         match = _STAGE.match(entry.name)
         if match is None or match["name"] != out_dir.name or not entry.is_dir():
             continue
