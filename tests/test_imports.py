@@ -69,6 +69,8 @@ def test_core_plan_imports_only_its_own_command_module(tmp_path):
     assert _heavy(loaded, (*others, "fastapi", "uvicorn", "jinja2", "starlette", "rich")) == []
     # A plain GeoJSON of a few blocks is read without GDAL (fieldplan.read._read_plain_geojson).
     assert "pyogrio" not in loaded
+    # A grid plan allocates nothing over strata and draws no plant clusters.
+    assert _heavy(loaded, ("fieldplan.design.allocation", "fieldplan.design.clusters")) == []
 
 
 def test_help_lists_every_command_in_order_with_its_one_line_help():

@@ -22,25 +22,21 @@ from __future__ import annotations
 
 import string
 from collections.abc import Callable
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
 import shapely
 
-from fieldplan.design.allocation import ALLOCATION_METHODS, allocate
-from fieldplan.design.clusters import (
-    RowSegments,
-    block_row_segments,
-    block_rows_from_lines,
-    cluster_sizes,
-    concat_segments,
-    eligible_plants,
-    pick_plants_many,
-)
 from fieldplan.errors import DesignError, InputError, OptionError
 from fieldplan.field.spares import SELECTED, SPARE, order_draw
 from fieldplan.planning.text_columns import join_text, take_text, text_dtype, to_text
 from fieldplan.rng import stream, streams
+
+if TYPE_CHECKING:
+    from fieldplan.design.clusters import RowSegments
+
+# The allocation and plant-cluster modules are imported where used: a grid plan needs neither.
 
 __all__ = [
     "DEFAULT_INSTRUCTIONS",
@@ -123,6 +119,8 @@ def read_rows(path, *, crs):
 
 def check_design_options(design: str, options: dict) -> dict:
     """Validate the options of a stratified design; return them with defaults filled in."""
+    from fieldplan.design.allocation import ALLOCATION_METHODS
+
     opts = {
         "strata_by": None,
         "per_block": None,
@@ -324,6 +322,8 @@ def _row_models(blocks: pd.DataFrame, which: np.ndarray, clips: np.ndarray, rows
     Returns the segments, each segment's block (index into ``blocks``) and its row-model group
     (block and part).
     """
+    from fieldplan.design.clusters import block_row_segments, block_rows_from_lines
+
     geoms = np.asarray(blocks.geometry.values, dtype=object)[which]
     ps = _numeric(blocks, "plant_spacing_m")[which]
     if rows_frame is not None:
@@ -357,6 +357,8 @@ def _cluster_population(blocks, use, fallback, other, gone, opts, rows_frame, fl
     modelled : bool
         Whether any block had a row layout.
     """
+    from fieldplan.design.clusters import concat_segments, eligible_plants
+
     n = len(blocks)
     skips = {"skip_row_ends": opts["skip_row_ends"], "skip_border_rows": opts["skip_border_rows"]}
     ps = _numeric(blocks, "plant_spacing_m")
@@ -427,6 +429,8 @@ def _cluster_population(blocks, use, fallback, other, gone, opts, rows_frame, fl
 
 def _take(seg: RowSegments, index) -> RowSegments:
     """The segments at ``index`` (a mask or indices), keeping per-segment fields aligned."""
+    from fieldplan.design.clusters import RowSegments
+
 
     def pick(a):
         return None if a is None else (a[index] if np.ndim(a) else a)
@@ -452,6 +456,8 @@ def _cluster_draws(
 
     Returns the columns of the picks, stratum by stratum in draw order.
     """
+    from fieldplan.design.clusters import cluster_sizes, pick_plants_many
+
     seed = params["seed"]
     n_spares = int(params.get("spares") or 0)
     over = np.flatnonzero(counts > capacity)
@@ -753,6 +759,8 @@ def _active_sizes(
         if opts["cost_field"]
         else None
     )
+    from fieldplan.design.allocation import allocate
+
     result = allocate(
         int(opts["n"]),
         sizes=sizes,
