@@ -71,6 +71,8 @@ def test_core_plan_imports_only_its_own_command_module(tmp_path):
     assert "pyogrio" not in loaded
     # A grid plan allocates nothing over strata and draws no plant clusters.
     assert _heavy(loaded, ("fieldplan.design.allocation", "fieldplan.design.clusters")) == []
+    # A general-purpose plan takes no soil cores.
+    assert "fieldplan.samples.cores" not in loaded
 
 
 def test_help_lists_every_command_in_order_with_its_one_line_help():

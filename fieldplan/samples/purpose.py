@@ -26,15 +26,6 @@ from fieldplan.planning.text_columns import (
     zero_padded,
 )
 from fieldplan.rng import stream, streams
-from fieldplan.samples.cores import (
-    DEFAULT_BUFFER_M,
-    DEFAULT_CORE_RADIUS_M,
-    DEFAULT_CORES,
-    DEFAULT_DEPTH_CM,
-    disc_composites,
-    usable_core_area,
-    zigzag_cores,
-)
 from fieldplan.samples.ids import make_sample_ids, plan_code, sample_id_bytes
 
 __all__ = [
@@ -112,6 +103,8 @@ _SUBSTITUTE_CORE = "-S"  # core ids carry no "/": they become file names and URL
 def _block_core_area(block: str, geom, exclusions: np.ndarray, buffer_m: float):
     """Allowed area for a block's cores and the buffer actually used."""
     # Only exclusions within reach of this block can cut its allowed area.
+    from fieldplan.samples.cores import usable_core_area  # soil plans only
+
     near = exclusions[shapely.dwithin(exclusions, geom, 1.01 * buffer_m + 1.0)]
     try:
         return usable_core_area(geom, near, buffer_m=buffer_m)
@@ -199,6 +192,8 @@ def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
     Each block's cores are drawn from its own generator; the layer is assembled once
     for all blocks (no frame per block).
     """
+    from fieldplan.samples.cores import disc_composites, zigzag_cores
+
     seed = plan.seed
     exclusions = _exclusion_geoms(plan)
     notes = {}
@@ -307,6 +302,8 @@ def field_cores(
     notes : dict
         Per block, a line for each substitute (or core of one) that had to move.
     """
+    from fieldplan.samples.cores import disc_composites
+
     cores = plan.layers.get("cores")
     params = plan.params
     if cores is None or params.get("purpose") != "soil" or (params.get("composite") or "cell") != "cell":
@@ -477,6 +474,14 @@ def resolve_purpose(
     out = {"purpose": purpose, "cores": None, "core_radius_m": None, "composite": None}
     out.update(core_buffer_m=None, profile=None)
     if purpose == "soil":
+        # Soil cores only: other purposes never load fieldplan.samples.cores.
+        from fieldplan.samples.cores import (
+            DEFAULT_BUFFER_M,
+            DEFAULT_CORE_RADIUS_M,
+            DEFAULT_CORES,
+            DEFAULT_DEPTH_CM,
+        )
+
         n = DEFAULT_CORES if cores is None else int(cores)
         if not 1 <= n <= _MAX_CORES:
             raise OptionError(f"--cores must be between 1 and {_MAX_CORES}, got {cores}")
