@@ -12,6 +12,8 @@ import typer
 
 __all__ = [
     "handle_errors",
+    "mark_complete",
+    "is_complete",
     "progress_callback",
     "echo_err",
     "Force",
@@ -27,6 +29,22 @@ Seed = Annotated[
     typer.Option("--seed", min=0, help="Seed for every random choice; same inputs + seed = same plan."),
 ]
 Quiet = Annotated[bool, typer.Option("--quiet", "-q", help="Print only errors.")]
+
+
+# Set by a command once every file it wrote is complete, closed and synced (see mark_complete).
+_complete = False
+
+
+def mark_complete() -> None:
+    """Note that the command's work is all on disk: the console script may then end the process
+    without the interpreter's teardown (:func:`fieldplan.cli.main.run`)."""
+    global _complete
+    _complete = True
+
+
+def is_complete() -> bool:
+    """Whether :func:`mark_complete` was called in this process."""
+    return _complete
 
 
 def echo_err(message: str) -> None:

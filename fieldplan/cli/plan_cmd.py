@@ -19,7 +19,7 @@ from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 
-from fieldplan.cli.options import echo_err, handle_errors, progress_callback, report_replaced
+from fieldplan.cli.options import echo_err, handle_errors, mark_complete, progress_callback, report_replaced
 
 if TYPE_CHECKING:
     from fieldplan.planning.plan import Plan
@@ -270,6 +270,7 @@ def _plan(
         run_plan(
             blocks_file, spec, out=out, seed=seed, force=force, quiet=quiet, discard_history=discard_history
         )
+        mark_complete()  # the plan folder is written, synced and swapped into place
     except SpecError as err:
         # The library names parameters; here they are flags.
         raise OptionError(err.render(flag_of)) from None
