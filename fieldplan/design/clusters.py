@@ -790,6 +790,19 @@ def sample_ranks_many(totals, ns, rngs: list[np.random.Generator]) -> tuple[np.n
     return np.concatenate(chosen), np.repeat(np.arange(ns.size), ns)
 
 
+def _plant_xy(segments, seg: np.ndarray, within: np.ndarray) -> np.ndarray:
+    """Coordinates ``(n, 2)`` of plant ``within`` (counted from the segment's first plant) of
+    each segment ``seg``."""
+    spacing = np.asarray(segments.plant_spacing, dtype=float)
+    dist = segments.offset[seg] + within * (spacing if spacing.ndim == 0 else spacing[seg])
+    if segments.lines is None:
+        # Straight segments: the plant is a linear interpolation of the ends.
+        return straight_points(dist, segments.ends_at(seg), segments.length[seg])
+    return shapely.get_coordinates(shapely.line_interpolate_point(segments.lines_at(seg), dist)).reshape(
+        -1, 2
+    )
+
+
 def pick_plants(
     segments: RowSegments,
     n: int,
@@ -834,15 +847,7 @@ def pick_plants(
         )
     ranks = sample_ranks(total, n, rng=rng)
     seg, within = locate_ranks(np.asarray(eligible, dtype=np.int64), ranks, int(skip_row_ends))
-    spacing = np.asarray(segments.plant_spacing, dtype=float)
-    dist = segments.offset[seg] + within * (spacing if spacing.ndim == 0 else spacing[seg])
-    if segments.lines is None:
-        # Straight segments: the plant is a linear interpolation of the ends.
-        xy = straight_points(dist, segments.ends_at(seg), segments.length[seg])
-    else:
-        xy = shapely.get_coordinates(shapely.line_interpolate_point(segments.lines_at(seg), dist)).reshape(
-            -1, 2
-        )
+    xy = _plant_xy(segments, seg, within)
     return PlantPicks(
         row=segments.row[seg],
         plant=segments.first_plant[seg] + within,
@@ -906,14 +911,7 @@ def pick_plants_many(
     seg, within = locate_ranks(eligible, (np.cumsum(totals) - totals)[which] + ranks, int(skip_row_ends))
     if order is not None:
         seg = order[seg]
-    spacing = np.asarray(segments.plant_spacing, dtype=float)
-    dist = segments.offset[seg] + within * (spacing if spacing.ndim == 0 else spacing[seg])
-    if segments.lines is None:
-        xy = straight_points(dist, segments.ends_at(seg), segments.length[seg])
-    else:
-        xy = shapely.get_coordinates(shapely.line_interpolate_point(segments.lines_at(seg), dist)).reshape(
-            -1, 2
-        )
+    xy = _plant_xy(segments, seg, within)
     picks = PlantPicks(
         row=segments.row[seg],
         plant=segments.first_plant[seg] + within,
