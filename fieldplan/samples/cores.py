@@ -42,9 +42,11 @@ __all__ = [
     "CELL_HA",
     "core_area",
     "usable_core_area",
+    "usable_core_areas",
     "sunflower_offsets",
     "disc_cores",
     "disc_composites",
+    "disc_composites_many",
     "DiscComposites",
     "long_axis",
     "zigzag_cores",
@@ -110,6 +112,76 @@ def usable_core_area(block, exclusions=None, *, buffer_m: float = DEFAULT_BUFFER
         "the block has no room for soil cores once exclusions are removed; "
         "check the block outline and the exclusion polygons"
     )
+
+
+def usable_core_areas(blocks, exclusions=None, *, buffer_m: float = DEFAULT_BUFFER_M):
+    """:func:`usable_core_area` for many blocks at once.
+
+    Parameters
+    ----------
+    blocks : array-like of shapely geometries
+        In metres.
+    exclusions : array-like of shapely geometries, optional
+        Features to keep cores away from; each block is cut only by those within
+        reach of it.
+    buffer_m : float, keyword-only
+
+    Returns
+    -------
+    areas : ndarray of shapely geometries
+    used : ndarray of float
+        Buffer used per block (``< buffer_m`` for blocks too small for it).
+    failed : int
+        Index of the first block with no room at all, or -1.
+    """
+    if not buffer_m >= 0:
+        raise OptionError(f"--core-buffer must be zero or positive metres, got {buffer_m}")
+    blocks = np.asarray(blocks, dtype=object)
+    size = len(blocks)
+    # Exclusions within reach of each block, in their own order (pairs sorted by block, then exclusion).
+    near = None
+    if exclusions is not None and len(exclusions) and size:
+        exclusions = np.asarray(exclusions, dtype=object)
+        tree = shapely.STRtree(exclusions)
+        pair = tree.query(blocks, predicate="dwithin", distance=1.01 * buffer_m + 1.0)
+        order = np.lexsort((pair[1], pair[0]))
+        near = (pair[0][order], pair[1][order])
+    areas = np.empty(size, dtype=object)
+    used = np.full(size, np.nan)
+    todo = np.arange(size)
+    for buf in (buffer_m, buffer_m / 2, buffer_m / 4, buffer_m / 8, 0.0):
+        if len(todo) == 0:
+            break
+        area = _core_areas(blocks, todo, exclusions, near, buf)
+        ok = ~shapely.is_empty(area) & (shapely.area(area) > 1.0)
+        areas[todo[ok]] = area[ok]
+        used[todo[ok]] = buf
+        todo = todo[~ok]
+    return areas, used, int(todo[0]) if len(todo) else -1
+
+
+def _core_areas(blocks, which, exclusions, near, buffer_m: float) -> np.ndarray:
+    """:func:`core_area` of ``blocks[which]``, ``near`` pairing blocks with exclusions in reach."""
+    reach = buffer_m / math.cos(math.pi / (4 * _QUAD_SEGS))
+    area = (
+        shapely.buffer(blocks[which], -reach, quad_segs=_QUAD_SEGS) if buffer_m > 0 else blocks[which].copy()
+    )
+    if near is None:
+        return area
+    pos = np.full(len(blocks), -1)
+    pos[which] = np.arange(len(which))
+    keep = pos[near[0]] >= 0
+    block, excl = near[0][keep], near[1][keep]
+    if len(block) == 0:
+        return area
+    grown = shapely.buffer(exclusions[np.unique(excl)], reach, quad_segs=_QUAD_SEGS)
+    grown = grown[np.searchsorted(np.unique(excl), excl)]
+    # One union per block with exclusions in reach, of exactly those exclusions.
+    cut, start = np.unique(block, return_index=True)
+    unions = np.array([shapely.union_all(part) for part in np.split(grown, start[1:])], dtype=object)
+    at = pos[cut]
+    area[at] = shapely.difference(area[at], unions)
+    return area
 
 
 def sunflower_offsets(n: int, rotation) -> np.ndarray:
@@ -216,38 +288,99 @@ def disc_composites(
     if not radius > 0:
         raise OptionError(f"--core-radius must be positive metres, got {radius}")
     given = np.asarray(centres, dtype=float).reshape(-1, 2)
+    if len(given) == 0:
+        return DiscComposites(np.empty((0, n, 2)), np.zeros((0, n), bool), given.copy(), np.zeros(0))
+    areas = np.array([area], dtype=object)
+    return disc_composites_many(given, np.zeros(len(given), dtype=np.int64), areas, [rng], n=n, radius=radius)
+
+
+def disc_composites_many(
+    centres: np.ndarray,
+    block_of: np.ndarray,
+    areas: np.ndarray,
+    rngs,
+    *,
+    n: int = DEFAULT_CORES,
+    radius: float = DEFAULT_CORE_RADIUS_M,
+) -> DiscComposites:
+    """:func:`disc_composites` for the points of many blocks at once.
+
+    Parameters
+    ----------
+    centres : ndarray, shape (m, 2)
+        Plan points, grouped by block (``block_of`` never decreases).
+    block_of : ndarray of int, shape (m,)
+        Each point's index into ``areas`` and ``rngs``.
+    areas : ndarray of shapely geometries
+        Allowed area of each block.
+    rngs : sequence of numpy.random.Generator
+        Each block's own generator; a block draws from it exactly what
+        :func:`disc_composites` on that block alone would draw.
+    n, radius : keyword-only
+        As for :func:`disc_composites`.
+    """
+    if not radius > 0:
+        raise OptionError(f"--core-radius must be positive metres, got {radius}")
+    given = np.asarray(centres, dtype=float).reshape(-1, 2)
+    block_of = np.asarray(block_of, dtype=np.int64)
     m = len(given)
     if m == 0:
         return DiscComposites(np.empty((0, n, 2)), np.zeros((0, n), bool), given.copy(), np.zeros(0))
-    shapely.prepare(area)
+    shapely.prepare(areas)
+    blocks, counts = np.unique(block_of, return_counts=True)
     centres = given.copy()
-    outside = ~shapely.contains_xy(area, centres[:, 0], centres[:, 1])
+    outside = ~shapely.contains_xy(areas[block_of], centres[:, 0], centres[:, 1])
     if outside.any():
-        deep = shapely.buffer(area, -radius / 2)
-        centres[outside] = _nearest_inside(centres[outside], area if shapely.is_empty(deep) else deep)
-    rotation = rng.uniform(0.0, 2.0 * math.pi, size=m)
+        hit = np.unique(block_of[outside])
+        deep = shapely.buffer(areas[hit], -radius / 2)
+        inner = np.where(shapely.is_empty(deep), areas[hit], deep)
+        centres[outside] = _nearest_inside_each(
+            centres[outside], inner, np.searchsorted(hit, block_of[outside])
+        )
+    rotation = np.concatenate(
+        [rngs[b].uniform(0.0, 2.0 * math.pi, size=k) for b, k in zip(blocks, counts, strict=True)]
+    )
     xy = centres[:, None, :] + radius * sunflower_offsets(n, rotation)
     flat = xy.reshape(-1, 2)
-    bad = np.flatnonzero(~shapely.contains_xy(area, flat[:, 0], flat[:, 1]))
+    core_area_of = areas[np.repeat(block_of, n)]
+    bad = np.flatnonzero(~shapely.contains_xy(core_area_of, flat[:, 0], flat[:, 1]))
     for _ in range(_REDRAWS):
         if len(bad) == 0:
             break
-        r = radius * np.sqrt(rng.random(len(bad)))
-        theta = rng.uniform(0.0, 2.0 * math.pi, size=len(bad))
+        # Each block with cores to re-draw takes its radii, then its angles, from its own generator.
+        who, start, k = np.unique(block_of[bad // n], return_index=True, return_counts=True)
+        r = np.empty(len(bad))
+        theta = np.empty(len(bad))
+        for b, i, c in zip(who, start, k, strict=True):
+            r[i : i + c] = radius * np.sqrt(rngs[b].random(c))
+            theta[i : i + c] = rngs[b].uniform(0.0, 2.0 * math.pi, size=c)
         owner = centres[bad // n]
         flat[bad] = owner + np.column_stack([r * np.cos(theta), r * np.sin(theta)])
-        bad = bad[~shapely.contains_xy(area, flat[bad, 0], flat[bad, 1])]
+        bad = bad[~shapely.contains_xy(core_area_of[bad], flat[bad, 0], flat[bad, 1])]
     moved = np.zeros(m * n, dtype=bool)
     if len(bad):
         owners = np.unique(bad // n)
         # The allowed part of each disc (a little inside it, so the core stays within the radius).
         discs = shapely.buffer(shapely.points(centres[owners]), radius - _INSET_M, quad_segs=_QUAD_SEGS)
-        allowed = shapely.intersection(discs, area)
+        allowed = shapely.intersection(discs, areas[block_of[owners]])
         target = allowed[np.searchsorted(owners, bad // n)]
         flat[bad] = _nearest_in_each(flat[bad], target, centres[bad // n])
         moved[bad] = True
     shift = np.hypot(*(centres - given).T)
     return DiscComposites(flat.reshape(m, n, 2), moved.reshape(m, n), centres, shift)
+
+
+def _nearest_inside_each(xy: np.ndarray, areas: np.ndarray, which: np.ndarray) -> np.ndarray:
+    """:func:`_nearest_inside` of each point ``xy[i]`` in ``areas[which[i]]``."""
+    inner = shapely.buffer(areas, -_INSET_M)
+    target = np.where(shapely.is_empty(inner), areas, inner)
+    lines = shapely.shortest_line(shapely.points(xy), target[which])
+    moved = shapely.get_coordinates(lines).reshape(-1, 2, 2)[:, 1, :]
+    still = ~shapely.contains_xy(areas[which], moved[:, 0], moved[:, 1])
+    if still.any():
+        spot = shapely.get_coordinates(shapely.point_on_surface(target[np.unique(which[still])]))
+        moved[still] = spot[np.searchsorted(np.unique(which[still]), which[still])]
+    return moved
 
 
 def _nearest_in_each(xy: np.ndarray, targets: np.ndarray, fallback: np.ndarray) -> np.ndarray:

@@ -189,63 +189,33 @@ def core_status(cores: gpd.GeoDataFrame, points: pd.DataFrame) -> gpd.GeoDataFra
 def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
     """Cores layer, points (moved where their cores needed it) and per-block notes for a soil plan.
 
-    Each block's cores are drawn from its own generator; the layer is assembled once
-    for all blocks (no frame per block).
+    Each block's cores are drawn from its own generator; the allowed areas, the
+    discs and the layer are made once for all blocks (no geometry work per block).
     """
-    from fieldplan.samples.cores import disc_composites, zigzag_cores
-
-    seed = plan.seed
-    exclusions = _exclusion_geoms(plan)
-    notes = {}
     xy_all = shapely.get_coordinates(points.geometry.values).copy()
     shift_all = np.zeros(len(points))
     groups = points.groupby(points["block"].astype(str), sort=False).indices
-    point_ids = points["point_id"].astype(str).to_numpy() if composite == "cell" else None
-    # Per block: the point each core's sample comes from, core numbers, positions, moves.
-    owner, number, xys, moved, block_of, names = [], [], [], [], [], []
-    # Every block's own generator, seeded for all blocks at once (the same as stream()).
-    sampled = [b for b in plan.blocks["block"].astype(str).tolist() if b in groups]
-    rngs = iter(streams(seed, ("cores" if composite == "cell" else "zone-cores",), sampled))
-    for row in plan.blocks.itertuples(index=False):
-        block = str(row.block)
-        if block not in groups:
-            continue
-        rng = next(rngs)
-        area, used = _block_core_area(block, row.geometry, exclusions, buffer_m)
-        block_notes = []
-        if used < buffer_m:
-            block_notes.append(f"cores: edge buffer cut to {used:g} m (block too small for {buffer_m:g} m)")
-        idx = groups[block]
-        if composite == "cell":
-            out = disc_composites(xy_all[idx], n=n, radius=radius, area=area, rng=rng)
-            xy_all[idx], shift_all[idx] = out.centres, out.shift_m
-            block_notes += _move_notes(point_ids[idx], out.shift_m, out.moved, radius)
-            owner.append(np.repeat(idx, n))
-            number.append(np.tile(np.arange(1, n + 1), len(idx)))
-            xys.append(out.xy.reshape(-1, 2))
-            moved.append(np.asarray(out.moved, dtype=np.int64).reshape(-1))
-        else:
-            xy = zigzag_cores(row.geometry, n=n, area=area, rng=rng)
-            owner.append(np.repeat(idx[0], n))
-            number.append(np.arange(1, n + 1))
-            xys.append(np.asarray(xy, dtype=float).reshape(-1, 2))
-            moved.append(np.zeros(n, dtype=np.int64))
-        block_of.append(np.full(owner[-1].size, len(names), dtype=np.int64))
-        names.append(block)
-        if block_notes:
-            notes[block] = block_notes
-    if owner:
-        cores = _cores_layer(
+    names_all = plan.blocks["block"].astype(str).tolist()
+    take = [i for i, b in enumerate(names_all) if b in groups]
+    names = [names_all[i] for i in take]
+    notes = {}
+    if names:
+        geoms = np.asarray(plan.blocks.geometry.values, dtype=object)[take]
+        drawn = _draw_cores(
+            plan,
             points,
-            np.concatenate(owner),
-            np.concatenate(number),
-            (names, np.concatenate(block_of)),
-            composite,
-            depth,
-            np.concatenate(xys),
-            np.concatenate(moved),
-            plan.crs,
+            names,
+            geoms,
+            [groups[b] for b in names],
+            xy_all,
+            shift_all,
+            n=n,
+            radius=radius,
+            composite=composite,
+            buffer_m=buffer_m,
         )
+        owner, number, xys, moved, block_of, notes = drawn
+        cores = _cores_layer(points, owner, number, (names, block_of), composite, depth, xys, moved, plan.crs)
     else:
         cores = _cores_frame([], [], [], [], [], [], np.empty((0, 2)), [], plan.crs)
     if composite == "cell":
@@ -257,6 +227,65 @@ def _soil_cores(plan, points, *, n, radius, composite, buffer_m, depth):
         # Metres the point moved so its cores fit in the allowed area (0 for most).
         points["moved_m"] = np.round(shift_all, 2)
     return core_status(cores, points), points, notes
+
+
+def _draw_cores(plan, points, names, geoms, idxs, xy_all, shift_all, *, n, radius, composite, buffer_m):
+    """Cores of the sampled blocks ``names`` (outlines ``geoms``, point rows ``idxs``).
+
+    Moves the cell composites' centres in ``xy_all`` and ``shift_all`` in place.
+    Returns the rows of :func:`_cores_layer` (owner, core number, block index,
+    positions, moved) and the per-block notes.
+    """
+    from fieldplan.samples.cores import disc_composites_many, usable_core_areas, zigzag_cores
+
+    # Every block's own generator, seeded for all blocks at once (the same as stream()).
+    rngs = list(streams(plan.seed, ("cores" if composite == "cell" else "zone-cores",), names))
+    # Allowed areas of all sampled blocks in one pass; smaller buffers only where needed.
+    areas, used, failed = usable_core_areas(geoms, _exclusion_geoms(plan), buffer_m=buffer_m)
+    if failed >= 0:
+        raise DesignError(
+            f"block {names[failed]}: the block has no room for soil cores once exclusions are removed; "
+            "check the block outline and the exclusion polygons"
+        )
+    block_notes = [[] for _ in names]
+    for k in np.flatnonzero(used < buffer_m):
+        block_notes[k].append(
+            f"cores: edge buffer cut to {float(used[k]):g} m (block too small for {buffer_m:g} m)"
+        )
+    counts = np.array([len(i) for i in idxs], dtype=np.int64)
+    if composite == "cell":
+        point_ids = points["point_id"].astype(str).to_numpy()
+        order = np.concatenate(idxs)
+        point_block = np.repeat(np.arange(len(names), dtype=np.int64), counts)
+        out = disc_composites_many(xy_all[order], point_block, areas, rngs, n=n, radius=radius)
+        xy_all[order], shift_all[order] = out.centres, out.shift_m
+        # Notes only for the blocks where a point or a core moved.
+        busy = np.unique(point_block[(out.shift_m > 0.005) | out.moved.any(axis=1)])
+        ends = np.cumsum(counts)
+        for k in busy:
+            part = slice(ends[k] - counts[k], ends[k])
+            block_notes[k] += _move_notes(point_ids[idxs[k]], out.shift_m[part], out.moved[part], radius)
+        owner = np.repeat(order, n)
+        number = np.tile(np.arange(1, n + 1), len(order))
+        block_of = np.repeat(point_block, n)
+        xys = out.xy.reshape(-1, 2)
+        moved = np.asarray(out.moved, dtype=np.int64).reshape(-1)
+    else:
+        # One composite per block: a traverse each (a handful of blocks per zone plan).
+        xys = np.concatenate(
+            [
+                np.asarray(zigzag_cores(geoms[k], n=n, area=areas[k], rng=rngs[k]), dtype=float).reshape(
+                    -1, 2
+                )
+                for k in range(len(names))
+            ]
+        )
+        owner = np.repeat([idx[0] for idx in idxs], n)
+        number = np.tile(np.arange(1, n + 1), len(names))
+        block_of = np.repeat(np.arange(len(names), dtype=np.int64), n)
+        moved = np.zeros(n * len(names), dtype=np.int64)
+    notes = {name: these for name, these in zip(names, block_notes, strict=True) if these}
+    return owner, number, xys, moved, block_of, notes
 
 
 def _cores_layer(points, owner, core, blocks, composite, depth, xy, moved, crs) -> gpd.GeoDataFrame:
