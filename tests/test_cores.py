@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 import shapely
 
-from fieldplan.errors import OptionError
+from fieldplan.errors import DesignError, OptionError
 from fieldplan.plan import make_plan
 from fieldplan.samples.cores import (
     CELL_HA,
@@ -20,10 +20,12 @@ from fieldplan.samples.cores import (
     DEFAULT_CORES,
     DEFAULT_DEPTH_CM,
     disc_composites,
+    disc_composites_many,
     disc_cores,
     long_axis,
     sunflower_offsets,
     usable_core_area,
+    usable_core_areas,
     zigzag_cores,
 )
 from fieldplan.samples.outputs import write_cores_geojson
@@ -367,3 +369,83 @@ def test_substitute_gets_its_own_cores_and_the_old_ones_are_retired(tmp_path, mo
     assert len(back.layers["cores"]) == len(cores)
     mark_points(folder, [edge, inner], action="restore")
     assert (folder / "cores.geojson").read_bytes() == planned
+
+
+def _many_blocks():
+    """Blocks of every kind the buffers treat differently: roomy, too small for 30 m, heaped, holed."""
+    return np.array(
+        [
+            square,
+            shapely.box(E0, N0 + 800, E0 + 61, N0 + 861),  # room only at 15 m
+            shapely.box(E0, N0 + 400, E0 + 40, N0 + 430),  # room only at 7.5 m or less
+            shapely.affinity.translate(concave, 600),
+            shapely.affinity.translate(with_hole, 0, -600),
+            shapely.affinity.translate(multipart, 1200),
+            shapely.box(E0, N0 - 180, E0 + 400, N0 - 118),  # a strip under 2 m wide left at 30 m
+        ],
+        dtype=object,
+    )
+
+
+@pytest.mark.parametrize("buffer_m", [0.0, 12.0, 30.0])
+def test_core_areas_of_many_blocks_are_those_of_each_block(buffer_m):
+    # reference: shapely.to_wkb of usable_core_area on each block alone (the same GEOS operations,
+    # one geometry at a time): the one-pass areas and fallback buffers match to the bit.
+    blocks = _many_blocks()
+    excl = np.concatenate([EXCLUSIONS, [shapely.Point(E0 + 620, N0 + 40).buffer(8)]])
+    areas, used, failed = usable_core_areas(blocks, excl, buffer_m=buffer_m)
+    assert failed == -1
+    for k, block in enumerate(blocks):
+        near = excl[shapely.dwithin(excl, block, 1.01 * buffer_m + 1.0)]
+        area, buf = usable_core_area(block, near, buffer_m=buffer_m)
+        assert used[k] == buf
+        assert shapely.to_wkb(areas[k]) == shapely.to_wkb(area)
+    if buffer_m == 30.0:
+        assert used[1] == 15.0 and used[2] < 15.0  # the small blocks fall back, the others keep 30 m
+        assert (used[[0, 3, 4, 5, 6]] == 30.0).all()
+
+
+def test_core_areas_name_the_first_block_without_room():
+    # reference: usable_core_area raises for a block covered by an exclusion
+    blocks = np.array([square, shapely.box(E0, N0 + 400, E0 + 40, N0 + 430), square], dtype=object)
+    cover = np.array([shapely.box(E0 - 5, N0 + 395, E0 + 45, N0 + 435)], dtype=object)
+    _, _, failed = usable_core_areas(blocks, cover, buffer_m=30)
+    assert failed == 1
+    with pytest.raises(DesignError):
+        usable_core_area(blocks[1], cover, buffer_m=30)
+
+
+def test_cores_of_many_blocks_are_those_of_each_block():
+    # reference: disc_composites on each block alone with its own generator: drawing all
+    # blocks in one pass gives the same cores, moves and centres to the bit, also for
+    # centres in the buffer strip and cores re-drawn or moved within their disc.
+    blocks = _many_blocks()
+    areas, _, _ = usable_core_areas(blocks, EXCLUSIONS, buffer_m=30)
+    centres, block_of = [], []
+    for k, block in enumerate(blocks):
+        # Points of a 23 m grid inside the block (many in its buffer strip); none in block 2.
+        x0, y0, x1, y1 = shapely.bounds(block)
+        gx, gy = np.meshgrid(np.arange(x0 + 3, x1, 23.0), np.arange(y0 + 2, y1, 23.0))
+        grid = np.column_stack([gx.ravel(), gy.ravel()])
+        xy = grid[shapely.contains_xy(block, grid[:, 0], grid[:, 1])] if k != 2 else np.empty((0, 2))
+        centres.append(xy)
+        block_of.append(np.full(len(xy), k))
+    seeds = [np.random.SeedSequence(100 + k) for k in range(len(blocks))]
+    out = disc_composites_many(
+        np.concatenate(centres),
+        np.concatenate(block_of),
+        areas,
+        [np.random.default_rng(s) for s in seeds],
+        n=16,
+        radius=25,
+    )
+    assert out.moved.any() and (out.shift_m > 0).any()  # the hard cases are exercised
+    at = 0
+    for k in range(len(blocks)):
+        one = disc_composites(centres[k], n=16, radius=25, area=areas[k], rng=np.random.default_rng(seeds[k]))
+        part = slice(at, at + len(centres[k]))
+        at += len(centres[k])
+        assert np.array_equal(out.xy[part], one.xy)
+        assert np.array_equal(out.moved[part], one.moved)
+        assert np.array_equal(out.centres[part], one.centres)
+        assert np.array_equal(out.shift_m[part], one.shift_m)
