@@ -11,6 +11,7 @@ modules are present (``routes``, ``validity``).
 from __future__ import annotations
 
 import argparse
+import gc
 import importlib
 import inspect
 import json
@@ -59,10 +60,17 @@ def run_studies(names: list[str], *, smoke: bool = False, log=print) -> tuple[li
     for name in names:
         t0 = time.perf_counter()
         log(f"[bench] {name} ...")
-        if name in STUDIES:
-            results.extend(STUDIES[name](smoke=smoke))
-        else:
-            results.extend(_run_external(name, smoke=smoke))
+        # What earlier studies left alive would otherwise be scanned by every collection of
+        # this one (a study making many small objects, like the map, is charged for it).
+        gc.collect()
+        gc.freeze()
+        try:
+            if name in STUDIES:
+                results.extend(STUDIES[name](smoke=smoke))
+            else:
+                results.extend(_run_external(name, smoke=smoke))
+        finally:
+            gc.unfreeze()
         seconds[name] = round(time.perf_counter() - t0, 2)
         log(f"[bench] {name} done in {seconds[name]:.1f} s")
     return results, seconds
