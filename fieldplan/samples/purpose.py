@@ -25,7 +25,7 @@ from fieldplan.planning.text_columns import (
     to_text,
     zero_padded,
 )
-from fieldplan.rng import stream, streams
+from fieldplan.rng import streams
 from fieldplan.samples.ids import make_sample_ids, plan_code, sample_id_bytes
 
 __all__ = [
@@ -98,18 +98,6 @@ _CORE_COLUMNS = ["core_id", "sample_id", "core", "block", "point_id", "composite
 _ACTIVE = ("selected", "replacement", "substitute")
 #: Substitute cores are numbered S01, S02, ... after their sample id, apart from the retired ones.
 _SUBSTITUTE_CORE = "-S"  # core ids carry no "/": they become file names and URLs
-
-
-def _block_core_area(block: str, geom, exclusions: np.ndarray, buffer_m: float):
-    """Allowed area for a block's cores and the buffer actually used."""
-    # Only exclusions within reach of this block can cut its allowed area.
-    from fieldplan.samples.cores import usable_core_area  # soil plans only
-
-    near = exclusions[shapely.dwithin(exclusions, geom, 1.01 * buffer_m + 1.0)]
-    try:
-        return usable_core_area(geom, near, buffer_m=buffer_m)
-    except DesignError as err:
-        raise DesignError(f"block {block}: {err}") from None
 
 
 def _ids_text(ids) -> str:
@@ -331,7 +319,7 @@ def field_cores(
     notes : dict
         Per block, a line for each substitute (or core of one) that had to move.
     """
-    from fieldplan.samples.cores import disc_composites
+    from fieldplan.samples.cores import disc_composites_many, usable_core_areas
 
     cores = plan.layers.get("cores")
     params = plan.params
@@ -364,34 +352,43 @@ def field_cores(
         new_xy = xy.copy()
         if "moved_m" in points.columns:
             points["moved_m"] = points["moved_m"].astype(float)
-        # Substitutes are few (one per point given up): one stream per substitute id.
-        for j, i in enumerate(need):
-            row = points.iloc[i]
-            pid, block = str(row["point_id"]), str(row["block"])
-            area, _ = _block_core_area(block, geoms[block], exclusions, buffer_m)
-            out = disc_composites(
-                xy[j : j + 1], n=n, radius=radius, area=area, rng=stream(plan.seed, "substitute-cores", pid)
+        pids = points["point_id"].astype(str).to_numpy()[need]
+        blocks = points["block"].astype(str).to_numpy()[need]
+        # Each block's allowed area once, blocks in the order their first substitute comes.
+        names = pd.unique(blocks)
+        block_areas, _, failed = usable_core_areas(
+            np.array([geoms[b] for b in names], dtype=object), exclusions, buffer_m=buffer_m
+        )
+        if failed >= 0:
+            raise DesignError(
+                f"block {names[failed]}: the block has no room for soil cores once exclusions are removed; "
+                "check the block outline and the exclusion polygons"
             )
-            new_xy[j] = out.centres[0]
-            moved_notes = _move_notes(np.array([pid]), out.shift_m, out.moved, radius)
-            if moved_notes:
-                notes.setdefault(block, []).extend(moved_notes)
-            if "moved_m" in points.columns:
-                points.iloc[i, points.columns.get_loc("moved_m")] = round(float(out.shift_m[0]), 2)
-            frames.append(
-                _cores_frame(
-                    np.repeat(row["sample_id"], n),
-                    np.arange(1, n + 1),
-                    block,
-                    np.repeat(pid, n),
-                    "cell",
-                    depth,
-                    out.xy[0],
-                    out.moved[0],
-                    plan.crs,
-                    prefix=_SUBSTITUTE_CORE,
-                )
+        areas = block_areas[pd.Index(names).get_indexer(blocks)]
+        # One stream per substitute id; all substitutes drawn in one pass, each as if alone.
+        rngs = streams(plan.seed, ("substitute-cores",), list(pids))
+        out = disc_composites_many(xy, np.arange(len(need)), areas, rngs, n=n, radius=radius)
+        new_xy[:] = out.centres
+        for j in np.flatnonzero((out.shift_m > 0.005) | out.moved.any(axis=1)):
+            moved_notes = _move_notes(pids[j : j + 1], out.shift_m[j : j + 1], out.moved[j : j + 1], radius)
+            notes.setdefault(blocks[j], []).extend(moved_notes)
+        if "moved_m" in points.columns:
+            col = points.columns.get_loc("moved_m")
+            points.iloc[need, col] = [round(float(d), 2) for d in out.shift_m]
+        frames.append(
+            _cores_frame(
+                np.repeat(points["sample_id"].to_numpy()[need], n),
+                np.tile(np.arange(1, n + 1), len(need)),
+                np.repeat(blocks, n),
+                np.repeat(pids, n),
+                "cell",
+                depth,
+                out.xy.reshape(-1, 2),
+                out.moved.reshape(-1),
+                plan.crs,
+                prefix=_SUBSTITUTE_CORE,
             )
+        )
         geom = np.asarray(points.geometry.values, dtype=object).copy()
         geom[need] = shapely.points(new_xy[:, 0], new_xy[:, 1])
         points[points.geometry.name] = gpd.array.from_shapely(geom, crs=points.crs)
