@@ -160,12 +160,17 @@ def core_status(cores: gpd.GeoDataFrame, points: pd.DataFrame) -> gpd.GeoDataFra
     cores = cores.drop(columns=[c for c in ("status",) if c in cores.columns])
     if "status" not in points.columns or not len(cores):
         return cores
-    status = dict(
-        zip(points["point_id"].astype(str), points["status"].fillna("selected").astype(str), strict=True)
-    )
-    own = cores["point_id"].astype(str).map(status).fillna("")
+    ids = pd.Index(points["point_id"].astype(str))
+    status = points["status"].fillna("selected").astype(str).to_numpy(dtype=object)
+    core_point = cores["point_id"].astype(str)
+    if ids.is_unique:
+        # Each core's point looked up once for all cores (no per-core dictionary look-up).
+        at = ids.get_indexer(core_point)
+        own = pd.Series(np.where(at >= 0, status[at], ""), index=cores.index, dtype=object)
+    else:
+        own = core_point.map(dict(zip(ids, status, strict=True))).fillna("")
     out = np.where(
-        own.isin(_ACTIVE) | (cores["point_id"].astype(str) == ""),
+        own.isin(_ACTIVE) | (core_point == ""),
         "active",
         np.where(own == "spare", "spare", "retired"),
     )
@@ -338,7 +343,7 @@ def field_cores(
     base = cores[~cores["core_id"].astype(str).str.contains(_SUBSTITUTE_CORE, regex=False)]
     base = base.drop(columns=[c for c in ("status",) if c in base.columns])
     status = points["status"].astype(str) if "status" in points.columns else pd.Series("", index=points.index)
-    has_cores = points["point_id"].astype(str).isin(set(base["point_id"].astype(str)))
+    has_cores = points["point_id"].astype(str).isin(base["point_id"].astype(str).unique())
     need = np.flatnonzero(((status == "substitute") & ~has_cores).to_numpy())
     frames: list = [base]
     notes: dict[str, list[str]] = {}
