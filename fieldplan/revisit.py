@@ -103,7 +103,7 @@ def revisit_plan(
         With ``revisit_changed="refuse"``, when a site is now outside its block,
         in an exclusion, or its block is gone (the message names the sites).
     """
-    from fieldplan.planning.plan import Plan, _utc_now, sample_areas
+    from fieldplan.planning.plan import Plan, run_record, sample_areas
     from fieldplan.planning.stratum_designs import strata_labels
     from fieldplan.samples.purpose import apply_samples
 
@@ -183,26 +183,13 @@ def revisit_plan(
         template = spec.clusters.instructions or DEFAULT_INSTRUCTIONS
         points["instructions"] = format_instructions(template, points)
 
-    import shlex
-    import sys
-
-    from fieldplan import __version__
-
+    notes = [
+        *blocks.attrs.get("notes", []),
+        f"revisit of the plan {previous.params.get('plan_id', '')} (seed {previous.params.get('seed')}): "
+        f"{len(points)} of its {len(sites)} sites kept",
+    ]
     meta = {
-        "fieldplan_version": __version__,
-        "command": shlex.join(command if command is not None else sys.argv),
-        "seed": int(seed),
-        "input_file": blocks.attrs.get("source"),
-        "input_sha256": blocks.attrs.get("sha256"),
-        "crs": crs.to_string(),
-        "crs_name": crs.name,
-        "created_utc": _utc_now(),
-        "counts": {"blocks": int(len(out_blocks)), "points": int(len(points))},
-        "notes": [
-            *blocks.attrs.get("notes", []),
-            f"revisit of the plan {previous.params.get('plan_id', '')} (seed {previous.params.get('seed')}): "
-            f"{len(points)} of its {len(sites)} sites kept",
-        ],
+        **run_record(blocks, out_blocks, points, crs, seed=seed, command=command, notes=notes),
         "previous_plan_id": previous.params.get("plan_id"),
     }
     identity = {**spec.identity(), "seed": int(seed), "previous_plan_id": previous.params.get("plan_id")}

@@ -246,6 +246,32 @@ def _as_spec(spec: PlanSpec | Mapping | None, options: dict) -> tuple[PlanSpec, 
     return PlanSpec.from_dict(spec), None
 
 
+def run_record(
+    blocks: gpd.GeoDataFrame,
+    out_blocks: gpd.GeoDataFrame,
+    points: gpd.GeoDataFrame,
+    crs: CRS,
+    *,
+    seed: int,
+    command: list[str] | None,
+    notes: list,
+) -> dict:
+    """What the manifest records of a run: version, command, seed, input file, CRS, time,
+    counts and notes (``make_plan`` and ``plan --revisit`` both)."""
+    return {
+        "fieldplan_version": __version__,
+        "command": shlex.join(command if command is not None else sys.argv),
+        "seed": int(seed),
+        "input_file": blocks.attrs.get("source"),
+        "input_sha256": blocks.attrs.get("sha256"),
+        "crs": crs.to_string(),
+        "crs_name": crs.name,
+        "created_utc": _utc_now(),
+        "counts": {"blocks": int(len(out_blocks)), "points": int(len(points))},
+        "notes": list(notes),
+    }
+
+
 def make_plan(
     blocks: gpd.GeoDataFrame,
     spec: PlanSpec | dict | None = None,
@@ -418,18 +444,15 @@ def make_plan(
         geometry=bulk_points(table["x"].to_numpy(), table["y"].to_numpy()),
         crs=crs,
     )
-    meta = {
-        "fieldplan_version": __version__,
-        "command": shlex.join(command if command is not None else sys.argv),
-        "seed": int(seed),
-        "input_file": blocks.attrs.get("source"),
-        "input_sha256": blocks.attrs.get("sha256"),
-        "crs": crs.to_string(),
-        "crs_name": crs.name,
-        "created_utc": _utc_now(),
-        "counts": {"blocks": int(len(out_blocks)), "points": int(len(points))},
-        "notes": list(blocks.attrs.get("notes", [])) + list(table.attrs.get("notes", [])),
-    }
+    meta = run_record(
+        blocks,
+        out_blocks,
+        points,
+        crs,
+        seed=seed,
+        command=command,
+        notes=[*blocks.attrs.get("notes", []), *table.attrs.get("notes", [])],
+    )
     # The plan's code (in every sample id) comes from what decides the points only,
     # so the engine or the output formats never change the ids.
     identity = {**spec.identity(), "seed": int(seed)}
