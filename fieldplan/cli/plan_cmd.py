@@ -337,7 +337,7 @@ def run_plan(
     from fieldplan.planning.stratum_designs import read_rows
     from fieldplan.read import read_blocks, read_exclusions, select_blocks
     from fieldplan.safety import load_cautions, set_cautions
-    from fieldplan.samples.purpose import resolve_purpose
+    from fieldplan.samples.purpose import check_samples
     from fieldplan.store import write_plan
     from fieldplan.write.safe import check_out_dir
 
@@ -346,21 +346,12 @@ def run_plan(
     cautions = Path(spec.outputs.cautions) if spec.outputs.cautions else None
     if cautions is not None:
         load_cautions(cautions)  # a bad cautions file fails before any work
-    samples = spec.samples
-    resolve_purpose(  # a missing crop profile fails before any work
-        purpose=samples.purpose,
-        cores=samples.cores,
-        core_radius=samples.core_radius,
-        composite=samples.composite,
-        depth=samples.depth,
-        crop_profile=samples.crop_profile,
-        core_buffer=samples.core_buffer,
-    )
+    check_samples(spec.samples)  # a missing crop profile fails before any work
     check_engine(spec.scale.engine, spec.scale.scheduler)  # a missing dask fails before any work
     previous = None
     read_options = {
         **spec.input.read_options(),
-        "crop_profile": samples.crop_profile,
+        "crop_profile": spec.samples.crop_profile,
         "max_blocks": spec.scale.max_blocks,
         "overlaps": spec.input.overlaps,
     }

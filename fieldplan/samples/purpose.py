@@ -30,6 +30,7 @@ from fieldplan.samples.ids import make_sample_ids, plan_code, sample_id_bytes
 
 __all__ = [
     "apply_samples",
+    "check_samples",
     "PURPOSES",
     "COMPOSITES",
     "DEFAULT_PROFILE",
@@ -538,6 +539,25 @@ def resolve_purpose(
     return out
 
 
+def _sample_options(samples) -> dict:
+    """The purpose options of a plan specification's samples section, as keywords."""
+    return {
+        "purpose": samples.purpose,
+        "cores": samples.cores,
+        "core_radius": samples.core_radius,
+        "composite": samples.composite,
+        "depth": samples.depth,
+        "crop_profile": samples.crop_profile,
+        "core_buffer": samples.core_buffer,
+    }
+
+
+def check_samples(samples) -> dict:
+    """:func:`resolve_purpose` on a plan specification's samples section: a bad option (a
+    missing crop profile, say) fails before any design work."""
+    return resolve_purpose(**_sample_options(samples))
+
+
 def apply_samples(plan, samples):
     """:func:`apply_purpose` with the options of a plan specification's samples section.
 
@@ -547,16 +567,7 @@ def apply_samples(plan, samples):
     samples : fieldplan.spec.SampleSpec
         ``spec.samples`` of the plan's specification.
     """
-    return apply_purpose(
-        plan,
-        purpose=samples.purpose,
-        cores=samples.cores,
-        core_radius=samples.core_radius,
-        composite=samples.composite,
-        depth=samples.depth,
-        crop_profile=samples.crop_profile,
-        core_buffer=samples.core_buffer,
-    )
+    return apply_purpose(plan, **_sample_options(samples))
 
 
 def apply_purpose(

@@ -267,19 +267,10 @@ def plan_from_upload(
     from fieldplan.engine import check_engine
     from fieldplan.plan import make_plan
     from fieldplan.safety import set_cautions
-    from fieldplan.samples.purpose import resolve_purpose
+    from fieldplan.samples.purpose import check_samples
 
     spec = build_spec(params)
-    samples = spec.samples
-    resolve_purpose(
-        purpose=samples.purpose,
-        cores=samples.cores,
-        core_radius=samples.core_radius,
-        composite=samples.composite,
-        depth=samples.depth,
-        crop_profile=samples.crop_profile,
-        core_buffer=samples.core_buffer,
-    )
+    check_samples(spec.samples)  # a missing crop profile fails before any work
     check_engine(spec.scale.engine, spec.scale.scheduler)
     if exclusions is not None:
         # The plan records its exclusions file as the CLI does (by the name it was given), so the
